@@ -1,0 +1,429 @@
+"""Soil (and snow) layer geometry: node depths, interfaces and thicknesses.
+
+Everything here is plain numpy. Depths are in metres and positive downward from the ground
+surface. A :class:`Layers` holds, per layer, the depth of its top and bottom interfaces and of
+its node (the depth at which the model carries the layer's temperature). The constructors
+accept depths as a file or a layout gives them: in metres, centimetres or millimetres, and
+positive downward or upward (heights, that is negative depths).
+
+No published formula is used in this module; the constructions below are definitions, stated
+in each docstring.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from initgen.errors import InputError
+
+__all__ = ["Layers", "split_snow_soil", "units_to_metres"]
+
+#: Spellings accepted for the ``units`` argument, mapped to the factor that converts to metres.
+_UNIT_FACTORS = {
+    "m": 1.0,
+    "meter": 1.0,
+    "meters": 1.0,
+    "metre": 1.0,
+    "metres": 1.0,
+    "cm": 1.0e-2,
+    "centimeter": 1.0e-2,
+    "centimeters": 1.0e-2,
+    "centimetre": 1.0e-2,
+    "centimetres": 1.0e-2,
+    "mm": 1.0e-3,
+    "millimeter": 1.0e-3,
+    "millimeters": 1.0e-3,
+    "millimetre": 1.0e-3,
+    "millimetres": 1.0e-3,
+}
+
+
+def units_to_metres(units: str, *, name: str = "units") -> float:
+    """Return the factor that converts a length in `units` to metres.
+
+    Parameters
+    ----------
+    units : str
+        ``'m'``, ``'cm'`` or ``'mm'``, or a spelling such as ``'meters'``, ``'metres'``,
+        ``'centimeters'`` (case and surrounding blanks are ignored).
+    name : str, optional
+        Name of the argument or variable the units belong to, used in error messages.
+
+    Returns
+    -------
+    float
+        Metres per unit (1.0, 0.01 or 0.001).
+
+    Raises
+    ------
+    InputError
+        If the spelling is not recognised.
+    """
+    key = str(units).strip().lower() if units is not None else ""
+    try:
+        return _UNIT_FACTORS[key]
+    except KeyError:
+        raise InputError(
+            f"{name}: unknown depth units {units!r}; use 'm', 'cm' or 'mm' "
+            "(or a spelling such as 'meters', 'centimetres')"
+        ) from None
+
+
+def _as_1d(values, name: str) -> np.ndarray:
+    """Return `values` as a new 1-D float64 array (masked entries become NaN)."""
+    if isinstance(values, np.ma.MaskedArray):
+        values = np.ma.filled(values.astype(np.float64), np.nan)
+    try:
+        arr = np.array(values, dtype=np.float64)
+    except (TypeError, ValueError):
+        raise InputError(f"{name}: depths must be numbers; got {values!r}") from None
+    if arr.ndim != 1:
+        raise InputError(
+            f"{name}: expected a 1-D sequence of depths, got an array of shape {arr.shape}"
+        )
+    if arr.size == 0:
+        raise InputError(f"{name}: no depths given; give at least one layer")
+    bad = np.flatnonzero(~np.isfinite(arr))
+    if bad.size:
+        i = int(bad[0])
+        raise InputError(
+            f"{name}: value at index {i} is not finite ({arr[i]}); "
+            "fill in every depth (missing values are not allowed)"
+        )
+    return arr
+
+
+def _to_depth_m(values, units: str, positive: str | None, name: str) -> np.ndarray:
+    """Convert user depths to metres, positive downward.
+
+    ``positive=None`` means auto-detect: values that are all <= 0 with at least one < 0 are
+    taken as heights (positive upward) and negated; anything else is taken as depths.
+    """
+    raw = _as_1d(values, name)
+    arr = raw * units_to_metres(units, name=name)
+    if positive is None:
+        up = bool(np.all(arr <= 0.0) and np.any(arr < 0.0))
+    else:
+        p = str(positive).strip().lower()
+        if p not in ("down", "up"):
+            raise InputError(
+                f"{name}: positive={positive!r} is not understood; use 'down' (depths) or "
+                "'up' (heights, negative below the surface)"
+            )
+        up = p == "up"
+        if up and np.any(arr > 0.0):
+            i = int(np.flatnonzero(arr > 0.0)[0])
+            raise InputError(
+                f"{name}: positive='up' but the value at index {i} is above the surface "
+                f"({raw[i]:g} {units}); give heights <= 0 or use positive='down'"
+            )
+    if up:
+        arr = -arr
+    # -0.0 -> 0.0 so that round trips compare equal and print cleanly
+    return arr + 0.0
+
+
+def _check_increasing(arr: np.ndarray, name: str, what: str = "depth") -> None:
+    """Raise InputError naming the first index where `arr` does not strictly increase."""
+    if arr.size < 2:
+        return
+    bad = np.flatnonzero(np.diff(arr) <= 0.0)
+    if bad.size:
+        i = int(bad[0]) + 1
+        raise InputError(
+            f"{name}: {what} at index {i} ({arr[i]:g} m) is not below the {what} at index "
+            f"{i - 1} ({arr[i - 1]:g} m); give {what}s strictly increasing downward "
+            "(or set positive='up' for heights)"
+        )
+
+
+@dataclass(frozen=True, eq=False)
+class Layers:
+    """Vertical geometry of a stack of layers, depth positive down, in metres.
+
+    Parameters
+    ----------
+    top_m : numpy.ndarray
+        Depth of each layer's upper interface, shape ``(n,)``.
+    bottom_m : numpy.ndarray
+        Depth of each layer's lower interface, shape ``(n,)``.
+    node_m : numpy.ndarray
+        Depth of each layer's node (where the model carries its state), shape ``(n,)``.
+
+    Notes
+    -----
+    The arrays are copied to float64 and made read-only. Validation: all finite, tops >= 0,
+    thickness ``bottom - top`` > 0, tops and nodes strictly increasing, each node within its
+    layer, and layers do not overlap (``bottom[i] <= top[i+1]``, with a relative tolerance
+    of 1e-9 for rounding). Errors are :class:`~initgen.errors.InputError`.
+
+    Two ``Layers`` compare equal when all three arrays are equal element by element.
+    """
+
+    top_m: np.ndarray
+    bottom_m: np.ndarray
+    node_m: np.ndarray
+
+    def __post_init__(self) -> None:
+        arrays = {}
+        for field in ("top_m", "bottom_m", "node_m"):
+            arr = _as_1d(getattr(self, field), f"Layers.{field}")
+            arr.setflags(write=False)
+            arrays[field] = arr
+        top, bottom, node = arrays["top_m"], arrays["bottom_m"], arrays["node_m"]
+        if not (top.shape == bottom.shape == node.shape):
+            raise InputError(
+                f"Layers: top_m, bottom_m and node_m must have the same length; got "
+                f"{top.size}, {bottom.size} and {node.size}"
+            )
+        _validate_geometry(top, bottom, node, "Layers")
+        for field, arr in arrays.items():
+            object.__setattr__(self, field, arr)
+
+    # ------------------------------------------------------------------ properties
+    @property
+    def thickness_m(self) -> np.ndarray:
+        """Layer thickness ``bottom_m - top_m`` in metres, shape ``(n,)``."""
+        out = self.bottom_m - self.top_m
+        out.setflags(write=False)
+        return out
+
+    @property
+    def n(self) -> int:
+        """Number of layers."""
+        return int(self.node_m.size)
+
+    @property
+    def interfaces_m(self) -> np.ndarray:
+        """The ``n + 1`` interface depths ``[top_m[0], bottom_m[0], ..., bottom_m[-1]]``.
+
+        Only meaningful for contiguous layers (``bottom[i] == top[i+1]``), which every
+        constructor of this module produces.
+        """
+        out = np.concatenate([self.top_m[:1], self.bottom_m])
+        out.setflags(write=False)
+        return out
+
+    def __len__(self) -> int:
+        return self.n
+
+    def __eq__(self, other: object) -> bool:
+        if not isinstance(other, Layers):
+            return NotImplemented
+        return bool(
+            np.array_equal(self.top_m, other.top_m)
+            and np.array_equal(self.bottom_m, other.bottom_m)
+            and np.array_equal(self.node_m, other.node_m)
+        )
+
+    def __hash__(self) -> int:
+        return hash((self.top_m.tobytes(), self.bottom_m.tobytes(), self.node_m.tobytes()))
+
+    def __repr__(self) -> str:
+        return (
+            f"Layers(n={self.n}, top_m={self.top_m.tolist()}, bottom_m={self.bottom_m.tolist()}, "
+            f"node_m={self.node_m.tolist()})"
+        )
+
+    # ------------------------------------------------------------------ constructors
+    @classmethod
+    def from_nodes(
+        cls, nodes, *, units: str = "m", positive: str | None = None, name: str = "nodes"
+    ) -> "Layers":
+        """Build layers from node depths alone.
+
+        Construction (a definition, not a published formula): the top of the first layer is
+        the surface (0 m); each interior interface lies halfway between two consecutive nodes,
+        ``z_{i+1/2} = (z_i + z_{i+1}) / 2``; the bottom of the last layer is extrapolated
+        symmetrically so that the last node sits at the middle of its layer,
+        ``bottom = 2 z_{n-1} - z_{n-3/2}`` (for a single node, ``bottom = 2 z_0``).
+
+        Parameters
+        ----------
+        nodes : array_like
+            Node depths, shape ``(n,)``, strictly increasing downward; the first must be
+            below the surface (> 0).
+        units : str, optional
+            Units of `nodes`: ``'m'`` (default), ``'cm'``, ``'mm'`` or a spelling such as
+            ``'meters'``.
+        positive : {'down', 'up', None}, optional
+            ``'down'``: values are depths; ``'up'``: values are heights (<= 0 below the
+            surface) and are negated. ``None`` (default): auto-detect, values that are all
+            <= 0 (and not all zero) are taken as heights.
+        name : str, optional
+            Name of the variable or recipe key the values came from, used in error messages.
+
+        Returns
+        -------
+        Layers
+
+        Raises
+        ------
+        InputError
+            Non-finite values, unknown units, depths not strictly increasing (the message
+            gives the index), or a first node at or above the surface.
+        """
+        z = _to_depth_m(nodes, units, positive, name)
+        _check_increasing(z, name, "node depth")
+        if z[0] <= 0.0:
+            raise InputError(
+                f"{name}: the first node (index 0, {z[0]:g} m) must be below the surface "
+                "(> 0) so that the first layer can start at 0 m; give node depths, not "
+                "interface depths (use from_interfaces for those)"
+            )
+        interior = 0.5 * (z[:-1] + z[1:])
+        top = np.concatenate([[0.0], interior])
+        bottom = np.concatenate([interior, [2.0 * z[-1] - top[-1]]])
+        return cls(top, bottom, z)
+
+    @classmethod
+    def from_interfaces(
+        cls, interfaces, *, units: str = "m", positive: str | None = None,
+        name: str = "interfaces",
+    ) -> "Layers":
+        """Build layers from the ``n + 1`` interface depths; nodes at the layer mid-points.
+
+        Parameters
+        ----------
+        interfaces : array_like
+            Interface depths, shape ``(n + 1,)``, strictly increasing downward and >= 0
+            (usually starting at 0).
+        units, positive, name
+            As for :meth:`from_nodes`.
+
+        Returns
+        -------
+        Layers
+            With ``node_m = (top_m + bottom_m) / 2``.
+
+        Raises
+        ------
+        InputError
+            Fewer than two values, non-finite values, unknown units, depths not strictly
+            increasing (the message gives the index) or a negative first depth.
+        """
+        z = _to_depth_m(interfaces, units, positive, name)
+        if z.size < 2:
+            raise InputError(
+                f"{name}: need at least two interface depths (top and bottom of one layer), "
+                f"got {z.size}"
+            )
+        _check_increasing(z, name, "interface depth")
+        if z[0] < 0.0:
+            raise InputError(
+                f"{name}: the first interface (index 0, {z[0]:g} m) is above the surface; "
+                "give depths >= 0 (snow layers belong on their own axis, see split_snow_soil)"
+            )
+        return cls(z[:-1], z[1:], 0.5 * (z[:-1] + z[1:]))
+
+    @classmethod
+    def from_thicknesses(
+        cls, thickness, *, units: str = "m", positive: str | None = None,
+        name: str = "thickness",
+    ) -> "Layers":
+        """Build layers by stacking thicknesses downward from the surface (0 m).
+
+        Interfaces are the cumulative sums ``[0, t_0, t_0 + t_1, ...]``; nodes are at the
+        layer mid-points.
+
+        Parameters
+        ----------
+        thickness : array_like
+            Layer thicknesses, shape ``(n,)``, each > 0. Files whose vertical axis points up
+            sometimes store them negative: those are accepted with ``positive='up'`` or when
+            all values are negative (auto-detection).
+        units, positive, name
+            As for :meth:`from_nodes`.
+
+        Returns
+        -------
+        Layers
+
+        Raises
+        ------
+        InputError
+            Non-finite values, unknown units, or a thickness <= 0 (the message gives the
+            index).
+        """
+        t = _to_depth_m(thickness, units, positive, name)
+        bad = np.flatnonzero(t <= 0.0)
+        if bad.size:
+            i = int(bad[0])
+            raise InputError(
+                f"{name}: thickness at index {i} is {t[i]:g} m; every layer must be thicker "
+                "than 0"
+            )
+        interfaces = np.concatenate([[0.0], np.cumsum(t)])
+        return cls(interfaces[:-1], interfaces[1:], 0.5 * (interfaces[:-1] + interfaces[1:]))
+
+
+def _validate_geometry(top: np.ndarray, bottom: np.ndarray, node: np.ndarray, name: str) -> None:
+    """Check a stack of layers; raise InputError naming `name` and the offending index."""
+    if top[0] < 0.0:
+        raise InputError(
+            f"{name}: top of layer 0 is above the surface ({top[0]:g} m); depths must be >= 0"
+        )
+    thick = bottom - top
+    bad = np.flatnonzero(thick <= 0.0)
+    if bad.size:
+        i = int(bad[0])
+        raise InputError(
+            f"{name}: layer {i} has thickness {thick[i]:g} m (top {top[i]:g}, bottom "
+            f"{bottom[i]:g}); every layer must be thicker than 0"
+        )
+    _check_increasing(top, f"{name} (top_m)", "top depth")
+    _check_increasing(node, f"{name} (node_m)", "node depth")
+    outside = np.flatnonzero((node < top) | (node > bottom))
+    if outside.size:
+        i = int(outside[0])
+        raise InputError(
+            f"{name}: node of layer {i} ({node[i]:g} m) lies outside the layer "
+            f"[{top[i]:g}, {bottom[i]:g}] m; check the node and interface depths"
+        )
+    if top.size > 1:
+        tol = 1e-9 * np.maximum(np.abs(bottom[:-1]), 1.0)
+        overlap = np.flatnonzero(bottom[:-1] > top[1:] + tol)
+        if overlap.size:
+            i = int(overlap[0]) + 1
+            raise InputError(
+                f"{name}: layer {i} starts at {top[i]:g} m, above the bottom of layer {i - 1} "
+                f"({bottom[i - 1]:g} m); layers must not overlap"
+            )
+
+
+def split_snow_soil(n_snow: int, n_total: int) -> tuple[slice, slice]:
+    """Index slices of the snow and soil parts of a combined snow + soil layer axis.
+
+    Some models keep snow and soil layers on one vertical axis, snow stacked above the soil:
+    the first `n_snow` entries are snow (top of the pack first) and the rest are soil (from
+    the surface down).
+
+    Parameters
+    ----------
+    n_snow : int
+        Number of snow layers at the start of the axis (>= 0).
+    n_total : int
+        Length of the combined axis (>= n_snow).
+
+    Returns
+    -------
+    (slice, slice)
+        ``(snow, soil)`` = ``(slice(0, n_snow), slice(n_snow, n_total))``. The soil slice is
+        empty when ``n_snow == n_total``.
+
+    Raises
+    ------
+    InputError
+        If either count is not a non-negative integer or ``n_snow > n_total``.
+    """
+    for key, val in (("n_snow", n_snow), ("n_total", n_total)):
+        if isinstance(val, bool) or not isinstance(val, (int, np.integer)) or val < 0:
+            raise InputError(f"{key}: must be a non-negative integer layer count, got {val!r}")
+    if n_snow > n_total:
+        raise InputError(
+            f"n_snow: {n_snow} snow layers do not fit on an axis of {n_total} layers; "
+            "check the layout's snow and soil layer counts"
+        )
+    return slice(0, int(n_snow)), slice(int(n_snow), int(n_total))
