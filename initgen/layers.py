@@ -98,27 +98,25 @@ def _as_1d(values, name: str) -> np.ndarray:
 def _to_depth_m(values, units: str, positive: str | None, name: str) -> np.ndarray:
     """Convert user depths to metres, positive downward.
 
-    ``positive=None`` means auto-detect: values that are all <= 0 with at least one < 0 are
-    taken as heights (positive upward) and negated; anything else is taken as depths.
+    Values that are all <= 0 with at least one < 0 are heights (positive upward) whatever
+    `positive` says, since soil depths cannot lie above the surface: they are negated.
+    ``positive='up'`` with any value > 0 is an error.
     """
     raw = _as_1d(values, name)
     arr = raw * units_to_metres(units, name=name)
-    if positive is None:
-        up = bool(np.all(arr <= 0.0) and np.any(arr < 0.0))
-    else:
-        p = str(positive).strip().lower()
-        if p not in ("down", "up"):
-            raise InputError(
-                f"{name}: positive={positive!r} is not understood; use 'down' (depths) or "
-                "'up' (heights, negative below the surface)"
-            )
-        up = p == "up"
-        if up and np.any(arr > 0.0):
-            i = int(np.flatnonzero(arr > 0.0)[0])
-            raise InputError(
-                f"{name}: positive='up' but the value at index {i} is above the surface "
-                f"({raw[i]:g} {units}); give heights <= 0 or use positive='down'"
-            )
+    p = "down" if positive is None else str(positive).strip().lower()
+    if p not in ("down", "up"):
+        raise InputError(
+            f"{name}: positive={positive!r} is not understood; use 'down' (depths) or "
+            "'up' (heights, negative below the surface)"
+        )
+    up = p == "up" or bool(np.all(arr <= 0.0) and np.any(arr < 0.0))
+    if p == "up" and np.any(arr > 0.0):
+        i = int(np.flatnonzero(arr > 0.0)[0])
+        raise InputError(
+            f"{name}: positive='up' but the value at index {i} is above the surface "
+            f"({raw[i]:g} {units}); give heights <= 0 or use positive='down'"
+        )
     if up:
         arr = -arr
     # -0.0 -> 0.0 so that round trips compare equal and print cleanly
@@ -230,7 +228,7 @@ class Layers:
     # ------------------------------------------------------------------ constructors
     @classmethod
     def from_nodes(
-        cls, nodes, *, units: str = "m", positive: str | None = None, name: str = "nodes"
+        cls, nodes, *, units: str = "m", positive: str | None = "down", name: str = "nodes"
     ) -> "Layers":
         """Build layers from node depths alone.
 
@@ -248,10 +246,12 @@ class Layers:
         units : str, optional
             Units of `nodes`: ``'m'`` (default), ``'cm'``, ``'mm'`` or a spelling such as
             ``'meters'``.
-        positive : {'down', 'up', None}, optional
-            ``'down'``: values are depths; ``'up'``: values are heights (<= 0 below the
-            surface) and are negated. ``None`` (default): auto-detect, values that are all
-            <= 0 (and not all zero) are taken as heights.
+        positive : {'down', 'up'}, optional
+            ``'down'`` (default): values are depths; ``'up'``: values are heights (<= 0 below
+            the surface) and are negated. Auto-detection: values that are all <= 0 (and not
+            all zero) are taken as heights whatever `positive` says, since soil depths cannot
+            lie above the surface (files often store depths as negative heights without a
+            ``positive`` attribute). ``None`` is accepted as ``'down'``.
         name : str, optional
             Name of the variable or recipe key the values came from, used in error messages.
 
@@ -280,7 +280,7 @@ class Layers:
 
     @classmethod
     def from_interfaces(
-        cls, interfaces, *, units: str = "m", positive: str | None = None,
+        cls, interfaces, *, units: str = "m", positive: str | None = "down",
         name: str = "interfaces",
     ) -> "Layers":
         """Build layers from the ``n + 1`` interface depths; nodes at the layer mid-points.
@@ -320,7 +320,7 @@ class Layers:
 
     @classmethod
     def from_thicknesses(
-        cls, thickness, *, units: str = "m", positive: str | None = None,
+        cls, thickness, *, units: str = "m", positive: str | None = "down",
         name: str = "thickness",
     ) -> "Layers":
         """Build layers by stacking thicknesses downward from the surface (0 m).

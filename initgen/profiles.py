@@ -18,8 +18,9 @@ profile kinds are
     ``f(z) = exp(-z / d)``: the amplitude ratio of a periodic surface temperature wave
     conducted into a homogeneous semi-infinite solid, with damping depth
     ``d = sqrt(kappa P / pi)`` (Carslaw and Jaeger 1959, Conduction of Heat in Solids,
-    2nd ed., section 2.6; Hillel 1982, Introduction to Soil Physics, chapter 9). Only the
-    amplitude ratio is used; the phase lag ``z / d`` (radians) is not.
+    2nd ed., the semi-infinite solid with a periodic surface temperature, section 2.6, the
+    section number recalled; Hillel 1982, Introduction to Soil Physics). Only the amplitude
+    ratio is used; the phase lag ``z / d`` (radians) is not.
 
 Each kind can be evaluated at the layer nodes (``evaluate='node'``) or averaged over each
 layer's depth range (``evaluate='layer_mean'``), the latter exactly (closed-form integrals).
@@ -71,7 +72,7 @@ def damping_depth_m(diffusivity_m2_s, period_s):
 
     ``d = sqrt(2 kappa / omega) = sqrt(kappa P / pi)``, with ``omega = 2 pi / P``
     (Carslaw and Jaeger 1959, Conduction of Heat in Solids, 2nd ed., section 2.6;
-    Hillel 1982, Introduction to Soil Physics, chapter 9). The amplitude of the wave falls to
+    Hillel 1982, Introduction to Soil Physics). The amplitude of the wave falls to
     ``exp(-z / d)`` of its surface value at depth ``z``.
 
     Parameters
@@ -184,8 +185,8 @@ def factor(
       first and last depths (definition). Factors may be any finite number.
     - ``'damping'``: ``f = exp(-z / d)``, ``d = sqrt(kappa P / pi)`` in metres, kappa in
       m2 s-1 and P in s: the amplitude ratio of a periodic surface temperature wave in a
-      semi-infinite conducting solid (Carslaw and Jaeger 1959, section 2.6; Hillel 1982,
-      chapter 9). The phase lag is not used.
+      semi-infinite conducting solid (Carslaw and Jaeger 1959, section 2.6; Hillel 1982).
+      The phase lag is not used.
 
     Layer means (``evaluate='layer_mean'``) are ``(1 / (b - a)) * integral_a^b f(z) dz`` over
     each layer ``[a, b] = [top_m, bottom_m]``, in closed form:

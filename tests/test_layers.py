@@ -81,6 +81,12 @@ def test_positive_up_and_autodetect():
     assert Layers.from_nodes([-0.05, -0.2]) == Layers.from_nodes([0.05, 0.2])
     assert Layers.from_thicknesses([-0.1, -0.2], positive="up") == Layers.from_thicknesses([0.1, 0.2])
     assert Layers.from_interfaces([0.0, 0.1, 0.3], positive="down") == ref
+    # all-negative values are heights even when the file claims positive='down'
+    assert Layers.from_interfaces([0.0, -0.1, -0.3], positive="down") == ref
+    assert Layers.from_nodes([-0.05, -0.2], positive="DOWN") == Layers.from_nodes([0.05, 0.2])
+    # mixed signs are not auto-detected: the order check reports the index
+    with pytest.raises(InputError, match="index 2"):
+        Layers.from_interfaces([0.0, 0.1, -0.3])
     with pytest.raises(InputError, match="positive='up'"):
         Layers.from_interfaces([0.0, 0.1, 0.3], positive="up")
     with pytest.raises(InputError, match="positive='sideways'"):

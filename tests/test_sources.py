@@ -87,6 +87,9 @@ def test_dateline_wraparound_matches_reference(src_convention):
     ref = RegularGridInterpolator((lat, ext_lon), ext)(np.column_stack([lat_pts, x]))
     np.testing.assert_allclose(got, ref, rtol=0, atol=1e-12)
     assert cov.all()
+    # the same source with decreasing longitudes
+    rev, _ = interp_regular(lon[::-1], lat, field[:, ::-1], dst_lon, lat_pts)
+    np.testing.assert_allclose(rev, ref, rtol=0, atol=1e-12)
 
 
 def test_global_source_covers_poles_and_is_continuous_at_dateline():
