@@ -1,0 +1,202 @@
+"""Command line: a thin argparse layer over initgen.api.
+
+Exit codes: 0 done; 2 bad input (recipe, layout, file, arguments) with a one-line message;
+3 ``compare`` found differences outside the allowed variables (or ``verify`` found a mismatch);
+1 an unexpected error (a bug: please report it with the traceback that ``--debug`` shows);
+130 interrupted.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import os
+import sys
+import warnings
+from pathlib import Path
+
+from . import __version__
+from .errors import InputError, InputWarning
+
+
+class _Parser(argparse.ArgumentParser):
+    def error(self, message):  # one line, exit 2
+        self.exit(2, f"initgen: error: {message} (see 'initgen {self.prog.split()[-1]} --help')\n"
+                  if " " in self.prog else f"initgen: error: {message} (see 'initgen --help')\n")
+
+
+def _common(p, input_required=True, layout=True):
+    p.add_argument("recipe", help="recipe YAML file")
+    if input_required is not None:
+        p.add_argument("--input", "-i", required=input_required, help="restart / initial-condition netCDF file")
+    if layout:
+        p.add_argument("--layout", "-l", help="layout YAML file (default: the recipe's inline layout, else CF attributes)")
+    p.add_argument("--allow-outside-paths", action="store_true",
+                   help="let the recipe name files outside its own folder")
+
+
+def build_parser() -> argparse.ArgumentParser:
+    ap = _Parser(prog="initgen", description="Perturb land-surface initial states over a region, with physics "
+                 "limits and provenance.")
+    ap.add_argument("--version", action="version", version=f"initgen {__version__}")
+    ap.add_argument("--debug", action="store_true", help="show tracebacks for unexpected errors")
+    sub = ap.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
+
+    p = sub.add_parser("check", help="validate a recipe (and layout, and their fit to an input file); writes nothing")
+    _common(p, input_required=False)
+
+    p = sub.add_parser("apply", help="write a perturbed copy of the input and its provenance record")
+    _common(p)
+    p.add_argument("--output", "-o", required=True, help="output netCDF file (never the input)")
+    p.add_argument("--force", action="store_true", help="replace an existing output")
+    p.add_argument("--quiet", "-q", action="store_true", help="print nothing but errors")
+
+    p = sub.add_parser("preview", help="dry run: show what apply would change; writes no netCDF file")
+    _common(p)
+    p.add_argument("--json", help="write the ledger as JSON to this file")
+    p.add_argument("--report", help="write a Markdown report with figures into this folder")
+
+    p = sub.add_parser("mask", help="write the horizontal weight field on the model grid (netCDF, optional PNG)")
+    _common(p)
+    p.add_argument("--output", "-o", required=True, help="output mask netCDF file")
+    p.add_argument("--png", help="also draw a map of the weights to this PNG file")
+    p.add_argument("--force", action="store_true", help="replace existing outputs")
+
+    p = sub.add_parser("compare", help="structural and value diff of two netCDF files")
+    p.add_argument("a", help="first file (e.g. the original)")
+    p.add_argument("b", help="second file (e.g. the perturbed copy)")
+    p.add_argument("--allow", nargs="*", default=[], metavar="VAR", help="variables allowed to differ")
+    p.add_argument("--layout", "-l", help="layout YAML (for cell areas and the layer axis)")
+    p.add_argument("--json", help="write the differences as JSON to this file")
+    p.add_argument("--report", help="write a Markdown report into this folder")
+
+    p = sub.add_parser("verify", help="re-run a provenance record and check the output is bit-identical")
+    p.add_argument("provenance", help="the .provenance.json written by apply")
+    p.add_argument("--input", "-i", help="the original input file (default: the path in the record)")
+    p.add_argument("--output", "-o", help="the file to check (default: the path in the record)")
+
+    p = sub.add_parser("schema", help="print the JSON Schema of the recipe (or of the layout)")
+    p.add_argument("--layout", action="store_true", help="print the layout schema instead")
+
+    p = sub.add_parser("demo", help="run the built-in demo (an invented highland) into a folder")
+    p.add_argument("--out", required=True, help="folder to write the demo into (created if needed)")
+    return ap
+
+
+def _warn_line(message, category, filename, lineno, file=None, line=None):
+    return f"initgen: warning: {message}\n"
+
+
+def _progress_printer(quiet: bool):
+    if quiet or not sys.stderr.isatty():
+        return None
+
+    def show(done, total):
+        width = 30
+        n = int(width * done / max(total, 1))
+        sys.stderr.write(f"\r[{'#' * n}{'.' * (width - n)}] {done}/{total} blocks")
+        if done == total:
+            sys.stderr.write("\n")
+        sys.stderr.flush()
+
+    return show
+
+
+def main(argv=None) -> int:
+    warnings.formatwarning = _warn_line
+    warnings.simplefilter("default", InputWarning)
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    if args.command is None:
+        parser.print_help()
+        return 2
+    try:
+        return _dispatch(args)
+    except InputError as exc:
+        msg = " ".join(str(exc).split())
+        sys.stderr.write(f"initgen: error: {msg}\n")
+        return 2
+    except KeyboardInterrupt:
+        sys.stderr.write("initgen: interrupted; no output was written\n")
+        return 130
+    except BrokenPipeError:
+        return 0
+    except Exception as exc:  # a bug: one line unless --debug
+        if args.debug or os.environ.get("INITGEN_DEBUG"):
+            raise
+        sys.stderr.write(f"initgen: unexpected error: {exc.__class__.__name__}: {exc} "
+                         "(run with --debug for the traceback and please report it)\n")
+        return 1
+
+
+def _dispatch(args) -> int:
+    from . import api
+
+    if args.command == "check":
+        res = api.check(args.recipe, args.layout, args.input, allow_outside_paths=args.allow_outside_paths)
+        print(res.summary())
+        return 0
+    if args.command == "apply":
+        rec = api.apply(args.recipe, args.input, args.output, args.layout, force=args.force,
+                        allow_outside_paths=args.allow_outside_paths, progress=_progress_printer(args.quiet))
+        if not args.quiet:
+            print(api.ledger_text(rec["ledger"]))
+            print(f"wrote {args.output} (sha256 {rec['output']['sha256']})")
+            print(f"wrote {args.output}.provenance.json")
+        return 0
+    if args.command == "preview":
+        led = api.preview(args.recipe, args.input, args.layout, allow_outside_paths=args.allow_outside_paths)
+        print(api.ledger_text(led))
+        if args.json:
+            from .restart import write_atomic_text
+
+            write_atomic_text(Path(args.json), json.dumps(led, indent=2) + "\n")
+            print(f"wrote {args.json}")
+        if args.report:
+            from . import report
+
+            path = report.preview_report(args.recipe, args.input, args.layout, Path(args.report), ledger=led,
+                                         allow_outside_paths=args.allow_outside_paths)
+            print(f"wrote {path}")
+        return 0
+    if args.command == "mask":
+        from . import report
+
+        report.write_mask(args.recipe, args.input, args.layout, Path(args.output), png=args.png, force=args.force,
+                          allow_outside_paths=args.allow_outside_paths)
+        print(f"wrote {args.output}" + (f" and {args.png}" if args.png else ""))
+        return 0
+    if args.command == "compare":
+        from . import report
+
+        result = report.compare(args.a, args.b, allow=args.allow, layout=args.layout)
+        print(report.compare_text(result))
+        if args.json:
+            from .restart import write_atomic_text
+
+            write_atomic_text(Path(args.json), json.dumps(result, indent=2) + "\n")
+        return 0 if result["ok"] else 3
+    if args.command == "verify":
+        from . import report
+
+        result = report.verify(args.provenance, input=args.input, output=args.output)
+        print(result["message"])
+        return 0 if result["ok"] else 3
+    if args.command == "schema":
+        from .recipe import LAYOUT, RECIPE
+
+        node = LAYOUT if args.layout else RECIPE
+        schema = {"$schema": "https://json-schema.org/draft/2020-12/schema",
+                  "title": "initgen layout" if args.layout else "initgen recipe", **node.json()}
+        print(json.dumps(schema, indent=2))
+        return 0
+    if args.command == "demo":
+        from . import demo
+
+        print(demo.run_demo(Path(args.out)))
+        return 0
+    raise InputError(f"unknown command {args.command}")  # pragma: no cover
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())

@@ -1,0 +1,137 @@
+"""The ledger: one record of what a run changed, read by preview, provenance and compare.
+
+Per changed variable and layer: cells changed, min / mean / max change and the area-weighted
+mean change over the region's valid cells; clamps by rule; water frozen and melted (kg m-2 as an
+area-weighted mean, kg as a region total) and sensible and latent energy (J m-2 area-weighted
+mean, J region total); cells that were not in phase equilibrium before the change.
+"""
+
+from __future__ import annotations
+
+from collections import Counter
+
+import numpy as np
+
+
+class _Stats:
+    """Running per-layer statistics of a change field."""
+
+    def __init__(self, nlayers: int):
+        n = max(nlayers, 1)
+        self.count = np.zeros(n, np.int64)
+        self.region = np.zeros(n, np.int64)
+        self.sum = np.zeros(n)
+        self.min = np.full(n, np.inf)
+        self.max = np.full(n, -np.inf)
+        self.asum = np.zeros(n)
+        self.area = np.zeros(n)
+
+    def add(self, change: np.ndarray, inside: np.ndarray, area: np.ndarray) -> None:
+        """change, inside: (E, L, *h) or (E, *h); area: (*h)."""
+        if change.ndim == area.ndim + 1:
+            change, inside = change[:, None], inside[:, None]
+        nl = change.shape[1]
+        for layer in range(nl):
+            c = change[:, layer]
+            m = inside[:, layer] & np.isfinite(c)
+            if not np.any(m):
+                continue
+            a = np.broadcast_to(area, c.shape)[m]
+            v = c[m]
+            self.region[layer] += v.size
+            self.count[layer] += int(np.count_nonzero(v != 0))
+            self.sum[layer] += float(v.sum())
+            self.min[layer] = min(self.min[layer], float(v.min()))
+            self.max[layer] = max(self.max[layer], float(v.max()))
+            self.asum[layer] += float((v * a).sum())
+            self.area[layer] += float(a.sum())
+
+    def rows(self, depths=None) -> list[dict]:
+        out = []
+        for i in range(self.count.size):
+            n = int(self.region[i])
+            row = {
+                "layer": i,
+                "cells_in_region": n,
+                "cells_changed": int(self.count[i]),
+                "min": _num(self.min[i]) if n else None,
+                "mean": _num(self.sum[i] / n) if n else None,
+                "max": _num(self.max[i]) if n else None,
+                "area_weighted_mean": _num(self.asum[i] / self.area[i]) if self.area[i] > 0 else None,
+            }
+            if depths is not None and i < len(depths):
+                row["node_depth_m"] = _num(depths[i])
+            out.append(row)
+        return out
+
+
+def _num(x) -> float:
+    return float(np.round(float(x), 12))
+
+
+class Ledger:
+    def __init__(self, plan):
+        self.plan = plan
+        self.vars: dict = {}
+        self.clamps: Counter = Counter()
+        self.phase = {}
+        self.disequilibrium = 0
+        self.nlayers = {}
+
+    def stats(self, name: str, role: str, units: str, nlayers: int, layered: bool) -> _Stats:
+        if name not in self.vars:
+            self.vars[name] = {"role": role, "units": units, "layered": layered, "stats": _Stats(nlayers)}
+        return self.vars[name]["stats"]
+
+    def clamp(self, rule: str, count: int) -> None:
+        if count:
+            self.clamps[rule] += int(count)
+
+    def add_phase(self, key: str, per_layer: np.ndarray, total: float | None = None) -> None:
+        """Accumulate area-integrated per-layer quantities (already multiplied by area)."""
+        cur = self.phase.setdefault(key, np.zeros_like(per_layer, dtype=float))
+        if cur.shape != per_layer.shape:
+            cur = np.zeros_like(per_layer, dtype=float)
+        self.phase[key] = cur + per_layer
+
+    def finish(self) -> dict:
+        model = self.plan.model
+        depths = model.layers.node_m.tolist() if model.layers is not None else None
+        region_area = float(model.grid.area[self.plan.region].sum())
+        out = {
+            "grid": {"kind": model.grid.kind, "shape": list(model.grid.shape), "dims": list(model.grid.dims),
+                     "cell_area": model.grid.area_source, "roles_from": model.source},
+            "region": {
+                "cells_weight_above_0": int(self.plan.region.sum()),
+                "cells_full_weight": int(np.any([b.weight >= 1.0 for b in self.plan.blocks], axis=0).sum()),
+                "area_m2": region_area,
+            },
+            "blocks": [{"name": b.name, "targets": list(b.targets),
+                        "cells_weight_above_0": int((b.weight > 0).sum()),
+                        "layer_factors": None if b.factors is None else [_num(f) for f in b.factors],
+                        "surface_factor": _num(b.surface_factor),
+                        "anomaly_K": None if b.anomaly is None else _anomaly_summary(b.anomaly, b.weight)}
+                       for b in self.plan.blocks],
+            "variables": {},
+            "clamps": dict(sorted(self.clamps.items())),
+            "physics": {"mode": self.plan.physics["mode"]},
+            "cells_not_in_phase_equilibrium_before": int(self.disequilibrium),
+        }
+        for name, rec in self.vars.items():
+            rows = rec["stats"].rows(depths if rec["role"] in ("soil_temperature", "soil_liquid", "soil_ice") else None)
+            out["variables"][name] = {"role": rec["role"], "units": rec["units"],
+                                      "layers" if rec["layered"] else "field": rows if rec["layered"] else rows[0]}
+        if self.phase:
+            phys = out["physics"]
+            area = region_area if region_area > 0 else 1.0
+            for key, per_layer in self.phase.items():
+                unit = "J" if key.endswith("_J") else "kg"
+                phys[f"{key[:-2] if unit == 'J' else key[:-3]}_region_total_{unit}"] = _num(per_layer.sum())
+                phys[f"{key[:-2] if unit == 'J' else key[:-3]}_per_layer_{unit}_m2"] = [_num(v / area) for v in per_layer]
+        return out
+
+
+def _anomaly_summary(anom: np.ndarray, weight: np.ndarray) -> dict:
+    inside = weight > 0
+    a = anom[inside]
+    return {"min": _num(a.min()), "max": _num(a.max()), "mean": _num(a.mean())} if a.size else {}

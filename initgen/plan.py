@@ -1,0 +1,628 @@
+"""Turn a recipe and a model file into weights, factors and anomalies, and apply them block by block.
+
+For each perturbation block of the recipe the plan holds the horizontal weight ``w(x)``, the
+surface anomaly ``A(x)`` (or a donor store), and the vertical factor ``f(z)`` per soil layer. The
+target change is ``dT(z, x) = w(x) * f(z) * A(x)``. Blocks are applied in recipe order, each to the
+result of the previous one (documented in the README), so a recipe with two blocks equals two
+runs with one block each.
+
+Work happens on the slabs of the grid that the region touches (its bounding boxes in index
+space, split where the region wraps around the dateline), in blocks of rows, so memory stays
+bounded whatever the file size. Every block goes through the same code whether the store is a
+netCDF file being patched in place or an in-memory xarray dataset.
+"""
+
+from __future__ import annotations
+
+import warnings
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+
+from . import ledger as ledger_mod
+from . import profiles, regions, soil, sources
+from .errors import InputError, InputWarning
+from .grid import ModelFile
+from .layers import Layers
+from .recipe import Document, resolve_path
+from .restart import NetCDFStore, read_field
+
+T_FREEZE = 273.15
+BLOCK_ELEMENTS = 4_000_000  # float64 elements per role per block (32 MB)
+
+
+@dataclass
+class BlockPlan:
+    name: str
+    index: int
+    targets: tuple
+    weight: np.ndarray  # horizontal shape
+    anomaly: np.ndarray | None  # horizontal shape, K
+    factors: np.ndarray | None  # per soil layer
+    surface_factor: float
+    donor: ModelFile | None = None
+    snow_mass_mode: str = "add"
+    snow_mass_change: float = 0.0
+    notes: list = field(default_factory=list)
+
+
+@dataclass
+class Plan:
+    recipe: Document
+    model: ModelFile
+    blocks: list
+    physics: dict
+    region: np.ndarray  # bool, horizontal shape: any block's weight > 0
+    member_scale: float = 1.0
+    member_offset_K: float = 0.0
+    noise: np.ndarray | None = None
+
+    @property
+    def targets(self) -> tuple:
+        out = []
+        for b in self.blocks:
+            for t in b.targets:
+                if t not in out:
+                    out.append(t)
+        return tuple(out)
+
+
+def needed_roles(recipe: Document) -> tuple:
+    need = set()
+    for block in recipe.data["perturbations"]:
+        need.update(block["targets"])
+    if recipe.data["physics"]["mode"] != "none" and "soil_temperature" in need:
+        need.update(("soil_liquid", "soil_ice"))
+    return tuple(sorted(need))
+
+
+# ---------------------------------------------------------------------------------------------
+# Building the plan
+# ---------------------------------------------------------------------------------------------
+
+
+def shape_geometry(shape: dict, recipe: Document, key: str, allow_outside: bool):
+    if shape.get("geojson"):
+        path = resolve_shape_file(recipe, shape["geojson"], key + ".geojson", allow_outside)
+        return regions.read_geojson(path)
+    if shape.get("box"):
+        (w, e), (s, n) = shape["box"]["lon"], shape["box"]["lat"]
+        if s >= n:
+            raise InputError(f"recipe key {key}.box.lat: south ({s}) must be below north ({n})")
+        return regions.box(w, e, s, n)
+    if shape.get("vertices"):
+        return regions.polygon(shape["vertices"])
+    pub = shape["published"]
+    return regions.published(pub["set"], pub["regions"])
+
+
+def resolve_shape_file(recipe: Document, rel: str, key: str, allow_outside: bool) -> Path:
+    """A GeoJSON path relative to the recipe, or a file of the shipped masks/ library."""
+    from .shipped import shipped_file
+
+    try:
+        return resolve_path(recipe, rel, key, allow_outside)
+    except InputError:
+        lib = shipped_file("masks", Path(rel).name)
+        if lib is not None:
+            return lib
+        raise
+
+
+def region_geometry(region: dict, recipe: Document, key: str, allow_outside: bool):
+    inc = [shape_geometry(s, recipe, f"{key}.include[{i}]", allow_outside) for i, s in enumerate(region["include"])]
+    exc = [shape_geometry(s, recipe, f"{key}.exclude[{i}]", allow_outside) for i, s in enumerate(region["exclude"])]
+    return regions.combine(inc, exc)
+
+
+def horizontal_weight(model: ModelFile, region: dict, geom, name: str) -> np.ndarray:
+    """w(x) = taper(x) * elevation ramp(x) * land weight(x); 0 where the land data are missing."""
+    grid = model.grid
+    regular = grid.kind == "regular"
+    hard = regions.hard_mask(grid.lon, grid.lat, geom, regular=regular)
+    regions.check_coverage(hard | (regions.taper_weight(grid.lon, grid.lat, geom, region["taper_km"],
+                                                        placement=region["taper_placement"], regular=regular) > 0)
+                           if region["taper_km"] > 0 else hard, name, grid.lon, grid.lat)
+    if region["taper_km"] > 0:
+        w = regions.taper_weight(grid.lon, grid.lat, geom, region["taper_km"], placement=region["taper_placement"],
+                                 regular=regular)
+    else:
+        w = hard.astype(np.float64)
+    elev = region.get("elevation")
+    if elev:
+        role = model.require("surface_altitude", f"region '{name}' has an elevation band")
+        z = _read_2d(model, role)
+        w = w * regions.elevation_ramp(z, elev["min_m"], elev["ramp_m"], elev.get("max_m"), elev["max_ramp_m"])
+    frac = model.role("land_fraction")
+    mask = model.role("land_mask")
+    if frac is not None and region["use_land_fraction"]:
+        f = _read_2d(model, frac)
+        if np.nanmax(f, initial=0.0) > 1.5:  # percent
+            f = f / 100.0
+        w = w * regions.land_weight(fraction=f)
+    elif mask is not None:
+        w = w * regions.land_weight(mask=_read_2d(model, mask), threshold=region["land_threshold"])
+    w = np.where(np.isfinite(w), w, 0.0)
+    if not np.any(w > 0):
+        raise InputError(f"region '{name}': no land grid cell keeps a weight above 0 after the elevation band and "
+                         f"land weighting (grid spans {model.grid.extent()}); check the region and thresholds")
+    return w
+
+
+def _read_2d(model: ModelFile, role) -> np.ndarray:
+    arr = role.read(model.store, {})
+    return arr[0] if arr.ndim == len(model.grid.shape) + 1 else arr.reshape(model.grid.shape)
+
+
+def _interp_to_grid(model: ModelFile, lon, lat, vals, key: str, weight: np.ndarray) -> np.ndarray:
+    grid = model.grid
+    if lon.ndim == 1 and lat.ndim == 1 and vals.shape == (lat.size, lon.size):
+        out, covered = sources.interp_regular(lon, lat, vals, grid.lon, grid.lat)
+    else:
+        lon2, lat2 = (np.meshgrid(lon, lat) if lon.ndim == 1 and vals.ndim == 2 and vals.shape != lon.shape
+                      else (lon, lat))
+        out, covered = sources.interp_points(lon2, lat2, vals, grid.lon, grid.lat)
+    miss = (weight > 0) & ~np.asarray(covered, bool)
+    if np.any(miss):
+        frac = miss.sum() / max(1, (weight > 0).sum())
+        warnings.warn(f"recipe key {key}: the anomaly file covers only {100 * (1 - frac):.1f}% of the region; "
+                      "nearest values are used beyond its edge", InputWarning, stacklevel=2)
+    bad = (weight > 0) & ~np.isfinite(out)
+    if np.any(bad):
+        raise InputError(f"recipe key {key}: the anomaly field has no valid value for {bad.sum()} region cell(s); "
+                         "use a file that covers the region")
+    return np.where(np.isfinite(out), out, 0.0)
+
+
+def block_anomaly(model: ModelFile, anomaly: dict, recipe: Document, key: str, weight: np.ndarray,
+                  allow_outside: bool):
+    if anomaly.get("constant_K") is not None:
+        return np.full(model.grid.shape, float(anomaly["constant_K"])), None
+    if anomaly.get("field"):
+        f = anomaly["field"]
+        path = resolve_path(recipe, f["file"], f"{key}.field.file", allow_outside)
+        lon, lat, vals = read_field(path, f["variable"], f"{key}.field.variable")
+        return f["scale"] * _interp_to_grid(model, lon, lat, vals, f"{key}.field", weight), None
+    if anomaly.get("bias"):
+        b = anomaly["bias"]
+        mpath = resolve_path(recipe, b["model_file"], f"{key}.bias.model_file", allow_outside)
+        rpath = resolve_path(recipe, b["reference_file"], f"{key}.bias.reference_file", allow_outside)
+        mlon, mlat, mvals = read_field(mpath, b["variable"], f"{key}.bias.variable")
+        rlon, rlat, rvals = read_field(rpath, b.get("reference_variable") or b["variable"],
+                                       f"{key}.bias.reference_variable")
+        mod = _interp_to_grid(model, mlon, mlat, mvals, f"{key}.bias.model_file", weight)
+        ref = _interp_to_grid(model, rlon, rlat, rvals, f"{key}.bias.reference_file", weight)
+        return sources.bias_anomaly(mod, ref, b["scale"]), None
+    d = anomaly["donor"]
+    from .grid import open_model
+
+    path = resolve_path(recipe, d["file"], f"{key}.donor.file", allow_outside)
+    donor_store = NetCDFStore(path)
+    donor = open_model(donor_store, _layout_of(model))
+    if donor.grid.shape != model.grid.shape or not np.allclose(donor.grid.lon, model.grid.lon) \
+            or not np.allclose(donor.grid.lat, model.grid.lat):
+        donor_store.close()
+        raise InputError(f"recipe key {key}.donor.file: {path} is not on the same grid as the input; "
+                         "a donor must be a restart file of the same model and grid")
+    return None, donor
+
+
+def _layout_of(model: ModelFile):
+    return getattr(model, "layout", None)
+
+
+def profile_factors(profile: dict, layers: Layers | None, key: str) -> tuple[np.ndarray | None, float]:
+    """f(z) per soil layer, and f at the surface (used for skin and snow temperatures)."""
+    kw = dict(efolding_m=profile.get("efolding_m"), zero_at_m=profile.get("zero_at_m"),
+              table=profile.get("table"), diffusivity_m2_s=profile.get("diffusivity_m2_s"),
+              period_s=None if profile.get("period_days") is None else profile["period_days"] * 86400.0,
+              max_depth_m=profile.get("max_depth_m"))
+    surface = Layers(np.array([0.0]), np.array([1e-9]), np.array([0.0]))
+    fsurf = float(profiles.factor(profile["kind"], surface, evaluate="node", **kw)[0])
+    if layers is None:
+        if profile["kind"] != "uniform":
+            raise InputError(f"recipe key {key}.kind: profile '{profile['kind']}' needs soil layer depths, and none "
+                             "were found; name roles.layer_node_depth (or interfaces/thickness) in the layout")
+        return None, fsurf
+    return np.asarray(profiles.factor(profile["kind"], layers, evaluate=profile["evaluate"], **kw), float), fsurf
+
+
+def build_plan(recipe: Document, model: ModelFile, *, allow_outside: bool = False) -> Plan:
+    blocks = []
+    region_any = np.zeros(model.grid.shape, bool)
+    for i, b in enumerate(recipe.data["perturbations"]):
+        key = f"perturbations[{i}]"
+        geom = region_geometry(b["region"], recipe, f"{key}.region", allow_outside)
+        w = horizontal_weight(model, b["region"], geom, b["name"])
+        anomaly, donor = block_anomaly(model, b["anomaly"], recipe, f"{key}.anomaly", w, allow_outside)
+        factors, fsurf = profile_factors(b["profile"], model.layers, f"{key}.profile")
+        soil = model.role("soil_temperature")
+        if factors is not None and soil is not None and soil.layered and soil.nlayers != factors.size:
+            raise InputError(f"{model.store.describe()}: soil temperature has {soil.nlayers} layers but the layer "
+                             f"depths describe {factors.size}; check the layout's depth role and snow_layers")
+        if factors is None and soil is not None and soil.layered:
+            factors = np.ones(soil.nlayers)
+        blocks.append(BlockPlan(b["name"], i, tuple(b["targets"]), w, anomaly, factors, fsurf, donor,
+                                b["snow_mass_mode"], b["snow_mass_change"], [str(geom.bounds)]))
+        region_any |= w > 0
+    return Plan(recipe, model, blocks, dict(recipe.data["physics"]), region_any)
+
+
+# ---------------------------------------------------------------------------------------------
+# Slabs and blocks
+# ---------------------------------------------------------------------------------------------
+
+
+def _runs(flags: np.ndarray, min_gap: int) -> list[tuple[int, int]]:
+    """Contiguous index runs where ``flags`` is true, merging runs separated by < min_gap."""
+    idx = np.flatnonzero(flags)
+    if idx.size == 0:
+        return []
+    breaks = np.flatnonzero(np.diff(idx) > min_gap)
+    starts = np.concatenate([[idx[0]], idx[breaks + 1]])
+    ends = np.concatenate([idx[breaks], [idx[-1]]]) + 1
+    return list(zip(starts.tolist(), ends.tolist()))
+
+
+def slabs(plan: Plan) -> list[dict]:
+    """Bounding slabs of the region in index space (one per run of each horizontal dim)."""
+    region = plan.region
+    dims = plan.model.grid.dims
+    per_dim = []
+    for ax, d in enumerate(dims):
+        other = tuple(a for a in range(region.ndim) if a != ax)
+        flags = region.any(axis=other) if other else region
+        gap = max(8, region.shape[ax] // 20)
+        per_dim.append(_runs(flags, gap))
+    out = [{}]
+    for d, runs in zip(dims, per_dim):
+        out = [dict(o, **{d: slice(a, b)}) for o in out for (a, b) in runs]
+    return out
+
+
+def blocks_of(plan: Plan, slab: dict) -> list[dict]:
+    """Split a slab along its first horizontal dim into blocks of bounded size, chunk-aligned."""
+    model = plan.model
+    d0 = model.grid.dims[0]
+    s0 = slab[d0]
+    other = int(np.prod([len(range(model.grid.shape[i])[slab[d]]) for i, d in enumerate(model.grid.dims) if i > 0]))
+    depth = 1
+    chunk0 = 1
+    for role in model.roles.values():
+        for v in role.views:
+            info = v.info
+            n = int(np.prod([s for dd, s in zip(info.dims, info.shape) if dd not in model.grid.dims]))
+            depth = max(depth, n)
+            if info.chunks and d0 in info.dims:
+                chunk0 = max(chunk0, info.chunks[info.dims.index(d0)])
+    rows = max(1, BLOCK_ELEMENTS // max(1, other * depth))
+    if chunk0 > 1:
+        rows = max(chunk0, (rows // chunk0) * chunk0)
+    out = []
+    start = s0.start
+    while start < s0.stop:
+        stop = min(s0.stop, (start // rows + 1) * rows if chunk0 > 1 else start + rows)
+        out.append(dict(slab, **{d0: slice(start, stop)}))
+        start = stop
+    return out
+
+
+# ---------------------------------------------------------------------------------------------
+# Applying
+# ---------------------------------------------------------------------------------------------
+
+
+def run(plan: Plan, store, *, write: bool, progress=None) -> dict:
+    """Apply the plan to ``store`` (writing only when ``write``) and return the ledger."""
+    model = plan.model
+    led = ledger_mod.Ledger(plan)
+    all_blocks = [b for s in slabs(plan) for b in blocks_of(plan, s)]
+    for k, hkey in enumerate(all_blocks):
+        apply_block(plan, store, hkey, led, write=write)
+        if progress:
+            progress(k + 1, len(all_blocks))
+    if plan.blocks and any(b.donor for b in plan.blocks):
+        for b in plan.blocks:
+            if b.donor:
+                b.donor.store.close()
+    out = led.finish()
+    out["blocks_processed"] = len(all_blocks)
+    out["bytes_rewritten"] = int(getattr(store, "bytes_written", 0)) if write else 0
+    return out
+
+
+def horizontal_index(model: ModelFile, hkey: dict) -> tuple:
+    return tuple(hkey.get(d, slice(None)) for d in model.grid.dims)
+
+
+__all__ = ["Plan", "BlockPlan", "build_plan", "run", "slabs", "blocks_of", "needed_roles", "apply_block"]
+
+
+# ---------------------------------------------------------------------------------------------
+# One block of rows: read, change, limit, write, account
+# ---------------------------------------------------------------------------------------------
+
+
+def _bcast_h(arr_h: np.ndarray, ndim_extra: int) -> np.ndarray:
+    """Horizontal array -> shape (1, [1,] *h) for broadcasting against (E, [L,] *h)."""
+    return arr_h.reshape((1,) * ndim_extra + arr_h.shape)
+
+
+def _layer_col(vec: np.ndarray, nh: int) -> np.ndarray:
+    """Per-layer vector -> (1, L, 1, ...) for broadcasting against (E, L, *h)."""
+    return vec.reshape((1, -1) + (1,) * nh)
+
+
+def _temp_read(role, store, hkey):
+    vals = role.read(store, hkey)
+    return soil.temperature_to_kelvin(vals, role.units or "K", name=role.variables[0])
+
+
+def _temp_write(role, store, hkey, kelvin, changed, write):
+    if write:
+        role.write(store, hkey, soil.kelvin_to_units(kelvin, role.units or "K"), changed)
+
+
+def _check_no_undeclared_gaps(role, values, inside, store):
+    """NaN inside the region in a variable that declares no fill value is an error, not ocean."""
+    if not np.any(inside & ~np.isfinite(values)):
+        return
+    attrs = role.views[0].info.attrs
+    if not any(k in attrs for k in ("_FillValue", "missing_value", "valid_range", "valid_min", "valid_max")):
+        raise InputError(f"{store.describe()}: variable '{role.variables[0]}' has NaN values inside the region but "
+                         "declares no _FillValue; fix the file or mark the missing cells with a fill value")
+
+
+def apply_block(plan: Plan, store, hkey: dict, led, *, write: bool) -> None:
+    model = plan.model
+    hidx = horizontal_index(model, hkey)
+    nh = len(model.grid.shape)
+    area = model.grid.area[hidx]
+    weights = [b.weight[hidx] for b in plan.blocks]
+    inside_h = np.any([w > 0 for w in weights], axis=0)
+    if not np.any(inside_h):
+        return
+    targets = plan.targets
+    phys = plan.physics
+
+    # --- soil temperature (with water and ice when physics is on) ---------------------------
+    if "soil_temperature" in targets:
+        role = model.role("soil_temperature")
+        T0 = _temp_read(role, store, hkey)
+        layered = role.layered
+        if not layered:
+            T0 = T0[:, None]
+        inside = np.broadcast_to(_bcast_h(inside_h, 2), T0.shape) & np.isfinite(T0)
+        _check_no_undeclared_gaps(role, T0, np.broadcast_to(_bcast_h(inside_h, 2), T0.shape), store)
+        T = T0.copy()
+        water = _read_water(plan, store, hkey, T0.shape) if phys["mode"] != "none" else None
+        if water is not None:
+            led.disequilibrium += int(np.count_nonzero(
+                soil.disequilibrium(T0, water["liq"], water["ice"], water["porosity"], water["psi"], water["b"])
+                & inside))
+        for b, w in zip(plan.blocks, weights):
+            if "soil_temperature" not in b.targets:
+                continue
+            f = b.factors if b.factors is not None else np.ones(T.shape[1])
+            wf = _bcast_h(w, 2) * _layer_col(f, nh)
+            sel = (wf != 0) & np.isfinite(T)
+            if b.donor is not None:
+                donor_role = b.donor.require("soil_temperature", "the donor must hold the targets")
+                D = _temp_read(donor_role, b.donor.store, hkey)
+                D = D if layered else D[:, None]
+                T = np.where(sel, sources.donor_blend(T, D, np.broadcast_to(wf, T.shape)), T)
+                if water is not None:
+                    dw = _read_water(plan, store, hkey, T.shape, donor=b.donor)
+                    for k in ("liq", "ice"):
+                        water[k] = np.where(sel, sources.donor_blend(water[k], dw[k], np.broadcast_to(wf, T.shape)),
+                                            water[k])
+                if water is not None:
+                    _physics(T, T, water, sel, phys, led, area, nh, mode="temperature")
+                continue
+            dT = wf * _bcast_h(_anomaly(plan, b, hidx), 2)
+            if water is None:
+                T = np.where(sel, T + dT, T)
+            else:
+                T = _physics(T, T + dT, water, sel, phys, led, area, nh, mode=phys["mode"], dT=dT)
+        lo, hi = phys["soil_temperature_min_K"], phys["soil_temperature_max_K"]
+        low, high = inside & (T < lo), inside & (T > hi)
+        led.clamp("soil_temperature_below_min", np.count_nonzero(low))
+        led.clamp("soil_temperature_above_max", np.count_nonzero(high))
+        T = np.clip(T, lo, hi, where=inside, out=T)
+        changed = inside & (T != T0)
+        led.stats(role.variables[0] if len(role.variables) == 1 else "+".join(role.variables), "soil_temperature",
+                  "K", T.shape[1], layered).add(T - T0, inside, area)
+        _temp_write(role, store, hkey, T if layered else T[:, 0], changed if layered else changed[:, 0], write)
+        if water is not None:
+            _write_water(plan, store, hkey, water, inside, led, area, write)
+
+    # --- skin temperature, snow temperature, snow mass ---------------------------------------
+    snow_mass_now = None
+    if "snow_mass" in targets:
+        snow_mass_now = _snow_mass(plan, store, hkey, weights, inside_h, led, area, write)
+    if "skin_temperature" in targets:
+        _surface_temperature(plan, store, hkey, "skin_temperature", weights, inside_h, led, area, write,
+                             snow_mass=snow_mass_now)
+    if "snow_temperature" in targets:
+        _surface_temperature(plan, store, hkey, "snow_temperature", weights, inside_h, led, area, write)
+
+
+def _anomaly(plan: Plan, b: BlockPlan, hidx) -> np.ndarray:
+    a = b.anomaly[hidx] * plan.member_scale + plan.member_offset_K
+    if plan.noise is not None:
+        a = a + plan.noise[hidx]
+    return a
+
+
+def _surface_temperature(plan, store, hkey, target, weights, inside_h, led, area, write, snow_mass=None):
+    model = plan.model
+    role = model.role(target)
+    T0 = _temp_read(role, store, hkey)
+    layered = role.layered
+    T0 = T0 if layered else T0[:, None]
+    inside = np.broadcast_to(_bcast_h(inside_h, 2), T0.shape) & np.isfinite(T0)
+    T = T0.copy()
+    for b, w in zip(plan.blocks, weights):
+        if target not in b.targets:
+            continue
+        ww = _bcast_h(w, 2)
+        sel = (ww != 0) & np.isfinite(T)
+        if b.donor is not None:
+            D = _temp_read(b.donor.require(target, "the donor must hold the targets"), b.donor.store, hkey)
+            D = D if layered else D[:, None]
+            T = np.where(sel, sources.donor_blend(T, D, np.broadcast_to(ww, T.shape)), T)
+        else:
+            T = np.where(sel, T + ww * b.surface_factor * _bcast_h(_anomaly(plan, b, horizontal_index(model, hkey)), 2), T)
+    if target == "snow_temperature":
+        over = inside & (T > T_FREEZE)
+        led.clamp("snow_temperature_above_freezing", np.count_nonzero(over & (T != T0)))
+        T = np.where(over, np.maximum(np.minimum(T, T_FREEZE), np.minimum(T0, T_FREEZE)), T)
+    else:
+        snow = snow_mass
+        if snow is None and model.role("snow_mass") is not None:
+            snow = model.role("snow_mass").read(store, hkey)
+        if snow is not None:
+            covered = np.broadcast_to((snow > 0)[:, None], T.shape)
+            over = inside & covered & (T > T_FREEZE) & (T != T0)
+            led.clamp("skin_temperature_above_freezing_under_snow", np.count_nonzero(over))
+            T = np.where(over, np.maximum(T_FREEZE, np.minimum(T0, T)), T)
+    changed = inside & (T != T0)
+    led.stats(role.variables[0], target, "K", T.shape[1], layered).add(T - T0, inside, area)
+    _temp_write(role, store, hkey, T if layered else T[:, 0], changed if layered else changed[:, 0], write)
+
+
+FRESH_SNOW_DENSITY = 100.0  # kg m-3, used only when snow appears where there was none (common practice)
+
+
+def _snow_mass(plan, store, hkey, weights, inside_h, led, area, write):
+    model = plan.model
+    role = model.role("snow_mass")
+    m0 = role.read(store, hkey)
+    inside = np.broadcast_to(inside_h[None], m0.shape) & np.isfinite(m0)
+    m = m0.copy()
+    for b, w in zip(plan.blocks, weights):
+        if "snow_mass" not in b.targets:
+            continue
+        ww = w[None]
+        if b.donor is not None:
+            D = b.donor.require("snow_mass", "the donor must hold the targets").read(b.donor.store, hkey)
+            m = np.where(inside, sources.donor_blend(m, D, np.broadcast_to(ww, m.shape)), m)
+        elif b.snow_mass_mode == "add":
+            m = np.where(inside, m + ww * b.snow_mass_change * plan.member_scale, m)
+        else:
+            m = np.where(inside, m * (1.0 + ww * b.snow_mass_change * plan.member_scale), m)
+    neg = inside & (m < 0)
+    led.clamp("snow_mass_negative", np.count_nonzero(neg))
+    m = np.where(neg, 0.0, m)
+    changed = inside & (m != m0)
+    led.stats(role.variables[0], "snow_mass", role.units or "kg m-2", 1, False).add(m - m0, inside, area)
+    if write:
+        role.write(store, hkey, m, changed)
+    depth_role = model.role("snow_depth")
+    if depth_role is not None:
+        d0 = depth_role.read(store, hkey)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            ratio = np.where(m0 > 0, m / m0, np.nan)
+        d = np.where(changed & (m0 > 0), d0 * ratio, d0)
+        d = np.where(changed & ~(m0 > 0), m / FRESH_SNOW_DENSITY, d)
+        dchanged = changed & np.isfinite(d0) & (d != d0)
+        led.stats(depth_role.variables[0], "snow_depth", depth_role.units or "m", 1, False).add(d - d0, inside, area)
+        if write:
+            depth_role.write(store, hkey, d, dchanged)
+    return m
+
+
+# ---------------------------------------------------------------------------------------------
+# Soil water and ice for the physics modes
+# ---------------------------------------------------------------------------------------------
+
+
+def _hydraulics(plan: Plan, store, hkey, shape, model=None):
+    """Porosity, saturated suction (m) and Clapp-Hornberger b broadcast to ``shape`` (E, L, *h)."""
+    model = model or plan.model
+    phys = plan.physics
+    nh = len(model.grid.shape)
+
+    def role_or_none(name):
+        r = model.role(name)
+        if r is None:
+            return None
+        v = r.read(store, hkey)
+        return v if r.layered else v[:, None]
+
+    if model.role("porosity") is not None and model.role("clapp_b") is not None and model.role("psi_sat") is not None:
+        por, b = role_or_none("porosity"), role_or_none("clapp_b")
+        psi = np.abs(role_or_none("psi_sat"))
+        u = model.role("psi_sat").units.lower()
+        if u in ("mm", "millimeter", "millimeters"):
+            psi = psi / 1000.0
+        elif u in ("cm", "centimeter", "centimeters"):
+            psi = psi / 100.0
+    elif model.role("sand") is not None and model.role("clay") is not None:
+        por, psi, b = soil.cosby_1984(role_or_none("sand"), role_or_none("clay"))
+    elif phys.get("sand_pct") is not None and phys.get("clay_pct") is not None:
+        por, psi, b = soil.cosby_1984(phys["sand_pct"], phys["clay_pct"])
+    elif phys.get("texture"):
+        por, psi, b = soil.hydraulics_from_texture(phys["texture"])
+    elif phys.get("porosity") and phys.get("psi_sat_m") and phys.get("clapp_b"):
+        por, psi, b = phys["porosity"], phys["psi_sat_m"], phys["clapp_b"]
+    else:
+        raise InputError("recipe key physics: a physics mode needs soil hydraulic parameters; give physics.texture, "
+                         "physics.sand_pct and clay_pct, or porosity, psi_sat_m and clapp_b (or name them in the layout)")
+    return tuple(np.broadcast_to(np.asarray(x, float), shape) for x in (por, psi, b))
+
+
+def _read_water(plan: Plan, store, hkey, shape, donor: ModelFile | None = None) -> dict:
+    model = donor or plan.model
+    nh = len(model.grid.shape)
+    layers = plan.model.layers
+    if layers is None:
+        raise InputError(f"{plan.model.store.describe()}: a physics mode needs soil layer thicknesses; name "
+                         "roles.layer_node_depth (or interfaces/thickness) in the layout")
+    dz = np.broadcast_to(_layer_col(np.asarray(layers.thickness_m), nh), shape)
+    por, psi, b = _hydraulics(plan, model.store if donor else store, hkey, shape, model=model)
+    out = {"dz": dz, "porosity": por, "psi": psi, "b": b}
+    for key, rname in (("liq", "soil_liquid"), ("ice", "soil_ice")):
+        role = model.require(rname, "physics modes change water and ice")
+        raw = role.read(model.store if donor else store, hkey)
+        raw = raw if role.layered else raw[:, None]
+        out[key] = soil.water_to_volumetric(raw, role.units or "kg m-2", dz, porosity=por, name=role.variables[0])
+        out[key + "0"] = out[key].copy()
+        out[key + "_units"] = role.units or "kg m-2"
+    c_solid = None
+    if plan.physics.get("sand_pct") is not None and plan.physics.get("clay_pct") is not None:
+        c_solid = soil.soil_solid_heat_capacity(plan.physics["sand_pct"], plan.physics["clay_pct"])
+    out["c_solid"] = c_solid
+    return out
+
+
+def _physics(T_old, T_new, water, sel, phys, led, area, nh, mode, dT=None):
+    """Impose the change on the selected cells and bring water phase into line."""
+    kw = dict(porosity=water["porosity"], psi_sat_m=water["psi"], b=water["b"], c_solid=water["c_solid"])
+    if mode == "energy":
+        res = soil.apply_energy_mode(T_old, water["liq"], water["ice"], dT, water["dz"], **kw)
+    else:
+        res = soil.apply_temperature_mode(T_old, water["liq"], water["ice"], T_new - T_old, water["dz"], **kw)
+    T = np.where(sel, res.T, T_old)
+    water["liq"] = np.where(sel, res.liq, water["liq"])
+    water["ice"] = np.where(sel, res.ice, water["ice"])
+    a = _bcast_h(area, 2)
+    for key, arr in (("frozen_kg", res.frozen_kg_m2), ("melted_kg", res.melted_kg_m2),
+                     ("sensible_J", res.sensible_J_m2), ("latent_J", res.latent_J_m2)):
+        vals = np.where(sel, arr, 0.0) * a
+        led.add_phase(key, vals.sum(axis=tuple(i for i in range(vals.ndim) if i != 1)))
+    return T
+
+
+def _write_water(plan, store, hkey, water, inside, led, area, write):
+    model = plan.model
+    for key, rname in (("liq", "soil_liquid"), ("ice", "soil_ice")):
+        role = model.role(rname)
+        new = soil.volumetric_to_water(water[key], water[key + "_units"], water["dz"], porosity=water["porosity"])
+        old = soil.volumetric_to_water(water[key + "0"], water[key + "_units"], water["dz"], porosity=water["porosity"])
+        changed = inside & (water[key] != water[key + "0"])
+        led.stats(role.variables[0] if len(role.variables) == 1 else "+".join(role.variables), rname,
+                  water[key + "_units"], new.shape[1], role.layered).add(np.where(changed, new - old, 0.0), inside, area)
+        if write:
+            role.write(store, hkey, new if role.layered else new[:, 0], changed if role.layered else changed[:, 0])

@@ -1,0 +1,73 @@
+"""The provenance record written beside every perturbed file, and the CF ``history`` line."""
+
+from __future__ import annotations
+
+import datetime as _dt
+import json
+import sys
+from pathlib import Path
+
+from .restart import sha256_file, versions
+
+FORMAT = "initgen-provenance/1"
+
+
+def utc_now() -> str:
+    return _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ")
+
+
+def history_line(recipe, when: str) -> str:
+    """One CF ``history`` line: time, tool, version and recipe hash."""
+    from . import __version__
+
+    return f"{when}: initgen {__version__} applied recipe '{recipe.name}' (sha256 {recipe.sha256})"
+
+
+def provenance_path(output: Path) -> Path:
+    return Path(str(output) + ".provenance.json")
+
+
+def record(*, recipe, layout, input_path: Path, input_sha256: str, output_path: Path, output_sha256: str,
+           started: str, ended: str, ledger: dict, history: str, member: dict | None = None,
+           allow_outside: bool = False) -> dict:
+    return {
+        "format": FORMAT,
+        "recipe": {"name": recipe.name, "path": str(recipe.path) if recipe.path else None,
+                   "sha256": recipe.sha256, "text": recipe.text},
+        "layout": None if layout is None else {"name": layout.name, "path": str(layout.path) if layout.path else None,
+                                               "sha256": layout.sha256, "text": layout.text},
+        "input": {"path": str(Path(input_path).resolve()), "size_bytes": Path(input_path).stat().st_size,
+                  "sha256": input_sha256},
+        "output": {"path": str(Path(output_path).resolve()), "sha256": output_sha256},
+        "member": member,
+        "options": {"allow_outside_paths": allow_outside},
+        "versions": versions(),
+        "command_line": list(sys.argv),
+        "started_utc": started,
+        "ended_utc": ended,
+        "history_line": history,
+        "ledger": ledger,
+    }
+
+
+def dumps(rec: dict) -> str:
+    return json.dumps(rec, indent=2, sort_keys=False, allow_nan=False) + "\n"
+
+
+def load(path: Path) -> dict:
+    from .errors import InputError
+
+    path = Path(path)
+    try:
+        rec = json.loads(path.read_text(encoding="utf-8"))
+    except FileNotFoundError:
+        raise InputError(f"{path}: provenance file not found; check the path") from None
+    except (OSError, UnicodeDecodeError, json.JSONDecodeError) as exc:
+        raise InputError(f"{path}: not a readable provenance record ({exc.__class__.__name__}); "
+                         "give the .provenance.json written by initgen apply") from None
+    if not isinstance(rec, dict) or rec.get("format") != FORMAT:
+        raise InputError(f"{path}: not an initgen provenance record (format {FORMAT} expected)")
+    return rec
+
+
+__all__ = ["record", "history_line", "provenance_path", "utc_now", "dumps", "load", "sha256_file"]

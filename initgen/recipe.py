@@ -1,0 +1,400 @@
+"""Recipe and layout: schema, safe loading, validation and the canonical hash.
+
+A **recipe** says what to change and is model-agnostic; a **layout** says where one model keeps
+each quantity (it maps roles to variable and dimension names). Both are YAML documents with a
+version key (``initgen_recipe: 1`` / ``initgen_layout: 1``). Numbers that carry a unit carry it
+in the key name (``taper_km``, ``constant_K``, ``period_days``), so the unit is never implicit.
+
+YAML is loaded with ``yaml.safe_load`` only: language-specific tags are refused, nothing in a
+recipe is ever evaluated, and file references resolve relative to the recipe's folder and may not
+leave it unless the caller allows it.
+"""
+
+from __future__ import annotations
+
+import copy
+import hashlib
+import json
+import os
+from dataclasses import dataclass, replace
+from pathlib import Path
+from typing import Any
+
+import yaml
+
+from .errors import InputError
+from .schema import AnyOf, Bool, List, Num, Obj, Str
+
+RECIPE_VERSION = 1
+LAYOUT_VERSION = 1
+
+# ---------------------------------------------------------------------------------------------
+# Recipe schema
+# ---------------------------------------------------------------------------------------------
+
+_LON = List(item=Num(minimum=-180.0, maximum=360.0, unit="degrees_east"), min_items=2, max_items=2,
+            doc="[west, east] in degrees east; west > east crosses the 180 degree meridian")
+_LAT = List(item=Num(minimum=-90.0, maximum=90.0, unit="degrees_north"), min_items=2, max_items=2,
+            doc="[south, north] in degrees north")
+
+SHAPE = Obj(
+    doc="one shape: give exactly one of geojson, box, vertices, published",
+    fields={
+        "geojson": Str(default=None, doc="path of a GeoJSON file (Polygon or MultiPolygon), relative to the recipe"),
+        "box": Obj(default=None, doc="a longitude/latitude box",
+                   fields={"lon": _LON, "lat": _LAT}),
+        "vertices": List(default=None, min_items=3,
+                         item=List(item=Num(unit="degrees"), min_items=2, max_items=2),
+                         doc="polygon vertices as [lon, lat] pairs"),
+        "published": Obj(default=None, doc="regions from a region set that regionmask ships",
+                         fields={"set": Str(doc="region set: srex, giorgi or prudence"),
+                                 "regions": List(item=Str(), min_items=1,
+                                                 doc="region abbreviations, e.g. [TIB]")}),
+    },
+    one_of=(("geojson", "box", "vertices", "published"),),
+)
+
+REGION = Obj(
+    doc="where the anomaly applies: the horizontal weight w(x) in [0, 1]",
+    fields={
+        "include": List(item=SHAPE, min_items=1, doc="shapes whose union is the region"),
+        "exclude": List(item=SHAPE, default=[], doc="shapes cut out of the region"),
+        "taper_km": Num(minimum=0.0, maximum=5000.0, unit="km", default=0.0,
+                        doc="width of the raised-cosine taper in great-circle distance; 0 is a hard edge"),
+        "taper_placement": Str(choices=("outside", "inside", "centred"), default="outside",
+                               doc="where the taper lies relative to the region boundary"),
+        "elevation": Obj(default=None, doc="keep only cells above an elevation, with a smooth ramp",
+                         fields={
+                             "min_m": Num(minimum=-500.0, maximum=9000.0, unit="m",
+                                          doc="cells below this surface altitude get weight 0"),
+                             "ramp_m": Num(minimum=0.0, maximum=5000.0, unit="m", default=0.0,
+                                           doc="height over which the weight rises from 0 to 1 above min_m"),
+                             "max_m": Num(minimum=-500.0, maximum=9000.0, unit="m", default=None,
+                                          doc="optional upper limit"),
+                             "max_ramp_m": Num(minimum=0.0, maximum=5000.0, unit="m", default=0.0,
+                                               doc="height over which the weight falls to 0 below max_m"),
+                         }),
+        "land_threshold": Num(minimum=0.0, maximum=1.0, default=0.5, unit="1",
+                              doc="when the layout has a land mask (not a fraction): cells with mask >= this are land"),
+        "use_land_fraction": Bool(default=True,
+                                  doc="multiply the weight by the land fraction where the layout has one"),
+    },
+)
+
+ANOMALY = Obj(
+    doc="the surface anomaly A(x): give exactly one of constant_K, field, bias, donor",
+    fields={
+        "constant_K": Num(minimum=-60.0, maximum=60.0, unit="K", default=None,
+                          doc="a constant temperature change in kelvin"),
+        "field": Obj(default=None, doc="an anomaly field from a netCDF file on any lon/lat grid",
+                     fields={"file": Str(doc="netCDF file, relative to the recipe"),
+                             "variable": Str(doc="variable name of the anomaly in K"),
+                             "scale": Num(minimum=-10.0, maximum=10.0, default=1.0, unit="1",
+                                          doc="factor applied to the field")}),
+        "bias": Obj(default=None, doc="A = -scale * (model climatology - reference climatology)",
+                    fields={"model_file": Str(doc="netCDF file of the model's climatology"),
+                            "reference_file": Str(doc="netCDF file of the reference climatology"),
+                            "variable": Str(doc="variable name in both files, in K"),
+                            "reference_variable": Str(default=None, doc="variable name in the reference file if different"),
+                            "scale": Num(minimum=-10.0, maximum=10.0, default=1.0, unit="1",
+                                         doc="fraction of the bias to remove")}),
+        "donor": Obj(default=None, doc="blend the targets toward another restart file of the same model and grid",
+                     fields={"file": Str(doc="donor restart file, relative to the recipe")}),
+    },
+    one_of=(("constant_K", "field", "bias", "donor"),),
+)
+
+PROFILE = Obj(
+    doc="the vertical factor f(z) by which the anomaly is scaled in each layer",
+    fields={
+        "kind": Str(choices=("uniform", "exponential", "linear", "table", "damping"), default="uniform",
+                    doc="shape of f(z)"),
+        "efolding_m": Num(exclusive_minimum=0.0, maximum=100.0, unit="m", default=None,
+                          doc="e-folding depth (kind exponential)"),
+        "zero_at_m": Num(exclusive_minimum=0.0, maximum=100.0, unit="m", default=None,
+                         doc="depth where the factor reaches 0 (kind linear)"),
+        "table": List(default=None, min_items=1,
+                      item=List(item=Num(), min_items=2, max_items=2),
+                      doc="[depth_m, factor] pairs, interpolated linearly (kind table)"),
+        "diffusivity_m2_s": Num(exclusive_minimum=0.0, maximum=1e-4, unit="m2 s-1", default=None,
+                                doc="soil thermal diffusivity (kind damping)"),
+        "period_days": Num(exclusive_minimum=0.0, maximum=36525.0, unit="days", default=None,
+                           doc="period of the surface forcing (kind damping)"),
+        "evaluate": Str(choices=("node", "layer_mean"), default="node",
+                        doc="evaluate f at the layer node depth or average it over the layer"),
+        "max_depth_m": Num(exclusive_minimum=0.0, maximum=1000.0, unit="m", default=None,
+                           doc="factor is 0 below this depth"),
+    },
+)
+
+TARGETS = ("soil_temperature", "skin_temperature", "snow_temperature", "snow_mass")
+
+BLOCK = Obj(
+    doc="one perturbation: a region, an anomaly and a depth profile",
+    fields={
+        "name": Str(doc="a short name for this perturbation, used in reports"),
+        "region": REGION,
+        "anomaly": ANOMALY,
+        "profile": replace(PROFILE, default={}),
+        "targets": List(item=Str(choices=TARGETS), min_items=1, default=["soil_temperature"],
+                        doc="which quantities this perturbation changes"),
+        "snow_mass_mode": Str(choices=("add", "multiply"), default="add",
+                              doc="how snow_mass_change is applied: add kg m-2, or multiply by (1 + change)"),
+        "snow_mass_change": Num(minimum=-1000.0, maximum=1000.0, default=0.0, unit="kg m-2 or 1",
+                                doc="snow_mass target: kg m-2 to add (mode add) or factor - 1 (mode multiply)"),
+    },
+)
+
+PHYSICS = Obj(
+    doc="how temperature changes interact with soil water and ice",
+    fields={
+        "mode": Str(choices=("none", "temperature", "energy"), default="none",
+                    doc="none: add dT only; temperature: add dT then re-equilibrate water phase; "
+                        "energy: impose the enthalpy change C*dT*dz and solve temperature and phase"),
+        "soil_temperature_min_K": Num(minimum=100.0, maximum=273.15, default=180.0, unit="K",
+                                      doc="lower bound for soil temperature (values below are clamped)"),
+        "soil_temperature_max_K": Num(minimum=273.15, maximum=400.0, default=340.0, unit="K",
+                                      doc="upper bound for soil temperature (values above are clamped)"),
+        "texture": Str(default=None, doc="soil texture class of Clapp and Hornberger (1978) for the freezing curve"),
+        "porosity": Num(exclusive_minimum=0.0, maximum=1.0, default=None, unit="m3 m-3",
+                        doc="porosity (constant), if not from texture or the layout"),
+        "psi_sat_m": Num(exclusive_minimum=0.0, maximum=100.0, default=None, unit="m",
+                         doc="saturated matric suction magnitude (constant)"),
+        "clapp_b": Num(exclusive_minimum=0.0, maximum=30.0, default=None, unit="1",
+                       doc="Clapp-Hornberger exponent b (constant)"),
+        "sand_pct": Num(minimum=0.0, maximum=100.0, default=None, unit="%",
+                        doc="sand percentage for the Cosby et al. (1984) regressions"),
+        "clay_pct": Num(minimum=0.0, maximum=100.0, default=None, unit="%",
+                        doc="clay percentage for the Cosby et al. (1984) regressions"),
+    },
+)
+
+# ---------------------------------------------------------------------------------------------
+# Layout schema
+# ---------------------------------------------------------------------------------------------
+
+LAYERED_ROLES = ("soil_temperature", "soil_liquid", "soil_ice", "snow_temperature")
+PLAIN_ROLES = ("longitude", "latitude", "land_fraction", "land_mask", "surface_altitude",
+               "skin_temperature", "snow_mass", "snow_depth", "cell_area",
+               "porosity", "psi_sat", "clapp_b", "sand", "clay")
+DEPTH_ROLES = ("layer_node_depth", "layer_interface_depth", "layer_thickness")
+
+_VARNAME = Str(doc="variable name in the file")
+_LAYERED = AnyOf(options=(Str(), List(item=Str(), min_items=1)), default=None,
+                 names=("a variable name", "a list of per-layer variable names (top first)"),
+                 doc="one variable with a layer dimension, or one 2-D variable per layer (top first)")
+_DEPTH = AnyOf(
+    options=(Str(), Obj(fields={"values": List(item=Num(), min_items=1, doc="depth values, top first"),
+                                "units": Str(default="m", doc="m, cm or mm"),
+                                "positive": Str(choices=("down", "up"), default="down",
+                                                doc="direction in which depth values increase")})),
+    default=None, names=("a variable name", "a mapping with values and units"),
+    doc="a variable in the file, or values given here",
+)
+
+LAYOUT = Obj(
+    doc="where one model keeps each quantity",
+    fields={
+        "initgen_layout": Num(integer=True, minimum=1, maximum=LAYOUT_VERSION, doc="layout format version"),
+        "name": Str(default=None, doc="a name for this layout (model or file kind)"),
+        "roles": Obj(doc="role -> variable name(s)", fields={
+            **{r: replace(_LAYERED) for r in LAYERED_ROLES},
+            **{r: Str(default=None, doc=f"variable holding {r.replace('_', ' ')}") for r in PLAIN_ROLES},
+            **{r: replace(_DEPTH) for r in DEPTH_ROLES},
+        }),
+        "layer_dimension": Str(default=None, doc="name of the layer dimension (found automatically if omitted)"),
+        "snow_layers": Num(integer=True, minimum=0, maximum=50, default=0, unit="1",
+                           doc="number of snow layers stacked above the soil on a combined layer axis"),
+        "units": Obj(default=None, doc="units to assume for variables without a units attribute: role -> units",
+                     fields={r: Str(default=None) for r in LAYERED_ROLES + PLAIN_ROLES}),
+    },
+)
+
+RECIPE = Obj(
+    doc="an initgen experiment recipe",
+    fields={
+        "initgen_recipe": Num(integer=True, minimum=1, maximum=RECIPE_VERSION, doc="recipe format version"),
+        "name": Str(doc="name of the experiment"),
+        "description": Str(default=None, doc="free text"),
+        "seed": Num(integer=True, minimum=0, maximum=2**63 - 1, default=0, unit="1",
+                    doc="seed for member noise"),
+        "perturbations": List(item=BLOCK, min_items=1, unique_key="name",
+                              doc="perturbation blocks, applied in order (each adds its change to the result of the previous)"),
+        "physics": replace(PHYSICS, default={}),
+        "layout": replace(LAYOUT, default=None, doc="an inline layout (used when no --layout is given)"),
+    },
+)
+
+
+# ---------------------------------------------------------------------------------------------
+# Loading
+# ---------------------------------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class Document:
+    """A validated recipe or layout."""
+
+    data: dict
+    text: str
+    path: Path | None
+    kind: str  # 'recipe' or 'layout'
+
+    @property
+    def base_dir(self) -> Path:
+        return self.path.parent if self.path is not None else Path.cwd()
+
+    @property
+    def sha256(self) -> str:
+        return canonical_hash(self.data)
+
+    @property
+    def name(self) -> str:
+        return self.data.get("name") or (self.path.stem if self.path else self.kind)
+
+
+Recipe = Document
+Layout = Document
+
+
+def canonical_hash(data: dict) -> str:
+    """sha256 of the validated document as canonical JSON (sorted keys, no whitespace).
+
+    Key order, comments, whitespace and explicitly written defaults do not change it.
+    """
+    text = json.dumps(data, sort_keys=True, separators=(",", ":"), ensure_ascii=True)
+    return hashlib.sha256(text.encode()).hexdigest()
+
+
+def _parse_yaml(text: str, source: str) -> Any:
+    try:
+        return yaml.safe_load(text)
+    except yaml.constructor.ConstructorError as exc:
+        tag = getattr(exc, "problem", "") or ""
+        raise InputError(
+            f"{source}: refused YAML tag ({tag.strip()}); recipes may hold only plain data "
+            "(mappings, lists, strings, numbers)"
+        ) from None
+    except yaml.YAMLError as exc:
+        mark = getattr(exc, "problem_mark", None)
+        where = f" at line {mark.line + 1}, column {mark.column + 1}" if mark else ""
+        problem = getattr(exc, "problem", None) or "not valid YAML"
+        raise InputError(f"{source}: malformed YAML{where}: {problem}; fix the syntax") from None
+
+
+def _read_text(path: Path, what: str) -> str:
+    if path.is_dir():
+        raise InputError(f"{path}: is a folder, not a {what} file; give the path of a YAML file")
+    try:
+        data = path.read_bytes()
+    except FileNotFoundError:
+        raise InputError(f"{path}: {what} file not found; check the path") from None
+    except OSError as exc:
+        raise InputError(f"{path}: cannot read the {what} file ({exc.strerror})") from None
+    try:
+        return data.decode("utf-8")
+    except UnicodeDecodeError:
+        raise InputError(f"{path}: the {what} file is not UTF-8 text; save it as UTF-8 YAML") from None
+
+
+def _validate(raw: Any, node: Obj, kind: str, source: str, version_key: str, version: int) -> dict:
+    if raw is None:
+        raise InputError(f"{source}: the {kind} is empty; start from an example in recipes/ or `initgen schema`")
+    if not isinstance(raw, dict):
+        raise InputError(f"{source}: a {kind} must be a mapping of keys at the top level, got {type(raw).__name__}")
+    if version_key not in raw:
+        raise InputError(f"{source}: missing '{version_key}: {version}' at the top; add it to mark the {kind} format")
+    try:
+        return node.validate(copy.deepcopy(raw), "")
+    except InputError as exc:
+        raise InputError(f"{source}: {exc}") from None
+
+
+def load_recipe(source: str | os.PathLike | dict, *, text: str | None = None) -> Document:
+    """Load and validate a recipe from a YAML file path, or from an already-parsed mapping."""
+    if isinstance(source, dict):
+        data = _validate(source, RECIPE, "recipe", "recipe", "initgen_recipe", RECIPE_VERSION)
+        return Document(data, text or yaml.safe_dump(source, sort_keys=False), None, "recipe")
+    path = Path(source)
+    text = _read_text(path, "recipe")
+    raw = _parse_yaml(text, str(path))
+    data = _validate(raw, RECIPE, "recipe", str(path), "initgen_recipe", RECIPE_VERSION)
+    _check_semantics(data, str(path))
+    return Document(data, text, path.resolve(), "recipe")
+
+
+def load_layout(source: str | os.PathLike | dict) -> Document:
+    """Load and validate a layout from a YAML file path, or from a parsed mapping."""
+    if isinstance(source, dict):
+        data = _validate(source, LAYOUT, "layout", "layout", "initgen_layout", LAYOUT_VERSION)
+        return Document(data, yaml.safe_dump(source, sort_keys=False), None, "layout")
+    path = Path(source)
+    text = _read_text(path, "layout")
+    raw = _parse_yaml(text, str(path))
+    data = _validate(raw, LAYOUT, "layout", str(path), "initgen_layout", LAYOUT_VERSION)
+    return Document(data, text, path.resolve(), "layout")
+
+
+def inline_layout(recipe: Document) -> Document | None:
+    data = recipe.data.get("layout")
+    if not data:
+        return None
+    return Document(data, yaml.safe_dump(data, sort_keys=False), recipe.path, "layout")
+
+
+_PROFILE_NEEDS = {
+    "exponential": ("efolding_m",),
+    "linear": ("zero_at_m",),
+    "table": ("table",),
+    "damping": ("diffusivity_m2_s", "period_days"),
+    "uniform": (),
+}
+
+
+def _check_semantics(data: dict, source: str) -> None:
+    """Cross-key checks the per-key schema cannot express."""
+    for i, block in enumerate(data["perturbations"]):
+        prof = block["profile"]
+        for key in _PROFILE_NEEDS[prof["kind"]]:
+            if prof.get(key) is None:
+                raise InputError(
+                    f"{source}: recipe key perturbations[{i}].profile.{key}: is required for kind "
+                    f"'{prof['kind']}'"
+                )
+        elev = block["region"].get("elevation")
+        if elev and elev.get("max_m") is not None and elev["max_m"] <= elev["min_m"]:
+            raise InputError(
+                f"{source}: recipe key perturbations[{i}].region.elevation.max_m: must be above min_m "
+                f"({elev['min_m']}), got {elev['max_m']}"
+            )
+        if "snow_mass" in block["targets"] and block["snow_mass_change"] == 0.0:
+            raise InputError(
+                f"{source}: recipe key perturbations[{i}].snow_mass_change: target snow_mass needs a "
+                "non-zero change"
+            )
+    phys = data["physics"]
+    if phys["soil_temperature_min_K"] >= phys["soil_temperature_max_K"]:
+        raise InputError(f"{source}: recipe key physics.soil_temperature_min_K: must be below soil_temperature_max_K")
+
+
+def check_semantics(recipe: Document) -> None:
+    _check_semantics(recipe.data, str(recipe.path or "recipe"))
+
+
+def resolve_path(doc: Document, rel: str, key: str, allow_outside: bool = False) -> Path:
+    """Resolve a file named in a recipe, relative to the recipe's folder.
+
+    A path that leaves the recipe's folder (absolute, or through ``..``) is refused unless
+    ``allow_outside`` is true, so a recipe from another group cannot read arbitrary files.
+    """
+    base = doc.base_dir.resolve()
+    path = Path(rel)
+    full = (path if path.is_absolute() else base / path).resolve()
+    if not allow_outside and base not in full.parents and full != base:
+        raise InputError(
+            f"recipe key {key}: path '{rel}' leaves the recipe's folder {base}; move the file beside "
+            "the recipe or pass --allow-outside-paths"
+        )
+    if not full.exists():
+        raise InputError(f"recipe key {key}: file '{rel}' not found (looked for {full})")
+    return full

@@ -1,0 +1,546 @@
+"""The one module that opens netCDF files: read-only stores, the atomic copy-and-patch writer.
+
+Values cross this boundary as float64 arrays with NaN where the file holds a fill value, a
+missing value or a value outside ``valid_range``; packing (``scale_factor`` / ``add_offset``) is
+undone on read and redone on write. Writing changes only the cells a caller says changed: every
+other raw value is written back exactly as it was read, so untouched cells stay bit-identical
+even inside a patched block.
+
+The writer never touches the input. It copies the input to a temporary file beside the output
+(the operating system's file copy), patches the touched variables in place with netCDF4, fsyncs,
+and moves the result into place atomically: an existing output is only replaced with ``force``,
+and two runs racing for the same output end with one complete file and a clear message from
+the other. A run that is interrupted (SIGINT, SIGTERM, a full disk) removes its temporary file.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import errno
+import hashlib
+import os
+import shutil
+import signal
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any, Callable, Iterator
+
+import numpy as np
+
+from .errors import InputError
+
+try:  # netCDF4 is a hard dependency; import lazily-failing for a clear message
+    import netCDF4
+except ImportError as exc:  # pragma: no cover
+    raise ImportError("initgen needs the netCDF4 package: pip install netCDF4") from exc
+
+
+TMP_TAG = ".initgen-tmp"
+
+
+@dataclass(frozen=True)
+class VarInfo:
+    """What initgen needs to know about one variable, whichever store it lives in."""
+
+    name: str
+    dims: tuple
+    shape: tuple
+    dtype: np.dtype
+    attrs: dict = field(default_factory=dict)
+
+    @property
+    def units(self) -> str:
+        return str(self.attrs.get("units", "")).strip()
+
+    @property
+    def chunks(self) -> tuple | None:
+        return self.attrs.get("_initgen_chunks")
+
+
+def _fill_values(attrs: dict, dtype: np.dtype) -> list:
+    out = []
+    for key in ("_FillValue", "missing_value"):
+        if key in attrs:
+            val = np.atleast_1d(np.asarray(attrs[key]))
+            out.extend(val.tolist())
+    return out
+
+
+def unpack(raw: np.ndarray, attrs: dict) -> np.ndarray:
+    """Raw stored values -> float64 physical values with NaN for fill/missing/out-of-range."""
+    raw = np.asarray(raw)
+    if np.ma.isMaskedArray(raw):
+        raw = raw.filled()
+    vals = raw.astype(np.float64)
+    bad = ~np.isfinite(vals)
+    for fv in _fill_values(attrs, raw.dtype):
+        bad |= raw == np.asarray(fv).astype(raw.dtype) if raw.dtype.kind != "f" else raw == fv
+    if "valid_range" in attrs:
+        lo, hi = np.asarray(attrs["valid_range"]).tolist()[:2]
+        bad |= (raw < lo) | (raw > hi)
+    else:
+        if "valid_min" in attrs:
+            bad |= raw < np.asarray(attrs["valid_min"]).item()
+        if "valid_max" in attrs:
+            bad |= raw > np.asarray(attrs["valid_max"]).item()
+    scale = attrs.get("scale_factor")
+    offset = attrs.get("add_offset")
+    if scale is not None:
+        vals = vals * float(np.asarray(scale).item())
+    if offset is not None:
+        vals = vals + float(np.asarray(offset).item())
+    vals[bad] = np.nan
+    return vals
+
+
+def pack(values: np.ndarray, attrs: dict, dtype: np.dtype) -> np.ndarray:
+    """float64 physical values -> raw values of ``dtype`` (inverse of :func:`unpack`).
+
+    Integer types are rounded to nearest and clipped to the type's range (never onto the fill
+    value), as the NetCDF User Guide's packing convention implies.
+    """
+    vals = np.asarray(values, dtype=np.float64)
+    offset = attrs.get("add_offset")
+    scale = attrs.get("scale_factor")
+    if offset is not None:
+        vals = vals - float(np.asarray(offset).item())
+    if scale is not None:
+        vals = vals / float(np.asarray(scale).item())
+    dtype = np.dtype(dtype)
+    if dtype.kind in "iu":
+        info = np.iinfo(dtype)
+        lo, hi = info.min, info.max
+        fills = [int(f) for f in _fill_values(attrs, dtype)]
+        if fills and fills[0] == lo:
+            lo += 1
+        if fills and fills[0] == hi:
+            hi -= 1
+        return np.clip(np.rint(vals), lo, hi).astype(dtype)
+    return vals.astype(dtype)
+
+
+class Store:
+    """Read (and, for writable stores, patch) variables of one dataset."""
+
+    path: Path | None = None
+    dims: dict
+    variables: dict
+    global_attrs: dict
+
+    def read(self, name: str, key: tuple | None = None) -> np.ndarray:
+        raise NotImplementedError
+
+    def read_raw(self, name: str, key: tuple | None = None) -> np.ndarray:
+        raise NotImplementedError
+
+    def write_changed(self, name: str, key: tuple, values: np.ndarray, changed: np.ndarray) -> int:
+        raise NotImplementedError
+
+    def describe(self) -> str:
+        return str(self.path) if self.path else "the dataset"
+
+
+def _key(key, ndim):
+    return (slice(None),) * ndim if key is None else key
+
+
+class NetCDFStore(Store):
+    """A netCDF file opened with netCDF4, auto-scaling off (we pack and unpack ourselves)."""
+
+    def __init__(self, path: str | os.PathLike, mode: str = "r"):
+        self.path = Path(path)
+        self.ds = open_netcdf(self.path, mode)
+        self.ds.set_auto_maskandscale(False)
+        self.dims = {name: len(d) for name, d in self.ds.dimensions.items()}
+        self.variables = {}
+        for name, var in self.ds.variables.items():
+            attrs = {k: var.getncattr(k) for k in var.ncattrs()}
+            try:
+                chunking = var.chunking()
+            except Exception:  # netCDF3 has no chunking
+                chunking = "contiguous"
+            if isinstance(chunking, list):
+                attrs["_initgen_chunks"] = tuple(chunking)
+            self.variables[name] = VarInfo(name, tuple(var.dimensions), tuple(var.shape), np.dtype(var.dtype), attrs)
+        self.global_attrs = {k: self.ds.getncattr(k) for k in self.ds.ncattrs()}
+        self.bytes_written = 0
+
+    @property
+    def file_format(self) -> str:
+        return self.ds.data_model
+
+    def read_raw(self, name, key=None):
+        var = self.ds.variables[name]
+        try:
+            data = var[_key(key, var.ndim)]
+        except (RuntimeError, OSError, IndexError) as exc:
+            raise InputError(f"{self.path}: cannot read variable '{name}' ({exc}); the file may be truncated or corrupt") from None
+        return np.ma.getdata(data)
+
+    def read(self, name, key=None):
+        return unpack(self.read_raw(name, key), self.variables[name].attrs)
+
+    def write_changed(self, name, key, values, changed):
+        """Write ``values`` where ``changed``; every other cell is written back as read."""
+        if not np.any(changed):
+            return 0
+        info = self.variables[name]
+        raw = self.read_raw(name, key).copy()
+        raw[changed] = pack(values[changed], info.attrs, info.dtype)
+        var = self.ds.variables[name]
+        var[_key(key, var.ndim)] = raw
+        self.bytes_written += raw.nbytes
+        return int(np.count_nonzero(changed))
+
+    def set_history(self, line: str) -> None:
+        old = self.global_attrs.get("history", "")
+        old = old if isinstance(old, str) else str(old)
+        new = f"{line}\n{old}" if old else line  # CF: most recent first, one line per step
+        self.ds.setncattr("history", new)
+
+    def close(self):
+        if self.ds.isopen():
+            self.ds.close()
+
+
+class XarrayStore(Store):
+    """An in-memory xarray.Dataset (decoded, as xarray opens it), for notebook use."""
+
+    def __init__(self, dataset):
+        self.ds = dataset
+        self.path = None
+        self.dims = dict(dataset.sizes)
+        self.variables = {}
+        for name, var in dataset.variables.items():
+            attrs = dict(var.attrs)
+            if "units" in var.encoding and "units" not in attrs:
+                attrs["units"] = var.encoding["units"]
+            self.variables[name] = VarInfo(str(name), tuple(var.dims), tuple(var.shape), np.dtype(var.dtype), attrs)
+        self.global_attrs = dict(dataset.attrs)
+        self.bytes_written = 0
+
+    def describe(self):
+        return "the in-memory dataset"
+
+    def read_raw(self, name, key=None):
+        arr = self.ds[name].values
+        return arr[_key(key, arr.ndim)]
+
+    def read(self, name, key=None):
+        arr = np.asarray(self.read_raw(name, key))
+        out = arr.astype(np.float64)
+        if arr.dtype.kind not in "fc":
+            # integers in a decoded dataset: fill values are still raw
+            for fv in _fill_values(self.variables[name].attrs, arr.dtype):
+                out[arr == fv] = np.nan
+        return out
+
+    def write_changed(self, name, key, values, changed):
+        if not np.any(changed):
+            return 0
+        var = self.ds[name].variable
+        arr = var.values  # numpy view of the (copied) data
+        block = arr[_key(key, arr.ndim)]
+        block = np.array(block, copy=True)
+        if arr.dtype.kind in "iu":
+            block[changed] = np.rint(values[changed]).astype(arr.dtype)
+        else:
+            block[changed] = values[changed].astype(arr.dtype)
+        arr[_key(key, arr.ndim)] = block
+        var.values = arr
+        return int(np.count_nonzero(changed))
+
+
+def open_netcdf(path: Path, mode: str = "r"):
+    """Open a netCDF file with a one-line error for everything that can go wrong."""
+    path = Path(path)
+    if path.is_dir():
+        raise InputError(f"{path}: is a folder, not a netCDF file; give the path of the restart file")
+    if not path.exists():
+        raise InputError(f"{path}: file not found; check the path")
+    try:
+        return netCDF4.Dataset(path, mode)
+    except PermissionError:
+        raise InputError(f"{path}: permission denied; check the file's permissions") from None
+    except OSError as exc:
+        msg = str(exc).split(":")[0] if str(exc) else "unknown error"
+        raise InputError(
+            f"{path}: not a readable netCDF file ({msg}); it may be truncated or corrupt, or not netCDF at all"
+        ) from None
+
+
+def sha256_file(path: str | os.PathLike, bufsize: int = 8 << 20) -> str:
+    h = hashlib.sha256()
+    with open(path, "rb") as fh:
+        for block in iter(lambda: fh.read(bufsize), b""):
+            h.update(block)
+    return h.hexdigest()
+
+
+# ---------------------------------------------------------------------------------------------
+# The atomic writer
+# ---------------------------------------------------------------------------------------------
+
+
+class _Interrupted(BaseException):
+    pass
+
+
+@contextlib.contextmanager
+def _signals_raise() -> Iterator[None]:
+    """Turn SIGTERM (and SIGINT) into an exception so that clean-up code runs."""
+    def handler(signum, frame):
+        raise _Interrupted(signal.Signals(signum).name)
+
+    old = {}
+    try:
+        for sig in (signal.SIGTERM, signal.SIGINT):
+            try:
+                old[sig] = signal.signal(sig, handler)
+            except ValueError:  # not in the main thread
+                pass
+        yield
+    finally:
+        for sig, h in old.items():
+            signal.signal(sig, h)
+
+
+def check_output_path(input_path: Path, output: Path, force: bool) -> None:
+    """Refuse outputs that would overwrite the input, or an existing file without force."""
+    output = Path(output)
+    if output.exists() and output.is_dir():
+        raise InputError(f"{output}: is a folder; give a file name for the output")
+    try:
+        same = output.exists() and os.path.samefile(input_path, output)
+    except OSError:
+        same = False
+    if same or Path(os.path.abspath(input_path)) == Path(os.path.abspath(output)):
+        raise InputError(f"{output}: output is the input file; initgen never modifies its input, choose another name")
+    parent = output.parent if str(output.parent) else Path(".")
+    if not parent.exists():
+        raise InputError(f"{output}: output folder {parent} does not exist; create it first")
+    if not os.access(parent, os.W_OK):
+        raise InputError(f"{output}: output folder {parent} is not writable; choose another folder")
+    if output.exists() and not force:
+        raise InputError(f"{output}: exists; pass --force to replace it")
+
+
+def _tmp_path(output: Path) -> Path:
+    return output.parent / f".{output.name}.{os.getpid()}{TMP_TAG}"
+
+
+def clean_stale_temporaries(output: Path) -> list[Path]:
+    """Remove temporaries left beside ``output`` by crashed initgen runs (dead process ids)."""
+    removed = []
+    prefix = f".{output.name}."
+    for p in output.parent.glob(f"{prefix}*{TMP_TAG}"):
+        pid_text = p.name[len(prefix):-len(TMP_TAG)]
+        if not pid_text.isdigit():
+            continue
+        pid = int(pid_text)
+        if pid == os.getpid() or _pid_alive(pid):
+            continue
+        with contextlib.suppress(OSError):
+            p.unlink()
+            removed.append(p)
+    return removed
+
+
+def _pid_alive(pid: int) -> bool:
+    try:
+        os.kill(pid, 0)
+    except ProcessLookupError:
+        return False
+    except PermissionError:
+        return True
+    return True
+
+
+def _disk_error(exc: OSError, output: Path) -> InputError:
+    if exc.errno == errno.ENOSPC:
+        return InputError(f"{output}: no space left on the device; free space or write elsewhere (nothing was written)")
+    if exc.errno in (errno.EACCES, errno.EPERM, errno.EROFS):
+        return InputError(f"{output}: cannot write there ({exc.strerror}); choose another folder")
+    return InputError(f"{output}: write failed ({exc.strerror or exc}); nothing was written")
+
+
+def fsync_path(path: Path) -> None:
+    fd = os.open(path, os.O_RDONLY)
+    try:
+        os.fsync(fd)
+    finally:
+        os.close(fd)
+
+
+def publish(tmp: Path, output: Path, force: bool) -> None:
+    """Move a finished temporary file into place atomically.
+
+    Without ``force`` a hard link creates the output only if no file is there (so a concurrent
+    run cannot be overwritten); with ``force`` ``os.replace`` swaps it in.
+    """
+    if force:
+        os.replace(tmp, output)
+    else:
+        try:
+            os.link(tmp, output)
+        except FileExistsError:
+            raise InputError(
+                f"{output}: another process created this file while initgen was writing; "
+                "kept theirs, pass --force to replace it"
+            ) from None
+        except OSError:
+            # filesystems without hard links: fall back to an exclusive create check + rename
+            if output.exists():
+                raise InputError(f"{output}: exists; pass --force to replace it") from None
+            os.replace(tmp, output)
+            return
+        tmp.unlink()
+    with contextlib.suppress(OSError):
+        dfd = os.open(output.parent, os.O_RDONLY)
+        try:
+            os.fsync(dfd)
+        finally:
+            os.close(dfd)
+
+
+def write_atomic_text(path: Path, text: str, force: bool = True) -> None:
+    """Write a small text file (provenance, reports) through a temporary file and a rename."""
+    path = Path(path)
+    tmp = _tmp_path(path)
+    try:
+        with open(tmp, "w", encoding="utf-8") as fh:
+            fh.write(text)
+            fh.flush()
+            os.fsync(fh.fileno())
+        publish(tmp, path, force=True)
+    except OSError as exc:
+        with contextlib.suppress(OSError):
+            tmp.unlink()
+        raise _disk_error(exc, path) from None
+    finally:
+        with contextlib.suppress(OSError):
+            tmp.unlink()
+
+
+def copy_and_patch(input_path: str | os.PathLike, output: str | os.PathLike, patch: Callable[[NetCDFStore], Any],
+                   *, force: bool = False, history: str | None = None,
+                   after: Callable[[Path], None] | None = None) -> Any:
+    """Copy ``input_path`` beside ``output``, run ``patch(store)`` on the copy, move it into place.
+
+    ``after(tmp_path)`` runs once the patched copy is closed and synced, before it is published
+    (used to write the provenance record, which needs the output's hash). Whatever goes wrong,
+    the temporary file is removed and no output appears.
+    """
+    input_path = Path(input_path)
+    output = Path(output)
+    check_output_path(input_path, output, force)
+    clean_stale_temporaries(output)
+    tmp = _tmp_path(output)
+    result = None
+    try:
+        with _signals_raise():
+            try:
+                shutil.copyfile(input_path, tmp)
+            except OSError as exc:
+                raise _disk_error(exc, output) from None
+            with contextlib.suppress(OSError):
+                os.chmod(tmp, 0o644 | (os.stat(input_path).st_mode & 0o777))
+            store = NetCDFStore(tmp, "r+")
+            try:
+                result = patch(store)
+                if history:
+                    store.set_history(history)
+            finally:
+                store.close()
+            fsync_path(tmp)
+            if after is not None:
+                after(tmp)
+            publish(tmp, output, force)
+    except _Interrupted as exc:
+        raise KeyboardInterrupt(str(exc)) from None
+    except OSError as exc:
+        raise _disk_error(exc, output) from None
+    finally:
+        with contextlib.suppress(OSError):
+            tmp.unlink()
+    return result
+
+
+def create_netcdf(path: Path, build: Callable[[Any], None], fmt: str = "NETCDF4", force: bool = True) -> None:
+    """Create a new netCDF file through a temporary file (used by the demo and the mask writer)."""
+    path = Path(path)
+    tmp = _tmp_path(path)
+    try:
+        ds = netCDF4.Dataset(tmp, "w", format=fmt)
+        try:
+            build(ds)
+        finally:
+            ds.close()
+        publish(tmp, path, force)
+    except OSError as exc:
+        raise _disk_error(exc, path) from None
+    finally:
+        with contextlib.suppress(OSError):
+            tmp.unlink()
+
+
+def read_field(path: Path, variable: str, key_name: str) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Read a 2-D lon/lat field (squeezing size-1 dims) from a netCDF file: (lon, lat, values).
+
+    Longitude and latitude are found by CF attributes (standard_name, units, axis) or by name.
+    """
+    store = NetCDFStore(path)
+    try:
+        if variable not in store.variables:
+            raise InputError(f"{path}: has no variable '{variable}' (recipe key {key_name}); "
+                             f"variables: {', '.join(sorted(store.variables))}")
+        lon_name = lat_name = None
+        for name, info in store.variables.items():
+            sn = str(info.attrs.get("standard_name", "")).lower()
+            un = info.units.lower()
+            if sn == "longitude" or un in ("degrees_east", "degree_east", "degrees_e") or name.lower() in ("lon", "longitude"):
+                lon_name = lon_name or name
+            if sn == "latitude" or un in ("degrees_north", "degree_north", "degrees_n") or name.lower() in ("lat", "latitude"):
+                lat_name = lat_name or name
+        if lon_name is None or lat_name is None:
+            raise InputError(f"{path}: no longitude/latitude variables found (recipe key {key_name}); "
+                             "give them standard_name longitude/latitude")
+        lon = store.read(lon_name)
+        lat = store.read(lat_name)
+        vals = store.read(variable)
+        info = store.variables[variable]
+        keep = tuple(0 if (s == 1 and i < len(info.shape) - 2) else slice(None) for i, s in enumerate(info.shape))
+        vals = vals[keep]
+        if vals.ndim != 2:
+            raise InputError(f"{path}: variable '{variable}' must be 2-D (lat, lon) after dropping size-1 "
+                             f"dimensions, got dims {info.dims} (recipe key {key_name})")
+        dims = [d for d, k in zip(info.dims, keep) if k != 0]
+        lon_dim = store.variables[lon_name].dims
+        if lon.ndim == 1 and dims[0] == lon_dim[0]:
+            vals = vals.T
+        return lon, lat, vals
+    finally:
+        store.close()
+
+
+def versions() -> dict:
+    """Versions of the libraries that decide the bits of the output."""
+    import xarray
+
+    from . import __version__
+
+    return {
+        "initgen": __version__,
+        "numpy": np.__version__,
+        "xarray": xarray.__version__,
+        "netCDF4": netCDF4.__version__,
+        "netcdf-c": netCDF4.__netcdf4libversion__,
+        "hdf5": netCDF4.__hdf5libversion__,
+    }
+
+
+__all__ = [
+    "VarInfo", "Store", "NetCDFStore", "XarrayStore", "copy_and_patch", "create_netcdf", "sha256_file",
+    "unpack", "pack", "check_output_path", "clean_stale_temporaries", "write_atomic_text", "read_field",
+    "versions",
+]
