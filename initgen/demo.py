@@ -149,6 +149,12 @@ def run_demo(out: Path) -> str:
         raise InputError(f"the shipped recipe {DEMO_RECIPE} is missing from this installation; reinstall initgen")
     src = out / "demo-restart.nc"
     dst = out / "demo-restart.cold-highland.nc"
+    # copy the recipe and its outline beside the data, so the walk-through can use them
+    mask = shipped_file("masks", "demo-highland.geojson")
+    write_atomic_text(out / DEMO_RECIPE, recipe.read_text(encoding="utf-8"))
+    if mask is not None:
+        write_atomic_text(out / mask.name, mask.read_text(encoding="utf-8"))
+    recipe = out / DEMO_RECIPE
     write_demo_restart(src)
     record = api.apply(recipe, src, dst, force=True)
     led = record["ledger"]
