@@ -21,7 +21,7 @@ FILL = -9999.0
 LOAM = dict(porosity=0.451, psi_sat_m=0.478, b=5.39)  # Clapp and Hornberger (1978), Table 2
 
 
-def demo_fields(nlon: int = 120, nlat: int = 80) -> dict:
+def demo_fields(nlon: int = 120, nlat: int = 80, shift_K: float = 0.0) -> dict:
     lon = 150.25 + 0.5 * np.arange(nlon) * (120 / nlon)
     lat = 20.25 + 0.5 * np.arange(nlat) * (80 / nlat)
     LON, LAT = np.meshgrid(lon, lat)
@@ -37,8 +37,8 @@ def demo_fields(nlon: int = 120, nlat: int = 80) -> dict:
     elev = np.where(landfrac > 0, elev, 0.0)
     land = landfrac > 0
     # end of winter: cold surface on the plateau, warmer deep soil
-    t_surf = 290.0 - 0.0055 * elev - 0.35 * (LAT - 40.0)
-    t_deep = 285.0 - 0.003 * elev - 0.2 * (LAT - 40.0)
+    t_surf = 290.0 - 0.0055 * elev - 0.35 * (LAT - 40.0) + shift_K
+    t_deep = 285.0 - 0.003 * elev - 0.2 * (LAT - 40.0) + 0.5 * shift_K
     z = NODES[:, None, None]
     tsoil = t_deep + (t_surf - t_deep) * np.exp(-z / 0.6)
     dz = np.diff(INTERFACES)[:, None, None]
@@ -60,9 +60,10 @@ def demo_fields(nlon: int = 120, nlat: int = 80) -> dict:
                 snow=snow, snow_depth=snow_depth, tskin=tskin, tsnow=tsnow)
 
 
-def write_demo_restart(path: Path, nlon: int = 120, nlat: int = 80, fmt: str = "NETCDF4") -> Path:
-    """Write the demo restart file to ``path``."""
-    f = demo_fields(nlon, nlat)
+def write_demo_restart(path: Path, nlon: int = 120, nlat: int = 80, fmt: str = "NETCDF4",
+                       cold_year_K: float = 0.0) -> Path:
+    """Write the demo restart file to ``path`` (``cold_year_K`` shifts the year's temperatures)."""
+    f = demo_fields(nlon, nlat, shift_K=cold_year_K)
 
     def build(ds):
         ds.title = "initgen demo restart: an invented highland on an invented grid (synthetic data)"
@@ -127,6 +128,50 @@ def write_demo_restart(path: Path, nlon: int = 120, nlat: int = 80, fmt: str = "
 DEMO_RECIPE = "demo-cold-highland.yaml"
 
 
+def _write_field(path: Path, lon: np.ndarray, lat: np.ndarray, values: np.ndarray, name: str, long_name: str) -> None:
+    def build(ds):
+        ds.title = f"initgen demo: {long_name} (synthetic)"
+        ds.Conventions = "CF-1.8"
+        ds.createDimension("lat", lat.size)
+        ds.createDimension("lon", lon.size)
+        v = ds.createVariable("lat", "f8", ("lat",))
+        v.units, v.standard_name = "degrees_north", "latitude"
+        v[:] = lat
+        v = ds.createVariable("lon", "f8", ("lon",))
+        v.units, v.standard_name = "degrees_east", "longitude"
+        v[:] = lon
+        v = ds.createVariable(name, "f4", ("lat", "lon"))
+        v.units, v.long_name = "K", long_name
+        v[:] = values
+
+    create_netcdf(path, build)
+
+
+def write_demo_extras(out: Path) -> list[Path]:
+    """Auxiliary demo inputs the example recipes use (all synthetic, on grids of their own).
+
+    - ``demo-anomaly.nc``: an 'observed' soil temperature anomaly on a coarser 1-degree grid in the
+      -180..180 convention (so interpolation must wrap the dateline);
+    - ``demo-model-clim.nc`` / ``demo-reference-clim.nc``: a model's climatology of the top soil
+      temperature and a reference one, for the bias-compensating start;
+    - ``demo-restart-donor.nc``: the demo restart of another (colder) year, for the donor blend.
+    """
+    out = Path(out)
+    lon = np.arange(-179.5, 180.0, 1.0)
+    lat = np.arange(10.5, 70.0, 1.0)
+    LON, LAT = np.meshgrid(lon, lat)
+    dist = np.hypot((np.mod(LON, 360) - 181.0) / 9.0, (LAT - 38.5) / 6.0)
+    anomaly = -4.0 * np.exp(-dist**2) + 0.5 * np.sin(np.radians(LON) * 3)
+    _write_field(out / "demo-anomaly.nc", lon, lat, anomaly, "tsoil_anomaly", "top soil temperature anomaly")
+    ref = 280.0 - 0.6 * (LAT - 40.0) - 12.0 * np.exp(-dist**2)
+    model = ref + 2.5 * np.exp(-dist**2) + 0.3
+    _write_field(out / "demo-reference-clim.nc", lon, lat, ref, "tsoil_top", "reference top soil temperature climatology")
+    _write_field(out / "demo-model-clim.nc", lon, lat, model, "tsoil_top", "model top soil temperature climatology")
+    donor = out / "demo-restart-donor.nc"
+    write_demo_restart(donor, cold_year_K=-2.5)
+    return [out / "demo-anomaly.nc", out / "demo-reference-clim.nc", out / "demo-model-clim.nc", donor]
+
+
 def run_demo(out: Path) -> str:
     """Write the demo input, apply the shipped demo recipe, and write a summary and a preview report.
 
@@ -149,13 +194,17 @@ def run_demo(out: Path) -> str:
         raise InputError(f"the shipped recipe {DEMO_RECIPE} is missing from this installation; reinstall initgen")
     src = out / "demo-restart.nc"
     dst = out / "demo-restart.cold-highland.nc"
-    # copy the recipe and its outline beside the data, so the walk-through can use them
+    # copy the shipped recipes and the outline beside the data, so every example runs there
+    from .shipped import shipped_dir
+
+    for example in sorted(shipped_dir("recipes").glob("*.yaml")):
+        write_atomic_text(out / example.name, example.read_text(encoding="utf-8"))
     mask = shipped_file("masks", "demo-highland.geojson")
-    write_atomic_text(out / DEMO_RECIPE, recipe.read_text(encoding="utf-8"))
     if mask is not None:
         write_atomic_text(out / mask.name, mask.read_text(encoding="utf-8"))
     recipe = out / DEMO_RECIPE
     write_demo_restart(src)
+    write_demo_extras(out)
     record = api.apply(recipe, src, dst, force=True)
     led = record["ledger"]
     text = "\n".join([

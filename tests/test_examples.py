@@ -1,0 +1,110 @@
+"""Every shipped recipe runs against the demo file; source kinds and block order behave as documented."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import netCDF4
+import numpy as np
+import pytest
+
+from initgen import api
+from initgen.demo import run_demo
+
+ROOT = Path(__file__).resolve().parents[1]
+EXAMPLES = sorted(p.name for p in (ROOT / "recipes").glob("*.yaml"))
+
+
+@pytest.fixture(scope="module")
+def demo(tmp_path_factory):
+    out = tmp_path_factory.mktemp("demo")
+    run_demo(out)
+    return out
+
+
+def raw(path, name):
+    with netCDF4.Dataset(path) as ds:
+        v = ds[name]
+        v.set_auto_maskandscale(False)
+        return np.array(v[:])
+
+
+@pytest.mark.parametrize("name", EXAMPLES)
+def test_every_shipped_recipe_runs_on_the_demo(demo, name, tmp_path):
+    text = (ROOT / "recipes" / name).read_text()
+    assert text.startswith("# "), "every example opens with a comment saying what it is for"
+    out = tmp_path / "out.nc"
+    record = api.apply(demo / name, demo / "demo-restart.nc", out)
+    assert any(v["layers" if "layers" in v else "field"] for v in record["ledger"]["variables"].values())
+    changed = [n for n, v in record["ledger"]["variables"].items()
+               if any(r["cells_changed"] for r in (v.get("layers") or [v.get("field")]))]
+    assert changed, f"{name} changed nothing"
+
+
+def test_donor_blend_untouched_at_w0_equal_donor_at_w1(demo, tmp_path):
+    """new = (1 - w) old + w donor: exact at w = 0 and w = 1 (definition of the blend)."""
+    out = tmp_path / "donor.nc"
+    api.apply(demo / "demo-donor-transplant.yaml", demo / "demo-restart.nc", out)
+    w, grid, plan = api.weights(demo / "demo-donor-transplant.yaml", demo / "demo-restart.nc")
+    old, new, donor = (raw(p, "tsoil")[0] for p in (demo / "demo-restart.nc", out, demo / "demo-restart-donor.nc"))
+    assert np.array_equal(new[:, w == 0], old[:, w == 0])
+    assert (w == 1).sum() > 10
+    assert np.array_equal(new[:, w == 1], donor[:, w == 1])
+    # water is transplanted too, and total water stays that of the blend of the two states
+    liq, ice = raw(out, "wliq")[0], raw(out, "wice")[0]
+    dl, di = raw(demo / "demo-restart-donor.nc", "wliq")[0], raw(demo / "demo-restart-donor.nc", "wice")[0]
+    np.testing.assert_allclose((liq + ice)[:, w == 1], (dl + di)[:, w == 1], rtol=1e-5)
+
+
+def test_two_blocks_equal_two_runs(demo, tmp_path):
+    """A recipe with two blocks equals applying them one after the other (documented order)."""
+    text = (ROOT / "recipes" / "demo-two-blocks-snow.yaml").read_text()
+    head, blocks = text.split("perturbations:\n")
+    first, second = blocks.split("  - name: warm-lowland\n")
+    (demo / "first.yaml").write_text(head + "perturbations:\n" + first)
+    (demo / "second.yaml").write_text(head.replace("demo-two-blocks-snow", "second") + "perturbations:\n"
+                                      "  - name: warm-lowland\n" + second)
+    both = tmp_path / "both.nc"
+    api.apply(demo / "demo-two-blocks-snow.yaml", demo / "demo-restart.nc", both)
+    step1, step2 = tmp_path / "s1.nc", tmp_path / "s2.nc"
+    api.apply(demo / "first.yaml", demo / "demo-restart.nc", step1)
+    api.apply(demo / "second.yaml", step1, step2)
+    for name in ("tsoil", "tskin", "snow_amount", "snow_thick"):
+        np.testing.assert_array_equal(raw(both, name), raw(step2, name))
+
+
+def test_snow_temperature_never_above_freezing(demo, tmp_path):
+    text = """initgen_recipe: 1
+name: hot-snow
+perturbations:
+  - name: hot
+    region: {include: [{geojson: demo-highland.geojson}], taper_km: 0}
+    anomaly: {constant_K: 20}
+    targets: [snow_temperature, skin_temperature]
+"""
+    (demo / "hot.yaml").write_text(text)
+    out = tmp_path / "hot.nc"
+    rec = api.apply(demo / "hot.yaml", demo / "demo-restart.nc", out)
+    t = raw(out, "tsnow")
+    land = t != -9999.0
+    assert t[land].max() <= 273.15 + 1e-4  # snow cannot be warmer than its melting point (common practice)
+    assert rec["ledger"]["clamps"]["snow_temperature_above_freezing"] > 0
+    skin, snow = raw(out, "tskin")[0], raw(demo / "demo-restart.nc", "snow_amount")[0]
+    assert skin[(snow > 0) & (snow != -9999.0)].max() <= 273.15 + 1e-4
+
+
+def test_demo_profile_decays_as_damping_formula(demo):
+    """Per-layer factors of the demo recipe: layer means of exp(-z/d), d = sqrt(kappa P / pi).
+
+    Reference: Carslaw and Jaeger (1959), periodic surface temperature in a semi-infinite solid;
+    kappa = 5e-7 m2 s-1 and P = 365.25 days give d = 2.24 m (value computed from the formula).
+    """
+    led = api.preview(demo / "demo-cold-highland.yaml", demo / "demo-restart.nc")
+    factors = np.array(led["blocks"][0]["layer_factors"])
+    d = np.sqrt(5e-7 * 365.25 * 86400 / np.pi)
+    assert d == pytest.approx(2.24, abs=0.005)
+    top = np.array([0.0, 0.05, 0.1, 0.2, 0.4, 0.7, 1.1, 1.9])
+    bot = np.array([0.05, 0.1, 0.2, 0.4, 0.7, 1.1, 1.9, 3.1])
+    expect = d * (np.exp(-top / d) - np.exp(-bot / d)) / (bot - top)
+    np.testing.assert_allclose(factors, expect, rtol=1e-6)
+    assert np.all(np.diff(factors) < 0)
