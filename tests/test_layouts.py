@@ -1,0 +1,126 @@
+"""The shipped example layouts, each exercised by a test file of that shape."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import netCDF4
+import numpy as np
+import pytest
+
+from initgen import api
+
+ROOT = Path(__file__).resolve().parents[1]
+LAYOUTS = ROOT / "recipes" / "layouts"
+RECIPE = """initgen_recipe: 1
+name: layout-test
+perturbations:
+  - name: box
+    region: {include: [{box: {lon: [-20, 40], lat: [-10, 30]}}], taper_km: 0}
+    anomaly: {constant_K: -2.0}
+    profile: {kind: exponential, efolding_m: 0.5}
+    targets: TARGETS
+"""
+
+
+def recipe(tmp_path, targets="[soil_temperature]", physics=""):
+    p = tmp_path / "r.yaml"
+    p.write_text(RECIPE.replace("TARGETS", targets) + physics)
+    return p
+
+
+def raw(path, name):
+    with netCDF4.Dataset(path) as ds:
+        v = ds[name]
+        v.set_auto_maskandscale(False)
+        return np.array(v[:])
+
+
+def test_gridded_layered_layout_with_physics(tmp_path):
+    lon = np.arange(-175, 180, 10.0)
+    lat = np.arange(-85, 90, 10.0)
+    z = np.array([0.05, 0.2, 0.5, 1.2])
+    with netCDF4.Dataset(tmp_path / "g.nc", "w") as ds:
+        for d, n in (("lon", lon.size), ("lat", lat.size), ("layer", z.size)):
+            ds.createDimension(d, n)
+        ds.createVariable("lon", "f8", ("lon",))[:] = lon
+        ds.createVariable("lat", "f8", ("lat",))[:] = lat
+        v = ds.createVariable("layer_z", "f4", ("layer",))
+        v.units = "m"
+        v[:] = z
+        for name, val, units in (("soil_t", 272.0, "K"), ("soil_liq", 20.0, "kg m-2"), ("soil_ice", 5.0, "kg m-2")):
+            v = ds.createVariable(name, "f4", ("layer", "lat", "lon"), fill_value=np.float32(-1e30))
+            v.units = units
+            v[:] = np.full((z.size, lat.size, lon.size), val, "f4")
+        ds.createVariable("land_frac", "f4", ("lat", "lon"))[:] = np.ones((lat.size, lon.size))
+        ds.createVariable("orog", "f4", ("lat", "lon"))[:] = np.zeros((lat.size, lon.size))
+    out = tmp_path / "g.out.nc"
+    rec = api.apply(recipe(tmp_path, physics="physics: {mode: energy, texture: loam}\n"), tmp_path / "g.nc", out,
+                    layout=LAYOUTS / "gridded-layered.yaml")
+    assert rec["ledger"]["physics"]["frozen_region_total_kg"] > 0
+    w0, w1 = raw(tmp_path / "g.nc", "soil_liq") + raw(tmp_path / "g.nc", "soil_ice"), raw(out, "soil_liq") + raw(out, "soil_ice")
+    np.testing.assert_allclose(w1, w0, rtol=1e-6)  # water mass per layer conserved
+
+
+def test_columns_with_combined_snow_soil_axis(tmp_path):
+    rng = np.random.default_rng(3)
+    n = 400
+    lon = rng.uniform(-180, 180, n)
+    lat = rng.uniform(-60, 80, n)
+    nsnow, nsoil = 3, 5
+    t = np.concatenate([np.full((nsnow, n), 265.0), np.full((nsoil, n), 275.0)]).astype("f4")
+    with netCDF4.Dataset(tmp_path / "c.nc", "w") as ds:
+        ds.createDimension("column", n)
+        ds.createDimension("levels", nsnow + nsoil)
+        ds.createVariable("col_lon", "f8", ("column",))[:] = lon
+        ds.createVariable("col_lat", "f8", ("column",))[:] = lat
+        v = ds.createVariable("col_area", "f8", ("column",))
+        v.units = "m2"
+        v[:] = np.full(n, 1e8)
+        v = ds.createVariable("t_layers", "f4", ("column", "levels"))
+        v.units = "K"
+        v[:] = t.T
+        v = ds.createVariable("swe", "f4", ("column",))
+        v.units = "kg m-2"
+        v[:] = np.full(n, 50.0, "f4")
+    out = tmp_path / "c.out.nc"
+    rec = api.apply(recipe(tmp_path, "[soil_temperature, snow_temperature]"), tmp_path / "c.nc", out,
+                    layout=LAYOUTS / "columns-snow-soil.yaml")
+    d = raw(out, "t_layers") - raw(tmp_path / "c.nc", "t_layers")
+    inside = (lon > -20) & (lon < 40) & (lat > -10) & (lat < 30)
+    assert inside.sum() > 5
+    assert not d[~inside].any()
+    # soil part: exponential factors at the soil nodes (mid-points of the given interfaces, cm -> m)
+    interfaces = np.array([0, 4, 12, 30, 70, 150]) / 100.0
+    nodes = 0.5 * (interfaces[:-1] + interfaces[1:])
+    np.testing.assert_allclose(d[inside][:, nsnow:].mean(axis=0), -2.0 * np.exp(-nodes / 0.5), atol=3e-5)
+    # snow part: the surface factor f(0) = 1
+    np.testing.assert_allclose(d[inside][:, :nsnow], -2.0, atol=3e-5)
+    assert rec["ledger"]["grid"]["kind"] == "points"
+
+
+def test_per_layer_variables_with_land_mask(tmp_path):
+    lon = np.arange(0.5, 360, 1.0)
+    lat = np.arange(89.5, -90, -1.0)  # north to south
+    with netCDF4.Dataset(tmp_path / "p.nc", "w", format="NETCDF3_64BIT_OFFSET") as ds:
+        ds.createDimension("longitude", lon.size)
+        ds.createDimension("latitude", lat.size)
+        ds.createVariable("longitude", "f4", ("longitude",))[:] = lon
+        ds.createVariable("latitude", "f4", ("latitude",))[:] = lat
+        mask = (np.add.outer(np.arange(lat.size), np.arange(lon.size)) % 3 != 0).astype("f4")
+        ds.createVariable("landmask", "f4", ("latitude", "longitude"))[:] = mask
+        for k, name in enumerate(["tsl_a", "tsl_b", "tsl_c", "tsl_d"]):
+            v = ds.createVariable(name, "f4", ("latitude", "longitude"))
+            v.units = "degC"
+            v[:] = np.full(mask.shape, 5.0 + k, "f4")
+    out = tmp_path / "p.out.nc"
+    api.apply(recipe(tmp_path), tmp_path / "p.nc", out, layout=LAYOUTS / "per-layer-variables.yaml")
+    nodes = np.array([0.05, 0.2, 0.55, 1.4])
+    for k, name in enumerate(["tsl_a", "tsl_b", "tsl_c", "tsl_d"]):
+        d = raw(out, name) - raw(tmp_path / "p.nc", name)
+        assert not d[mask == 0].any()  # ocean per the land mask never changes
+        changed = d[d != 0]
+        # a change of -2 K is -2 degC: units are read from the file (degC)
+        np.testing.assert_allclose(changed, -2.0 * np.exp(-nodes[k] / 0.5), atol=2e-6)
+    with netCDF4.Dataset(out) as ds:
+        assert ds.data_model == "NETCDF3_64BIT_OFFSET"
