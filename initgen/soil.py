@@ -1,0 +1,1271 @@
+"""Soil physics for perturbing a soil temperature: heat capacity, enthalpy, freezing curve,
+phase repartition and physical limits. Pure numpy, vectorised, float64, no file I/O.
+
+Conventions (read these first)
+------------------------------
+Water contents
+    Inside the physics every water content is **volumetric, m3 m-3**. Soil ice is expressed as
+    its **liquid-water equivalent**: ``theta_ice`` = ice mass per unit soil volume / RHO_WATER.
+    This is how most restart files store ice (kg m-2, or a volumetric total that includes ice
+    as water), so :func:`water_to_volumetric` uses RHO_WATER for liquid and ice alike, and
+    phase change conserves ``theta_liq + theta_ice`` exactly: the water mass of a layer is
+    ``RHO_WATER * (theta_liq + theta_ice) * dz``. The true ice volume is
+    ``theta_ice * RHO_WATER / RHO_ICE``; the heat capacity uses it (see :func:`heat_capacity`).
+    The pore-space limit ``theta_liq + theta_ice <= porosity`` is applied to the
+    water-equivalent contents; the 9 % expansion of freezing water is not modelled.
+Temperatures
+    Kelvin inside the physics.
+Enthalpy reference state
+    H = 0 for soil whose water is **all frozen at T_f = 273.15 K**:
+    ``H = C(theta_liq, theta_ice) * (T - T_f) * dz + RHO_WATER * L_f * theta_liq * dz`` (J m-2).
+    The solvers, :func:`energy_of_change` and the tests all use this one function.
+Phase equilibrium
+    Below T_f the liquid content equals ``min(total water, supercooled limit)`` (Niu and Yang
+    2006); above T_f there is no ice. At exactly T_f, a layer whose water exceeds the porosity
+    may hold ice (the latent plateau of the enthalpy curve).
+Disequilibrium policy
+    A starting state need not be in phase equilibrium (e.g. liquid above the supercooled limit
+    below freezing, as another model's freezing curve may leave it). :func:`disequilibrium`
+    flags such cells so that the caller can report them. The mode functions re-equilibrate
+    **only the cells they perturb** (``dT != 0``); cells with ``dT == 0`` are returned
+    bit-identical, whatever their state. In energy mode a perturbed cell that starts out of
+    equilibrium is re-equilibrated within the imposed energy budget: the enthalpy change is
+    still exactly ``C * dT * dz``.
+Missing values
+    NaN propagates: a cell with a NaN input gives NaN outputs (and zero clamp counts).
+    Convert fill values to NaN, or exclude those cells, before calling.
+
+References
+----------
+.. [1] Clapp, R. B., and Hornberger, G. M. (1978). Empirical equations for some soil hydraulic
+   properties. *Water Resources Research* 14(4), 601-604, Table 2.
+.. [2] Cosby, B. J., Hornberger, G. M., Clapp, R. B., and Ginn, T. R. (1984). A statistical
+   exploration of the relationships of soil moisture characteristics to the physical
+   properties of soils. *Water Resources Research* 20(6), 682-690, Tables 4 and 5.
+.. [3] Niu, G.-Y., and Yang, Z.-L. (2006). Effects of frozen soil on snowmelt runoff and soil
+   water storage at a continental scale. *Journal of Hydrometeorology* 7, 937-952.
+.. [4] de Vries, D. A. (1963). Thermal properties of soils. In W. R. van Wijk (Ed.),
+   *Physics of Plant Environment*, North-Holland, 210-235.
+.. [5] Moene, A. F., and van Dam, J. C. (2014). *Transport in the Atmosphere-Vegetation-Soil
+   Continuum*. Cambridge University Press, Table 2.2.
+"""
+
+from __future__ import annotations
+
+from typing import NamedTuple
+
+import numpy as np
+
+from initgen.constants import (
+    CP_ICE,
+    CP_WATER,
+    CV_CLAY_TEXTURE,
+    CV_SAND_TEXTURE,
+    CV_SOLID_DEFAULT,
+    CV_WATER,
+    GRAVITY,
+    LATENT_HEAT_FUSION,
+    RHO_WATER,
+    T_FREEZE,
+)
+from initgen.errors import InputError
+
+__all__ = [
+    "SATURATION_FRACTION",
+    "ClappHornberger",
+    "Hydraulics",
+    "SoilChange",
+    "CLAPP_HORNBERGER_1978",
+    "temperature_to_kelvin",
+    "kelvin_to_units",
+    "water_to_volumetric",
+    "volumetric_to_water",
+    "hydraulics_from_texture",
+    "cosby_1984",
+    "soil_solid_heat_capacity",
+    "supercooled_liquid_max",
+    "heat_capacity",
+    "enthalpy",
+    "equilibrate_phase",
+    "energy_of_change",
+    "solve_enthalpy",
+    "apply_energy_mode",
+    "apply_temperature_mode",
+    "disequilibrium",
+    "clamp",
+    "clamp_soil_temperature",
+    "clamp_snow_temperature",
+    "clamp_negative_water",
+    "clamp_pore_space",
+    "BLOCK_CELLS",
+]
+
+#: Latent heat of fusion per unit volume of liquid water, J m-3 (RHO_WATER * L_f).
+_LV = RHO_WATER * LATENT_HEAT_FUSION
+#: Heat capacity of ice per unit liquid-water-equivalent volume, J m-3 K-1 (RHO_WATER * CP_ICE;
+#: equals RHO_ICE * CP_ICE per unit of true ice volume).
+_CV_ICE_WE = RHO_WATER * CP_ICE
+#: Difference of the two above, J m-3 K-1.
+_DCV = CV_WATER - _CV_ICE_WE
+
+
+def _f64(x):
+    return np.asarray(x, dtype=np.float64)
+
+
+# =============================================================================================
+# Unit conversion
+# =============================================================================================
+
+_KELVIN = {"k", "kelvin", "kelvins", "degk", "degreek", "degreesk"}
+_CELSIUS = {"c", "°c", "degc", "degreec", "degreesc", "celsius", "degreecelsius",
+            "degreescelsius", "degc", "deg°c"}
+
+
+def _norm_temperature_units(units):
+    if units is None:
+        return None
+    return str(units).strip().lower().replace(" ", "").replace("_", "")
+
+
+def temperature_to_kelvin(values, units, name="temperature"):
+    """Convert temperatures to kelvin.
+
+    Parameters
+    ----------
+    values : array_like
+        Temperatures in ``units``.
+    units : str
+        A CF/UDUNITS spelling of kelvin (``K``, ``kelvin``, ``degK``, ``deg_K``, ``degree_K``,
+        ``degrees_K``) or of degrees Celsius (``degC``, ``deg_C``, ``degree_C``,
+        ``degrees_C``, ``degree_Celsius``, ``degrees_Celsius``, ``Celsius``, ``°C``, ``C``).
+        Matching ignores case, spaces and underscores. ``C`` is coulomb in UDUNITS; for a
+        temperature it can only mean Celsius, so it is read as such.
+    name : str
+        Variable name, used in error messages.
+
+    Returns
+    -------
+    numpy.ndarray
+        float64 temperatures, K (T = t + 273.15 for Celsius input).
+
+    Raises
+    ------
+    InputError
+        If ``units`` is missing or not a known temperature unit.
+    """
+    key = _norm_temperature_units(units)
+    v = _f64(values)
+    if key in _KELVIN:
+        return v.copy()
+    if key in _CELSIUS:
+        return v + T_FREEZE
+    raise InputError(
+        f"variable '{name}': unknown temperature units {units!r}; "
+        "set its units to 'K' or 'degC' (file attribute or layout)"
+    )
+
+
+def kelvin_to_units(values, units, name="temperature"):
+    """Convert kelvin to ``units`` (kelvin or degrees Celsius), the inverse of
+    :func:`temperature_to_kelvin`.
+
+    Parameters
+    ----------
+    values : array_like
+        Temperatures, K.
+    units : str
+        Target units, any spelling accepted by :func:`temperature_to_kelvin`.
+    name : str
+        Variable name, used in error messages.
+
+    Returns
+    -------
+    numpy.ndarray
+        float64 temperatures in ``units``.
+
+    Raises
+    ------
+    InputError
+        If ``units`` is not a known temperature unit.
+    """
+    key = _norm_temperature_units(units)
+    v = _f64(values)
+    if key in _KELVIN:
+        return v.copy()
+    if key in _CELSIUS:
+        return v - T_FREEZE
+    raise InputError(
+        f"variable '{name}': unknown temperature units {units!r}; "
+        "set its units to 'K' or 'degC' (file attribute or layout)"
+    )
+
+
+#: Dedicated units string for water content given as a fraction of saturation (of porosity):
+#: theta = value * porosity. A file whose variable says ``1`` for such a quantity must be
+#: described with this string in the layout, because ``1`` is read as m3 m-3.
+SATURATION_FRACTION = "saturation_fraction"
+
+_MASS = {"kgm-2", "kg/m2", "mm"}
+_VOLUME = {"m3m-3", "m3/m3", "1", "fraction"}
+_SATURATION = {"saturationfraction", "fractionofsaturation"}
+
+
+def _norm_water_units(units):
+    if units is None:
+        return None
+    u = str(units).strip().lower()
+    u = u.replace(" ", "").replace("*", "").replace("^", "").replace(".", "")
+    return u.replace("_", "")
+
+
+def _water_kind(units, name):
+    key = _norm_water_units(units)
+    if key in _MASS:
+        return "mass"
+    if key in _VOLUME:
+        return "volume"
+    if key in _SATURATION:
+        return "saturation"
+    raise InputError(
+        f"variable '{name}': unknown water units {units!r}; use 'kg m-2' (or kg/m2, mm), "
+        f"'m3 m-3' (or 1, m3/m3, fraction) or '{SATURATION_FRACTION}' in the layout"
+    )
+
+
+def _check_thickness(thickness_m, name):
+    dz = _f64(thickness_m)
+    if not np.all(np.isfinite(dz) & (dz > 0)):
+        raise InputError(f"variable '{name}': layer thickness must be finite and > 0 m; "
+                         "check the layer geometry (interfaces or thicknesses) in the layout")
+    return dz
+
+
+def _check_porosity(porosity, name):
+    if porosity is None:
+        raise InputError(f"variable '{name}': units '{SATURATION_FRACTION}' need the porosity; "
+                         "give a porosity (layout role 'porosity', recipe physics.porosity or texture)")
+    phi = _f64(porosity)
+    if not np.all((phi > 0) & (phi <= 1)):
+        raise InputError(f"variable '{name}': porosity must lie in (0, 1] m3 m-3; "
+                         "check the porosity variable or recipe value")
+    return phi
+
+
+def water_to_volumetric(values, units, thickness_m, porosity=None, name="soil water"):
+    """Convert a soil water (liquid or ice) amount to volumetric content, m3 m-3.
+
+    Ice is returned as its liquid-water equivalent (see the module conventions).
+
+    Parameters
+    ----------
+    values : array_like
+        Water amount in ``units``.
+    units : str
+        ``'kg m-2'`` (also ``kg/m2``, ``kg m**-2``, ``kg m^-2``, ``mm`` of water):
+        theta = values / (RHO_WATER * thickness_m);
+        ``'m3 m-3'`` (also ``1``, ``m3/m3``, ``fraction``): unchanged;
+        ``'saturation_fraction'`` (:data:`SATURATION_FRACTION`): theta = values * porosity.
+    thickness_m : array_like
+        Layer thickness, m (> 0); used for mass units only.
+    porosity : array_like, optional
+        Porosity, m3 m-3; required for ``'saturation_fraction'``.
+    name : str
+        Variable name, used in error messages.
+
+    Returns
+    -------
+    numpy.ndarray
+        Volumetric water content, m3 m-3, float64.
+
+    Raises
+    ------
+    InputError
+        For unknown units, a non-positive thickness or a missing/invalid porosity.
+    """
+    kind = _water_kind(units, name)
+    v = _f64(values)
+    if kind == "mass":
+        return v / (RHO_WATER * _check_thickness(thickness_m, name))
+    if kind == "saturation":
+        return v * _check_porosity(porosity, name)
+    return v.copy()
+
+
+def volumetric_to_water(vol, units, thickness_m, porosity=None, name="soil water"):
+    """Convert volumetric water content (m3 m-3) back to ``units``; inverse of
+    :func:`water_to_volumetric`.
+
+    Parameters
+    ----------
+    vol : array_like
+        Volumetric content, m3 m-3 (ice as liquid-water equivalent).
+    units : str
+        Target units, as in :func:`water_to_volumetric`.
+    thickness_m : array_like
+        Layer thickness, m (> 0); used for mass units only.
+    porosity : array_like, optional
+        Porosity, m3 m-3; required for ``'saturation_fraction'``.
+    name : str
+        Variable name, used in error messages.
+
+    Returns
+    -------
+    numpy.ndarray
+        Water amount in ``units``: kg m-2 = theta * RHO_WATER * thickness_m; m3 m-3; or
+        theta / porosity.
+    """
+    kind = _water_kind(units, name)
+    v = _f64(vol)
+    if kind == "mass":
+        return v * (RHO_WATER * _check_thickness(thickness_m, name))
+    if kind == "saturation":
+        return v / _check_porosity(porosity, name)
+    return v.copy()
+
+
+# =============================================================================================
+# Hydraulic parameters
+# =============================================================================================
+
+class ClappHornberger(NamedTuple):
+    """One row of Clapp and Hornberger (1978), Table 2, in the published units.
+
+    Attributes
+    ----------
+    b : float
+        Exponent of the water retention curve, dimensionless.
+    psi_sat_cm : float
+        Saturated matric suction magnitude, cm of water (positive).
+    porosity : float
+        Saturated volumetric water content theta_s, m3 m-3.
+    k_sat_cm_min : float
+        Saturated hydraulic conductivity, cm min-1.
+    """
+
+    b: float
+    psi_sat_cm: float
+    porosity: float
+    k_sat_cm_min: float
+
+    @property
+    def psi_sat_m(self) -> float:
+        """Saturated matric suction magnitude, m (= psi_sat_cm / 100)."""
+        return self.psi_sat_cm / 100.0
+
+    @property
+    def k_sat_m_s(self) -> float:
+        """Saturated hydraulic conductivity, m s-1 (= k_sat_cm_min / 100 / 60)."""
+        return self.k_sat_cm_min / 6000.0
+
+
+class Hydraulics(NamedTuple):
+    """Parameters of the freezing curve (unpacks as ``porosity, psi_sat_m, b``).
+
+    Attributes
+    ----------
+    porosity : float or numpy.ndarray
+        Saturated volumetric water content theta_s, m3 m-3.
+    psi_sat_m : float or numpy.ndarray
+        Saturated matric suction as a positive magnitude, m of water.
+    b : float or numpy.ndarray
+        Clapp-Hornberger exponent, dimensionless.
+    """
+
+    porosity: object
+    psi_sat_m: object
+    b: object
+
+
+#: Clapp and Hornberger (1978), Table 2: texture class -> (b, psi_s in cm, theta_s, K_s in
+#: cm/min). Use ``.psi_sat_m`` and ``.k_sat_m_s`` for SI values.
+CLAPP_HORNBERGER_1978 = {
+    "sand": ClappHornberger(4.05, 12.1, 0.395, 1.056),
+    "loamy sand": ClappHornberger(4.38, 9.0, 0.410, 0.938),
+    "sandy loam": ClappHornberger(4.90, 21.8, 0.435, 0.208),
+    "silt loam": ClappHornberger(5.30, 78.6, 0.485, 0.0432),
+    "loam": ClappHornberger(5.39, 47.8, 0.451, 0.0417),
+    "sandy clay loam": ClappHornberger(7.12, 29.9, 0.420, 0.0378),
+    "silty clay loam": ClappHornberger(7.75, 35.6, 0.477, 0.0102),
+    "clay loam": ClappHornberger(8.52, 63.0, 0.476, 0.0147),
+    "sandy clay": ClappHornberger(10.4, 15.3, 0.426, 0.0130),
+    "silty clay": ClappHornberger(10.4, 49.0, 0.492, 0.0062),
+    "clay": ClappHornberger(11.4, 40.5, 0.482, 0.0077),
+}
+
+
+def hydraulics_from_texture(name):
+    """Freezing-curve parameters of a Clapp and Hornberger (1978) texture class.
+
+    Parameters
+    ----------
+    name : str
+        Texture class, e.g. ``'loam'``, ``'silty clay loam'``; case, underscores and hyphens
+        are ignored (``'Silty_Clay-Loam'`` works).
+
+    Returns
+    -------
+    Hydraulics
+        ``(porosity m3 m-3, psi_sat_m m, b)``, with psi_sat converted from cm to m.
+
+    Raises
+    ------
+    InputError
+        For an unknown texture class (the message lists the known ones).
+
+    References
+    ----------
+    .. [1] Clapp, R. B., and Hornberger, G. M. (1978). *Water Resources Research* 14(4),
+       601-604, Table 2.
+    """
+    key = " ".join(str(name).strip().lower().replace("_", " ").replace("-", " ").split())
+    row = CLAPP_HORNBERGER_1978.get(key)
+    if row is None:
+        raise InputError(
+            f"texture {name!r} is not a Clapp and Hornberger (1978) class; use one of: "
+            + ", ".join(CLAPP_HORNBERGER_1978)
+        )
+    return Hydraulics(row.porosity, row.psi_sat_m, row.b)
+
+
+def cosby_1984(sand_pct, clay_pct, silt_pct=None, table=5):
+    """Freezing-curve parameters from soil texture by the regressions of Cosby et al. (1984).
+
+    Table 5 (single-variable regressions, the form most land models use):
+
+    .. math::
+
+        \\theta_s = 0.489 - 0.00126\\,\\mathrm{sand}, \\qquad
+        b = 2.91 + 0.159\\,\\mathrm{clay}, \\qquad
+        |\\psi_s|\\,[\\mathrm{mm}] = 10 \\cdot 10^{1.88 - 0.0131\\,\\mathrm{sand}}
+
+    Table 4 (multi-variable regressions):
+
+    .. math::
+
+        \\theta_s = 0.505 - 0.00142\\,\\mathrm{sand} - 0.00037\\,\\mathrm{clay}, \\quad
+        b = 3.10 + 0.157\\,\\mathrm{clay} - 0.003\\,\\mathrm{sand}, \\quad
+        |\\psi_s|\\,[\\mathrm{mm}] = 10 \\cdot 10^{1.54 - 0.0095\\,\\mathrm{sand}
+        + 0.0063\\,\\mathrm{silt}}
+
+    Parameters
+    ----------
+    sand_pct, clay_pct : array_like
+        Sand and clay content, percent (0-100), sand + clay <= 100.
+    silt_pct : array_like, optional
+        Silt content, percent; default ``100 - sand - clay``. Used by Table 4 only.
+    table : {5, 4}
+        Which set of regressions.
+
+    Returns
+    -------
+    Hydraulics
+        ``(porosity m3 m-3, psi_sat_m m, b)``; psi_sat_m is a positive suction magnitude in
+        metres (the published mm value divided by 1000).
+
+    Raises
+    ------
+    InputError
+        For percentages outside 0-100, sand + clay > 100, or a table other than 4 or 5.
+
+    References
+    ----------
+    .. [1] Cosby, B. J., Hornberger, G. M., Clapp, R. B., and Ginn, T. R. (1984).
+       *Water Resources Research* 20(6), 682-690, Tables 4 and 5.
+    """
+    sand = _f64(sand_pct)
+    clay = _f64(clay_pct)
+    for nm, v in (("sand_pct", sand), ("clay_pct", clay)):
+        if not np.all((v >= 0) & (v <= 100)):
+            raise InputError(f"{nm} must be a percentage in 0..100; check the texture input")
+    if np.any(sand + clay > 100.0 + 1e-6):
+        raise InputError("sand_pct + clay_pct exceeds 100 %; check the texture input")
+    if table == 5:
+        porosity = 0.489 - 0.00126 * sand
+        b = 2.91 + 0.159 * clay
+        psi_mm = 10.0 * 10.0 ** (1.88 - 0.0131 * sand)
+    elif table == 4:
+        silt = 100.0 - sand - clay if silt_pct is None else _f64(silt_pct)
+        if not np.all((silt >= -1e-6) & (silt <= 100)):
+            raise InputError("silt_pct must be a percentage in 0..100; check the texture input")
+        porosity = 0.505 - 0.00142 * sand - 0.00037 * clay
+        b = 3.10 + 0.157 * clay - 0.003 * sand
+        psi_mm = 10.0 * 10.0 ** (1.54 - 0.0095 * sand + 0.0063 * silt)
+    else:
+        raise InputError(f"cosby_1984: table must be 4 or 5, got {table!r}")
+    return Hydraulics(porosity, psi_mm / 1000.0, b)
+
+
+# =============================================================================================
+# Heat capacity, enthalpy, freezing curve
+# =============================================================================================
+
+def soil_solid_heat_capacity(sand_pct, clay_pct):
+    """Volumetric heat capacity of soil solids from texture, J m-3 K-1.
+
+    .. math:: c_s = \\frac{2.128\\,\\mathrm{sand} + 2.385\\,\\mathrm{clay}}
+              {\\mathrm{sand} + \\mathrm{clay}} \\times 10^6
+
+    Parameters
+    ----------
+    sand_pct, clay_pct : array_like
+        Sand and clay content, percent; sand + clay must be > 0 (the formula is undefined for
+        pure silt: give ``c_solid`` directly then).
+
+    Returns
+    -------
+    numpy.ndarray
+        c_s, J m-3 K-1.
+
+    References
+    ----------
+    .. [1] de Vries, D. A. (1963). Thermal properties of soils. In *Physics of Plant
+       Environment*, North-Holland, 210-235; the texture formula with these values is the one
+       used by land models (REFERENCES.md).
+    """
+    sand = _f64(sand_pct)
+    clay = _f64(clay_pct)
+    if not np.all((sand >= 0) & (clay >= 0) & (sand + clay > 0)):
+        raise InputError("sand_pct and clay_pct must be >= 0 with sand_pct + clay_pct > 0 for the "
+                         "texture heat capacity; give c_solid directly for pure silt")
+    return (CV_SAND_TEXTURE * sand + CV_CLAY_TEXTURE * clay) / (sand + clay)
+
+
+def _solid_capacity(c_solid, sand_pct=None, clay_pct=None):
+    if c_solid is not None:
+        if sand_pct is not None or clay_pct is not None:
+            raise InputError("heat capacity: give either c_solid or sand_pct and clay_pct, not both")
+        return _f64(c_solid)
+    if sand_pct is None and clay_pct is None:
+        return np.float64(CV_SOLID_DEFAULT)
+    if sand_pct is None or clay_pct is None:
+        raise InputError("heat capacity: give both sand_pct and clay_pct (or c_solid)")
+    return soil_solid_heat_capacity(sand_pct, clay_pct)
+
+
+def heat_capacity(theta_liq, theta_ice, porosity, c_solid=None, sand_pct=None, clay_pct=None):
+    """Volumetric heat capacity of moist soil, J m-3 K-1, by de Vries (1963) mixing.
+
+    .. math:: C = (1 - \\phi)\\,c_s + \\theta_{liq}\\,\\rho_w c_w
+              + \\theta_{ice}^{true}\\,\\rho_i c_i,
+              \\qquad \\theta_{ice}^{true} = \\theta_{ice}\\,\\rho_w / \\rho_i
+
+    so that, with the liquid-equivalent ``theta_ice`` used throughout initgen, the ice term is
+    ``theta_ice * RHO_WATER * CP_ICE`` (mass of ice times its specific heat). The pore air is
+    neglected (about 1.2e3 J m-3 K-1 per unit air volume).
+
+    Parameters
+    ----------
+    theta_liq : array_like
+        Liquid water content, m3 m-3.
+    theta_ice : array_like
+        Ice content as liquid-water equivalent, m3 m-3.
+    porosity : array_like
+        Porosity phi, m3 m-3.
+    c_solid : array_like, optional
+        Volumetric heat capacity of the soil solids c_s, J m-3 K-1.
+    sand_pct, clay_pct : array_like, optional
+        Texture, percent; used (with :func:`soil_solid_heat_capacity`) when ``c_solid`` is not
+        given. With neither, c_s = ``CV_SOLID_DEFAULT`` = 2.2565e6 J m-3 K-1 (the texture
+        formula at equal sand and clay, between quartz 2.13e6 and clay minerals 2.39e6).
+
+    Returns
+    -------
+    numpy.ndarray
+        C, J m-3 K-1.
+
+    References
+    ----------
+    .. [1] de Vries, D. A. (1963). Thermal properties of soils. In *Physics of Plant
+       Environment*, North-Holland, 210-235 (volume-weighted sum of constituent capacities).
+    .. [2] Moene, A. F., and van Dam, J. C. (2014). *Transport in the
+       Atmosphere-Vegetation-Soil Continuum*, Table 2.2.
+    """
+    cs = _solid_capacity(c_solid, sand_pct, clay_pct)
+    phi = _f64(porosity)
+    return (1.0 - phi) * cs + CV_WATER * _f64(theta_liq) + _CV_ICE_WE * _f64(theta_ice)
+
+
+def enthalpy(T, theta_liq, theta_ice, dz, porosity, c_solid=None):
+    """Enthalpy of a soil layer, J m-2, relative to the layer with all its water frozen at T_f.
+
+    .. math:: H = C(\\theta_{liq}, \\theta_{ice})\\,(T - T_f)\\,\\Delta z
+              + \\rho_w L_f\\,\\theta_{liq}\\,\\Delta z
+
+    with C from :func:`heat_capacity` (liquid and ice parts included). This is the one energy
+    function of initgen: :func:`solve_enthalpy`, :func:`apply_energy_mode` and
+    :func:`energy_of_change` are consistent with it, so energy conservation can be tested.
+
+    Parameters
+    ----------
+    T : array_like
+        Temperature, K.
+    theta_liq, theta_ice : array_like
+        Liquid and ice (liquid-equivalent) contents, m3 m-3.
+    dz : array_like
+        Layer thickness, m.
+    porosity : array_like
+        Porosity, m3 m-3.
+    c_solid : array_like, optional
+        Heat capacity of the solids, J m-3 K-1 (default ``CV_SOLID_DEFAULT``).
+
+    Returns
+    -------
+    numpy.ndarray
+        H, J m-2.
+
+    References
+    ----------
+    .. [1] de Vries (1963) for C; the latent term uses L_f of the CESM constant set
+       (:mod:`initgen.constants`).
+    """
+    liq = _f64(theta_liq)
+    C = heat_capacity(liq, theta_ice, porosity, c_solid)
+    dz = _f64(dz)
+    return C * (_f64(T) - T_FREEZE) * dz + _LV * liq * dz
+
+
+def _liq_max_below(T, phi, psi_abs, b):
+    """Niu-Yang limit for T < T_f (not capped, no branch), vectorised internal helper."""
+    x = (LATENT_HEAT_FUSION / GRAVITY) * (T_FREEZE - T) / (T * psi_abs)
+    return phi * np.exp(-np.log(x) / b)
+
+
+def supercooled_liquid_max(T, porosity, psi_sat_m, b, T_f=T_FREEZE):
+    """Largest liquid water content in equilibrium below freezing (supercooled soil water).
+
+    .. math:: \\theta_{liq}^{max} = \\theta_s \\left(\\frac{L_f\\,(T_f - T)}
+              {g\\,T\\,|\\psi_s|}\\right)^{-1/b} \\quad (T < T_f)
+
+    capped at theta_s (the formula exceeds theta_s within a few mK of T_f), and
+    theta_liq_max = theta_s for T >= T_f. Here theta_s is the porosity, |psi_s| the saturated
+    matric suction magnitude in metres, g = 9.80616 m s-2 and L_f = 3.337e5 J kg-1.
+
+    Parameters
+    ----------
+    T : array_like
+        Temperature, K (> 0).
+    porosity : array_like
+        theta_s, m3 m-3.
+    psi_sat_m : array_like
+        Saturated matric potential, m; its magnitude is used, so suction (positive) and
+        potential (negative) conventions both work.
+    b : array_like
+        Clapp-Hornberger exponent (> 0).
+    T_f : float
+        Freezing point, K (default 273.15 K, CESM set).
+
+    Returns
+    -------
+    numpy.ndarray
+        theta_liq_max, m3 m-3.
+
+    Examples
+    --------
+    Clapp-Hornberger loam at 268.15 K (REFERENCES.md worked value 0.1188):
+
+    >>> round(float(supercooled_liquid_max(268.15, 0.451, 0.478, 5.39)), 4)
+    0.1188
+
+    References
+    ----------
+    .. [1] Niu, G.-Y., and Yang, Z.-L. (2006). *Journal of Hydrometeorology* 7, 937-952
+       (supercooled liquid water limit).
+    .. [2] Koren, V., et al. (1999). *JGR* 104(D16), 19569-19585, Eq. 17 (implicit form that
+       reduces to the above with its ice correction set to zero).
+    """
+    T = _f64(T)
+    phi = _f64(porosity)
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+        x = (LATENT_HEAT_FUSION / GRAVITY) * (T_f - T) / (T * np.abs(_f64(psi_sat_m)))
+        lim = phi * np.exp(-np.log(x) / _f64(b))
+    below = T < T_f
+    return np.where(below, np.minimum(lim, phi), np.where(T >= T_f, phi, np.nan))
+
+
+def equilibrate_phase(T, theta_liq, theta_ice, porosity, psi_sat_m, b):
+    """Repartition water between liquid and ice after a temperature has been imposed.
+
+    .. math:: W = \\theta_{liq} + \\theta_{ice}, \\qquad
+              \\theta_{liq}' = \\begin{cases} W & T > T_f \\\\
+              \\min(W, \\theta_{liq}^{max}(T)) & T \\le T_f \\end{cases}, \\qquad
+              \\theta_{ice}' = W - \\theta_{liq}'
+
+    Above T_f all ice melts; below, liquid above the supercooled limit freezes and ice melts
+    while liquid is below the limit and ice remains. Total water W is conserved.
+
+    Parameters
+    ----------
+    T : array_like
+        Imposed temperature, K.
+    theta_liq, theta_ice : array_like
+        Liquid and ice (liquid-equivalent) contents before, m3 m-3.
+    porosity, psi_sat_m, b : array_like
+        Freezing-curve parameters (see :func:`supercooled_liquid_max`).
+
+    Returns
+    -------
+    tuple of numpy.ndarray
+        ``(theta_liq, theta_ice)`` after, m3 m-3.
+
+    References
+    ----------
+    .. [1] Niu, G.-Y., and Yang, Z.-L. (2006). *Journal of Hydrometeorology* 7, 937-952.
+    """
+    T = _f64(T)
+    W = _f64(theta_liq) + _f64(theta_ice)
+    lmax = supercooled_liquid_max(T, porosity, psi_sat_m, b)
+    liq = np.where(T > T_FREEZE, W, np.minimum(W, lmax))
+    return liq, W - liq
+
+
+def energy_of_change(T0, liq0, ice0, T1, liq1, ice1, dz, porosity, c_solid=None):
+    """Split the enthalpy change of a layer into sensible and latent parts, J m-2.
+
+    .. math:: E_{lat} = \\rho_w L_f (\\theta_{liq,1} - \\theta_{liq,0})\\,\\Delta z, \\qquad
+              E_{sens} = H_1 - H_0 - E_{lat}
+
+    with H from :func:`enthalpy`. E_lat > 0 means energy went into melting ice; E_sens
+    includes the change of heat capacity of the water that changed phase, measured from T_f.
+    E_sens + E_lat = H_1 - H_0.
+
+    Parameters
+    ----------
+    T0, liq0, ice0 : array_like
+        State before: K, m3 m-3, m3 m-3.
+    T1, liq1, ice1 : array_like
+        State after.
+    dz, porosity, c_solid : array_like
+        Layer thickness (m), porosity (m3 m-3), heat capacity of solids (J m-3 K-1).
+
+    Returns
+    -------
+    tuple of numpy.ndarray
+        ``(sensible_J_m2, latent_J_m2)``.
+    """
+    H0 = enthalpy(T0, liq0, ice0, dz, porosity, c_solid)
+    H1 = enthalpy(T1, liq1, ice1, dz, porosity, c_solid)
+    latent = _LV * (_f64(liq1) - _f64(liq0)) * _f64(dz)
+    return H1 - H0 - latent, latent
+
+
+# =============================================================================================
+# Energy mode: solve H(T, phase) = H_target
+# =============================================================================================
+
+#: Elements per block: the mode functions work through large arrays in blocks of about this
+#: many cells so that temporaries stay in the CPU cache (results do not depend on it).
+BLOCK_CELLS = 1 << 15
+
+
+def _blocks(shape, target=None):
+    """Index tuples that tile ``shape`` in blocks of about ``target`` (default
+    ``BLOCK_CELLS``) elements, cut along the longest axis."""
+    target = BLOCK_CELLS if target is None else target
+    if len(shape) == 0:
+        yield ()
+        return
+    ax = int(np.argmax(shape))
+    n = shape[ax]
+    other = int(np.prod(shape)) // max(n, 1)
+    step = max(1, target // max(other, 1))
+    for i in range(0, n, step):
+        yield (slice(None),) * ax + (slice(i, min(i + step, n)),)
+
+
+def _validate_params(dz, porosity, b, where):
+    if not np.all(np.isfinite(dz) & (dz > 0)):
+        raise InputError(f"{where}: layer thickness dz must be finite and > 0 m; check the layer geometry")
+    if not np.all((porosity > 0) & (porosity <= 1)):
+        raise InputError(f"{where}: porosity must lie in (0, 1] m3 m-3; check the porosity or texture")
+    if not np.all(b > 0):
+        raise InputError(f"{where}: Clapp-Hornberger b must be > 0; check clapp_b or the texture")
+
+
+def solve_enthalpy(H_target, total_water, dz, porosity, psi_sat_m, b, c_solid=None, *,
+                   T_guess=None, max_iter=40):
+    """Temperature and phase partition with a given enthalpy, on the freezing curve.
+
+    Finds T and theta_liq = min(W, theta_liq_max(T)) (T <= T_f), theta_liq = W (T > T_f),
+    theta_ice = W - theta_liq, such that :func:`enthalpy` equals ``H_target``. Along this
+    curve H is continuous and strictly increasing in T (for T above T_f - L_f / (c_w - c_i)
+    = 112 K), so the solution is unique. Writing h = H / dz (J m-3), C_liq = (1 - phi) c_s +
+    rho_w c_w W and L = rho_w L_f, the branches from warm to cold are:
+
+    1. h >= L W: all liquid, T = T_f + (h - L W) / C_liq (closed form).
+    2. L min(W, phi) <= h < L W (only when W > phi): latent plateau, T = T_f,
+       theta_liq = h / L.
+    3. from the plateau down to the kink where theta_liq_max(T) = min(W, phi): no phase
+       change, H linear in T (closed form).
+    4. colder: on the Niu-Yang curve. With s = T_f - T and z = ln(s / (T_f - s)),
+       theta_liq_max = phi exp(-(ln(L_f / (g |psi_s|)) + z) / b) is a pure exponential in z
+       and s = T_f / (1 + e^-z); the residual
+
+       .. math:: F(z) = \\theta_{liq}(z)\\,(L - \\rho_w (c_w - c_i)\\, s) - K s - h,
+                 \\quad K = (1-\\phi) c_s + \\rho_w c_i W
+
+       is solved by Halley's method (analytic first and second derivatives), safeguarded by
+       bisection inside a bracket [z_lo, z_hi] with F(z_lo) > 0 > F(z_hi), until the step is
+       below 1e-14 (relative) or |F| is at round-off level; at most ``max_iter`` steps
+       (typically 3-4).
+
+    Parameters
+    ----------
+    H_target : array_like
+        Enthalpy, J m-2, relative to all water frozen at T_f (see :func:`enthalpy`).
+    total_water : array_like
+        W = theta_liq + theta_ice, m3 m-3 (>= 0).
+    dz : array_like
+        Layer thickness, m.
+    porosity, psi_sat_m, b : array_like
+        Freezing-curve parameters (see :func:`supercooled_liquid_max`).
+    c_solid : array_like, optional
+        Heat capacity of the solids, J m-3 K-1 (default ``CV_SOLID_DEFAULT``).
+    T_guess : array_like, optional
+        First guess of the temperature, K (e.g. the starting temperature); only speeds up
+        branch 4.
+    max_iter : int
+        Iteration cap of branch 4.
+
+    Returns
+    -------
+    tuple of numpy.ndarray
+        ``(T K, theta_liq m3 m-3, theta_ice m3 m-3)``. In branch 4 theta_liq is computed from
+        the final T with the formula of :func:`supercooled_liquid_max`, so it never exceeds
+        that limit; theta_ice = W - theta_liq. A NaN input gives NaN outputs. Targets that
+        imply T below T_f / 2 = 136.6 K are outside the solver's range: T stops at 136.6 K
+        and energy is not conserved there; the soil-temperature clamp (180 K) reports them.
+
+    References
+    ----------
+    .. [1] Niu, G.-Y., and Yang, Z.-L. (2006). *Journal of Hydrometeorology* 7, 937-952.
+    .. [2] de Vries, D. A. (1963), for the heat capacity (see :func:`heat_capacity`).
+    """
+    H = _f64(H_target)
+    W = _f64(total_water)
+    dz = _f64(dz)
+    phi = _f64(porosity)
+    psi = _f64(psi_sat_m)
+    b = _f64(b)
+    cs = _f64(CV_SOLID_DEFAULT if c_solid is None else c_solid)
+    _validate_params(dz, phi, b, "solve_enthalpy")
+    if np.any(W < 0):
+        raise InputError("solve_enthalpy: total_water has negative values; apply clamp_negative_water first")
+    args = [H, W, dz, phi, psi, b, cs]
+    if T_guess is not None:
+        args.append(_f64(T_guess))
+    shape = np.broadcast_shapes(*(a.shape for a in args))
+    views = [np.broadcast_to(a, shape) for a in args]
+    out = [np.empty(shape) for _ in range(3)]
+    for sl, flat in _flat_blocks(shape, views):
+        Hb, Wb, dzb, phib, psib, bb, csb = flat[:7]
+        Tb, lb = _solve_block(Hb / dzb, Wb, phib, psib, bb, csb,
+                              flat[7] if T_guess is not None else None, max_iter)
+        bshape = out[0][sl].shape
+        out[0][sl] = Tb.reshape(bshape)
+        out[1][sl] = lb.reshape(bshape)
+        out[2][sl] = (Wb - lb).reshape(bshape)
+    return tuple(out)
+
+
+def _flat_blocks(shape, views):
+    """(index, [contiguous 1-D copies of each view's block]) for each block of ``shape``."""
+    if shape == ():
+        yield (), [np.reshape(np.array(v, dtype=np.float64), (1,)) for v in views]
+        return
+    for sl in _blocks(shape):
+        yield sl, [np.ascontiguousarray(v[sl]).reshape(-1) for v in views]
+
+
+def _solve_block(Hd, W, phi, psi, b, cs, T_guess, max_iter):
+    """Solve one block of 1-D contiguous arrays (see :func:`solve_enthalpy`); Hd in J m-3.
+
+    Returns (T, liq)."""
+    psi = np.abs(psi)
+    K = (1.0 - phi) * cs + _CV_ICE_WE * W         # capacity with all water frozen, J m-3 K-1
+    LW = _LV * W                                  # latent content of all the water, J m-3
+    lk = np.minimum(W, phi)                       # liquid content at the kink
+    Llk = _LV * lk
+    Ck = K + _DCV * lk                            # capacity between the kink and T_f
+    c1 = np.log((LATENT_HEAT_FUSION / GRAVITY) / psi)
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+        zk = -b * np.log(lk / phi) - c1           # z at the kink: x_k = (lk / phi)^-b >= 1
+        sk = T_FREEZE / (1.0 + np.exp(-zk))       # depression at the kink, K
+        # branches 1-3 without masks: 1 -> first term, 2 -> T_f, 3 -> second term
+        T = (T_FREEZE + np.maximum(Hd - LW, 0.0) / (K + _DCV * W)
+             + np.minimum(Hd - Llk, 0.0) / Ck)
+        liq = np.minimum(np.maximum(Hd * (1.0 / _LV), lk), W)
+        # keep branch-3 states exactly on the curve despite round-off at the kink (fmin: the
+        # cap is NaN or inf at and above T_f, where it does not apply)
+        x = (LATENT_HEAT_FUSION / GRAVITY) * (T_FREEZE - T) / (T * psi)
+        liq = np.fmin(liq, phi * np.exp(-np.log(x) / b))
+    idx = np.flatnonzero(Hd < Llk - Ck * sk)      # branch 4: colder than the kink
+    if idx.size:
+        phi4, psi4, b4, W4 = phi.take(idx), psi.take(idx), b.take(idx), W.take(idx)
+        T4 = _solve_curve(Hd.take(idx), W4, phi4, b4, K.take(idx), Llk.take(idx),
+                          c1.take(idx), zk.take(idx),
+                          None if T_guess is None else T_guess.take(idx), max_iter)
+        T[idx] = T4
+        liq[idx] = np.minimum(W4, _liq_max_below(T4, phi4, psi4, b4))
+    return T, liq
+
+
+def _solve_curve(Hd, W, phi, b, K, Llk, c1, zk, T_guess, max_iter):
+    """Safeguarded Halley iteration in z = ln(s / (T_f - s)) for branch 4 of solve_enthalpy.
+
+    With e = exp(-z), s = T_f / (1 + e), q = ds/dz = s e / (1 + e), l = phi exp(-(c1 + z)/b),
+    lat = L - dC s (L = rho_w L_f, dC = rho_w (c_w - c_i)):
+
+        F   = l lat - K s - Hd
+        F'  = -(K + dC l) q - l lat / b
+        F'' = 2 dC l q / b - (K + dC l) q (1 - 2 s / T_f) + l lat / b^2
+
+    Bracket: F(z_k) > 0 at the kink; since h <= -K s + L l_k on this branch,
+    s_hi = (L l_k - Hd) / K (capped at T_f / 2) gives F(z_hi) <= 0.
+    """
+    Tf = T_FREEZE
+    s_hi = np.minimum((Llk - Hd) / K, 0.5 * Tf)
+    z_hi = np.log(s_hi / (Tf - s_hi))
+    z_lo = zk
+    if T_guess is not None:
+        sg = Tf - T_guess
+        with np.errstate(divide="ignore", invalid="ignore"):
+            z = np.log(sg / (Tf - sg))
+        z = np.where((z > z_lo) & (z < z_hi), z, z_lo)
+    else:
+        z = z_lo.copy()
+    tolF = 1e-15 * (_LV * W + K * s_hi + np.abs(Hd))   # round-off level of h, J m-3
+    out = np.empty_like(Hd)
+    act = None                                         # indices of active cells (None: all)
+    inv_b = 1.0 / b
+    for _ in range(max_iter):
+        e = np.exp(-z)
+        r = 1.0 / (1.0 + e)
+        s = Tf * r
+        q = s * e * r
+        l = phi * np.exp(-(c1 + z) * inv_b)
+        lat = _LV - _DCV * s
+        Kl = K + _DCV * l
+        Klq = Kl * q
+        llat = l * lat
+        llat_b = llat * inv_b
+        F = llat - K * s - Hd
+        d1 = -Klq - llat_b
+        d2 = (2.0 * _DCV) * l * q * inv_b - Klq * (1.0 - (2.0 / Tf) * s) + llat_b * inv_b
+        pos = F > 0
+        z_lo = np.where(pos, z, z_lo)
+        z_hi = np.where(pos, z_hi, z)
+        zn = z - 2.0 * F * d1 / (2.0 * d1 * d1 - F * d2)
+        bad = ~((zn > z_lo) & (zn < z_hi))
+        if bad.any():
+            zn = np.where(bad, 0.5 * (z_lo + z_hi), zn)
+        small = np.abs(F) <= tolF
+        if small.any():
+            zn = np.where(small, z, zn)
+        # Halley converges cubically: after a Halley step of relative size <= 1e-6 the error
+        # is ~1e-18, so that step is the last one (bisection steps never end the iteration).
+        done = small | (~bad & (np.abs(zn - z) <= 1e-6 * np.maximum(1.0, np.abs(z))))
+        z = zn
+        ndone = np.count_nonzero(done)
+        if ndone == done.size:
+            break
+        if 2 * ndone >= done.size:      # compact the active set when half of it is done
+            keep = ~done
+            sel = np.flatnonzero(done) if act is None else act[done]
+            out[sel] = Tf - Tf / (1.0 + np.exp(-z[done]))
+            act = np.flatnonzero(keep) if act is None else act[keep]
+            z, z_lo, z_hi = z[keep], z_lo[keep], z_hi[keep]
+            Hd, phi, inv_b, K, c1, tolF = (Hd[keep], phi[keep], inv_b[keep], K[keep],
+                                           c1[keep], tolF[keep])
+    Tz = Tf - Tf / (1.0 + np.exp(-z))
+    if act is None:
+        return Tz
+    out[act] = Tz
+    return out
+
+
+# =============================================================================================
+# The two modes
+# =============================================================================================
+
+class SoilChange(NamedTuple):
+    """Result of :func:`apply_energy_mode` or :func:`apply_temperature_mode`, per layer cell.
+
+    Attributes
+    ----------
+    T : numpy.ndarray
+        New temperature, K.
+    liq, ice : numpy.ndarray
+        New liquid and ice (liquid-equivalent) contents, m3 m-3.
+    frozen_kg_m2 : numpy.ndarray
+        Liquid water that froze, kg m-2 (>= 0).
+    melted_kg_m2 : numpy.ndarray
+        Ice that melted, kg m-2 (>= 0).
+    sensible_J_m2 : numpy.ndarray
+        Sensible part of the enthalpy change, J m-2 (see :func:`energy_of_change`).
+    latent_J_m2 : numpy.ndarray
+        Latent part, J m-2; > 0 when ice melted.
+    """
+
+    T: np.ndarray
+    liq: np.ndarray
+    ice: np.ndarray
+    frozen_kg_m2: np.ndarray
+    melted_kg_m2: np.ndarray
+    sensible_J_m2: np.ndarray
+    latent_J_m2: np.ndarray
+
+
+def _mode_inputs(T, liq, ice, dT, dz, porosity, psi_sat_m, b, c_solid, where):
+    arrs = [_f64(a) for a in (T, liq, ice, dT, dz, porosity, psi_sat_m, b,
+                              CV_SOLID_DEFAULT if c_solid is None else c_solid)]
+    _validate_params(arrs[4], arrs[5], arrs[7], where)
+    if np.any(arrs[1] < 0) or np.any(arrs[2] < 0):
+        raise InputError(f"{where}: soil liquid or ice has negative values; apply clamp_negative_water first")
+    shape = np.broadcast_shapes(*(a.shape for a in arrs))
+    return shape, [np.broadcast_to(a, shape) for a in arrs]
+
+
+def _run_mode(block_fn, shape, views):
+    out = [np.empty(shape) for _ in range(7)]
+    for sl, flat in _flat_blocks(shape, views):
+        res = block_fn(*flat)
+        bshape = out[0][sl].shape
+        for o, r in zip(out, res):
+            o[sl] = r.reshape(bshape)
+    return SoilChange(*out)
+
+
+def _finish(T0, liq0, ice0, T1, liq1, ice1, dT, H0d, Csol, dz):
+    """The seven outputs of one block; cells with dT == 0 keep their exact inputs."""
+    untouched = dT == 0
+    if untouched.any():
+        T1 = np.where(untouched, T0, T1)
+        liq1 = np.where(untouched, liq0, liq1)
+        ice1 = np.where(untouched, ice0, ice1)
+    H1d = (Csol + CV_WATER * liq1 + _CV_ICE_WE * ice1) * (T1 - T_FREEZE) + _LV * liq1
+    dl = liq1 - liq0
+    latent = _LV * dl * dz
+    sensible = (H1d - H0d) * dz - latent
+    dmass = (RHO_WATER * dz) * dl
+    return T1, liq1, ice1, np.maximum(-dmass, 0.0), np.maximum(dmass, 0.0), sensible, latent
+
+
+def _energy_block(T, liq, ice, dT, dz, phi, psi, b, cs):
+    W = liq + ice
+    Csol = (1.0 - phi) * cs
+    C0 = Csol + CV_WATER * liq + _CV_ICE_WE * ice
+    H0d = C0 * (T - T_FREEZE) + _LV * liq                  # J m-3
+    target = H0d + C0 * dT
+    target[dT == 0] = np.nan                               # untouched cells are not solved
+    T1, liq1 = _solve_block(target, W, phi, psi, b, cs, T, 40)
+    return _finish(T, liq, ice, T1, liq1, W - liq1, dT, H0d, Csol, dz)
+
+
+def _temperature_block(T, liq, ice, dT, dz, phi, psi, b, cs):
+    Csol = (1.0 - phi) * cs
+    H0d = (Csol + CV_WATER * liq + _CV_ICE_WE * ice) * (T - T_FREEZE) + _LV * liq
+    T1 = T + dT
+    liq1, ice1 = equilibrate_phase(T1, liq, ice, phi, psi, b)
+    return _finish(T, liq, ice, T1, liq1, ice1, dT, H0d, Csol, dz)
+
+
+def apply_energy_mode(T, liq, ice, dT_target, dz, porosity, psi_sat_m, b, c_solid=None):
+    """Impose the enthalpy change of a temperature anomaly and solve temperature and phase.
+
+    .. math:: \\Delta H = C_0\\,\\Delta T_{target}\\,\\Delta z, \\qquad
+              H(T_1, \\theta_{liq,1}, \\theta_{ice,1}) = H(T_0, \\theta_{liq,0},
+              \\theta_{ice,0}) + \\Delta H
+
+    with C_0 = :func:`heat_capacity` of the starting state, H from :func:`enthalpy` and the
+    new state on the freezing curve (as :func:`solve_enthalpy`). Water is conserved: a cold
+    anomaly freezes water (so the temperature falls by less than dT), a warm one melts ice.
+    Cells with ``dT_target == 0`` are returned unchanged (not re-equilibrated).
+
+    Parameters
+    ----------
+    T : array_like
+        Starting temperature, K.
+    liq, ice : array_like
+        Starting liquid and ice (liquid-equivalent) contents, m3 m-3 (>= 0).
+    dT_target : array_like
+        Temperature anomaly defining the energy change, K.
+    dz : array_like
+        Layer thickness, m.
+    porosity, psi_sat_m, b : array_like
+        Freezing-curve parameters (see :func:`supercooled_liquid_max`).
+    c_solid : array_like, optional
+        Heat capacity of the solids, J m-3 K-1 (default ``CV_SOLID_DEFAULT``).
+
+    Returns
+    -------
+    SoilChange
+        ``(T, liq, ice, frozen_kg_m2, melted_kg_m2, sensible_J_m2, latent_J_m2)``, arrays of
+        the broadcast shape; sensible + latent = Delta H within the solver tolerance.
+
+    References
+    ----------
+    .. [1] de Vries (1963) for C; Niu and Yang (2006) for the freezing curve.
+    """
+    shape, views = _mode_inputs(T, liq, ice, dT_target, dz, porosity, psi_sat_m, b, c_solid,
+                                "apply_energy_mode")
+    return _run_mode(_energy_block, shape, views)
+
+
+def apply_temperature_mode(T, liq, ice, dT, dz, porosity, psi_sat_m, b, c_solid=None):
+    """Add a temperature anomaly, then re-equilibrate the water phase at the new temperature.
+
+    .. math:: T_1 = T_0 + \\Delta T, \\qquad (\\theta_{liq,1}, \\theta_{ice,1}) =
+              \\mathrm{equilibrate\\_phase}(T_1, \\theta_{liq,0}, \\theta_{ice,0})
+
+    The temperature change is exact; the energy it implies (sensible and latent, from
+    :func:`enthalpy`) is reported. Cells with ``dT == 0`` are returned unchanged (not
+    re-equilibrated).
+
+    Parameters
+    ----------
+    T, liq, ice : array_like
+        Starting state: K, m3 m-3, m3 m-3.
+    dT : array_like
+        Temperature anomaly, K.
+    dz, porosity, psi_sat_m, b, c_solid : array_like
+        As in :func:`apply_energy_mode`.
+
+    Returns
+    -------
+    SoilChange
+        ``(T, liq, ice, frozen_kg_m2, melted_kg_m2, sensible_J_m2, latent_J_m2)``.
+
+    References
+    ----------
+    .. [1] Niu, G.-Y., and Yang, Z.-L. (2006). *Journal of Hydrometeorology* 7, 937-952.
+    """
+    shape, views = _mode_inputs(T, liq, ice, dT, dz, porosity, psi_sat_m, b, c_solid,
+                                "apply_temperature_mode")
+    return _run_mode(_temperature_block, shape, views)
+
+
+# =============================================================================================
+# Starting-state checks and limits
+# =============================================================================================
+
+def disequilibrium(T, liq, ice, porosity, psi_sat_m, b, tol=1e-4):
+    """Cells whose starting state is not in phase equilibrium (for the ledger).
+
+    A cell is flagged when (T > T_f and ice > tol), or (T < T_f and liq > theta_liq_max(T)
+    + tol), or (T <= T_f and ice > tol and liq < theta_liq_max(T) - tol). A layer at exactly
+    T_f holding ice with liq >= porosity (the latent plateau) is in equilibrium.
+
+    initgen re-equilibrates only the cells it perturbs; this function only reports.
+
+    Parameters
+    ----------
+    T : array_like
+        Temperature, K.
+    liq, ice : array_like
+        Liquid and ice (liquid-equivalent) contents, m3 m-3.
+    porosity, psi_sat_m, b : array_like
+        Freezing-curve parameters.
+    tol : float
+        Tolerance, m3 m-3 (default 1e-4: files store float32 and models use slightly
+        different constants and freezing curves).
+
+    Returns
+    -------
+    numpy.ndarray of bool
+    """
+    T, liq, ice = _f64(T), _f64(liq), _f64(ice)
+    lmax = supercooled_liquid_max(T, porosity, psi_sat_m, b)
+    return (((T > T_FREEZE) & (ice > tol))
+            | ((T < T_FREEZE) & (liq > lmax + tol))
+            | ((T <= T_FREEZE) & (ice > tol) & (liq < lmax - tol)))
+
+
+def clamp(values, lower=None, upper=None):
+    """Clip values to [lower, upper] and count how many were changed.
+
+    Parameters
+    ----------
+    values : array_like
+    lower, upper : array_like, optional
+        Bounds (either may be None). NaN values are left as they are and not counted.
+
+    Returns
+    -------
+    tuple
+        ``(values float64 ndarray, count int)``.
+    """
+    v = _f64(values)
+    changed = np.zeros(v.shape, dtype=bool)
+    if lower is not None:
+        changed |= v < lower
+    if upper is not None:
+        changed |= v > upper
+    n = int(np.count_nonzero(changed))
+    return (np.clip(v, lower, upper) if n else v.copy()), n
+
+
+def clamp_soil_temperature(T, t_min=180.0, t_max=340.0):
+    """Clamp soil temperature to [t_min, t_max] K (recipe defaults 180 K and 340 K).
+
+    Returns
+    -------
+    tuple
+        ``(T K, count of clamped cells)``.
+    """
+    return clamp(T, t_min, t_max)
+
+
+def clamp_snow_temperature(T, t_max=T_FREEZE):
+    """Clamp snow temperature to at most T_f = 273.15 K (snow cannot be warmer than melting).
+
+    Returns
+    -------
+    tuple
+        ``(T K, count of clamped cells)``.
+    """
+    return clamp(T, None, t_max)
+
+
+def clamp_negative_water(theta):
+    """Set negative water contents to zero (adds water; the count goes to the ledger).
+
+    Returns
+    -------
+    tuple
+        ``(theta m3 m-3, count of clamped cells)``.
+    """
+    return clamp(theta, 0.0, None)
+
+
+def clamp_pore_space(liq, ice, porosity):
+    """Enforce liq + ice <= porosity (water-equivalent contents) by removing the excess.
+
+    The excess is removed **from ice first**, then from liquid. Below freezing in
+    equilibrium the liquid is at the supercooled limit (<= porosity), so removing ice keeps
+    the cell in phase equilibrium; above freezing there is no ice and liquid is reduced.
+    This rule removes water: it is a clamp, counted, and the only place where initgen does
+    not conserve water (the caller records the removed mass in the ledger).
+
+    Parameters
+    ----------
+    liq, ice : array_like
+        Liquid and ice (liquid-equivalent) contents, m3 m-3 (>= 0).
+    porosity : array_like
+        m3 m-3.
+
+    Returns
+    -------
+    tuple
+        ``((liq, ice), count of clamped cells)``.
+    """
+    liq, ice, phi = _f64(liq), _f64(ice), _f64(porosity)
+    excess = liq + ice - phi
+    over = excess > 0
+    n = int(np.count_nonzero(over))
+    if not n:
+        return (liq.copy(), ice.copy()), 0
+    from_ice = np.minimum(ice, np.maximum(excess, 0.0))
+    ice2 = np.where(over, ice - from_ice, ice)
+    liq2 = np.where(over, np.minimum(liq, phi - ice2), liq)
+    return (liq2, ice2), n
