@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import difflib
 import math
+import reprlib
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -22,8 +23,14 @@ def _where(path: str) -> str:
     return path or "(top level)"
 
 
+_REPR = reprlib.Repr()
+_REPR.maxstring = _REPR.maxother = 60
+_REPR.maxlevel = 3
+
+
 def _show(value: Any) -> str:
-    text = repr(value)
+    # reprlib, not repr: a YAML alias bomb (lists of aliases of lists) must not be expanded
+    text = _REPR.repr(value)
     return text if len(text) <= 60 else text[:57] + "..."
 
 
@@ -71,8 +78,12 @@ class Num(Node):
                 value = int(value)
             else:
                 raise InputError(f"recipe key {_where(path)}: must be {kind}, got {_show(value)}")
-        if not math.isfinite(value):
-            raise InputError(f"recipe key {_where(path)}: must be a finite number, got {value}")
+        try:
+            finite = math.isfinite(value)
+        except OverflowError:  # an integer too large for a float
+            finite = False
+        if not finite:
+            raise InputError(f"recipe key {_where(path)}: must be a finite number, got {_show(value)}")
         unit = f" {self.unit}" if self.unit else ""
         if self.minimum is not None and value < self.minimum:
             raise InputError(f"recipe key {path}: must be >= {self.minimum}{unit}, got {value}")
