@@ -1,0 +1,1292 @@
+"""Reports: compare two netCDF files, verify a provenance record, preview and mask outputs.
+
+Four entry points, each called by the command line (``initgen compare | verify | preview --report |
+mask``):
+
+* :func:`compare` - structural and value diff of two netCDF files, read block by block, with
+  :func:`compare_text` (a table for an email) and :func:`compare_markdown`;
+* :func:`verify` - re-run a provenance record and check the recorded output against the re-run;
+* :func:`preview_report` - a Markdown report with PNG figures of what ``apply`` would change;
+* :func:`write_mask` - the horizontal weight field as a CF netCDF file on the model grid.
+
+Every number in a preview comes from the ledger (the same record ``apply`` writes into the
+provenance), so the report, the terminal table and the provenance never disagree. Figures are drawn
+with matplotlib's non-interactive Agg backend, selected inside the functions that draw, never when
+initgen is imported.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import io
+import json
+import math
+import os
+import tempfile
+import warnings
+from pathlib import Path
+from typing import Any, Iterable, Iterator
+
+import numpy as np
+
+from .errors import InputError
+from .restart import NetCDFStore, check_output_path, create_netcdf, sha256_file, unpack, write_atomic_text
+
+#: Largest number of elements of one variable read at once by :func:`compare` (per file).
+BLOCK_ELEMENTS = 2_000_000
+
+#: Size of every PNG figure in inches and its resolution: every figure is 800 x 500 pixels.
+FIG_SIZE_IN = (8.0, 5.0)
+FIG_DPI = 100
+FIG_PIXELS = (int(FIG_SIZE_IN[0] * FIG_DPI), int(FIG_SIZE_IN[1] * FIG_DPI))  # (width, height)
+
+#: The global attribute that every initgen run changes; always allowed to differ.
+HISTORY = "history"
+
+CAUTION = ("A perturbed start is an experiment: check these numbers before submission, and follow your "
+           "experiment's protocol.")
+
+
+# =============================================================================================
+# Small helpers
+# =============================================================================================
+
+
+def _py(x: Any) -> Any:
+    """Convert numpy scalars and arrays (recursively) into JSON-serialisable Python values.
+
+    Non-finite floats become ``None`` so that the result passes ``json.dumps(allow_nan=False)``.
+    """
+    if isinstance(x, dict):
+        return {str(k): _py(v) for k, v in x.items()}
+    if isinstance(x, (list, tuple)):
+        return [_py(v) for v in x]
+    if isinstance(x, np.ndarray):
+        return _py(x.tolist())
+    if isinstance(x, np.generic):
+        return _py(x.item())
+    if isinstance(x, bytes):
+        return x.decode("utf-8", "replace")
+    if isinstance(x, float):
+        return x if math.isfinite(x) else None
+    if isinstance(x, (str, int, bool)) or x is None:
+        return x
+    return str(x)
+
+
+def _fmt(v: float | None, spec: str = ".4g") -> str:
+    return "-" if v is None else format(v, spec)
+
+
+def _short(x: Any, limit: int = 40) -> str:
+    """A short printable form of an attribute value for a one-line message."""
+    text = repr(_py(x))
+    return text if len(text) <= limit else text[: limit - 3] + "..."
+
+
+def _attr_equal(x: Any, y: Any) -> bool:
+    """True when two attribute values are equal in type, shape and value (NaN equals NaN)."""
+    if isinstance(x, str) or isinstance(y, str):
+        return type(x) is type(y) and x == y
+    ax, ay = np.asarray(x), np.asarray(y)
+    if ax.dtype != ay.dtype or ax.shape != ay.shape:
+        return False
+    if ax.dtype.kind in "fc":
+        return bool(np.all((ax == ay) | (np.isnan(ax) & np.isnan(ay))))
+    return bool(np.all(ax == ay))
+
+
+def _attr_diffs(a: dict, b: dict, what: str) -> list[tuple[str, str]]:
+    """(attribute name, message) for each attribute added, removed or changed."""
+    out = []
+    for k in sorted(set(a) | set(b)):
+        if k not in b:
+            out.append((k, f"{what}attribute '{k}' only in a"))
+        elif k not in a:
+            out.append((k, f"{what}attribute '{k}' only in b"))
+        elif not _attr_equal(a[k], b[k]):
+            out.append((k, f"{what}attribute '{k}' differs ({_short(a[k])} vs {_short(b[k])})"))
+    return out
+
+
+def _encoding(store: NetCDFStore, name: str) -> dict:
+    """How a variable is stored: chunking, filters, endianness, fill value, quantization."""
+    var = store.ds.variables[name]
+    enc: dict = {}
+    for key, call in (("chunking", var.chunking), ("filters", var.filters), ("endian", var.endian),
+                      ("fill_value", var.get_fill_value), ("quantization", var.quantization)):
+        try:
+            enc[key] = _py(call())
+        except Exception:  # netCDF3 files have no chunking or filters; old libraries lack some calls
+            enc[key] = None
+    return enc
+
+
+def _blocks(shape: tuple, limit: int | None = None) -> Iterator[tuple]:
+    """Index tuples (of slices) that cover an array of ``shape`` in pieces of at most ~``limit`` elements.
+
+    Pieces are slabs along the first dimension; when one index of the first dimension alone is
+    larger than ``limit``, the next dimension is split too, and so on.
+    """
+    limit = BLOCK_ELEMENTS if limit is None else limit
+    if len(shape) == 0:
+        yield ()
+        return
+    if any(s == 0 for s in shape):
+        return
+    k = 0
+    while k < len(shape) - 1 and int(np.prod(shape[k + 1:])) > limit:
+        k += 1
+    inner = int(np.prod(shape[k + 1:])) if k + 1 < len(shape) else 1
+    step = max(1, limit // max(inner, 1))
+    rest = (slice(None),) * (len(shape) - k - 1)
+    for outer in np.ndindex(*shape[:k]):
+        head = tuple(slice(i, i + 1) for i in outer)
+        for start in range(0, shape[k], step):
+            yield head + (slice(start, min(shape[k], start + step)),) + rest
+
+
+def _lon_arc(lons: np.ndarray) -> tuple[float, float]:
+    """The shortest longitude interval [west, east] (east >= west, east - west < 360) holding ``lons``.
+
+    Longitudes come back in a continuous convention (e.g. 175..185 across the 180 degree
+    meridian) with ``west`` in the range of the data.
+    """
+    lons = np.asarray(lons, float)
+    lo, hi = float(lons.min()), float(lons.max())
+    u = np.unique(np.mod(lons, 360.0))
+    if u.size == 1:
+        return lo, lo
+    gaps = np.diff(np.concatenate([u, u[:1] + 360.0]))
+    i = int(np.argmax(gaps))
+    width = 360.0 - float(gaps[i])
+    if hi - lo <= width + 1e-9:
+        return lo, hi  # the data's own convention already gives the shortest interval
+    west = float(u[(i + 1) % u.size])
+    west += 360.0 * math.floor((lo - west) / 360.0)
+    if west < lo - 1e-9:
+        west += 360.0
+    return west, west + width
+
+
+def _is_layout_path(layout) -> bool:
+    return layout is not None and not hasattr(layout, "data")
+
+
+# =============================================================================================
+# compare
+# =============================================================================================
+
+
+class _ValueStats:
+    """Running statistics of the change b - a over the cells of one variable (or one layer)."""
+
+    def __init__(self):
+        self.cells = 0
+        self.changed = 0
+        self.became_missing = 0
+        self.became_valid = 0
+        self.max_abs = None
+        self.wsum = 0.0
+        self.w = 0.0
+
+    def add(self, changed, fa, fb, weight) -> None:
+        """``changed``: bool; ``fa``, ``fb``: physical values (or None for non-numeric); ``weight``."""
+        self.cells += int(changed.size)
+        n = int(np.count_nonzero(changed))
+        self.changed += n
+        if n == 0 or fa is None:
+            return
+        va, vb = np.isfinite(fa), np.isfinite(fb)
+        self.became_missing += int(np.count_nonzero(changed & va & ~vb))
+        self.became_valid += int(np.count_nonzero(changed & ~va & vb))
+        both = changed & va & vb
+        if not np.any(both):
+            return
+        d = (fb - fa)[both]
+        m = float(np.abs(d).max())
+        self.max_abs = m if self.max_abs is None else max(self.max_abs, m)
+        w = np.broadcast_to(weight, changed.shape)[both]
+        self.wsum += float((d * w).sum())
+        self.w += float(w.sum())
+
+    def as_dict(self) -> dict:
+        return {
+            "cells": self.cells,
+            "cells_changed": self.changed,
+            "cells_became_missing": self.became_missing,
+            "cells_became_valid": self.became_valid,
+            "max_abs_change": self.max_abs,
+            "area_weighted_mean_change": (self.wsum / self.w) if self.w > 0 else None,
+        }
+
+
+def _find_grid(store: NetCDFStore, layout, notes: list):
+    """The horizontal grid of ``store`` (lon, lat, area, dims), or None when lon/lat cannot be found."""
+    from .grid import open_model
+    from .recipe import load_layout
+
+    lay = load_layout(layout) if _is_layout_path(layout) else layout
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        try:
+            model = open_model(store, lay)
+        except InputError as exc:
+            if lay is not None:
+                raise
+            notes.append(f"no grid found in a ({' '.join(str(exc).split())}); means use equal weights, no lon/lat box")
+            return None
+    for w in caught:
+        notes.append(" ".join(str(w.message).split()))
+    return model.grid
+
+
+def _value_diff(sa: NetCDFStore, sb: NetCDFStore, name: str, grid) -> dict:
+    """Compare the values of one variable present in both files with the same shape, block by block."""
+    ia, ib = sa.variables[name], sb.variables[name]
+    numeric_a = ia.dtype.kind in "iufcb"
+    numeric_b = ib.dtype.kind in "iufcb"
+    numeric = numeric_a and numeric_b
+    same_dtype = ia.dtype == ib.dtype
+    dims = ia.dims
+    hdims = tuple(grid.dims) if grid is not None and all(d in dims for d in grid.dims) else ()
+    if hdims and tuple(ia.shape[dims.index(d)] for d in hdims) != tuple(grid.shape):
+        hdims = ()
+    nonh = [d for d in dims if d not in hdims]
+    big = [d for d in nonh if ia.shape[dims.index(d)] > 1]
+    layer_dim = big[0] if hdims and len(big) == 1 else None
+    order = ([layer_dim] if layer_dim else []) + [d for d in nonh if d != layer_dim] + list(hdims)
+    perm = [dims.index(d) for d in order]
+    total = _ValueStats()
+    nlay = ia.shape[dims.index(layer_dim)] if layer_dim else 0
+    per_layer = [_ValueStats() for _ in range(nlay)]
+    changed_h = np.zeros(grid.shape, bool) if hdims else None
+    for key in _blocks(ia.shape):
+        if key == ():  # a scalar variable
+            ra, rb = np.asarray(sa.read_raw(name)).reshape(()), np.asarray(sb.read_raw(name)).reshape(())
+        else:
+            ra, rb = np.asarray(sa.read_raw(name, key)), np.asarray(sb.read_raw(name, key))
+        fa = unpack(ra, ia.attrs) if numeric else None
+        fb = unpack(rb, ib.attrs) if numeric else None
+        if same_dtype:
+            if ra.dtype.kind in "fc":
+                same = (ra == rb) | (np.isnan(ra) & np.isnan(rb))
+            else:
+                same = np.asarray(ra == rb, dtype=bool).reshape(ra.shape)
+        elif numeric:
+            same = (fa == fb) | (np.isnan(fa) & np.isnan(fb))
+        else:
+            same = np.asarray(ra.astype(str) == rb.astype(str), dtype=bool).reshape(ra.shape)
+        changed = ~same
+        if changed.ndim:
+            changed = np.transpose(changed, perm)
+            if fa is not None:
+                fa, fb = np.transpose(fa, perm), np.transpose(fb, perm)
+        if hdims:
+            hidx = tuple(key[dims.index(d)] for d in hdims)
+            weight = grid.area[hidx]
+            changed_h[hidx] |= changed.reshape((-1,) + changed.shape[changed.ndim - len(hdims):]).any(axis=0)
+        else:
+            weight = np.ones(())
+        total.add(changed, fa, fb, weight)
+        if layer_dim:
+            lsel = range(nlay)[key[dims.index(layer_dim)]]
+            for j, layer in enumerate(lsel):
+                per_layer[layer].add(changed[j], None if fa is None else fa[j], None if fb is None else fb[j], weight)
+    out = total.as_dict()
+    out["units"] = ia.units
+    out["weights"] = ("cell area" if hdims else "equal") if numeric else None
+    out["layer_dim"] = layer_dim
+    if layer_dim:
+        out["layers"] = [dict(layer=i, **s.as_dict()) for i, s in enumerate(per_layer)]
+    out["bbox"] = None
+    if changed_h is not None and changed_h.any():
+        lon, lat = grid.lon[changed_h], grid.lat[changed_h]
+        west, east = _lon_arc(lon)
+        out["bbox"] = {"lon": [west, east], "lat": [float(lat.min()), float(lat.max())],
+                       "horizontal_cells_changed": int(changed_h.sum())}
+    return out
+
+
+def compare(a, b, allow: Iterable[str] = (), layout=None) -> dict:
+    """Structural and value diff of two netCDF files.
+
+    Parameters
+    ----------
+    a, b : str or path-like
+        The two files, e.g. the original restart and the perturbed copy.
+    allow : iterable of str, optional
+        Variables allowed to differ: any difference of theirs (values, attributes, encodings,
+        presence) is reported but does not make the result fail. The global ``history``
+        attribute is always allowed to differ.
+    layout : str, path-like or Document, optional
+        Layout used to find longitude, latitude and cell areas (else CF attributes). Without a
+        grid, means use equal weights and no lon/lat box is given.
+
+    Returns
+    -------
+    dict
+        JSON-serialisable: ``ok`` (True when the files are identical or differ only in the allowed
+        variables and ``history``), ``identical``, ``differences`` (one short string per
+        difference outside the allowed ones), ``structure`` (every structural difference, allowed
+        ones marked), ``variables`` (per variable: status, cells changed, largest absolute change
+        and area-weighted mean change over the changed cells in physical units, per layer where
+        the variable has one layer axis besides the horizontal ones, and the lon/lat box of the
+        changed cells), ``notes`` and the file formats.
+
+    Raises
+    ------
+    InputError
+        When a file is missing or not a readable netCDF file.
+
+    Notes
+    -----
+    Cells are compared on the raw stored values (no masking or unpacking): byte-identical
+    values, equal values and NaN against NaN count as equal, so fill against fill is equal.
+    Values are read in blocks of at most :data:`BLOCK_ELEMENTS` elements per file.
+    """
+    allow = [str(v) for v in (allow or ())]
+    sa = NetCDFStore(a)
+    try:
+        sb = NetCDFStore(b)
+    except BaseException:
+        sa.close()
+        raise
+    try:
+        return _compare(sa, sb, allow, layout)
+    finally:
+        sa.close()
+        sb.close()
+
+
+def _compare(sa: NetCDFStore, sb: NetCDFStore, allow: list, layout) -> dict:
+    items: list[tuple[str | None, str]] = []  # (owner variable or None, structural difference)
+    value_items: list[tuple[str, str]] = []  # (variable, value difference)
+    notes: list[str] = []
+    fa = {"data_model": sa.ds.data_model, "disk_format": getattr(sa.ds, "disk_format", None)}
+    fb = {"data_model": sb.ds.data_model, "disk_format": getattr(sb.ds, "disk_format", None)}
+    if fa["data_model"] != fb["data_model"]:
+        items.append((None, f"file format {fa['data_model']} vs {fb['data_model']}"))
+    elif fa["disk_format"] != fb["disk_format"]:
+        items.append((None, f"disk format {fa['disk_format']} vs {fb['disk_format']}"))
+    ga, gb = sorted(sa.ds.groups), sorted(sb.ds.groups)
+    if ga or gb:
+        notes.append("groups are not compared (only the root group is)")
+        if ga != gb:
+            items.append((None, f"groups {ga} vs {gb}"))
+    for d in sorted(set(sa.dims) | set(sb.dims)):
+        if d not in sb.dims:
+            items.append((None, f"dimension '{d}' only in a"))
+        elif d not in sa.dims:
+            items.append((None, f"dimension '{d}' only in b"))
+        else:
+            if sa.dims[d] != sb.dims[d]:
+                items.append((None, f"dimension '{d}' size {sa.dims[d]} vs {sb.dims[d]}"))
+            ua, ub = sa.ds.dimensions[d].isunlimited(), sb.ds.dimensions[d].isunlimited()
+            if ua != ub:
+                items.append((None, f"dimension '{d}' is {'unlimited' if ua else 'fixed'} in a, "
+                                    f"{'unlimited' if ub else 'fixed'} in b"))
+    for key, msg in _attr_diffs(sa.global_attrs, sb.global_attrs, "global "):
+        items.append(("\x00history" if key == HISTORY else None, msg))
+
+    grid = _find_grid(sa, layout, notes)
+    variables: dict = {}
+    names = list(sa.variables) + [n for n in sb.variables if n not in sa.variables]
+    for name in names:
+        entry: dict = {"allowed": name in allow}
+        variables[name] = entry
+        if name not in sb.variables or name not in sa.variables:
+            where = "a" if name in sa.variables else "b"
+            info = (sa if where == "a" else sb).variables[name]
+            entry.update(status=f"only in {where}", dtype=str(info.dtype), dims=list(info.dims), structure=[])
+            items.append((name, f"variable '{name}' only in {where}"))
+            continue
+        ia, ib = sa.variables[name], sb.variables[name]
+        struct = []
+        if ia.dtype != ib.dtype:
+            struct.append(f"dtype {ia.dtype} vs {ib.dtype}")
+        if ia.dims != ib.dims:
+            struct.append(f"dims {ia.dims} vs {ib.dims}")
+        elif ia.shape != ib.shape:
+            struct.append(f"shape {ia.shape} vs {ib.shape}")
+        attrs_a = {k: v for k, v in ia.attrs.items() if not k.startswith("_initgen")}
+        attrs_b = {k: v for k, v in ib.attrs.items() if not k.startswith("_initgen")}
+        struct += [m for _, m in _attr_diffs(attrs_a, attrs_b, "")]
+        ea, eb = _encoding(sa, name), _encoding(sb, name)
+        for k in ea:
+            if ea[k] != eb[k]:
+                struct.append(f"{k} {_short(ea[k], 60)} vs {_short(eb[k], 60)}")
+        entry.update(dtype=str(ia.dtype), dims=list(ia.dims), shape=list(ia.shape), structure=struct)
+        for m in struct:
+            items.append((name, f"variable '{name}': {m}"))
+        if ia.shape != ib.shape:
+            entry["values"] = "not compared (shapes differ)"
+            entry["status"] = "differs"
+            continue
+        vals = _value_diff(sa, sb, name, grid)
+        entry.update(vals)
+        if vals["cells_changed"]:
+            mx = vals["max_abs_change"]
+            extra = f", largest |change| {mx:.4g} {vals['units']}".rstrip() if mx is not None else ""
+            value_items.append((name, f"variable '{name}': {vals['cells_changed']} of {vals['cells']} values changed{extra}"))
+        entry["status"] = "differs" if (struct or vals["cells_changed"]) else "identical"
+
+    unknown = [v for v in allow if v not in sa.variables and v not in sb.variables]
+    if unknown:
+        notes.append(f"allowed variable(s) in neither file: {', '.join(unknown)} (a typo?)")
+
+    def allowed(owner):
+        return owner == "\x00history" or (owner is not None and owner in allow)
+
+    structure = [m + (" (allowed)" if allowed(o) else "") for o, m in items]
+    differences = [m for o, m in items + value_items if not allowed(o)]
+    result = {
+        "a": str(sa.path),
+        "b": str(sb.path),
+        "format": {"a": fa, "b": fb},
+        "ok": not differences,
+        "identical": not items and not value_items,
+        "allow": allow,
+        "differences": differences,
+        "structure": structure,
+        "variables": variables,
+        "grid": None if grid is None else {"kind": grid.kind, "dims": list(grid.dims), "shape": list(grid.shape),
+                                           "cell_area": grid.area_source},
+        "notes": notes,
+    }
+    return _py(result)
+
+
+def compare_text(result: dict) -> str:
+    """A compact plain-text table of a :func:`compare` result, for a terminal or an email.
+
+    Parameters
+    ----------
+    result : dict
+        What :func:`compare` returned.
+
+    Returns
+    -------
+    str
+    """
+    lines = [f"a: {result['a']} ({result['format']['a']['data_model']})",
+             f"b: {result['b']} ({result['format']['b']['data_model']})"]
+    changed = {n: v for n, v in result["variables"].items() if v.get("status") != "identical"}
+    if result["identical"]:
+        lines.append("result: OK, identical")
+    elif result["ok"]:
+        lines.append("result: OK, differences only in " +
+                     (", ".join(sorted(changed)) + " (allowed) and " if changed else "") + "the history attribute"
+                     if changed else "result: OK, only the history attribute differs")
+    else:
+        lines.append(f"result: DIFFERENT, {len(result['differences'])} difference(s) outside the allowed variables")
+        for d in result["differences"]:
+            lines.append(f"  - {d}")
+    if changed:
+        head = f"{'variable':<22} {'changed':>9} {'of':>9} {'max|change|':>11} {'area_mean':>10} {'units':<7} " \
+               f"{'lon':<15} lat"
+        lines.append(head)
+        for name, v in changed.items():
+            label = name + (" *" if v.get("allowed") else "")
+            if v.get("status", "").startswith("only in"):
+                lines.append(f"{label:<22} {v['status']}")
+                continue
+            if "cells" not in v:
+                lines.append(f"{label:<22} {v.get('values', '')}")
+                continue
+            box = v.get("bbox")
+            lon = f"{box['lon'][0]:.2f}..{box['lon'][1]:.2f}" if box else "-"
+            lat = f"{box['lat'][0]:.2f}..{box['lat'][1]:.2f}" if box else "-"
+            lines.append(f"{label:<22} {v['cells_changed']:>9} {v['cells']:>9} {_fmt(v['max_abs_change']):>11} "
+                         f"{_fmt(v['area_weighted_mean_change']):>10} {(v.get('units') or '-'):<7} {lon:<15} {lat}")
+            for row in v.get("layers") or []:
+                if row["cells_changed"]:
+                    lines.append(f"  {v['layer_dim']}[{row['layer']}]".ljust(22) +
+                                 f" {row['cells_changed']:>9} {row['cells']:>9} {_fmt(row['max_abs_change']):>11} "
+                                 f"{_fmt(row['area_weighted_mean_change']):>10}")
+            for s in v.get("structure") or []:
+                lines.append(f"  {s}")
+        if any(v.get("allowed") for v in changed.values()):
+            lines.append("(* allowed to differ; area_mean: area-weighted mean change over the changed cells)")
+        else:
+            lines.append("(area_mean: area-weighted mean change over the changed cells)")
+    other = [s for s in result["structure"] if not s.startswith("variable '")]
+    if other:
+        lines.append("file-level: " + "; ".join(other))
+    same = [n for n, v in result["variables"].items() if v.get("status") == "identical"]
+    lines.append(f"identical variables: {len(same)}")
+    for n in result.get("notes") or []:
+        lines.append(f"note: {n}")
+    return "\n".join(lines)
+
+
+def compare_markdown(result: dict) -> str:
+    """The :func:`compare` result as Markdown (the table of :func:`compare_text` in a code block)."""
+    verdict = "OK" if result["ok"] else "DIFFERENT"
+    return (f"# initgen compare: {verdict}\n\n```text\n{compare_text(result)}\n```\n\n"
+            f"Allowed to differ: {', '.join(result['allow']) or 'nothing'} (and the global history attribute).\n")
+
+
+# =============================================================================================
+# verify
+# =============================================================================================
+
+
+def _load_document(entry: dict, kind: str, recipe_doc=None):
+    """Reload the recipe or layout named in a provenance record; check its canonical sha256."""
+    from .recipe import inline_layout, load_layout, load_recipe
+
+    path = entry.get("path")
+    if kind == "layout" and recipe_doc is not None and path and recipe_doc.path is not None \
+            and Path(path) == Path(recipe_doc.path):
+        doc = inline_layout(recipe_doc)  # the layout was written inside the recipe
+        if doc is None:
+            raise InputError(f"{path}: the recorded layout was inline in this recipe, which no longer has one")
+    else:
+        if not path:
+            raise InputError(f"provenance record: the {kind} was not read from a file, so it cannot be re-run "
+                             f"from its folder; save record['{kind}']['text'] as a file and apply again")
+        if not Path(path).is_file():
+            raise InputError(f"{path}: the recorded {kind} file is missing; restore it there (its text is in the "
+                             f"provenance record under {kind}.text) - files it names are relative to its folder")
+        doc = load_recipe(path) if kind == "recipe" else load_layout(path)
+    return doc
+
+
+def _document_changed(kind: str, doc, entry: dict, rec: dict) -> str:
+    """Why a recipe or layout no longer has its recorded canonical sha256."""
+    from . import __version__
+
+    want = str(entry.get("sha256"))[:12]
+    if entry.get("text") is not None and doc.text == entry["text"]:
+        then = (rec.get("versions") or {}).get("initgen")
+        return (f"the {kind} {entry.get('path')} is unchanged, but this initgen ({__version__}) reads it differently "
+                f"from the one that applied it ({then}): canonical sha256 {doc.sha256[:12]}... is not the recorded "
+                f"{want}...; verify with the initgen version of the record")
+    return (f"the {kind} {entry.get('path')} has changed since apply (canonical sha256 {doc.sha256[:12]}... is not "
+            f"the recorded {want}...); restore the recorded text (provenance record, {kind}.text)")
+
+
+def verify(provenance_path, input=None, output=None) -> dict:
+    """Re-run a provenance record and check the recorded output against the re-run.
+
+    Parameters
+    ----------
+    provenance_path : str or path-like
+        The ``.provenance.json`` written by ``apply``.
+    input : str or path-like, optional
+        The original input (default: the path in the record).
+    output : str or path-like, optional
+        The file to check (default: the path in the record).
+
+    Returns
+    -------
+    dict
+        ``ok`` (bool), ``message`` (one paragraph saying what was checked and what failed, naming
+        the variables that differ), ``checks`` (name -> bool) and, when the re-run was made,
+        ``compare`` (the :func:`compare` result of the re-run against the output).
+
+    Raises
+    ------
+    InputError
+        When the record, the input, the output, the recipe or the layout file cannot be read.
+
+    Notes
+    -----
+    The ``history`` line of a run holds its time, so a whole file is never bit-identical across
+    runs. ``verify`` therefore checks that (1) the input's sha256 is the recorded one, (2) the
+    recipe and layout files have the recorded canonical sha256, (3) the output's sha256 is the
+    recorded one (the file was not altered after ``apply``), (4) the output differs from a
+    re-run of the recorded recipe in nothing but the global ``history`` attribute, and (5) the
+    re-run's ledger equals the recorded ledger.
+    """
+    from . import api
+    from . import provenance as prov
+
+    rec = prov.load(Path(provenance_path))
+    try:
+        in_path = Path(input) if input is not None else Path(rec["input"]["path"])
+        out_path = Path(output) if output is not None else Path(rec["output"]["path"])
+        recipe_entry, layout_entry = rec["recipe"], rec.get("layout")
+        want_in, want_out = rec["input"]["sha256"], rec["output"]["sha256"]
+    except (KeyError, TypeError):
+        raise InputError(f"{provenance_path}: the provenance record lacks input, output or recipe entries; "
+                         "give the .provenance.json written by initgen apply") from None
+    for p, what in ((in_path, "input"), (out_path, "output")):
+        if not p.is_file():
+            raise InputError(f"{p}: the {what} file is not there; pass --{what} with its current path")
+    if rec.get("member"):
+        raise InputError(f"{provenance_path}: this record is of an ensemble member; verify re-runs single "
+                         "apply records only (re-run the ensemble member instead)")
+    failures: list[str] = []
+    checks: dict = {}
+
+    checks["input_sha256"] = sha256_file(in_path) == want_in
+    if not checks["input_sha256"]:
+        failures.append(f"the input {in_path} differs from the one recorded (sha256 is not {want_in[:12]}...); "
+                        "use the original input")
+    recipe_doc = _load_document(recipe_entry, "recipe")
+    checks["recipe_sha256"] = recipe_doc.sha256 == recipe_entry.get("sha256")
+    if not checks["recipe_sha256"]:
+        failures.append(_document_changed("recipe", recipe_doc, recipe_entry, rec))
+    layout_doc = None
+    if layout_entry:
+        layout_doc = _load_document(layout_entry, "layout", recipe_doc)
+        checks["layout_sha256"] = layout_doc.sha256 == layout_entry.get("sha256")
+        if not checks["layout_sha256"]:
+            failures.append(_document_changed("layout", layout_doc, layout_entry, rec))
+    checks["output_sha256"] = sha256_file(out_path) == want_out
+    if not checks["output_sha256"]:
+        failures.append(f"the output {out_path} was altered after apply (its sha256 is not the recorded "
+                        f"{want_out[:12]}...)")
+    result: dict = {"ok": False, "checks": checks}
+    if not failures or set(k for k, v in checks.items() if not v) <= {"output_sha256"}:
+        allow_outside = bool((rec.get("options") or {}).get("allow_outside_paths", False))
+        with tempfile.TemporaryDirectory(prefix="initgen-verify-") as tmp:
+            rerun = Path(tmp) / ("rerun-" + out_path.name)
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore")
+                new = api.apply(recipe_doc, in_path, rerun, layout_doc, allow_outside_paths=allow_outside)
+            cmp_ = compare(rerun, out_path, allow=())
+        result["compare"] = cmp_
+        checks["same_as_rerun"] = bool(cmp_["ok"])
+        if not cmp_["ok"]:
+            names = [n for n, v in cmp_["variables"].items() if v.get("status") != "identical"]
+            other = [d for d in cmp_["differences"] if not d.startswith("variable '")]
+            what = []
+            if names:
+                what.append("variable(s) " + ", ".join(names))
+            what += other
+            failures.append(f"the output differs from a re-run of recipe '{recipe_doc.name}' in "
+                            + "; ".join(what) + " (details: initgen compare)")
+        led_new = json.loads(json.dumps(_py(new["ledger"])))
+        led_old = json.loads(json.dumps(_py(rec.get("ledger"))))
+        checks["ledger"] = led_new == led_old
+        if not checks["ledger"]:
+            keys = sorted(k for k in set(led_new) | set(led_old or {}) if led_new.get(k) != (led_old or {}).get(k))
+            failures.append(f"the re-run's ledger differs from the recorded one in: {', '.join(keys)}")
+        vnew, vold = new.get("versions") or {}, rec.get("versions") or {}
+        changed_v = sorted(k for k in set(vnew) | set(vold) if vnew.get(k) != vold.get(k))
+        if changed_v and failures:
+            failures.append("library versions differ from the record (" + ", ".join(
+                f"{k} {vold.get(k)} -> {vnew.get(k)}" for k in changed_v) + "), which may explain it")
+    else:
+        failures.append("not re-run: fix the above first")
+    result["ok"] = not failures
+    if result["ok"]:
+        result["message"] = (f"verified: {out_path} is the recorded output (sha256 {want_out[:12]}...) and equals a "
+                             f"re-run of recipe '{recipe_doc.name}' on {in_path} in everything but the history "
+                             "line; the ledger is identical")
+    else:
+        result["message"] = f"NOT verified: {out_path}: " + "; ".join(failures)
+    return _py(result)
+
+
+# =============================================================================================
+# Figures (matplotlib, Agg backend selected when drawing)
+# =============================================================================================
+
+
+def _pyplot():
+    import matplotlib
+
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+
+    return plt
+
+
+def _png_bytes(fig) -> bytes:
+    buf = io.BytesIO()
+    fig.savefig(buf, format="png", dpi=FIG_DPI)
+    return buf.getvalue()
+
+
+def _write_bytes(path: Path, data: bytes) -> None:
+    """Write a small binary file (a PNG) through a temporary file beside it and a rename."""
+    path = Path(path)
+    tmp = path.parent / f".{path.name}.{os.getpid()}.initgen-tmp"
+    try:
+        with open(tmp, "wb") as fh:
+            fh.write(data)
+        os.replace(tmp, path)
+    except OSError as exc:
+        raise InputError(f"{path}: cannot write the figure ({exc.strerror or exc}); choose another place") from None
+    finally:
+        with contextlib.suppress(OSError):
+            tmp.unlink()
+
+
+def _frame_centre(grid, w: np.ndarray) -> float:
+    """Centre longitude of the plotting frame: the circular mean of the region, in the grid's convention."""
+    lon = grid.lon[w > 0] if np.any(w > 0) else grid.lon.ravel()
+    r = np.deg2rad(lon)
+    c = float(np.rad2deg(np.arctan2(np.sin(r).mean(), np.cos(r).mean())))
+    lo, hi = float(np.min(grid.lon)), float(np.max(grid.lon))
+    for k in (0, 1, -1, 2):  # keep the grid's own longitudes where they already surround the region
+        if lo <= c + 360.0 * k <= hi:
+            return c + 360.0 * k
+    return c
+
+
+def _to_frame(lon, centre: float):
+    return centre + np.mod(np.asarray(lon, float) - centre + 180.0, 360.0) - 180.0
+
+
+def _draw_field(ax, grid, field: np.ndarray, centre: float, **kw):
+    """pcolormesh for regular and curvilinear grids, scatter for points grids; returns the artist."""
+    if grid.kind == "regular":
+        x = _to_frame(grid.lon1d, centre)
+        ix, iy = np.argsort(x), np.argsort(grid.lat1d)
+        return ax.pcolormesh(x[ix], grid.lat1d[iy], field[np.ix_(iy, ix)], shading="nearest", **kw)
+    x = _to_frame(grid.lon, centre)
+    if grid.kind == "curvilinear":
+        f = np.ma.masked_invalid(np.asarray(field, float))
+        seam = np.zeros(x.shape, bool)  # hide cells that straddle the frame's seam
+        jx = np.abs(np.diff(x, axis=1)) > 180.0
+        jy = np.abs(np.diff(x, axis=0)) > 180.0
+        seam[:, 1:] |= jx
+        seam[:, :-1] |= jx
+        seam[1:, :] |= jy
+        seam[:-1, :] |= jy
+        f = np.ma.masked_where(seam, f)
+        return ax.pcolormesh(x, grid.lat, f, shading="nearest", **kw)
+    size = max(2.0, min(40.0, 20000.0 / max(grid.size, 1)))
+    return ax.scatter(x, grid.lat, c=field, s=size, marker="s", linewidths=0, **kw)
+
+
+def _outline(ax, geoms: list, centre: float) -> None:
+    """Draw the region outline(s) (shapely geometries in degrees) in the plotting frame.
+
+    Parts that the region module split at the 180 degree meridian are moved into the frame and
+    joined again, so the outline has no seam.
+    """
+    import shapely
+    from shapely import affinity
+
+    styles = ["-", "--", ":", "-."]
+    for i, (name, geom) in enumerate(geoms):
+        if geom is None:
+            continue
+        parts = []
+        for poly in getattr(geom, "geoms", [geom]):
+            k = round((poly.centroid.x - centre) / 360.0)
+            parts.append(affinity.translate(poly, xoff=-360.0 * k))
+        merged = shapely.unary_union(parts)
+        first = True
+        for poly in getattr(merged, "geoms", [merged]):
+            if not hasattr(poly, "exterior"):
+                continue
+            for ring in [poly.exterior, *poly.interiors]:
+                xs, ys = np.asarray(ring.coords).T
+                ax.plot(xs, ys, color="k", lw=1.2, ls=styles[i % len(styles)],
+                        label=f"outline: {name}" if first else None)
+                first = False
+
+
+def _zoom(ax, grid, w: np.ndarray, centre: float) -> None:
+    """Limit the axes to the region's cells with a margin (within the grid's extent)."""
+    inside = w > 0
+    if not np.any(inside):
+        return
+    x = _to_frame(grid.lon[inside], centre)
+    y = grid.lat[inside]
+    gx = _to_frame(grid.lon, centre)
+    mx = max(2.0, 0.25 * float(x.max() - x.min()))
+    my = max(2.0, 0.25 * float(y.max() - y.min()))
+    ax.set_xlim(max(float(gx.min()), float(x.min()) - mx), min(float(gx.max()), float(x.max()) + mx))
+    ax.set_ylim(max(float(grid.lat.min()), float(y.min()) - my), min(float(grid.lat.max()), float(y.max()) + my))
+
+
+def _map_figure(grid, field, w, geoms, title: str, label: str, *, cmap="viridis", vmin=None, vmax=None) -> bytes:
+    plt = _pyplot()
+    fig, ax = plt.subplots(figsize=FIG_SIZE_IN, dpi=FIG_DPI)
+    fig.subplots_adjust(left=0.09, right=0.98, bottom=0.11, top=0.93)
+    try:
+        centre = _frame_centre(grid, w)
+        art = _draw_field(ax, grid, field, centre, cmap=cmap, vmin=vmin, vmax=vmax)
+        fig.colorbar(art, ax=ax, label=label)
+        _outline(ax, geoms, centre)
+        _zoom(ax, grid, w, centre)
+        ax.set_xlabel("longitude (degrees east)")
+        ax.set_ylabel("latitude (degrees north)")
+        ax.set_title(title, fontsize=10)
+        if any(g is not None for _, g in geoms):
+            ax.legend(loc="lower left", fontsize=8)
+        return _png_bytes(fig)
+    finally:
+        plt.close(fig)
+
+
+def _region_geoms(rec, allow_outside: bool) -> list:
+    """(block name, shapely geometry) per perturbation block; None where the outline cannot be rebuilt."""
+    from .plan import region_geometry
+
+    out = []
+    for i, block in enumerate(rec.data["perturbations"]):
+        try:
+            geom = region_geometry(block["region"], rec, f"perturbations[{i}].region", allow_outside)
+        except InputError:
+            geom = None
+        out.append((block["name"], geom))
+    return out
+
+
+# =============================================================================================
+# preview report
+# =============================================================================================
+
+
+class _ChangeCapture:
+    """A read-only store wrapper that turns ``write_changed`` into per-layer histograms of the change.
+
+    Running the plan with ``write=True`` against this wrapper computes exactly what ``apply``
+    would write (physics, limits and all) while writing nothing.
+    """
+
+    def __init__(self, inner, model, ledger: dict, bins: int = 40):
+        self.inner = inner
+        self.bytes_written = 0
+        self.hist: dict = {}
+        self._where: dict = {}  # variable -> (ledger name, layer axis or None, view index)
+        for role in model.roles.values():
+            label = role.variables[0] if len(role.variables) == 1 else "+".join(role.variables)
+            for j, v in enumerate(role.views):
+                axis = v.info.dims.index(v.layer_dim) if v.layer_dim else None
+                self._where[v.info.name] = (label, axis, j if len(role.views) > 1 else None)
+        for name, var in ledger.get("variables", {}).items():
+            rows = var.get("layers") or [var.get("field")]
+            edges = []
+            for r in rows:
+                lo, hi = (r or {}).get("min"), (r or {}).get("max")
+                if lo is None or hi is None:
+                    edges.append(None)
+                    continue
+                if hi - lo < 1e-9:
+                    lo, hi = lo - 0.5, hi + 0.5
+                edges.append(np.linspace(lo, hi, bins + 1))
+            self.hist[name] = {"edges": edges, "counts": [None if e is None else np.zeros(bins, np.int64) for e in edges],
+                               "units": var.get("units", "")}
+
+    def __getattr__(self, name):
+        return getattr(self.inner, name)
+
+    def read(self, name, key=None):
+        return self.inner.read(name, key)
+
+    def read_raw(self, name, key=None):
+        return self.inner.read_raw(name, key)
+
+    def describe(self):
+        return self.inner.describe()
+
+    def write_changed(self, name, key, values, changed):
+        n = int(np.count_nonzero(changed))
+        if not n or name not in self._where:
+            return n
+        label, axis, view = self._where[name]
+        h = self.hist.get(label)
+        if h is None:
+            return n
+        old = self.inner.read(name, key)
+        d = np.where(changed, np.asarray(values, float) - old, np.nan)
+        if axis is None:
+            parts = [(view if view is not None else 0, d)]
+        else:
+            info = self.inner.variables[name]
+            layers = range(info.shape[axis])[key[axis]] if key is not None else range(info.shape[axis])
+            moved = np.moveaxis(d, axis, 0)
+            parts = list(zip(layers, moved))
+        for layer, arr in parts:
+            if layer >= len(h["edges"]) or h["edges"][layer] is None:
+                continue
+            v = arr[np.isfinite(arr)]
+            if v.size:
+                e = h["edges"][layer]
+                h["counts"][layer] += np.histogram(np.clip(v, e[0], e[-1]), bins=e)[0]
+        return n
+
+
+def _profile_figure(ledger: dict) -> bytes | None:
+    rows = [(name, var) for name, var in ledger.get("variables", {}).items()
+            if var.get("layers") and any(r.get("node_depth_m") is not None and r.get("area_weighted_mean") is not None
+                                         for r in var["layers"])]
+    if not rows:
+        return None
+    plt = _pyplot()
+    fig, axes = plt.subplots(1, len(rows), figsize=FIG_SIZE_IN, dpi=FIG_DPI, squeeze=False)
+    fig.subplots_adjust(left=0.08, right=0.98, bottom=0.11, top=0.88, wspace=0.35)
+    try:
+        for ax, (name, var) in zip(axes[0], rows):
+            rr = [r for r in var["layers"] if r.get("node_depth_m") is not None and r.get("area_weighted_mean") is not None]
+            z = [r["node_depth_m"] for r in rr]
+            ax.plot([r["area_weighted_mean"] for r in rr], z, "o-", color="C0", label="area-weighted mean")
+            lo = [r["min"] for r in rr]
+            hi = [r["max"] for r in rr]
+            ax.fill_betweenx(z, lo, hi, color="C0", alpha=0.2, label="min..max")
+            ax.axvline(0.0, color="0.5", lw=0.8)
+            ax.set_ylim(max(z) * 1.1 if max(z) > 0 else 1.0, 0.0)  # depth increases downward
+            ax.set_xlabel(f"change ({var.get('units', '')})")
+            ax.set_ylabel("layer node depth (m)")
+            ax.set_title(f"{name} ({var.get('role', '')})", fontsize=9)
+            ax.legend(fontsize=7, loc="lower right")
+        fig.suptitle("Change against depth, per soil layer (ledger)", fontsize=10)
+        return _png_bytes(fig)
+    finally:
+        plt.close(fig)
+
+
+def _histogram_panels(capture: "_ChangeCapture", ledger: dict, roles: tuple) -> list:
+    """(title, edges, counts) per layer of the ledger variables whose role is in ``roles``."""
+    panels = []
+    for name, var in ledger.get("variables", {}).items():
+        if var.get("role") not in roles or name not in capture.hist:
+            continue
+        h = capture.hist[name]
+        rows = var.get("layers") or [var.get("field")]
+        layered = bool(var.get("layers"))
+        for i, (e, c) in enumerate(zip(h["edges"], h["counts"])):
+            if c is None or c.sum() == 0:
+                continue
+            depth = rows[i].get("node_depth_m") if i < len(rows) and rows[i] else None
+            title = name + (f" layer {i}" if layered else "") + (f" ({depth:.3g} m)" if depth is not None else "")
+            panels.append((title, e, c, h["units"]))
+    return panels
+
+
+def _histogram_figure(panels: list, title: str) -> bytes | None:
+    """Small multiples: one histogram of the change per panel (layer)."""
+    if not panels:
+        return None
+    plt = _pyplot()
+    n = len(panels)
+    ncols = min(4, n)
+    nrows = math.ceil(n / ncols)
+    fig, axes = plt.subplots(nrows, ncols, figsize=FIG_SIZE_IN, dpi=FIG_DPI, squeeze=False)
+    fig.subplots_adjust(left=0.08, right=0.98, bottom=0.11, top=0.88, wspace=0.3, hspace=0.45)
+    try:
+        for ax in axes.ravel()[n:]:
+            ax.set_visible(False)
+        for ax, (name, e, c, units) in zip(axes.ravel(), panels):
+            ax.stairs(c, e, fill=True, color="C1", alpha=0.8)
+            ax.set_title(name, fontsize=8)
+            ax.set_xlabel(f"change ({units})", fontsize=7)
+            ax.tick_params(labelsize=7)
+        fig.supylabel("cells", fontsize=9)
+        fig.suptitle(title, fontsize=10)
+        return _png_bytes(fig)
+    finally:
+        plt.close(fig)
+
+
+def _md_table(header: list, rows: list) -> list[str]:
+    out = ["| " + " | ".join(header) + " |", "|" + "|".join("---" for _ in header) + "|"]
+    out += ["| " + " | ".join(str(c) for c in r) + " |" for r in rows]
+    return out
+
+
+def _ledger_markdown(ledger: dict) -> list[str]:
+    """The ledger tables, with the numbers formatted as ``api.ledger_text`` formats them."""
+    out = []
+    reg = ledger["region"]
+    out.append(f"Region: {reg['cells_weight_above_0']} cells with weight > 0 ({reg['cells_full_weight']} at full "
+               f"weight), area {reg['area_m2'] / 1e6:,.0f} km2.")
+    out.append("")
+    for name, var in ledger["variables"].items():
+        out.append(f"**{name}** ({var['role']}, change in {var['units']})")
+        out.append("")
+        rows = var.get("layers") or [var.get("field")]
+        body = []
+        for r in rows:
+            depth = r.get("node_depth_m")
+            am = r["area_weighted_mean"]
+            body.append([r["layer"], f"{depth:.3f}" if depth is not None else "-", r["cells_changed"],
+                         f"{am:.4g}" if am is not None else "-", _fmt(r["min"]), _fmt(r["max"])])
+        out += _md_table(["layer", "depth_m", "changed", "area_mean", "min", "max"], body)
+        out.append("")
+    return out
+
+
+def preview_report(recipe, input, layout, out_dir, ledger=None, allow_outside_paths=False) -> Path:
+    """Write ``out_dir/preview.md`` and its PNG figures: what ``apply`` would change, and where.
+
+    Parameters
+    ----------
+    recipe : str, path-like or Document
+        The recipe.
+    input : str or path-like
+        The restart file (read only).
+    layout : str, path-like, Document or None
+        The layout (None: the recipe's inline layout, else CF attributes).
+    out_dir : str or path-like
+        Folder for the report (created if needed). Nothing is written anywhere else.
+    ledger : dict, optional
+        The ledger of :func:`initgen.api.preview` for the same inputs (computed when None).
+    allow_outside_paths : bool, optional
+        Let the recipe name files outside its own folder.
+
+    Returns
+    -------
+    pathlib.Path
+        The path of ``preview.md``.
+
+    Notes
+    -----
+    Figures (each :data:`FIG_PIXELS` pixels): ``weights.png`` (the horizontal weight and the
+    region outline), ``surface_anomaly.png`` (anomaly x weight x surface factor, summed over the
+    blocks), ``profile.png`` (area-weighted mean change against layer depth, from the ledger)
+    and ``histogram_soil.png`` / ``histogram_surface.png`` (per layer, the change of every cell
+    ``apply`` would change, after physics and limits: the plan is run against a read-only
+    wrapper of the input that records what would be written instead of writing it).
+    """
+    from . import api
+    from . import plan as plan_mod
+
+    out_dir = Path(out_dir)
+    if out_dir.exists() and not out_dir.is_dir():
+        raise InputError(f"{out_dir}: exists and is not a folder; give a folder for the report")
+    rec = api._recipe(recipe)
+    lay = api._layout(layout, rec)
+    if ledger is None:
+        ledger = api.preview(rec, input, lay, allow_outside_paths=allow_outside_paths)
+    store = NetCDFStore(input)
+    try:
+        model = api._model(store, lay, rec)
+        plan = plan_mod.build_plan(rec, model, allow_outside=allow_outside_paths)
+        grid = model.grid
+        w = np.max([b.weight for b in plan.blocks], axis=0)
+        capture = _ChangeCapture(store, model, ledger)
+        plan_mod.run(plan, capture, write=True)
+    finally:
+        store.close()
+    geoms = _region_geoms(rec, allow_outside_paths)
+    surf = np.zeros(grid.shape)
+    donors = []
+    for b in plan.blocks:
+        if b.anomaly is None:
+            donors.append(b.name)
+            continue
+        surf += b.anomaly * plan.member_scale * b.weight * b.surface_factor
+    figures: dict[str, bytes] = {}
+    figures["weights.png"] = _map_figure(grid, w, w, geoms, f"Horizontal weight w(x): recipe '{rec.name}'",
+                                         "weight (1)", vmin=0.0, vmax=1.0)
+    amax = float(np.nanmax(np.abs(surf))) or 1.0
+    figures["surface_anomaly.png"] = _map_figure(
+        grid, np.where(w > 0, surf, np.nan), w, geoms, "Surface anomaly: anomaly x weight x surface factor",
+        "K", cmap="RdBu_r", vmin=-amax, vmax=amax)
+    prof = _profile_figure(ledger)
+    if prof is not None:
+        figures["profile.png"] = prof
+    captions = {}
+    for fname, roles, what in (("histogram_soil.png", ("soil_temperature",), "soil temperature"),
+                               ("histogram_surface.png", ("skin_temperature", "snow_temperature", "snow_mass"),
+                                "skin and snow")):
+        png = _histogram_figure(_histogram_panels(capture, ledger, roles),
+                                f"Change of {what}, per layer, over the cells apply would change")
+        if png is not None:
+            figures[fname] = png
+            captions[fname] = (f"Histogram per layer of the change of {what} over the cells apply would change "
+                               "(after physics and limits).")
+
+    md = _preview_markdown(rec, lay, input, grid, ledger, figures, captions, donors)
+    out_dir.mkdir(parents=True, exist_ok=True)
+    for fname, data in figures.items():
+        _write_bytes(out_dir / fname, data)
+    path = out_dir / "preview.md"
+    write_atomic_text(path, md)
+    return path
+
+
+def _preview_markdown(rec, lay, input, grid, ledger, figures, captions, donors) -> str:
+    from . import __version__
+
+    L = [f"# initgen preview: {rec.name}", ""]
+    if rec.data.get("description"):
+        L += [f"_{rec.data['description']}_", ""]
+    L += ["## What", "",
+          f"- recipe: `{rec.name}`, canonical sha256 `{rec.sha256}`" + (f" ({rec.path})" if rec.path else ""),
+          f"- layout: " + (f"`{lay.name}`, sha256 `{lay.sha256}`" if lay is not None else "none (roles from CF attributes)"),
+          f"- input: {Path(input).resolve()} ({Path(input).stat().st_size:,} bytes)",
+          f"- grid: {grid.kind} {' x '.join(map(str, grid.shape))} on dims ({', '.join(grid.dims)}), "
+          f"{grid.extent()}; cell area {grid.area_source}",
+          f"- initgen {__version__}; this is a dry run: no netCDF file was written", ""]
+    L += ["## Perturbation blocks", ""]
+    body = []
+    for b, blk in zip(ledger.get("blocks", []), rec.data["perturbations"]):
+        an = b.get("anomaly_K") or {}
+        factors = b.get("layer_factors")
+        body.append([b["name"], ", ".join(b["targets"]), b["cells_weight_above_0"],
+                     f"{blk['region']['taper_km']:g} km {blk['region']['taper_placement']}",
+                     f"{_fmt(an.get('min'))}..{_fmt(an.get('max'))}" if an else "donor",
+                     _fmt(b.get("surface_factor")),
+                     ", ".join(f"{f:.3g}" for f in factors) if factors else "-"])
+    L += _md_table(["block", "targets", "cells w>0", "taper", "anomaly K", "surface factor", "layer factors"], body)
+    L += ["", "## What would change (the ledger)", ""]
+    L += _ledger_markdown(ledger)
+    L += ["## Clamps", ""]
+    if ledger.get("clamps"):
+        L += _md_table(["rule", "cells"], [[k, v] for k, v in ledger["clamps"].items()])
+    else:
+        L.append("No value was clamped.")
+    L += ["", "## Physics: energy and phase change", ""]
+    phys = ledger.get("physics", {})
+    L.append(f"Mode: `{phys.get('mode')}`.")
+    totals = [(k, v) for k, v in phys.items() if k.endswith("_total_J") or k.endswith("_total_kg")]
+    if totals:
+        L += [""] + _md_table(["quantity (region total)", "value"], [[k, f"{v:.4g}"] for k, v in totals])
+    per_layer = [(k, v) for k, v in phys.items() if "_per_layer_" in k and isinstance(v, list)]
+    if per_layer:
+        depths = None
+        for var in ledger.get("variables", {}).values():
+            if var.get("role") == "soil_temperature" and var.get("layers"):
+                depths = [r.get("node_depth_m") for r in var["layers"]]
+        n = max(len(v) for _, v in per_layer)
+        rows = []
+        for i in range(n):
+            d = depths[i] if depths and i < len(depths) else None
+            rows.append([i, f"{d:.3f}" if d is not None else "-"] +
+                        [f"{v[i]:.4g}" if i < len(v) else "-" for _, v in per_layer])
+        L += ["", "Per layer, per m2 of region:", ""]
+        L += _md_table(["layer", "depth_m"] + [k for k, _ in per_layer], rows)
+    if ledger.get("cells_not_in_phase_equilibrium_before"):
+        L += ["", f"Note: {ledger['cells_not_in_phase_equilibrium_before']} region layer-cells were not in phase "
+                  "equilibrium before the change."]
+    L += ["", "## Figures", ""]
+    captions = dict(captions)
+    captions.update({"weights.png": "Horizontal weight w(x) with the region outline.",
+                "surface_anomaly.png": "Surface anomaly (anomaly x weight x surface factor, summed over blocks).",
+                     "profile.png": "Area-weighted mean change against layer node depth (band: min..max)."})
+    for fname in figures:
+        L += [f"![{captions.get(fname, fname)}]({fname})", "", captions.get(fname, ""), ""]
+    if donors:
+        L += [f"Blocks blended from a donor file ({', '.join(donors)}) have no anomaly field on the surface map.", ""]
+    L += ["## Caution", "", CAUTION + " This preview shows what `initgen apply` would write with the same recipe, "
+          "layout and input; the provenance record of `apply` holds the same ledger.", ""]
+    return "\n".join(L)
+
+
+# =============================================================================================
+# mask
+# =============================================================================================
+
+
+def write_mask(recipe, input, layout, output, png=None, force=False, allow_outside_paths=False):
+    """Write the horizontal weight field as a CF netCDF file on the model's grid (and optionally a PNG).
+
+    Parameters
+    ----------
+    recipe : str, path-like or Document
+        The recipe.
+    input : str or path-like
+        The restart file whose grid is used (read only; never the output).
+    layout : str, path-like, Document or None
+        The layout (None: the recipe's inline layout, else CF attributes).
+    output : str or path-like
+        The mask file to write (atomically). An existing file is replaced only with ``force``.
+    png : str or path-like, optional
+        Also draw a map of the weights with the region outline to this PNG file.
+    force : bool, optional
+        Replace existing outputs.
+    allow_outside_paths : bool, optional
+        Let the recipe name files outside its own folder.
+
+    Returns
+    -------
+    pathlib.Path
+        The path of the mask file.
+
+    Notes
+    -----
+    The file holds ``lon`` and ``lat`` (CF units and standard names) on the grid's own
+    dimensions, ``cell_area`` when the grid has true cell areas, and ``region_weight`` (units
+    ``1``, ``valid_range`` [0, 1]): the largest weight of any perturbation block at each cell,
+    exactly as ``apply`` uses it. Attributes name the recipe (name, sha256) and each block (name,
+    taper width and placement, elevation band).
+    """
+    from . import __version__, api
+    from . import provenance as prov
+
+    input = Path(input)
+    output = Path(output)
+    check_output_path(input, output, force)
+    if png is not None:
+        png = Path(png)
+        if png.resolve() == output.resolve():
+            raise InputError(f"{png}: the PNG path is the mask file's path; give the PNG another name")
+        check_output_path(input, png, force)
+    rec = api._recipe(recipe)
+    lay = api._layout(layout, rec)
+    w, grid, plan = api.weights(rec, input, lay, allow_outside_paths=allow_outside_paths)
+    true_area = not str(grid.area_source).startswith("equal")
+    lon_name, lat_name = "lon", "lat"
+    if grid.kind != "regular" and ({"lon", "lat"} & set(grid.dims)):
+        lon_name, lat_name = "longitude", "latitude"
+
+    def build(ds):
+        ds.Conventions = "CF-1.8"
+        ds.title = f"initgen region weight of recipe '{rec.name}'"
+        ds.source = f"initgen {__version__}"
+        ds.history = (f"{prov.utc_now()}: initgen {__version__} mask of recipe '{rec.name}' (sha256 {rec.sha256}) "
+                      f"on the grid of {input.name}")
+        ds.initgen_recipe_name = rec.name
+        ds.initgen_recipe_sha256 = rec.sha256
+        ds.initgen_grid_file = input.name
+        for d, n in zip(grid.dims, grid.shape):
+            ds.createDimension(d, n)
+        if grid.kind == "regular":
+            lat_v = ds.createVariable(lat_name, "f8", (grid.dims[0],))
+            lon_v = ds.createVariable(lon_name, "f8", (grid.dims[1],))
+            lat_v[:], lon_v[:] = grid.lat1d, grid.lon1d
+            lon_v.axis, lat_v.axis = "X", "Y"
+        else:
+            lat_v = ds.createVariable(lat_name, "f8", grid.dims)
+            lon_v = ds.createVariable(lon_name, "f8", grid.dims)
+            lat_v[:], lon_v[:] = grid.lat, grid.lon
+        lon_v.units, lon_v.standard_name, lon_v.long_name = "degrees_east", "longitude", "longitude"
+        lat_v.units, lat_v.standard_name, lat_v.long_name = "degrees_north", "latitude", "latitude"
+        coord_vars = grid.kind == "regular" and grid.dims == (lat_name, lon_name)
+        if true_area:
+            a = ds.createVariable("cell_area", "f8", grid.dims, zlib=True, complevel=4)
+            a.units, a.standard_name, a.long_name = "m2", "cell_area", "area of the grid cell"
+            a.comment = f"as initgen uses it: {grid.area_source}"
+            if not coord_vars:
+                a.coordinates = f"{lat_name} {lon_name}"
+            a[:] = grid.area
+        v = ds.createVariable("region_weight", "f8", grid.dims, zlib=True, complevel=4)
+        v.units = "1"
+        v.long_name = "horizontal weight of the perturbation (0 outside the region, 1 at full strength)"
+        v.valid_range = np.array([0.0, 1.0])
+        v.comment = ("largest weight of any perturbation block at each cell: taper x elevation band x land "
+                     "weight, as initgen apply uses it; block i is recipe key perturbations[i]")
+        if not coord_vars:
+            v.coordinates = f"{lat_name} {lon_name}"
+        if true_area:
+            v.cell_measures = "area: cell_area"
+        v.initgen_recipe_name = rec.name
+        v.initgen_recipe_sha256 = rec.sha256
+        v.initgen_blocks = ", ".join(b["name"] for b in rec.data["perturbations"])
+        for i, blk in enumerate(rec.data["perturbations"]):
+            reg = blk["region"]
+            v.setncattr(f"initgen_block{i}_name", blk["name"])
+            v.setncattr(f"initgen_block{i}_taper_km", float(reg["taper_km"]))
+            v.setncattr(f"initgen_block{i}_taper_placement", reg["taper_placement"])
+            elev = reg.get("elevation")
+            if elev:
+                v.setncattr(f"initgen_block{i}_elevation_min_m", float(elev["min_m"]))
+                v.setncattr(f"initgen_block{i}_elevation_ramp_m", float(elev["ramp_m"]))
+                if elev.get("max_m") is not None:
+                    v.setncattr(f"initgen_block{i}_elevation_max_m", float(elev["max_m"]))
+        v[:] = np.clip(w, 0.0, 1.0)
+
+    data = None
+    if png is not None:  # draw first: a failure leaves no mask file behind
+        data = _map_figure(grid, w, w, _region_geoms(rec, allow_outside_paths),
+                           f"Region weight: recipe '{rec.name}'", "weight (1)", vmin=0.0, vmax=1.0)
+    create_netcdf(output, build, fmt="NETCDF4", force=force)
+    if data is not None:
+        _write_bytes(png, data)
+    return output
+
+
+__all__ = ["compare", "compare_text", "compare_markdown", "verify", "preview_report", "write_mask",
+           "BLOCK_ELEMENTS", "FIG_PIXELS"]

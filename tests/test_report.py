@@ -1,0 +1,410 @@
+"""Reports: compare, verify, preview report and mask file.
+
+Reference: these checks are against the project's own contracts (the ledger is the truth; apply
+touches only what the recipe names; the CLI's exit codes 0 / 2 / 3) and against reference
+libraries: hashlib for file identity, netCDF4 for the raw stored values, and matplotlib's own
+image reader for the PNG figures. The files are synthetic fixtures (tests/filemaker.py and the
+built-in demo), not reference data.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import shutil
+from pathlib import Path
+
+import matplotlib.image as mpimg
+import netCDF4
+import numpy as np
+import pytest
+
+from initgen import api, report
+from initgen.cli import main
+from initgen.demo import write_demo_restart
+from initgen.errors import InputError
+
+from filemaker import curvilinear, points, read_raw, regular
+
+RECIPE = Path(__file__).resolve().parents[1] / "recipes" / "demo-cold-highland.yaml"
+
+BOX = """
+initgen_recipe: 1
+name: test-box
+perturbations:
+  - name: box
+    region:
+      include: [{{box: {{lon: [{w}, {e}], lat: [{s}, {n}]}}}}]
+      taper_km: {taper}
+    anomaly: {{constant_K: -2.0}}
+    profile: {{kind: uniform}}
+"""
+
+
+def box_recipe(folder: Path, w=20, e=80, s=10, n=50, taper=0) -> Path:
+    p = folder / "box.yaml"
+    p.write_text(BOX.format(w=w, e=e, s=s, n=n, taper=taper))
+    return p
+
+
+def sha(path) -> str:
+    return hashlib.sha256(Path(path).read_bytes()).hexdigest()
+
+
+def listing(folder: Path) -> set:
+    return {str(p.relative_to(folder)) for p in folder.rglob("*")}
+
+
+@pytest.fixture(scope="module")
+def demo(tmp_path_factory):
+    """The demo restart, its perturbed copy and provenance record (made once for the module)."""
+    d = tmp_path_factory.mktemp("demo")
+    src = write_demo_restart(d / "in.nc")
+    out = d / "out.nc"
+    record = api.apply(RECIPE, src, out)
+    return {"dir": d, "src": src, "out": out, "record": record,
+            "prov": Path(str(out) + ".provenance.json")}
+
+
+# ---------------------------------------------------------------------------------------------
+# compare
+# ---------------------------------------------------------------------------------------------
+
+
+def test_compare_file_with_itself_exits_0(tmp_path, capsys):
+    f = regular(tmp_path / "a.nc", chunked=True)
+    assert main(["compare", str(f), str(f)]) == 0
+    assert "identical" in capsys.readouterr().out
+    res = report.compare(f, f)
+    assert res["ok"] and res["identical"] and res["differences"] == [] and res["structure"] == []
+    assert all(v["status"] == "identical" for v in res["variables"].values())
+    json.dumps(res, allow_nan=False)  # JSON-serialisable
+
+
+def test_compare_demo_allowed_variables_exit_0_else_3(demo, tmp_path, capsys):
+    changed = sorted(demo["record"]["ledger"]["variables"])
+    assert "tsoil" in changed
+    args = ["compare", str(demo["src"]), str(demo["out"]), "--json", str(tmp_path / "c.json")]
+    assert main(args + ["--allow", *changed]) == 0
+    text = capsys.readouterr().out
+    assert "OK" in text and "tsoil" in text
+    res = json.loads((tmp_path / "c.json").read_text())
+    assert res["ok"] and not res["identical"] and res["differences"] == []
+    assert any("history" in s and "(allowed)" in s for s in res["structure"])
+    assert sorted(n for n, v in res["variables"].items() if v["status"] != "identical") == changed
+    # every changed cell count equals the ledger's (summed over layers), per variable
+    for name in changed:
+        rows = demo["record"]["ledger"]["variables"][name].get("layers") or \
+            [demo["record"]["ledger"]["variables"][name]["field"]]
+        v = res["variables"][name]
+        assert v["cells_changed"] == sum(r["cells_changed"] for r in rows)
+        if v.get("layers"):
+            assert [r["cells_changed"] for r in v["layers"]] == [r["cells_changed"] for r in rows]
+    assert main(args) == 3
+    out = capsys.readouterr().out
+    assert "DIFFERENT" in out
+    res = json.loads((tmp_path / "c.json").read_text())
+    assert not res["ok"] and len(res["differences"]) == len(changed)
+    assert main(args + ["--allow", *changed[1:]]) == 3  # one changed variable not allowed
+
+
+def test_compare_finds_one_altered_value_with_count_and_box(tmp_path):
+    a = regular(tmp_path / "a.nc")
+    b = tmp_path / "b.nc"
+    shutil.copy(a, b)
+    with netCDF4.Dataset(a) as ds:
+        lon, lat = ds["lon"][:], ds["lat"][:]
+    # two cells of layer 2 of tsoil, at (lat index 12, lon index 3) and (lat 13, lon 5)
+    with netCDF4.Dataset(b, "r+") as ds:
+        v = ds["tsoil"]
+        v.set_auto_maskandscale(False)
+        v[0, 2, 12, 3] = v[0, 2, 12, 3] + np.float32(1.5)
+        v[0, 2, 13, 5] = v[0, 2, 13, 5] - np.float32(0.5)
+    res = report.compare(a, b)
+    assert not res["ok"]
+    t = res["variables"]["tsoil"]
+    assert t["status"] == "differs" and t["cells_changed"] == 2
+    assert t["layer_dim"] == "lev"
+    assert [r["cells_changed"] for r in t["layers"]] == [0, 0, 2, 0, 0]
+    assert t["max_abs_change"] == pytest.approx(1.5, abs=1e-4)
+    assert t["bbox"]["lon"] == pytest.approx([lon[3], lon[5]])
+    assert t["bbox"]["lat"] == pytest.approx([lat[12], lat[13]])
+    assert t["bbox"]["horizontal_cells_changed"] == 2
+    assert res["differences"] == ["variable 'tsoil': 2 of 3240 values changed, largest |change| 1.5 K"]
+    # equal weights would give (1.5 - 0.5) / 2; area weights favour the cell nearer the equator
+    assert t["area_weighted_mean_change"] != pytest.approx(0.5, abs=1e-6)
+    assert all(v["status"] == "identical" for n, v in res["variables"].items() if n != "tsoil")
+    assert report.compare(a, b, allow=["tsoil"])["ok"]
+    text = report.compare_text(res)
+    assert "tsoil" in text and "lev[2]" in text and "DIFFERENT" in text
+
+
+def test_compare_reads_in_blocks_and_gets_the_same_answer(tmp_path, monkeypatch):
+    a = regular(tmp_path / "a.nc")
+    b = regular(tmp_path / "b.nc")
+    with netCDF4.Dataset(b, "r+") as ds:
+        v = ds["tsoil"]
+        v.set_auto_maskandscale(False)
+        old = v[:]
+        raw = old.copy()
+        raw[0, :, 5:9, 10:20] += np.float32(0.25)  # fill values (1e20) stay as they are
+        v[:] = raw
+    expected = int(np.count_nonzero(raw != old))
+    assert 0 < expected <= 5 * 4 * 10
+    whole = report.compare(a, b)
+    seen = []
+    orig = report.NetCDFStore.read_raw
+
+    def spy(self, name, key=None):
+        out = orig(self, name, key)
+        seen.append((name, np.asarray(out).size))
+        return out
+
+    monkeypatch.setattr(report, "BLOCK_ELEMENTS", 50)
+    monkeypatch.setattr(report.NetCDFStore, "read_raw", spy)
+    blocked = report.compare(a, b)
+    assert blocked["variables"]["tsoil"] == whole["variables"]["tsoil"]
+    assert whole["variables"]["tsoil"]["cells_changed"] == expected
+    # no read of the 3-D variables exceeds the block limit (the grid's coordinates are read whole)
+    assert max(n for name, n in seen if name in ("tsoil", "other")) <= 50
+
+
+def test_blocks_cover_the_array_once():
+    for shape in [(), (7,), (3, 5), (2, 3, 4, 5), (1, 1, 200)]:
+        count = np.zeros(shape, int)
+        for key in report._blocks(shape, limit=7):
+            count[key] += 1
+            assert count[key].size <= 7 or len(shape) == 0
+        assert np.all(count == 1)
+
+
+def test_compare_nan_and_fill_are_equal_and_structure_differences_are_found(tmp_path):
+    a = regular(tmp_path / "a.nc", chunked=True)
+    b = tmp_path / "b.nc"
+    # same values, but tsoil rewritten without compression, a new attribute, and a new title
+    with netCDF4.Dataset(a) as src, netCDF4.Dataset(b, "w") as dst:
+        dst.setncatts({k: src.getncattr(k) for k in src.ncattrs()})
+        dst.title = "another title"
+        for d in src.dimensions.values():
+            dst.createDimension(d.name, len(d))
+        for v in src.variables.values():
+            v.set_auto_maskandscale(False)
+            fill = v.getncattr("_FillValue") if "_FillValue" in v.ncattrs() else None
+            w = dst.createVariable(v.name, v.dtype, v.dimensions, fill_value=fill)
+            w.set_auto_maskandscale(False)
+            w.setncatts({k: v.getncattr(k) for k in v.ncattrs() if k != "_FillValue"})
+            w[:] = v[:]
+        dst["other"].note = "touched"
+    res = report.compare(a, b)
+    assert res["variables"]["tsoil"]["cells_changed"] == 0  # fill == fill
+    assert not res["ok"]
+    s = " | ".join(res["differences"])
+    assert "global attribute 'title' differs" in s
+    assert "variable 'tsoil': chunking" in s and "variable 'tsoil': filters" in s
+    assert "variable 'other': attribute 'note' differs" in s
+    assert report.compare(a, b, allow=["tsoil", "other"])["differences"] == ["global attribute 'title' differs "
+                                                                              "('test file' vs 'another title')"]
+    # NaN against NaN is equal; a NaN against a number is a change that "became missing"
+    c, d = tmp_path / "c.nc", tmp_path / "d.nc"
+    for path, vals in ((c, [1.0, np.nan, 3.0]), (d, [1.0, np.nan, np.nan])):
+        with netCDF4.Dataset(path, "w") as ds:
+            ds.createDimension("n", 3)
+            ds.createVariable("x", "f8", ("n",))[:] = vals
+    r = report.compare(c, d)
+    assert r["variables"]["x"]["cells_changed"] == 1 and r["variables"]["x"]["cells_became_missing"] == 1
+    assert r["variables"]["x"]["weights"] == "equal" and r["grid"] is None
+
+
+def test_compare_history_alone_is_ok_but_not_identical(tmp_path):
+    a = regular(tmp_path / "a.nc")
+    b = tmp_path / "b.nc"
+    shutil.copy(a, b)
+    with netCDF4.Dataset(b, "r+") as ds:
+        ds.history = "2000-01-01T00:00:00Z: something\n" + ds.history
+    res = report.compare(a, b)
+    assert res["ok"] and not res["identical"] and res["differences"] == []
+
+
+def test_compare_bad_input_is_one_line_exit_2(tmp_path, capsys):
+    a = regular(tmp_path / "a.nc")
+    (tmp_path / "text.nc").write_text("not netCDF")
+    assert main(["compare", str(a), str(tmp_path / "missing.nc")]) == 2
+    err = capsys.readouterr().err
+    assert err.count("\n") == 1 and "missing.nc" in err and "Traceback" not in err
+    assert main(["compare", str(tmp_path / "text.nc"), str(a)]) == 2
+    err = capsys.readouterr().err
+    assert err.count("\n") == 1 and "not a readable netCDF file" in err
+    with pytest.raises(InputError):
+        report.compare(a, tmp_path)
+
+
+def test_lon_arc_across_the_dateline():
+    assert report._lon_arc(np.array([175.0, -175.0, 179.0])) == pytest.approx((175.0, 185.0))
+    assert report._lon_arc(np.array([170.0, 190.0, 185.0])) == pytest.approx((170.0, 190.0))
+    assert report._lon_arc(np.array([-10.0, 10.0])) == pytest.approx((-10.0, 10.0))
+    assert report._lon_arc(np.array([350.0, 10.0])) == pytest.approx((350.0, 370.0))
+
+
+# ---------------------------------------------------------------------------------------------
+# verify
+# ---------------------------------------------------------------------------------------------
+
+
+def test_verify_passes_on_the_demo(demo, capsys):
+    res = report.verify(demo["prov"])
+    assert res["ok"], res["message"]
+    assert res["message"].startswith("verified")
+    assert all(res["checks"].values())
+    assert main(["verify", str(demo["prov"])]) == 0
+    assert "verified" in capsys.readouterr().out
+    json.dumps(res, allow_nan=False)
+
+
+def test_verify_fails_naming_the_variable_after_one_value_is_altered(demo, tmp_path, capsys):
+    copy = tmp_path / "copy.nc"
+    shutil.copy(demo["out"], copy)
+    before = sha(demo["out"])
+    with netCDF4.Dataset(copy, "r+") as ds:
+        v = ds["albedo_index"]  # a variable the recipe does not touch
+        v.set_auto_maskandscale(False)
+        v[10, 10] = v[10, 10] + 1
+    res = report.verify(demo["prov"], output=copy)
+    assert not res["ok"]
+    assert "albedo_index" in res["message"] and "altered after apply" in res["message"]
+    assert not res["checks"]["output_sha256"] and not res["checks"]["same_as_rerun"]
+    assert res["checks"]["ledger"] and res["checks"]["input_sha256"]
+    assert sha(demo["out"]) == before  # verify writes nothing beside the files it checks
+    assert main(["verify", str(demo["prov"]), "--output", str(copy)]) == 3
+    assert "albedo_index" in capsys.readouterr().out
+
+
+def test_verify_refuses_a_different_input(demo, tmp_path):
+    other = write_demo_restart(tmp_path / "other.nc", nlon=60, nlat=40)
+    res = report.verify(demo["prov"], input=other)
+    assert not res["ok"] and "input" in res["message"] and "differs" in res["message"]
+
+
+def test_verify_missing_recipe_file_is_a_clear_error(demo, tmp_path):
+    rec = json.loads(demo["prov"].read_text())
+    rec["recipe"]["path"] = str(tmp_path / "gone.yaml")
+    p = tmp_path / "r.provenance.json"
+    p.write_text(json.dumps(rec))
+    with pytest.raises(InputError, match="gone.yaml.*missing"):
+        report.verify(p)
+
+
+# ---------------------------------------------------------------------------------------------
+# preview report and mask
+# ---------------------------------------------------------------------------------------------
+
+
+def test_preview_json_equals_the_provenance_ledger(demo, tmp_path):
+    j = tmp_path / "preview.json"
+    assert main(["preview", str(RECIPE), "--input", str(demo["src"]), "--json", str(j)]) == 0
+    preview = json.loads(j.read_text())
+    recorded = json.loads(demo["prov"].read_text())["ledger"]
+    # bytes_rewritten counts I/O of the run itself (0 in a dry run), not a change: left out
+    for led in (preview, recorded):
+        led.pop("bytes_rewritten")
+    assert preview == recorded
+
+
+def test_preview_report_figures_markdown_and_no_stray_files(demo, tmp_path):
+    folder = tmp_path / "work"
+    folder.mkdir()
+    src = folder / "in.nc"
+    shutil.copy(demo["src"], src)
+    before = listing(folder)
+    src_sha = sha(src)
+    led = json.loads(demo["prov"].read_text())["ledger"]
+    path = report.preview_report(RECIPE, src, None, folder / "rep")
+    assert path == folder / "rep" / "preview.md"
+    assert listing(folder) - before == {"rep"} | {f"rep/{n}" for n in listing(folder / "rep")}
+    assert sha(src) == src_sha
+    names = listing(folder / "rep")
+    pngs = sorted(n for n in names if n.endswith(".png"))
+    assert names == {"preview.md", *pngs}
+    assert {"weights.png", "surface_anomaly.png", "profile.png", "histogram_soil.png"} <= set(pngs)
+    for n in pngs:
+        img = mpimg.imread(folder / "rep" / n)
+        assert img.shape[:2] == (report.FIG_PIXELS[1], report.FIG_PIXELS[0]), n
+    md = path.read_text()
+    assert "demo-cold-highland" in md and led["region"] and str(led["region"]["cells_weight_above_0"]) in md
+    assert "check these numbers before submission" in md and "protocol" in md
+    for n in pngs:
+        assert f"]({n})" in md
+    # the ledger table carries the numbers of api.ledger_text
+    row0 = led["variables"]["tsoil"]["layers"][0]
+    assert f"{row0['area_weighted_mean']:.4g}" in api.ledger_text(led)
+    assert f"| {row0['area_weighted_mean']:.4g} |" in md
+    assert "energy" in md.lower() and "frozen_region_total_kg" in md
+
+
+def test_cli_preview_writes_only_what_is_asked(demo, tmp_path):
+    folder = tmp_path / "w"
+    folder.mkdir()
+    src = folder / "in.nc"
+    shutil.copy(demo["src"], src)
+    before = listing(folder)
+    assert main(["preview", str(RECIPE), "-i", str(src)]) == 0
+    assert listing(folder) == before
+    assert main(["preview", str(RECIPE), "-i", str(src), "--json", str(folder / "l.json")]) == 0
+    assert listing(folder) == before | {"l.json"}
+
+
+def test_mask_file_is_cf_and_holds_the_weights(demo, tmp_path):
+    out = tmp_path / "mask.nc"
+    png = tmp_path / "mask.png"
+    assert main(["mask", str(RECIPE), "-i", str(demo["src"]), "-o", str(out), "--png", str(png)]) == 0
+    w, grid, plan = api.weights(RECIPE, demo["src"])
+    with netCDF4.Dataset(out) as ds:
+        v = ds["region_weight"]
+        assert v.units == "1" and list(v.valid_range) == [0.0, 1.0] and v.long_name
+        assert v.dimensions == grid.dims
+        assert v.initgen_recipe_sha256 == plan.recipe.sha256 and v.initgen_recipe_name == "demo-cold-highland"
+        assert v.initgen_block0_name == "cold-highland" and v.initgen_block0_taper_km == 300.0
+        assert v.initgen_block0_taper_placement == "outside"
+        np.testing.assert_array_equal(v[:], w)
+        assert ds["lon"].standard_name == "longitude" and ds["lon"].units == "degrees_east"
+        assert ds["lat"].standard_name == "latitude" and ds["lat"].units == "degrees_north"
+        assert ds.Conventions.startswith("CF-")
+    assert mpimg.imread(png).shape[:2] == (report.FIG_PIXELS[1], report.FIG_PIXELS[0])
+    # existing outputs need --force; the input is never an output
+    assert main(["mask", str(RECIPE), "-i", str(demo["src"]), "-o", str(out)]) == 2
+    assert main(["mask", str(RECIPE), "-i", str(demo["src"]), "-o", str(out), "--force"]) == 0
+    in_sha = sha(demo["src"])
+    with pytest.raises(InputError, match="output is the input"):
+        report.write_mask(RECIPE, demo["src"], None, demo["src"], force=True)
+    assert sha(demo["src"]) == in_sha
+
+
+@pytest.mark.parametrize("kind", ["curvilinear", "points"])
+def test_mask_and_map_on_other_grid_kinds(tmp_path, kind):
+    lon, lat = np.meshgrid(np.linspace(0, 90, 12), np.linspace(-20, 60, 10))
+    rot = lon + 0.1 * lat  # a gently skewed grid
+    if kind == "curvilinear":
+        src = curvilinear(tmp_path / "in.nc", rot, lat)
+    else:
+        src = points(tmp_path / "in.nc", rot.ravel(), lat.ravel())
+    rec = box_recipe(tmp_path, taper=500)
+    with pytest.warns(Warning):  # no cell areas on these grids: equal weights, with a warning
+        report.write_mask(rec, src, None, tmp_path / "m.nc", png=tmp_path / "m.png")
+    with netCDF4.Dataset(tmp_path / "m.nc") as ds:
+        v = ds["region_weight"]
+        assert v.coordinates == "lat lon" and ds["lon"].dimensions == v.dimensions
+        assert 0 < v[:].max() <= 1
+    assert mpimg.imread(tmp_path / "m.png").shape[:2] == (report.FIG_PIXELS[1], report.FIG_PIXELS[0])
+
+
+def test_compare_box_recipe_output_matches_filemaker_region(tmp_path):
+    src = regular(tmp_path / "in.nc")
+    rec = box_recipe(tmp_path)
+    out = tmp_path / "out.nc"
+    record = api.apply(rec, src, out)
+    res = report.compare(src, out, allow=list(record["ledger"]["variables"]))
+    assert res["ok"]
+    a, b = read_raw(src, "tsoil"), read_raw(out, "tsoil")
+    assert res["variables"]["tsoil"]["cells_changed"] == int((a != b).sum())
+    box = res["variables"]["tsoil"]["bbox"]
+    assert 20 <= box["lon"][0] <= box["lon"][1] <= 80 and 10 <= box["lat"][0] <= box["lat"][1] <= 50
+    assert res["variables"]["tsoil"]["max_abs_change"] == pytest.approx(2.0, abs=1e-4)
