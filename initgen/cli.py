@@ -102,31 +102,53 @@ def _progress_printer(quiet: bool):
     return show
 
 
+def _show_warnings(caught) -> None:
+    """Print each distinct warning once, one line each (apply validates twice: no repeats)."""
+    seen = set()
+    for w in caught:
+        if issubclass(w.category, (DeprecationWarning, PendingDeprecationWarning, ImportWarning, ResourceWarning)):
+            continue
+        text = " ".join(str(w.message).split())
+        if (w.category, text) in seen:
+            continue
+        seen.add((w.category, text))
+        if issubclass(w.category, InputWarning):
+            sys.stderr.write(f"initgen: warning: {text}\n")
+        else:
+            sys.stderr.write(warnings.formatwarning(w.message, w.category, w.filename, w.lineno))
+
+
 def main(argv=None) -> int:
     warnings.formatwarning = _warn_line
-    warnings.simplefilter("default", InputWarning)
     parser = build_parser()
     args = parser.parse_args(argv)
     if args.command is None:
         parser.print_help()
         return 2
-    try:
-        return _dispatch(args)
-    except InputError as exc:
-        msg = " ".join(str(exc).split())
-        sys.stderr.write(f"initgen: error: {msg}\n")
-        return 2
-    except KeyboardInterrupt:
-        sys.stderr.write("initgen: interrupted; no output was written\n")
-        return 130
-    except BrokenPipeError:
-        return 0
-    except Exception as exc:  # a bug: one line unless --debug
-        if args.debug or os.environ.get("INITGEN_DEBUG"):
-            raise
-        sys.stderr.write(f"initgen: unexpected error: {exc.__class__.__name__}: {exc} "
-                         "(run with --debug for the traceback and please report it)\n")
-        return 1
+    # Warnings are held back until the command ends: on success they are shown (once each); on
+    # bad input only the one-line error is, since the run stopped before the warning mattered.
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        try:
+            code = _dispatch(args)
+        except InputError as exc:
+            msg = " ".join(str(exc).split())
+            sys.stderr.write(f"initgen: error: {msg}\n")
+            return 2
+        except KeyboardInterrupt:
+            sys.stderr.write("initgen: interrupted; no output was written\n")
+            return 130
+        except BrokenPipeError:
+            return 0
+        except Exception as exc:  # a bug: one line unless --debug
+            _show_warnings(caught)
+            if args.debug or os.environ.get("INITGEN_DEBUG"):
+                raise
+            sys.stderr.write(f"initgen: unexpected error: {exc.__class__.__name__}: {exc} "
+                             "(run with --debug for the traceback and please report it)\n")
+            return 1
+    _show_warnings(caught)
+    return code
 
 
 def _dispatch(args) -> int:
