@@ -16,6 +16,7 @@ import copy
 import hashlib
 import json
 import os
+import re
 from dataclasses import dataclass, replace
 from pathlib import Path
 from typing import Any
@@ -266,13 +267,47 @@ def canonical_hash(data: dict) -> str:
     return hashlib.sha256(text.encode()).hexdigest()
 
 
+class _SafeLoader(yaml.SafeLoader):
+    """``yaml.SafeLoader`` (no language tags, nothing evaluated) with two fixes for recipes.
+
+    Numbers such as ``1e9`` or ``5e-7`` are numbers (YAML 1.2; PyYAML's YAML 1.1 rules read
+    them as strings), and a key given twice in one mapping is an error rather than the silent
+    last-one-wins of PyYAML.
+    """
+
+    def construct_mapping(self, node, deep=False):
+        seen = {}
+        for key_node, _ in node.value:
+            key = self.construct_object(key_node, deep=deep)
+            try:
+                if key in seen:
+                    raise yaml.constructor.ConstructorError(
+                        "while constructing a mapping", node.start_mark,
+                        f"found duplicate key {key!r}", key_node.start_mark)
+                seen[key] = True
+            except TypeError:
+                pass  # unhashable: the base class reports it
+        return super().construct_mapping(node, deep=deep)
+
+
+_SafeLoader.add_implicit_resolver(
+    "tag:yaml.org,2002:float", re.compile(r"^[-+]?(?:[0-9][0-9_]*(?:\.[0-9_]*)?|\.[0-9_]+)[eE][-+]?[0-9]+$"),
+    list("-+.0123456789"))
+
+
 def _parse_yaml(text: str, source: str) -> Any:
     try:
-        return yaml.safe_load(text)
+        return yaml.load(text, Loader=_SafeLoader)  # noqa: S506 - a SafeLoader subclass
+    except RecursionError:
+        raise InputError(f"{source}: the YAML is nested too deeply to be a recipe; fix the file") from None
     except yaml.constructor.ConstructorError as exc:
-        tag = getattr(exc, "problem", "") or ""
+        problem = (getattr(exc, "problem", "") or "").strip()
+        mark = getattr(exc, "problem_mark", None)
+        where = f" at line {mark.line + 1}, column {mark.column + 1}" if mark else ""
+        if "constructor for the tag" not in problem:
+            raise InputError(f"{source}: bad YAML{where}: {problem}; give each key once, as plain text") from None
         raise InputError(
-            f"{source}: refused YAML tag ({tag.strip()}); recipes may hold only plain data "
+            f"{source}: refused YAML tag{where} ({problem}); recipes may hold only plain data "
             "(mappings, lists, strings, numbers)"
         ) from None
     except yaml.YAMLError as exc:
@@ -308,13 +343,16 @@ def _validate(raw: Any, node: Obj, kind: str, source: str, version_key: str, ver
         return node.validate(copy.deepcopy(raw), "")
     except InputError as exc:
         raise InputError(f"{source}: {exc}") from None
+    except RecursionError:
+        raise InputError(f"{source}: the {kind} is nested too deeply; start from `initgen schema`") from None
 
 
 def load_recipe(source: str | os.PathLike | dict, *, text: str | None = None) -> Document:
     """Load and validate a recipe from a YAML file path, or from an already-parsed mapping."""
     if isinstance(source, dict):
         data = _validate(source, RECIPE, "recipe", "recipe", "initgen_recipe", RECIPE_VERSION)
-        return Document(data, text or yaml.safe_dump(source, sort_keys=False), None, "recipe")
+        _check_semantics(data, "recipe")
+        return Document(data, text or yaml.safe_dump(data, sort_keys=False), None, "recipe")
     path = Path(source)
     text = _read_text(path, "recipe")
     raw = _parse_yaml(text, str(path))
@@ -327,7 +365,7 @@ def load_layout(source: str | os.PathLike | dict) -> Document:
     """Load and validate a layout from a YAML file path, or from a parsed mapping."""
     if isinstance(source, dict):
         data = _validate(source, LAYOUT, "layout", "layout", "initgen_layout", LAYOUT_VERSION)
-        return Document(data, yaml.safe_dump(source, sort_keys=False), None, "layout")
+        return Document(data, yaml.safe_dump(data, sort_keys=False), None, "layout")
     path = Path(source)
     text = _read_text(path, "layout")
     raw = _parse_yaml(text, str(path))
@@ -361,6 +399,14 @@ def _check_semantics(data: dict, source: str) -> None:
                     f"{source}: recipe key perturbations[{i}].profile.{key}: is required for kind "
                     f"'{prof['kind']}'"
                 )
+        for key in sorted(set().union(*_PROFILE_NEEDS.values()) - set(_PROFILE_NEEDS[prof["kind"]])):
+            if prof.get(key) is not None:
+                raise InputError(
+                    f"{source}: recipe key perturbations[{i}].profile.{key}: not used by kind '{prof['kind']}'; "
+                    "remove it or change the kind"
+                )
+        if prof.get("table") is not None:
+            _check_table(prof["table"], f"{source}: recipe key perturbations[{i}].profile.table")
         elev = block["region"].get("elevation")
         if elev and elev.get("max_m") is not None and elev["max_m"] <= elev["min_m"]:
             raise InputError(
@@ -375,6 +421,18 @@ def _check_semantics(data: dict, source: str) -> None:
     phys = data["physics"]
     if phys["soil_temperature_min_K"] >= phys["soil_temperature_max_K"]:
         raise InputError(f"{source}: recipe key physics.soil_temperature_min_K: must be below soil_temperature_max_K")
+
+
+def _check_table(table: list, key: str) -> None:
+    """[depth_m, factor] pairs: depths 0..1000 m, strictly increasing; factors within +-10."""
+    for j, (depth, factor) in enumerate(table):
+        if not 0.0 <= depth <= 1000.0:
+            raise InputError(f"{key}[{j}][0]: depth must lie in 0..1000 m, got {depth}")
+        if not -10.0 <= factor <= 10.0:
+            raise InputError(f"{key}[{j}][1]: factor must lie in -10..10, got {factor}")
+        if j and depth <= table[j - 1][0]:
+            raise InputError(f"{key}[{j}][0]: depth {depth} m is not below the previous one ({table[j - 1][0]} m); "
+                             "list the pairs with depths strictly increasing")
 
 
 def check_semantics(recipe: Document) -> None:
