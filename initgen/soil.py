@@ -31,9 +31,22 @@ Disequilibrium policy
     bit-identical, whatever their state. In energy mode a perturbed cell that starts out of
     equilibrium is re-equilibrated within the imposed energy budget: the enthalpy change is
     still exactly ``C * dT * dz``.
-Missing values
-    NaN propagates: a cell with a NaN input gives NaN outputs (and zero clamp counts).
-    Convert fill values to NaN, or exclude those cells, before calling.
+Missing values and invalid inputs
+    The mode functions change only cells with ``dT != 0`` and finite T and dT; every other
+    cell (including NaN or fill-valued ones) is returned bit-identical with zero ledger
+    entries. A cell they change must have valid water (>= 0, finite) and parameters, else
+    they raise :class:`~initgen.errors.InputError` naming the quantity and the cell count.
+    The other functions are plain formulas: NaN propagates (clamps neither change nor count
+    NaN).
+Suggested order for a caller
+    1. convert units (:func:`temperature_to_kelvin`, :func:`water_to_volumetric`);
+    2. on the input, :func:`clamp_negative_water` and :func:`clamp_pore_space` (counted: they
+       change water), and :func:`disequilibrium` (reported only);
+    3. :func:`apply_energy_mode` or :func:`apply_temperature_mode` (water conserved exactly);
+    4. on the output, :func:`clamp_soil_temperature` and :func:`clamp_snow_temperature`
+       (counted: they change energy; the phase is not re-equilibrated after them);
+    5. convert back (:func:`kelvin_to_units`, :func:`volumetric_to_water`).
+    Every clamp returns ``(values, count)`` for the ledger.
 
 References
 ----------
@@ -773,7 +786,10 @@ def _blocks(shape, target=None):
         yield (slice(None),) * ax + (slice(i, min(i + step, n)),)
 
 
-def _validate_params(dz, porosity, b, where):
+def _validate_params(dz, porosity, b, where, psi=None):
+    if psi is not None and not np.all(np.isfinite(psi) & (psi != 0)):
+        raise InputError(f"{where}: psi_sat_m must be finite and non-zero (a suction magnitude in m); "
+                         "check psi_sat or the texture")
     if not np.all(np.isfinite(dz) & (dz > 0)):
         raise InputError(f"{where}: layer thickness dz must be finite and > 0 m; check the layer geometry")
     if not np.all((porosity > 0) & (porosity <= 1)):
@@ -805,9 +821,9 @@ def solve_enthalpy(H_target, total_water, dz, porosity, psi_sat_m, b, c_solid=No
                  \\quad K = (1-\\phi) c_s + \\rho_w c_i W
 
        is solved by Halley's method (analytic first and second derivatives), safeguarded by
-       bisection inside a bracket [z_lo, z_hi] with F(z_lo) > 0 > F(z_hi), until the step is
-       below 1e-14 (relative) or |F| is at round-off level; at most ``max_iter`` steps
-       (typically 3-4).
+       bisection inside a bracket [z_lo, z_hi] with F(z_lo) > 0 > F(z_hi), until a Halley
+       step is below 1e-6 (relative; the error after it is ~1e-18) or |F| is at round-off
+       level; at most ``max_iter`` steps (typically 3).
 
     Parameters
     ----------
@@ -830,9 +846,12 @@ def solve_enthalpy(H_target, total_water, dz, porosity, psi_sat_m, b, c_solid=No
     Returns
     -------
     tuple of numpy.ndarray
-        ``(T K, theta_liq m3 m-3, theta_ice m3 m-3)``. In branch 4 theta_liq is computed from
-        the final T with the formula of :func:`supercooled_liquid_max`, so it never exceeds
-        that limit; theta_ice = W - theta_liq. A NaN input gives NaN outputs. Targets that
+        ``(T K, theta_liq m3 m-3, theta_ice m3 m-3)``. In branch 4 the final T is moved to
+        the nearest representable number on the warm side of the root and theta_liq is the
+        content that gives exactly ``H_target`` there: the energy is exact to round-off of H
+        and theta_liq never exceeds :func:`supercooled_liquid_max` (it lies below it by at
+        most the effect of one float64 step of T, < 1e-9 m3 m-3). theta_ice = W - theta_liq.
+        A NaN input gives NaN outputs. Targets that
         imply T below T_f / 2 = 136.6 K are outside the solver's range: T stops at 136.6 K
         and energy is not conserved there; the soil-temperature clamp (180 K) reports them.
 
@@ -848,7 +867,7 @@ def solve_enthalpy(H_target, total_water, dz, porosity, psi_sat_m, b, c_solid=No
     psi = _f64(psi_sat_m)
     b = _f64(b)
     cs = _f64(CV_SOLID_DEFAULT if c_solid is None else c_solid)
-    _validate_params(dz, phi, b, "solve_enthalpy")
+    _validate_params(dz, phi, b, "solve_enthalpy", psi)
     if np.any(W < 0):
         raise InputError("solve_enthalpy: total_water has negative values; apply clamp_negative_water first")
     args = [H, W, dz, phi, psi, b, cs]
@@ -902,12 +921,37 @@ def _solve_block(Hd, W, phi, psi, b, cs, T_guess, max_iter):
     idx = np.flatnonzero(Hd < Llk - Ck * sk)      # branch 4: colder than the kink
     if idx.size:
         phi4, psi4, b4, W4 = phi.take(idx), psi.take(idx), b.take(idx), W.take(idx)
-        T4 = _solve_curve(Hd.take(idx), W4, phi4, b4, K.take(idx), Llk.take(idx),
-                          c1.take(idx), zk.take(idx),
+        h4, K4 = Hd.take(idx), K.take(idx)
+        T4 = _solve_curve(h4, W4, phi4, b4, K4, Llk.take(idx), c1.take(idx), zk.take(idx),
                           None if T_guess is None else T_guess.take(idx), max_iter)
-        T[idx] = T4
-        liq[idx] = np.minimum(W4, _liq_max_below(T4, phi4, psi4, b4))
+        T[idx], liq[idx] = _settle_on_curve(T4, h4, W4, phi4, psi4, b4, K4)
     return T, liq
+
+
+def _settle_on_curve(T, h, W, phi, psi, b, K):
+    """Final (T, liq) of branch 4: exact energy without leaving the curve.
+
+    Near T_f the liquid content is so sensitive to T that one float64 step of T (5.7e-14 K)
+    can change H by more than the round-off of H. So T is moved, one representable number at
+    a time, to the warm side of the root, where the liquid content that gives exactly h,
+    l_e = (h + K s) / (rho_w L_f - dC s), lies at or below the curve value l_c(T); the state
+    is then (T, l_e): energy exact to round-off, liquid never above the supercooled limit and
+    below it by at most the effect of one step of T.
+    """
+    s = T_FREEZE - T
+    lc = np.minimum(W, _liq_max_below(T, phi, psi, b))
+    le = (h + K * s) / (_LV - _DCV * s)
+    i = np.flatnonzero(le > lc)                     # cells on the cold side of the root
+    for _ in range(16):                             # (Halley leaves T within a few steps)
+        if i.size == 0:
+            break
+        Ti = np.nextafter(T[i], np.inf)
+        si = T_FREEZE - Ti
+        lci = np.minimum(W[i], _liq_max_below(Ti, phi[i], psi[i], b[i]))
+        lei = (h[i] + K[i] * si) / (_LV - _DCV * si)
+        T[i], lc[i], le[i] = Ti, lci, lei
+        i = i[lei > lci]
+    return T, np.maximum(np.minimum(le, lc), 0.0)
 
 
 def _solve_curve(Hd, W, phi, b, K, Llk, c1, zk, T_guess, max_iter):
@@ -1016,58 +1060,95 @@ class SoilChange(NamedTuple):
     latent_J_m2: np.ndarray
 
 
-def _mode_inputs(T, liq, ice, dT, dz, porosity, psi_sat_m, b, c_solid, where):
+def _mode_inputs(T, liq, ice, dT, dz, porosity, psi_sat_m, b, c_solid):
     arrs = [_f64(a) for a in (T, liq, ice, dT, dz, porosity, psi_sat_m, b,
                               CV_SOLID_DEFAULT if c_solid is None else c_solid)]
-    _validate_params(arrs[4], arrs[5], arrs[7], where)
-    if np.any(arrs[1] < 0) or np.any(arrs[2] < 0):
-        raise InputError(f"{where}: soil liquid or ice has negative values; apply clamp_negative_water first")
     shape = np.broadcast_shapes(*(a.shape for a in arrs))
     return shape, [np.broadcast_to(a, shape) for a in arrs]
 
 
-def _run_mode(block_fn, shape, views):
+_CHECKS = (  # (argument index, test of validity, what is wrong, what to do)
+    (0, lambda v: v > 0, "soil temperature <= 0 K", "check the temperature units"),
+    (1, lambda v: (v >= 0) & (v < np.inf), "negative or missing liquid water",
+     "apply clamp_negative_water first, or check the fill value"),
+    (2, lambda v: (v >= 0) & (v < np.inf), "negative or missing ice",
+     "apply clamp_negative_water first, or check the fill value"),
+    (4, lambda v: (v > 0) & (v < np.inf), "layer thickness dz not finite and > 0 m",
+     "check the layer geometry"),
+    (5, lambda v: (v > 0) & (v <= 1), "porosity outside (0, 1] m3 m-3",
+     "check the porosity variable or the texture"),
+    (6, lambda v: np.isfinite(v) & (v != 0), "psi_sat_m zero or missing",
+     "check psi_sat (a suction magnitude in m) or the texture"),
+    (7, lambda v: (v > 0) & (v < np.inf), "Clapp-Hornberger b not finite and > 0",
+     "check clapp_b or the texture"),
+    (8, lambda v: (v >= 0) & (v < np.inf), "solid heat capacity c_solid negative or missing",
+     "check c_solid or the texture"),
+)
+
+
+def _touched(args, where):
+    """Cells a mode changes: dT != 0 with finite T and dT. Every such cell must have valid
+    water and parameters (checked here, InputError otherwise); other cells are passed through."""
+    T, dT = args[0], args[3]
+    touched = (dT != 0) & np.isfinite(dT) & np.isfinite(T)
+    ok = np.ones_like(touched)
+    for i, test, _, _ in _CHECKS:
+        ok &= test(args[i])
+    bad = touched & ~ok
+    if bad.any():
+        for i, test, what, todo in _CHECKS:
+            n = int(np.count_nonzero(touched & ~test(args[i])))
+            if n:
+                raise InputError(f"{where}: {n} cell(s) to perturb have {what}; {todo}")
+    return touched
+
+
+def _run_mode(block_fn, shape, views, where):
     out = [np.empty(shape) for _ in range(7)]
-    for sl, flat in _flat_blocks(shape, views):
-        res = block_fn(*flat)
-        bshape = out[0][sl].shape
-        for o, r in zip(out, res):
-            o[sl] = r.reshape(bshape)
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+        for sl, flat in _flat_blocks(shape, views):
+            res = block_fn(*flat, _touched(flat, where))
+            bshape = out[0][sl].shape
+            for o, r in zip(out, res):
+                o[sl] = r.reshape(bshape)
     return SoilChange(*out)
 
 
-def _finish(T0, liq0, ice0, T1, liq1, ice1, dT, H0d, Csol, dz):
-    """The seven outputs of one block; cells with dT == 0 keep their exact inputs."""
-    untouched = dT == 0
-    if untouched.any():
-        T1 = np.where(untouched, T0, T1)
-        liq1 = np.where(untouched, liq0, liq1)
-        ice1 = np.where(untouched, ice0, ice1)
+def _finish(T0, liq0, ice0, T1, liq1, ice1, touched, H0d, Csol, dz):
+    """The seven outputs of one block; cells not touched keep their exact inputs."""
+    if not touched.all():
+        T1 = np.where(touched, T1, T0)
+        liq1 = np.where(touched, liq1, liq0)
+        ice1 = np.where(touched, ice1, ice0)
     H1d = (Csol + CV_WATER * liq1 + _CV_ICE_WE * ice1) * (T1 - T_FREEZE) + _LV * liq1
     dl = liq1 - liq0
     latent = _LV * dl * dz
     sensible = (H1d - H0d) * dz - latent
+    if not touched.all():
+        sensible = np.where(touched, sensible, 0.0)   # NaN-safe zero for untouched cells
+        latent = np.where(touched, latent, 0.0)
+        dl = np.where(touched, dl, 0.0)
     dmass = (RHO_WATER * dz) * dl
     return T1, liq1, ice1, np.maximum(-dmass, 0.0), np.maximum(dmass, 0.0), sensible, latent
 
 
-def _energy_block(T, liq, ice, dT, dz, phi, psi, b, cs):
+def _energy_block(T, liq, ice, dT, dz, phi, psi, b, cs, touched):
     W = liq + ice
     Csol = (1.0 - phi) * cs
     C0 = Csol + CV_WATER * liq + _CV_ICE_WE * ice
     H0d = C0 * (T - T_FREEZE) + _LV * liq                  # J m-3
     target = H0d + C0 * dT
-    target[dT == 0] = np.nan                               # untouched cells are not solved
+    target[~touched] = np.nan                              # untouched cells are not solved
     T1, liq1 = _solve_block(target, W, phi, psi, b, cs, T, 40)
-    return _finish(T, liq, ice, T1, liq1, W - liq1, dT, H0d, Csol, dz)
+    return _finish(T, liq, ice, T1, liq1, W - liq1, touched, H0d, Csol, dz)
 
 
-def _temperature_block(T, liq, ice, dT, dz, phi, psi, b, cs):
+def _temperature_block(T, liq, ice, dT, dz, phi, psi, b, cs, touched):
     Csol = (1.0 - phi) * cs
     H0d = (Csol + CV_WATER * liq + _CV_ICE_WE * ice) * (T - T_FREEZE) + _LV * liq
     T1 = T + dT
     liq1, ice1 = equilibrate_phase(T1, liq, ice, phi, psi, b)
-    return _finish(T, liq, ice, T1, liq1, ice1, dT, H0d, Csol, dz)
+    return _finish(T, liq, ice, T1, liq1, ice1, touched, H0d, Csol, dz)
 
 
 def apply_energy_mode(T, liq, ice, dT_target, dz, porosity, psi_sat_m, b, c_solid=None):
@@ -1080,7 +1161,8 @@ def apply_energy_mode(T, liq, ice, dT_target, dz, porosity, psi_sat_m, b, c_soli
     with C_0 = :func:`heat_capacity` of the starting state, H from :func:`enthalpy` and the
     new state on the freezing curve (as :func:`solve_enthalpy`). Water is conserved: a cold
     anomaly freezes water (so the temperature falls by less than dT), a warm one melts ice.
-    Cells with ``dT_target == 0`` are returned unchanged (not re-equilibrated).
+    Cells with ``dT_target == 0``, or a NaN temperature or anomaly, are returned unchanged
+    (not re-equilibrated).
 
     Parameters
     ----------
@@ -1103,13 +1185,18 @@ def apply_energy_mode(T, liq, ice, dT_target, dz, porosity, psi_sat_m, b, c_soli
         ``(T, liq, ice, frozen_kg_m2, melted_kg_m2, sensible_J_m2, latent_J_m2)``, arrays of
         the broadcast shape; sensible + latent = Delta H within the solver tolerance.
 
+    Raises
+    ------
+    InputError
+        If a cell to be changed has negative or missing water, T <= 0 K, or an invalid
+        parameter (the message names it and counts the cells).
+
     References
     ----------
     .. [1] de Vries (1963) for C; Niu and Yang (2006) for the freezing curve.
     """
-    shape, views = _mode_inputs(T, liq, ice, dT_target, dz, porosity, psi_sat_m, b, c_solid,
-                                "apply_energy_mode")
-    return _run_mode(_energy_block, shape, views)
+    shape, views = _mode_inputs(T, liq, ice, dT_target, dz, porosity, psi_sat_m, b, c_solid)
+    return _run_mode(_energy_block, shape, views, "apply_energy_mode")
 
 
 def apply_temperature_mode(T, liq, ice, dT, dz, porosity, psi_sat_m, b, c_solid=None):
@@ -1119,8 +1206,8 @@ def apply_temperature_mode(T, liq, ice, dT, dz, porosity, psi_sat_m, b, c_solid=
               \\mathrm{equilibrate\\_phase}(T_1, \\theta_{liq,0}, \\theta_{ice,0})
 
     The temperature change is exact; the energy it implies (sensible and latent, from
-    :func:`enthalpy`) is reported. Cells with ``dT == 0`` are returned unchanged (not
-    re-equilibrated).
+    :func:`enthalpy`) is reported. Cells with ``dT == 0``, or a NaN temperature or anomaly,
+    are returned unchanged (not re-equilibrated).
 
     Parameters
     ----------
@@ -1136,13 +1223,17 @@ def apply_temperature_mode(T, liq, ice, dT, dz, porosity, psi_sat_m, b, c_solid=
     SoilChange
         ``(T, liq, ice, frozen_kg_m2, melted_kg_m2, sensible_J_m2, latent_J_m2)``.
 
+    Raises
+    ------
+    InputError
+        As :func:`apply_energy_mode`.
+
     References
     ----------
     .. [1] Niu, G.-Y., and Yang, Z.-L. (2006). *Journal of Hydrometeorology* 7, 937-952.
     """
-    shape, views = _mode_inputs(T, liq, ice, dT, dz, porosity, psi_sat_m, b, c_solid,
-                                "apply_temperature_mode")
-    return _run_mode(_temperature_block, shape, views)
+    shape, views = _mode_inputs(T, liq, ice, dT, dz, porosity, psi_sat_m, b, c_solid)
+    return _run_mode(_temperature_block, shape, views, "apply_temperature_mode")
 
 
 # =============================================================================================

@@ -12,7 +12,9 @@ equilibrium, and every cell perturbed (surface anomaly -5..+5 K, e-folding depth
 about half the cells are solved on the freezing curve.
 
 Prints ``name: value`` lines: ``energy_mode_10M_s``, ``temperature_mode_10M_s`` (median
-wall-clock seconds, scaled to 10 M cells in quick mode and marked so), ``peak_mb`` (largest
+wall-clock seconds, scaled to 10 M cells in quick mode and marked so), the same as process
+CPU seconds (``*_cpu_s``; numpy runs these on one core, so CPU time is the figure that does
+not depend on other load on the machine), ``load_average_1min``, ``peak_mb`` (largest
 extra memory traced by ``tracemalloc`` during one energy-mode call, outputs included) and
 ``maxrss_mb`` (peak resident size of the process, inputs included).
 """
@@ -55,12 +57,14 @@ def make_state(ncol, nlay=10, seed=1):
 
 
 def timed(fn, args, repeat):
-    times = []
+    """Median wall-clock and process CPU seconds of ``repeat`` calls."""
+    wall, cpu = [], []
     for _ in range(repeat):
-        t0 = time.perf_counter()
+        c0, t0 = time.process_time(), time.perf_counter()
         fn(*args)
-        times.append(time.perf_counter() - t0)
-    return statistics.median(times)
+        wall.append(time.perf_counter() - t0)
+        cpu.append(time.process_time() - c0)
+    return statistics.median(wall), statistics.median(cpu)
 
 
 def main(argv=None):
@@ -72,8 +76,8 @@ def main(argv=None):
     ncell = state[0].size
     scale = 1e7 / ncell
     note = " (scaled from %d cells)" % ncell if a.quick else ""
-    t_e = timed(soil.apply_energy_mode, state, repeat) * scale
-    t_t = timed(soil.apply_temperature_mode, state, repeat) * scale
+    t_e, c_e = (t * scale for t in timed(soil.apply_energy_mode, state, repeat))
+    t_t, c_t = (t * scale for t in timed(soil.apply_temperature_mode, state, repeat))
     tracemalloc.start()
     soil.apply_energy_mode(*state)
     peak = tracemalloc.get_traced_memory()[1]
@@ -81,6 +85,9 @@ def main(argv=None):
     print(f"cells: {ncell}")
     print(f"energy_mode_10M_s: {t_e:.3f}{note}")
     print(f"temperature_mode_10M_s: {t_t:.3f}{note}")
+    print(f"energy_mode_10M_cpu_s: {c_e:.3f}{note}")
+    print(f"temperature_mode_10M_cpu_s: {c_t:.3f}{note}")
+    print(f"load_average_1min: {os.getloadavg()[0]:.2f}")
     print(f"peak_mb: {peak / 2**20:.1f}")
     print(f"maxrss_mb: {resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024:.1f}")
     on_curve = (state[0] < T_FREEZE) & (state[2] > 0)
