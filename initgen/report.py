@@ -11,8 +11,9 @@ mask``):
 
 Every number in a preview comes from the ledger (the same record ``apply`` writes into the
 provenance), so the report, the terminal table and the provenance never disagree. Figures are drawn
-with matplotlib's non-interactive Agg backend, selected inside the functions that draw, never when
-initgen is imported.
+with matplotlib's non-interactive Agg backend, imported inside the functions that draw (never when
+initgen is imported) and used through matplotlib's object interface, so the pyplot backend of an
+interactive session is left as it is.
 """
 
 from __future__ import annotations
@@ -295,7 +296,7 @@ def _value_diff(sa: NetCDFStore, sb: NetCDFStore, name: str, grid) -> dict:
                 per_layer[layer].add(changed[j], None if fa is None else fa[j], None if fb is None else fb[j], weight)
     out = total.as_dict()
     out["units"] = ia.units
-    out["weights"] = ("cell area" if hdims else "equal") if numeric else None
+    out["weights"] = (grid.area_source if hdims else "equal") if numeric else None
     out["layer_dim"] = layer_dim
     if layer_dim:
         out["layers"] = [dict(layer=i, **s.as_dict()) for i, s in enumerate(per_layer)]
@@ -413,8 +414,9 @@ def _compare(sa: NetCDFStore, sb: NetCDFStore, allow: list, layout) -> dict:
         attrs_b = {k: v for k, v in ib.attrs.items() if not k.startswith("_initgen")}
         struct += [m for _, m in _attr_diffs(attrs_a, attrs_b, "")]
         ea, eb = _encoding(sa, name), _encoding(sb, name)
+        fill_attr_differs = not _attr_equal(ia.attrs.get("_FillValue"), ib.attrs.get("_FillValue"))
         for k in ea:
-            if ea[k] != eb[k]:
+            if ea[k] != eb[k] and not (k == "fill_value" and fill_attr_differs):
                 struct.append(f"{k} {_short(ea[k], 60)} vs {_short(eb[k], 60)}")
         entry.update(dtype=str(ia.dtype), dims=list(ia.dims), shape=list(ia.shape), structure=struct)
         for m in struct:
@@ -615,9 +617,15 @@ def verify(provenance_path, input=None, output=None) -> dict:
     for p, what in ((in_path, "input"), (out_path, "output")):
         if not p.is_file():
             raise InputError(f"{p}: the {what} file is not there; pass --{what} with its current path")
-    if rec.get("member"):
-        raise InputError(f"{provenance_path}: this record is of an ensemble member; verify re-runs single "
-                         "apply records only (re-run the ensemble member instead)")
+    member = rec.get("member") or None
+    member_kw = {}
+    if member:
+        import inspect
+
+        if "member" not in inspect.signature(api.apply).parameters:
+            raise InputError(f"{provenance_path}: this record is of ensemble member {member.get('name')}, and this "
+                             "initgen cannot apply one member; verify it with the initgen version of the record")
+        member_kw["member"] = member.get("name")
     failures: list[str] = []
     checks: dict = {}
 
@@ -646,7 +654,8 @@ def verify(provenance_path, input=None, output=None) -> dict:
             rerun = Path(tmp) / ("rerun-" + out_path.name)
             with warnings.catch_warnings():
                 warnings.simplefilter("ignore")
-                new = api.apply(recipe_doc, in_path, rerun, layout_doc, allow_outside_paths=allow_outside)
+                new = api.apply(recipe_doc, in_path, rerun, layout_doc, allow_outside_paths=allow_outside,
+                                **member_kw)
             cmp_ = compare(rerun, out_path, allow=())
         result["compare"] = cmp_
         checks["same_as_rerun"] = bool(cmp_["ok"])
@@ -665,6 +674,11 @@ def verify(provenance_path, input=None, output=None) -> dict:
         if not checks["ledger"]:
             keys = sorted(k for k in set(led_new) | set(led_old or {}) if led_new.get(k) != (led_old or {}).get(k))
             failures.append(f"the re-run's ledger differs from the recorded one in: {', '.join(keys)}")
+        if member:
+            checks["member"] = _py(new.get("member")) == _py(member)
+            if not checks["member"]:
+                failures.append(f"member {member.get('name')} of the recipe now means something else "
+                                f"({_short(new.get('member'), 80)} vs the recorded {_short(member, 80)})")
         vnew, vold = new.get("versions") or {}, rec.get("versions") or {}
         changed_v = sorted(k for k in set(vnew) | set(vold) if vnew.get(k) != vold.get(k))
         if changed_v and failures:
@@ -687,13 +701,20 @@ def verify(provenance_path, input=None, output=None) -> dict:
 # =============================================================================================
 
 
-def _pyplot():
-    import matplotlib
+def _figure(nrows: int = 1, ncols: int = 1):
+    """A new figure drawn by matplotlib's Agg backend, and its axes (always a 2-D array).
 
-    matplotlib.use("Agg")
-    import matplotlib.pyplot as plt
+    The figure is built with matplotlib's object interface on an Agg canvas, so drawing never
+    touches pyplot's global state: the backend of an interactive session (a notebook, say) is
+    left as it is, and no figure stays registered after the PNG is made.
+    """
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from matplotlib.figure import Figure
 
-    return plt
+    fig = Figure(figsize=FIG_SIZE_IN, dpi=FIG_DPI)
+    FigureCanvasAgg(fig)
+    axes = fig.subplots(nrows, ncols, squeeze=False)
+    return fig, axes
 
 
 def _png_bytes(fig) -> bytes:
@@ -799,8 +820,8 @@ def _zoom(ax, grid, w: np.ndarray, centre: float) -> None:
 
 
 def _map_figure(grid, field, w, geoms, title: str, label: str, *, cmap="viridis", vmin=None, vmax=None) -> bytes:
-    plt = _pyplot()
-    fig, ax = plt.subplots(figsize=FIG_SIZE_IN, dpi=FIG_DPI)
+    fig, axes = _figure()
+    ax = axes[0, 0]
     fig.subplots_adjust(left=0.09, right=0.98, bottom=0.11, top=0.93)
     try:
         centre = _frame_centre(grid, w)
@@ -815,7 +836,7 @@ def _map_figure(grid, field, w, geoms, title: str, label: str, *, cmap="viridis"
             ax.legend(loc="lower left", fontsize=8)
         return _png_bytes(fig)
     finally:
-        plt.close(fig)
+        fig.clear()  # free the drawing at once
 
 
 def _region_geoms(rec, allow_outside: bool) -> list:
@@ -913,8 +934,7 @@ def _profile_figure(ledger: dict) -> bytes | None:
                                          for r in var["layers"])]
     if not rows:
         return None
-    plt = _pyplot()
-    fig, axes = plt.subplots(1, len(rows), figsize=FIG_SIZE_IN, dpi=FIG_DPI, squeeze=False)
+    fig, axes = _figure(1, len(rows))
     fig.subplots_adjust(left=0.08, right=0.98, bottom=0.11, top=0.88, wspace=0.35)
     try:
         for ax, (name, var) in zip(axes[0], rows):
@@ -933,7 +953,7 @@ def _profile_figure(ledger: dict) -> bytes | None:
         fig.suptitle("Change against depth, per soil layer (ledger)", fontsize=10)
         return _png_bytes(fig)
     finally:
-        plt.close(fig)
+        fig.clear()  # free the drawing at once
 
 
 def _histogram_panels(capture: "_ChangeCapture", ledger: dict, roles: tuple) -> list:
@@ -958,11 +978,10 @@ def _histogram_figure(panels: list, title: str) -> bytes | None:
     """Small multiples: one histogram of the change per panel (layer)."""
     if not panels:
         return None
-    plt = _pyplot()
     n = len(panels)
     ncols = min(4, n)
     nrows = math.ceil(n / ncols)
-    fig, axes = plt.subplots(nrows, ncols, figsize=FIG_SIZE_IN, dpi=FIG_DPI, squeeze=False)
+    fig, axes = _figure(nrows, ncols)
     fig.subplots_adjust(left=0.08, right=0.98, bottom=0.11, top=0.88, wspace=0.3, hspace=0.45)
     try:
         for ax in axes.ravel()[n:]:
@@ -976,7 +995,7 @@ def _histogram_figure(panels: list, title: str) -> bytes | None:
         fig.suptitle(title, fontsize=10)
         return _png_bytes(fig)
     finally:
-        plt.close(fig)
+        fig.clear()  # free the drawing at once
 
 
 def _md_table(header: list, rows: list) -> list[str]:
@@ -1007,7 +1026,8 @@ def _ledger_markdown(ledger: dict) -> list[str]:
     return out
 
 
-def preview_report(recipe, input, layout, out_dir, ledger=None, allow_outside_paths=False) -> Path:
+def preview_report(recipe, input, layout, out_dir, ledger=None, allow_outside_paths=False, *,
+                   member: str | None = None) -> Path:
     """Write ``out_dir/preview.md`` and its PNG figures: what ``apply`` would change, and where.
 
     Parameters
@@ -1024,6 +1044,9 @@ def preview_report(recipe, input, layout, out_dir, ledger=None, allow_outside_pa
         The ledger of :func:`initgen.api.preview` for the same inputs (computed when None).
     allow_outside_paths : bool, optional
         Let the recipe name files outside its own folder.
+    member : str, optional
+        One member of a recipe with a members section: figures and ledger are that member's
+        (its scale, offset and noise), as ``initgen preview --member NAME`` computes them.
 
     Returns
     -------
@@ -1047,12 +1070,17 @@ def preview_report(recipe, input, layout, out_dir, ledger=None, allow_outside_pa
         raise InputError(f"{out_dir}: exists and is not a folder; give a folder for the report")
     rec = api._recipe(recipe)
     lay = api._layout(layout, rec)
+    member_kw = {} if member is None else {"member": member}
     if ledger is None:
-        ledger = api.preview(rec, input, lay, allow_outside_paths=allow_outside_paths)
+        ledger = api.preview(rec, input, lay, allow_outside_paths=allow_outside_paths, **member_kw)
     store = NetCDFStore(input)
     try:
         model = api._model(store, lay, rec)
         plan = plan_mod.build_plan(rec, model, allow_outside=allow_outside_paths)
+        if member is not None:
+            from .ensemble import configure
+
+            plan = configure(plan, api._member(rec, member))
         grid = model.grid
         w = np.max([b.weight for b in plan.blocks], axis=0)
         capture = _ChangeCapture(store, model, ledger)
@@ -1066,7 +1094,10 @@ def preview_report(recipe, input, layout, out_dir, ledger=None, allow_outside_pa
         if b.anomaly is None:
             donors.append(b.name)
             continue
-        surf += b.anomaly * plan.member_scale * b.weight * b.surface_factor
+        a = b.anomaly * plan.member_scale + getattr(plan, "member_offset_K", 0.0)
+        if getattr(plan, "noise", None) is not None:
+            a = a + plan.noise
+        surf += a * b.weight * b.surface_factor  # as plan.py applies it to skin and snow temperature
     figures: dict[str, bytes] = {}
     figures["weights.png"] = _map_figure(grid, w, w, geoms, f"Horizontal weight w(x): recipe '{rec.name}'",
                                          "weight (1)", vmin=0.0, vmax=1.0)
@@ -1088,7 +1119,7 @@ def preview_report(recipe, input, layout, out_dir, ledger=None, allow_outside_pa
             captions[fname] = (f"Histogram per layer of the change of {what} over the cells apply would change "
                                "(after physics and limits).")
 
-    md = _preview_markdown(rec, lay, input, grid, ledger, figures, captions, donors)
+    md = _preview_markdown(rec, lay, input, grid, ledger, figures, captions, donors, member)
     out_dir.mkdir(parents=True, exist_ok=True)
     for fname, data in figures.items():
         _write_bytes(out_dir / fname, data)
@@ -1097,10 +1128,10 @@ def preview_report(recipe, input, layout, out_dir, ledger=None, allow_outside_pa
     return path
 
 
-def _preview_markdown(rec, lay, input, grid, ledger, figures, captions, donors) -> str:
+def _preview_markdown(rec, lay, input, grid, ledger, figures, captions, donors, member=None) -> str:
     from . import __version__
 
-    L = [f"# initgen preview: {rec.name}", ""]
+    L = [f"# initgen preview: {rec.name}" + (f", member {member}" if member else ""), ""]
     if rec.data.get("description"):
         L += [f"_{rec.data['description']}_", ""]
     L += ["## What", "",

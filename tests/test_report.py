@@ -12,6 +12,8 @@ from __future__ import annotations
 import hashlib
 import json
 import shutil
+import subprocess
+import sys
 from pathlib import Path
 
 import matplotlib.image as mpimg
@@ -408,3 +410,62 @@ def test_compare_box_recipe_output_matches_filemaker_region(tmp_path):
     box = res["variables"]["tsoil"]["bbox"]
     assert 20 <= box["lon"][0] <= box["lon"][1] <= 80 and 10 <= box["lat"][0] <= box["lat"][1] <= 50
     assert res["variables"]["tsoil"]["max_abs_change"] == pytest.approx(2.0, abs=1e-4)
+
+
+@pytest.mark.parametrize("kind", ["regular-layer-last", "curvilinear", "points"])
+def test_compare_box_of_one_changed_cell_on_every_grid_kind(tmp_path, kind):
+    lon2, lat2 = np.meshgrid(np.linspace(0, 90, 12), np.linspace(-20, 60, 10))
+    if kind == "regular-layer-last":
+        a = regular(tmp_path / "a.nc", layer_first=False)
+        with netCDF4.Dataset(a) as ds:
+            lon2, lat2 = np.meshgrid(ds["lon"][:], ds["lat"][:])
+        index, name = (0, 9, 7, 3), "tsoil"  # (time, lat, lon, lev)
+        cell, layer = (9, 7), 3
+    elif kind == "curvilinear":
+        a = curvilinear(tmp_path / "a.nc", lon2 + 0.1 * lat2, lat2)
+        lon2 = lon2 + 0.1 * lat2
+        index, name, cell, layer = (1, 4, 5), "tsoil", (4, 5), 1  # (lev, y, x)
+    else:
+        a = points(tmp_path / "a.nc", lon2.ravel(), lat2.ravel())
+        lon2, lat2 = lon2.ravel(), lat2.ravel()
+        index, name, cell, layer = (17, 2), "tsoil", (17,), 2  # (column, lev)
+    b = tmp_path / "b.nc"
+    shutil.copy(a, b)
+    with netCDF4.Dataset(b, "r+") as ds:
+        v = ds[name]
+        v.set_auto_maskandscale(False)
+        v[index] = v[index] + np.float32(1.0)
+    res = report.compare(a, b)
+    if kind != "regular-layer-last":  # no cell areas: the grid's warning becomes a note, not a warning
+        assert any("equal weights" in n for n in res["notes"])
+    t = res["variables"][name]
+    assert t["cells_changed"] == 1
+    assert [r["cells_changed"] for r in t["layers"]] == [int(i == layer) for i in range(5)]
+    assert t["bbox"]["lon"] == pytest.approx([lon2[cell]] * 2)
+    assert t["bbox"]["lat"] == pytest.approx([lat2[cell]] * 2)
+    assert t["area_weighted_mean_change"] == pytest.approx(1.0, abs=1e-4)
+
+
+
+def test_importing_initgen_does_not_import_matplotlib():
+    code = "import sys, initgen.report, initgen.cli; print('matplotlib' in sys.modules)"
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True).stdout
+    assert out.strip() == "False"
+
+
+def test_verify_and_preview_of_one_ensemble_member(demo, tmp_path):
+    import inspect
+
+    pairs = RECIPE.parent / "demo-warm-cold-pairs.yaml"
+    if not pairs.exists() or "member" not in inspect.signature(api.apply).parameters:
+        pytest.skip("ensemble members are not available in this tree")
+    out = tmp_path / "cold.nc"
+    record = api.apply(pairs, demo["src"], out, member="cold-x0.5")
+    assert record["member"]["name"] == "cold-x0.5"
+    res = report.verify(Path(str(out) + ".provenance.json"))
+    assert res["ok"], res["message"]
+    assert res["checks"]["member"]
+    md = report.preview_report(pairs, demo["src"], None, tmp_path / "rep", member="cold-x0.5").read_text()
+    assert "member cold-x0.5" in md
+    row0 = record["ledger"]["variables"]["tsoil"]["layers"][0]
+    assert f"| {row0['area_weighted_mean']:.4g} |" in md  # the member's ledger, not the recipe as written
