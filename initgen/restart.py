@@ -21,6 +21,7 @@ import hashlib
 import os
 import shutil
 import signal
+import struct
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Callable, Iterator
@@ -147,8 +148,9 @@ def _key(key, ndim):
 class NetCDFStore(Store):
     """A netCDF file opened with netCDF4, auto-scaling off (we pack and unpack ourselves)."""
 
-    def __init__(self, path: str | os.PathLike, mode: str = "r"):
+    def __init__(self, path: str | os.PathLike, mode: str = "r", label: str | None = None):
         self.path = Path(path)
+        self.label = label  # what messages call the file: the input, for the copy being patched
         self.ds = open_netcdf(self.path, mode)
         self.ds.set_auto_maskandscale(False)
         self.dims = {name: len(d) for name, d in self.ds.dimensions.items()}
@@ -169,12 +171,16 @@ class NetCDFStore(Store):
     def file_format(self) -> str:
         return self.ds.data_model
 
+    def describe(self):
+        return self.label or str(self.path)
+
     def read_raw(self, name, key=None):
         var = self.ds.variables[name]
         try:
             data = var[_key(key, var.ndim)]
         except (RuntimeError, OSError, IndexError) as exc:
-            raise InputError(f"{self.path}: cannot read variable '{name}' ({exc}); the file may be truncated or corrupt") from None
+            raise InputError(f"{self.describe()}: cannot read variable '{name}' ({exc}); the file may be truncated or "
+                             "corrupt") from None
         return np.ma.getdata(data)
 
     def read(self, name, key=None):
@@ -259,7 +265,7 @@ def open_netcdf(path: Path, mode: str = "r"):
     if not path.exists():
         raise InputError(f"{path}: file not found; check the path")
     try:
-        return netCDF4.Dataset(path, mode)
+        ds = netCDF4.Dataset(path, mode)
     except PermissionError:
         raise InputError(f"{path}: permission denied; check the file's permissions") from None
     except OSError as exc:
@@ -267,6 +273,99 @@ def open_netcdf(path: Path, mode: str = "r"):
         raise InputError(
             f"{path}: not a readable netCDF file ({msg}); it may be truncated or corrupt, or not netCDF at all"
         ) from None
+    if ds.data_model.startswith("NETCDF3"):
+        # the netCDF-3 library reads zeros past the end of a truncated file without a word
+        try:
+            need = netcdf3_data_end(path)
+        except (OSError, ValueError, struct.error):
+            need = None
+        size = path.stat().st_size
+        if need is not None and size < need:
+            ds.close()
+            raise InputError(f"{path}: truncated netCDF file ({size} bytes; its header describes {need}); "
+                             "copy it again from the original")
+    return ds
+
+
+_NC3_SIZES = {1: 1, 2: 1, 3: 2, 4: 4, 5: 4, 6: 8, 7: 1, 8: 2, 9: 4, 10: 8, 11: 8}
+
+
+def netcdf3_data_end(path: Path) -> int | None:
+    """The byte where the data of a netCDF-3 file (classic, 64-bit offset or CDF-5) end, from its header.
+
+    Follows the format specification (NetCDF Users Guide, "File Format Specifications"): the
+    header lists every variable with its shape, type and ``begin`` offset. None when the number
+    of records is unknown (a streaming file).
+    """
+    with open(path, "rb") as fh:
+        head = fh.read(4)
+        if head[:3] != b"CDF" or head[3] not in (1, 2, 5):
+            return None
+        version = head[3]
+        big = version == 5
+        count_fmt = ">Q" if big else ">I"
+        csize = 8 if big else 4
+        offset_fmt = ">I" if version == 1 else ">Q"
+
+        def read(fmt):
+            n = struct.calcsize(fmt)
+            data = fh.read(n)
+            if len(data) != n:
+                raise ValueError("header ends early")
+            return struct.unpack(fmt, data)[0]
+
+        def count():
+            return read(count_fmt)
+
+        def name():
+            n = count()
+            fh.read(n + (-n) % 4)
+
+        def attributes():
+            tag, n = read(">I"), count()
+            if tag not in (0, 12):
+                raise ValueError("bad attribute list")
+            for _ in range(n):
+                name()
+                nc_type, nelems = read(">I"), count()
+                size = _NC3_SIZES[nc_type] * nelems
+                fh.seek(size + (-size) % 4, 1)
+
+        numrecs = count()
+        tag, ndims = read(">I"), count()
+        if tag not in (0, 10):
+            raise ValueError("bad dimension list")
+        dims = []
+        for _ in range(ndims):
+            name()
+            dims.append(count())
+        attributes()
+        tag, nvars = read(">I"), count()
+        if tag not in (0, 11):
+            raise ValueError("bad variable list")
+        fixed_end, recs = 0, []
+        for _ in range(nvars):
+            name()
+            dimids = [count() for _ in range(count())]
+            attributes()
+            nc_type, _vsize, begin = read(">I"), count(), read(offset_fmt)
+            lengths = [dims[d] for d in dimids]
+            is_rec = bool(lengths) and lengths[0] == 0
+            n = _NC3_SIZES[nc_type]
+            for length in lengths[1:] if is_rec else lengths:
+                n *= length
+            if is_rec:
+                recs.append((begin, n))
+            else:
+                fixed_end = max(fixed_end, begin + n)
+    if recs and numrecs:
+        if numrecs == (2**64 - 1 if big else 2**32 - 1):  # streaming
+            return None
+        sizes = [n for _, n in recs]
+        recsize = sizes[0] if len(sizes) == 1 else sum(n + (-n) % 4 for n in sizes)
+        rec_end = max(begin + (numrecs - 1) * recsize + n for begin, n in recs)
+        return max(fixed_end, rec_end)
+    return fixed_end
 
 
 def sha256_file(path: str | os.PathLike, bufsize: int = 8 << 20) -> str:
@@ -445,7 +544,7 @@ def copy_and_patch(input_path: str | os.PathLike, output: str | os.PathLike, pat
                 raise _disk_error(exc, output) from None
             with contextlib.suppress(OSError):
                 os.chmod(tmp, 0o644 | (os.stat(input_path).st_mode & 0o777))
-            store = NetCDFStore(tmp, "r+")
+            store = NetCDFStore(tmp, "r+", label=str(input_path))
             try:
                 result = patch(store)
                 if history:
