@@ -82,7 +82,20 @@ def needed_roles(recipe: Document) -> tuple:
 # ---------------------------------------------------------------------------------------------
 
 
+def _keyed(exc: InputError, key: str) -> InputError:
+    """An error from a science module (which knows no recipe keys), with the recipe key in front."""
+    msg = str(exc)
+    return exc if "recipe key" in msg else InputError(f"recipe key {key}: {msg}")
+
+
 def shape_geometry(shape: dict, recipe: Document, key: str, allow_outside: bool):
+    try:
+        return _shape_geometry(shape, recipe, key, allow_outside)
+    except InputError as exc:
+        raise _keyed(exc, key) from None
+
+
+def _shape_geometry(shape: dict, recipe: Document, key: str, allow_outside: bool):
     if shape.get("geojson"):
         path = resolve_shape_file(recipe, shape["geojson"], key + ".geojson", allow_outside)
         return regions.read_geojson(path)
@@ -157,13 +170,21 @@ def _read_2d(model: ModelFile, role) -> np.ndarray:
 
 def _interp_to_grid(model: ModelFile, lon, lat, vals, key: str, weight: np.ndarray) -> np.ndarray:
     grid = model.grid
-    if lon.ndim == 1 and lat.ndim == 1 and vals.shape == (lat.size, lon.size):
-        out, covered = sources.interp_regular(lon, lat, vals, grid.lon, grid.lat)
-    else:
-        lon2, lat2 = (np.meshgrid(lon, lat) if lon.ndim == 1 and vals.ndim == 2 and vals.shape != lon.shape
-                      else (lon, lat))
-        out, covered = sources.interp_points(lon2, lat2, vals, grid.lon, grid.lat)
+    try:
+        if lon.ndim == 1 and lat.ndim == 1 and vals.shape == (lat.size, lon.size):
+            out, covered = sources.interp_regular(lon, lat, vals, grid.lon, grid.lat)
+        else:
+            lon2, lat2 = (np.meshgrid(lon, lat) if lon.ndim == 1 and vals.ndim == 2 and vals.shape != lon.shape
+                          else (lon, lat))
+            out, covered = sources.interp_points(lon2, lat2, vals, grid.lon, grid.lat)
+    except InputError as exc:
+        raise _keyed(exc, key) from None
     miss = (weight > 0) & ~np.asarray(covered, bool)
+    if np.all(miss[weight > 0]):
+        # nearest values from elsewhere for the whole region would be an invented field
+        raise InputError(f"recipe key {key}: the anomaly file covers none of the region (it spans lon "
+                         f"{np.nanmin(lon):.6g}..{np.nanmax(lon):.6g}, lat {np.nanmin(lat):.6g}..{np.nanmax(lat):.6g}); "
+                         "use a file that covers the region")
     if np.any(miss):
         frac = miss.sum() / max(1, (weight > 0).sum())
         warnings.warn(f"recipe key {key}: the anomaly file covers only {100 * (1 - frac):.1f}% of the region; "
@@ -175,8 +196,25 @@ def _interp_to_grid(model: ModelFile, lon, lat, vals, key: str, weight: np.ndarr
     return np.where(np.isfinite(out), out, 0.0)
 
 
+MAX_ANOMALY_K = 60.0  # the bound of anomaly.constant_K in the recipe schema
+
+
 def block_anomaly(model: ModelFile, anomaly: dict, recipe: Document, key: str, weight: np.ndarray,
                   allow_outside: bool):
+    a, donor = _block_anomaly(model, anomaly, recipe, key, weight, allow_outside)
+    if a is not None:
+        region = weight > 0
+        big = region & ~(np.abs(a) <= MAX_ANOMALY_K)
+        if np.any(big):
+            worst = float(np.nanmax(np.abs(np.where(big, a, 0.0)))) if np.any(np.isfinite(a[big])) else float("nan")
+            kind = next(k for k in ("field", "bias") if anomaly.get(k))
+            raise InputError(f"recipe key {key}.{kind}: the anomaly reaches {worst:.6g} K in {int(big.sum())} region "
+                             f"cell(s), beyond +-{MAX_ANOMALY_K:g} K; check the file's units and variable, or the scale")
+    return a, donor
+
+
+def _block_anomaly(model: ModelFile, anomaly: dict, recipe: Document, key: str, weight: np.ndarray,
+                   allow_outside: bool):
     if anomaly.get("constant_K") is not None:
         return np.full(model.grid.shape, float(anomaly["constant_K"])), None
     if anomaly.get("field"):
@@ -219,13 +257,18 @@ def profile_factors(profile: dict, layers: Layers | None, key: str) -> tuple[np.
               period_s=None if profile.get("period_days") is None else profile["period_days"] * 86400.0,
               max_depth_m=profile.get("max_depth_m"))
     surface = Layers(np.array([0.0]), np.array([1e-9]), np.array([0.0]))
-    fsurf = float(profiles.factor(profile["kind"], surface, evaluate="node", **kw)[0])
-    if layers is None:
-        if profile["kind"] != "uniform":
-            raise InputError(f"recipe key {key}.kind: profile '{profile['kind']}' needs soil layer depths, and none "
-                             "were found; name roles.layer_node_depth (or interfaces/thickness) in the layout")
-        return None, fsurf
-    return np.asarray(profiles.factor(profile["kind"], layers, evaluate=profile["evaluate"], **kw), float), fsurf
+    try:
+        fsurf = float(profiles.factor(profile["kind"], surface, evaluate="node", **kw)[0])
+        if layers is None:
+            if profile["kind"] != "uniform":
+                raise InputError(f"recipe key {key}.kind: profile '{profile['kind']}' needs soil layer depths, and "
+                                 "none were found; name roles.layer_node_depth (or interfaces/thickness) in the layout")
+            return None, fsurf
+        return np.asarray(profiles.factor(profile["kind"], layers, evaluate=profile["evaluate"], **kw), float), fsurf
+    except InputError as exc:
+        msg = str(exc)
+        raise (exc if "recipe key" in msg else
+               InputError(f"recipe key {key}.{msg.replace('period_s:', 'period_days:')}")) from None
 
 
 def build_plan(recipe: Document, model: ModelFile, *, allow_outside: bool = False) -> Plan:
@@ -246,7 +289,29 @@ def build_plan(recipe: Document, model: ModelFile, *, allow_outside: bool = Fals
         blocks.append(BlockPlan(b["name"], i, tuple(b["targets"]), w, anomaly, factors, fsurf, donor,
                                 b["snow_mass_mode"], b["snow_mass_change"], [str(geom.bounds)]))
         region_any |= w > 0
-    return Plan(recipe, model, blocks, dict(recipe.data["physics"]), region_any)
+    plan = Plan(recipe, model, blocks, dict(recipe.data["physics"]), region_any)
+    check_before_writing(plan)
+    return plan
+
+
+def check_before_writing(plan: Plan) -> None:
+    """Refuse units and soil textures initgen cannot use, before anything is read block by block or written."""
+    model = plan.model
+    if plan.physics.get("texture"):
+        try:
+            soil.hydraulics_from_texture(plan.physics["texture"])
+        except InputError as exc:
+            raise _keyed(exc, "physics.texture") from None
+    for target in ("soil_temperature", "skin_temperature", "snow_temperature"):
+        role = model.role(target)
+        if target in plan.targets and role is not None:
+            soil.temperature_to_kelvin(np.zeros(1), role.units or "K", name=role.variables[0])
+    if plan.physics["mode"] != "none" and "soil_temperature" in plan.targets:
+        for rname in ("soil_liquid", "soil_ice"):
+            role = model.role(rname)
+            if role is not None:
+                soil.water_to_volumetric(np.zeros(1), role.units or "kg m-2", np.ones(1), porosity=np.ones(1),
+                                         name=role.variables[0])
 
 
 # ---------------------------------------------------------------------------------------------
@@ -364,8 +429,20 @@ def _temp_write(role, store, hkey, kelvin, changed, write):
         role.write(store, hkey, soil.kelvin_to_units(kelvin, role.units or "K"), changed)
 
 
+T_PLAUSIBLE_K = (100.0, 400.0)  # the widest clamps the recipe schema allows
+
+
 def _check_no_undeclared_gaps(role, values, inside, store):
-    """NaN inside the region in a variable that declares no fill value is an error, not ocean."""
+    """NaN inside the region in a variable that declares no fill value is an error, not ocean;
+    so is a "temperature" no soil or snow can have (an undeclared fill value such as 1e20 or the
+    netCDF default 9.97e36), which the clamps would otherwise turn into a plausible number."""
+    lo, hi = T_PLAUSIBLE_K
+    odd = inside & np.isfinite(values) & ((values < lo) | (values > hi))
+    if np.any(odd):
+        v = float(values[odd].flat[0])
+        raise InputError(f"{store.describe()}: variable '{role.variables[0]}' holds {v:.6g} K inside the region "
+                         f"({int(odd.sum())} value(s) outside {lo:g}..{hi:g} K), not a temperature; declare it as "
+                         "_FillValue or fix the file")
     if not np.any(inside & ~np.isfinite(values)):
         return
     attrs = role.views[0].info.attrs
@@ -462,6 +539,7 @@ def _surface_temperature(plan, store, hkey, target, weights, inside_h, led, area
     layered = role.layered
     T0 = T0 if layered else T0[:, None]
     inside = np.broadcast_to(_bcast_h(inside_h, 2), T0.shape) & np.isfinite(T0)
+    _check_no_undeclared_gaps(role, T0, np.broadcast_to(_bcast_h(inside_h, 2), T0.shape), store)
     T = T0.copy()
     for b, w in zip(plan.blocks, weights):
         if target not in b.targets:
