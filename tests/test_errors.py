@@ -1,0 +1,938 @@
+"""The error catalogue: every bad input initgen can be given, one test each.
+
+Each test feeds one bad input to the command line (``initgen.cli.main``) and checks the
+promise of the README: exit status 2; exactly one line on stderr (warnings count as lines),
+starting ``initgen: error:``, naming the file, variable or recipe key and saying what to do;
+no traceback; no output file, no provenance record and no ``*.initgen-tmp`` temporary left
+behind; and the input file (and every other file the test watches) byte-for-byte unchanged.
+
+The test names read as the catalogue: ``test_<the bad input>``.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import os
+import subprocess
+import sys
+import warnings
+from pathlib import Path
+
+import netCDF4
+import numpy as np
+import pytest
+
+from initgen.cli import main
+from initgen.demo import write_demo_restart
+from initgen.errors import InputWarning
+
+from filemaker import NODES, curvilinear, points, regular
+
+# ---------------------------------------------------------------------------------------------
+# Helpers
+# ---------------------------------------------------------------------------------------------
+
+_QUIET = (DeprecationWarning, PendingDeprecationWarning, ImportWarning, ResourceWarning)
+
+
+def sha(path) -> str:
+    return hashlib.sha256(Path(path).read_bytes()).hexdigest()
+
+
+def listing(folder: Path) -> dict:
+    """Every file under ``folder`` with its sha256 (folders by name only)."""
+    out = {}
+    for p in sorted(Path(folder).rglob("*")):
+        out[str(p.relative_to(folder))] = sha(p) if p.is_file() else "<dir>"
+    return out
+
+
+def run(argv):
+    """Run the CLI; return (exit code, stdout, stderr lines incl. warnings shown to the user)."""
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        try:
+            rc = main([str(a) for a in argv])
+        except SystemExit as exc:  # argparse errors
+            rc = exc.code
+    shown = [f"initgen: warning: {w.message}" for w in caught if not issubclass(w.category, _QUIET)]
+    return rc, shown
+
+
+def refused(capsys, argv, *phrases, folder: Path, watch=()):
+    """Assert the CLI refuses ``argv`` the way the README promises; return the message line.
+
+    ``folder`` is the test's working folder: nothing in it may change (no output, no record,
+    no temporary), and every file in it keeps its sha256. ``watch`` adds files elsewhere.
+    """
+    folder = Path(folder)
+    before = listing(folder)
+    watched = {Path(p): sha(p) for p in watch}
+    capsys.readouterr()
+    rc, shown = run(argv)
+    cap = capsys.readouterr()
+    lines = shown + cap.err.splitlines()
+    assert rc == 2, f"exit {rc}, stderr: {cap.err!r}, stdout: {cap.out!r}"
+    assert len(lines) == 1, f"expected one stderr line, got {lines!r}"
+    line = lines[0]
+    assert line.startswith("initgen: error: "), line
+    assert "Traceback" not in cap.err + cap.out
+    for phrase in phrases:
+        assert phrase in line, f"{phrase!r} not in {line!r}"
+    after = listing(folder)
+    assert not [k for k in after if k.endswith(".initgen-tmp")], after
+    assert after == before, f"files changed: {set(after) ^ set(before)}"
+    for p, h in watched.items():
+        assert sha(p) == h, f"{p} changed"
+    return line
+
+
+# ---------------------------------------------------------------------------------------------
+# Inputs
+# ---------------------------------------------------------------------------------------------
+
+RECIPE = """\
+initgen_recipe: 1
+name: cat
+perturbations:
+  - name: blk
+    region:
+      include: [{box: {lon: [20, 80], lat: [10, 50]}}]
+      taper_km: 200
+    anomaly: {constant_K: -2}
+    profile: {kind: exponential, efolding_m: 0.5}
+"""
+
+
+def recipe(folder: Path, text: str = RECIPE, name: str = "r.yaml") -> Path:
+    p = Path(folder) / name
+    p.write_text(text)
+    return p
+
+
+def swap(old: str, new: str, text: str = RECIPE) -> str:
+    assert old in text, old
+    return text.replace(old, new)
+
+
+@pytest.fixture
+def work(tmp_path):
+    """A folder with a small regular input file ``in.nc`` (10-degree global grid, CF names)."""
+    regular(tmp_path / "in.nc")
+    return tmp_path
+
+
+def apply_argv(work, rec, *extra, output="out.nc"):
+    return ["apply", rec, "--input", work / "in.nc", "--output", work / output, *extra]
+
+
+def custom_file(path, *, lon=None, lat=None, lon_units="degrees_east", lat_units="degrees_north",
+                lon_name="lon", lat_name="lat", t_units="K", t_fill=True, t_values=None, coords=True):
+    """A small regular file (lat 6 x lon 12 x 5 layers) with whatever is wrong with it."""
+    lon = np.arange(15.0, 360.0, 30.0) if lon is None else np.asarray(lon, float)
+    lat = np.arange(-75.0, 90.0, 30.0) if lat is None else np.asarray(lat, float)
+    with netCDF4.Dataset(path, "w") as ds:
+        ds.createDimension("lon", lon.size)
+        ds.createDimension("lat", lat.size)
+        ds.createDimension("lev", NODES.size)
+        if coords:
+            v = ds.createVariable(lon_name, "f8", ("lon",))
+            v.units = lon_units
+            v[:] = lon
+            v = ds.createVariable(lat_name, "f8", ("lat",))
+            v.units = lat_units
+            v[:] = lat
+        v = ds.createVariable("lev", "f4", ("lev",))
+        v.units, v.positive = "m", "down"
+        v[:] = NODES
+        kw = {"fill_value": np.float32(1e20)} if t_fill else {}
+        v = ds.createVariable("tsoil", "f4", ("lev", "lat", "lon"), **kw)
+        v.units, v.standard_name = t_units, "soil_temperature"
+        v[:] = (np.full((NODES.size, lat.size, lon.size), 280.0) if t_values is None else t_values)
+    return Path(path)
+
+
+def field_file(path, lon, lat, values=None, name="anom"):
+    lon, lat = np.asarray(lon, float), np.asarray(lat, float)
+    with netCDF4.Dataset(path, "w") as ds:
+        ds.createDimension("lon", lon.size)
+        ds.createDimension("lat", lat.size)
+        v = ds.createVariable("lon", "f8", ("lon",))
+        v.units = "degrees_east"
+        v[:] = lon
+        v = ds.createVariable("lat", "f8", ("lat",))
+        v.units = "degrees_north"
+        v[:] = lat
+        v = ds.createVariable(name, "f4", ("lat", "lon"))
+        v.units = "K"
+        v[:] = np.full((lat.size, lon.size), -1.5) if values is None else values
+    return Path(path)
+
+
+def field_recipe(folder, file="anom.nc", variable="anom"):
+    return recipe(folder, swap("anomaly: {constant_K: -2}",
+                               f"anomaly: {{field: {{file: {file}, variable: {variable}}}}}"))
+
+
+# =============================================================================================
+# Recipe files
+# =============================================================================================
+
+
+def test_missing_recipe_file(work, capsys):
+    refused(capsys, ["check", work / "nope.yaml"], "nope.yaml", "not found", "check the path", folder=work)
+
+
+def test_recipe_is_a_folder(work, capsys):
+    (work / "sub").mkdir()
+    refused(capsys, ["check", work / "sub"], "sub", "is a folder", "YAML file", folder=work)
+
+
+def test_recipe_not_utf8(work, capsys):
+    p = work / "r.yaml"
+    p.write_bytes(RECIPE.encode("utf-16"))
+    refused(capsys, ["check", p], "r.yaml", "not UTF-8", "save it as UTF-8", folder=work)
+
+
+def test_malformed_yaml(work, capsys):
+    rec = recipe(work, RECIPE + "  - name: [unclosed\n")
+    refused(capsys, apply_argv(work, rec), "r.yaml", "malformed YAML at line", "fix the syntax", folder=work)
+
+
+def test_yaml_tab_indentation(work, capsys):
+    rec = recipe(work, RECIPE.replace("    anomaly", "\tanomaly"))
+    refused(capsys, apply_argv(work, rec), "r.yaml", "malformed YAML", folder=work)
+
+
+def test_empty_recipe(work, capsys):
+    rec = recipe(work, "# nothing but a comment\n")
+    refused(capsys, apply_argv(work, rec), "r.yaml", "the recipe is empty", "initgen schema", folder=work)
+
+
+def test_recipe_top_level_is_a_list(work, capsys):
+    rec = recipe(work, "- initgen_recipe: 1\n- name: x\n")
+    refused(capsys, apply_argv(work, rec), "r.yaml", "must be a mapping", folder=work)
+
+
+def test_recipe_without_version_key(work, capsys):
+    rec = recipe(work, RECIPE.replace("initgen_recipe: 1\n", ""))
+    refused(capsys, apply_argv(work, rec), "r.yaml", "initgen_recipe: 1", "add it", folder=work)
+
+
+def test_recipe_version_from_the_future(work, capsys):
+    rec = recipe(work, swap("initgen_recipe: 1", "initgen_recipe: 99"))
+    refused(capsys, apply_argv(work, rec), "recipe key initgen_recipe", "must be <= 1", folder=work)
+
+
+def test_yaml_python_object_tag(work, capsys):
+    marker = work / "pwned"
+    rec = recipe(work, swap("name: cat", f"name: !!python/object/apply:os.system ['touch {marker}']"))
+    refused(capsys, apply_argv(work, rec), "r.yaml", "refused YAML tag", "plain data", folder=work)
+    assert not marker.exists()
+
+
+def test_yaml_python_name_tag(work, capsys):
+    rec = recipe(work, swap("anomaly: {constant_K: -2}", "anomaly:\n      constant_K: !!python/name:os.getcwd ''"))
+    refused(capsys, apply_argv(work, rec), "r.yaml", "refused YAML tag", folder=work)
+
+
+def test_yaml_custom_local_tag(work, capsys):
+    rec = recipe(work, swap("constant_K: -2", "constant_K: !kelvin -2"))
+    refused(capsys, apply_argv(work, rec), "r.yaml", "refused YAML tag", folder=work)
+
+
+def test_yaml_key_that_is_not_a_string(work, capsys):
+    rec = recipe(work, swap("    anomaly: {constant_K: -2}", "    anomaly: {constant_K: -2, 3: x}"))
+    refused(capsys, apply_argv(work, rec), "perturbations[0].anomaly", "keys must be strings", folder=work)
+
+
+def test_unknown_top_level_key(work, capsys):
+    rec = recipe(work, RECIPE.replace("perturbations:", "perturbation:"))
+    refused(capsys, apply_argv(work, rec), "recipe key perturbation", "did you mean 'perturbations'",
+            folder=work)
+
+
+def test_unknown_nested_key(work, capsys):
+    rec = recipe(work, swap("taper_km: 200", "taper_kms: 200"))
+    refused(capsys, apply_argv(work, rec), "perturbations[0].region.taper_kms", "did you mean 'taper_km'",
+            folder=work)
+
+
+def test_wrong_type_string_for_number(work, capsys):
+    rec = recipe(work, swap("taper_km: 200", "taper_km: wide"))
+    refused(capsys, apply_argv(work, rec), "perturbations[0].region.taper_km", "must be a number", folder=work)
+
+
+def test_wrong_type_boolean_for_number(work, capsys):
+    rec = recipe(work, swap("constant_K: -2", "constant_K: yes"))
+    refused(capsys, apply_argv(work, rec), "perturbations[0].anomaly.constant_K", "must be a number",
+            folder=work)
+
+
+def test_wrong_type_string_for_list(work, capsys):
+    rec = recipe(work, RECIPE + "    targets: soil_temperature\n")
+    refused(capsys, apply_argv(work, rec), "perturbations[0].targets", "must be a list", folder=work)
+
+
+def test_wrong_type_list_for_mapping(work, capsys):
+    rec = recipe(work, swap("anomaly: {constant_K: -2}", "anomaly: [-2]"))
+    refused(capsys, apply_argv(work, rec), "perturbations[0].anomaly", "must be a mapping", folder=work)
+
+
+def test_negative_taper(work, capsys):
+    rec = recipe(work, swap("taper_km: 200", "taper_km: -50"))
+    refused(capsys, apply_argv(work, rec), "perturbations[0].region.taper_km", "must be >= 0", folder=work)
+
+
+def test_absurd_taper(work, capsys):
+    rec = recipe(work, swap("taper_km: 200", "taper_km: 1.0e9"))
+    refused(capsys, apply_argv(work, rec), "perturbations[0].region.taper_km", "must be <= 5000", folder=work)
+
+
+def test_anomaly_of_thousands_of_kelvin(work, capsys):
+    rec = recipe(work, swap("constant_K: -2", "constant_K: -3000"))
+    refused(capsys, apply_argv(work, rec), "perturbations[0].anomaly.constant_K", "must be >= -60", folder=work)
+
+
+def test_anomaly_not_a_number(work, capsys):
+    rec = recipe(work, swap("constant_K: -2", "constant_K: .nan"))
+    refused(capsys, apply_argv(work, rec), "perturbations[0].anomaly.constant_K", "finite", folder=work)
+
+
+def test_anomaly_infinite(work, capsys):
+    rec = recipe(work, swap("constant_K: -2", "constant_K: -.inf"))
+    refused(capsys, apply_argv(work, rec), "perturbations[0].anomaly.constant_K", "finite", folder=work)
+
+
+def test_negative_efolding_depth(work, capsys):
+    rec = recipe(work, swap("efolding_m: 0.5", "efolding_m: -0.5"))
+    refused(capsys, apply_argv(work, rec), "perturbations[0].profile.efolding_m", "must be > 0", folder=work)
+
+
+def test_absurd_max_depth(work, capsys):
+    rec = recipe(work, swap("efolding_m: 0.5", "efolding_m: 0.5, max_depth_m: 1.0e7"))
+    refused(capsys, apply_argv(work, rec), "perturbations[0].profile.max_depth_m", "must be <= 1000",
+            folder=work)
+
+
+def test_profile_table_with_negative_depth(work, capsys):
+    rec = recipe(work, swap("{kind: exponential, efolding_m: 0.5}", "{kind: table, table: [[-1, 1], [2, 0]]}"))
+    refused(capsys, apply_argv(work, rec), "perturbations[0].profile.table", folder=work)
+
+
+def test_profile_table_with_non_monotonic_depths(work, capsys):
+    rec = recipe(work, swap("{kind: exponential, efolding_m: 0.5}",
+                            "{kind: table, table: [[0, 1], [1.0, 0.5], [0.5, 0.2]]}"))
+    refused(capsys, apply_argv(work, rec), "perturbations[0].profile.table", "increasing", folder=work)
+
+
+def test_profile_missing_its_parameter(work, capsys):
+    rec = recipe(work, swap("{kind: exponential, efolding_m: 0.5}", "{kind: damping, period_days: 365}"))
+    refused(capsys, apply_argv(work, rec), "perturbations[0].profile.diffusivity_m2_s",
+            "required for kind 'damping'", folder=work)
+
+
+def test_unknown_profile_kind(work, capsys):
+    rec = recipe(work, swap("kind: exponential", "kind: exponentail"))
+    refused(capsys, apply_argv(work, rec), "perturbations[0].profile.kind", "did you mean 'exponential'",
+            folder=work)
+
+
+def test_two_anomaly_kinds_at_once(work, capsys):
+    rec = recipe(work, swap("anomaly: {constant_K: -2}", "anomaly: {constant_K: -2, donor: {file: x.nc}}"))
+    refused(capsys, apply_argv(work, rec), "perturbations[0].anomaly", "give exactly one of", folder=work)
+
+
+def test_duplicate_perturbation_names(work, capsys):
+    body = RECIPE.split("perturbations:\n")[1]
+    rec = recipe(work, RECIPE + body)
+    refused(capsys, apply_argv(work, rec), "perturbations[1].name", "duplicate name", folder=work)
+
+
+def test_unknown_target(work, capsys):
+    rec = recipe(work, RECIPE + "    targets: [soil_moisture]\n")
+    refused(capsys, apply_argv(work, rec), "perturbations[0].targets[0]", "must be one of", folder=work)
+
+
+def test_box_south_above_north(work, capsys):
+    rec = recipe(work, swap("lat: [10, 50]", "lat: [50, 10]"))
+    refused(capsys, apply_argv(work, rec), "perturbations[0].region.include[0].box.lat", "below north",
+            folder=work)
+
+
+def test_box_latitude_beyond_the_pole(work, capsys):
+    rec = recipe(work, swap("lat: [10, 50]", "lat: [10, 95]"))
+    refused(capsys, apply_argv(work, rec), "perturbations[0].region.include[0].box.lat[1]", "<= 90",
+            folder=work)
+
+
+def test_vertices_beyond_the_pole(work, capsys):
+    rec = recipe(work, swap("{box: {lon: [20, 80], lat: [10, 50]}}", "{vertices: [[20, 10], [80, 10], [50, 120]]}"))
+    refused(capsys, apply_argv(work, rec), "perturbations[0].region.include[0]", "latitude", folder=work)
+
+
+def test_degenerate_vertices(work, capsys):
+    rec = recipe(work, swap("{box: {lon: [20, 80], lat: [10, 50]}}", "{vertices: [[20, 10], [30, 20], [40, 30]]}"))
+    refused(capsys, apply_argv(work, rec), "perturbations[0].region.include[0]", folder=work)
+
+
+def test_elevation_band_upside_down(work, capsys):
+    rec = recipe(work, swap("taper_km: 200", "taper_km: 200\n      elevation: {min_m: 2000, max_m: 1000}"))
+    refused(capsys, apply_argv(work, rec), "perturbations[0].region.elevation.max_m", "must be above min_m",
+            folder=work)
+
+
+def test_clamps_upside_down(work, capsys):
+    rec = recipe(work, RECIPE + "physics: {soil_temperature_min_K: 273.15, soil_temperature_max_K: 273.15}\n")
+    refused(capsys, apply_argv(work, rec), "physics.soil_temperature_min_K", "below soil_temperature_max_K",
+            folder=work)
+
+
+def test_unknown_soil_texture(work, capsys):
+    demo = write_demo_restart(work / "demo.nc")
+    rec = recipe(work, swap("lon: [20, 80], lat: [10, 50]", "lon: [170, 190], lat: [30, 45]")
+                 + "physics: {mode: energy, texture: moonrock}\n")
+    refused(capsys, ["apply", rec, "--input", demo, "--output", work / "o.nc"], "physics.texture", "moonrock",
+            folder=work)
+
+
+def test_physics_mode_without_soil_parameters(work, capsys):
+    demo = write_demo_restart(work / "demo.nc")
+    rec = recipe(work, swap("lon: [20, 80], lat: [10, 50]", "lon: [170, 190], lat: [30, 45]")
+                 + "physics: {mode: temperature}\n")
+    refused(capsys, ["apply", rec, "--input", demo, "--output", work / "o.nc"], "physics",
+            "texture", folder=work)
+
+
+def test_snow_mass_target_without_a_change(work, capsys):
+    rec = recipe(work, RECIPE + "    targets: [snow_mass]\n")
+    refused(capsys, apply_argv(work, rec), "perturbations[0].snow_mass_change", "non-zero", folder=work)
+
+
+def test_unknown_published_region_set(work, capsys):
+    rec = recipe(work, swap("{box: {lon: [20, 80], lat: [10, 50]}}", "{published: {set: atlantis, regions: [X]}}"))
+    refused(capsys, apply_argv(work, rec), "perturbations[0].region.include[0]", "atlantis", folder=work)
+
+
+# =============================================================================================
+# Files named in a recipe (untrusted recipes may not leave their folder)
+# =============================================================================================
+
+GEO_POLY = {"type": "Polygon", "coordinates": [[[20, 10], [80, 10], [80, 50], [20, 50], [20, 10]]]}
+
+
+def geo_recipe(folder, name="shape.geojson"):
+    return recipe(folder, swap("{box: {lon: [20, 80], lat: [10, 50]}}", f"{{geojson: {name}}}"))
+
+
+def test_geojson_missing(work, capsys):
+    rec = geo_recipe(work, "nowhere.geojson")
+    refused(capsys, apply_argv(work, rec), "perturbations[0].region.include[0].geojson", "nowhere.geojson",
+            "not found", folder=work)
+
+
+def test_geojson_not_a_polygon(work, capsys):
+    (work / "shape.geojson").write_text(json.dumps({"type": "Point", "coordinates": [40, 30]}))
+    rec = geo_recipe(work)
+    refused(capsys, apply_argv(work, rec), "shape.geojson", "Point", "Polygon", folder=work)
+
+
+def test_geojson_line_feature(work, capsys):
+    feat = {"type": "FeatureCollection", "features": [
+        {"type": "Feature", "properties": {}, "geometry": {"type": "LineString", "coordinates": [[0, 0], [1, 1]]}}]}
+    (work / "shape.geojson").write_text(json.dumps(feat))
+    rec = geo_recipe(work)
+    refused(capsys, apply_argv(work, rec), "shape.geojson", "LineString", folder=work)
+
+
+def test_geojson_not_json(work, capsys):
+    (work / "shape.geojson").write_text("{ this is not json")
+    rec = geo_recipe(work)
+    refused(capsys, apply_argv(work, rec), "shape.geojson", "not valid JSON", folder=work)
+
+
+def test_geojson_leaving_the_recipe_folder(tmp_path, capsys):
+    work = tmp_path / "w"
+    work.mkdir()
+    regular(work / "in.nc")
+    (tmp_path / "outside.geojson").write_text(json.dumps(GEO_POLY))
+    rec = geo_recipe(work, "../outside.geojson")
+    refused(capsys, apply_argv(work, rec), "perturbations[0].region.include[0].geojson", "leaves the recipe's folder",
+            "--allow-outside-paths", folder=work)
+    # and it is accepted when the caller allows it
+    assert main([str(a) for a in ["check", rec, "--input", work / "in.nc", "--allow-outside-paths"]]) == 0
+
+
+def test_geojson_absolute_path_outside(tmp_path, capsys):
+    work = tmp_path / "w"
+    work.mkdir()
+    regular(work / "in.nc")
+    (tmp_path / "outside.geojson").write_text(json.dumps(GEO_POLY))
+    rec = geo_recipe(work, str(tmp_path / "outside.geojson"))
+    refused(capsys, apply_argv(work, rec), "leaves the recipe's folder", "--allow-outside-paths", folder=work)
+
+
+def test_geojson_symlink_leaving_the_folder(tmp_path, capsys):
+    work = tmp_path / "w"
+    work.mkdir()
+    regular(work / "in.nc")
+    (tmp_path / "outside.geojson").write_text(json.dumps(GEO_POLY))
+    (work / "inside.geojson").symlink_to(tmp_path / "outside.geojson")
+    rec = geo_recipe(work, "inside.geojson")
+    refused(capsys, apply_argv(work, rec), "leaves the recipe's folder", folder=work)
+
+
+def test_anomaly_file_leaving_the_recipe_folder(tmp_path, capsys):
+    work = tmp_path / "w"
+    work.mkdir()
+    regular(work / "in.nc")
+    field_file(tmp_path / "anom.nc", np.arange(0, 360, 10.0), np.arange(-85, 90, 10.0))
+    rec = field_recipe(work, "../anom.nc")
+    refused(capsys, apply_argv(work, rec), "perturbations[0].anomaly.field.file", "leaves the recipe's folder",
+            "--allow-outside-paths", folder=work, watch=[tmp_path / "anom.nc"])
+
+
+def test_anomaly_file_missing(work, capsys):
+    rec = field_recipe(work, "nothing.nc")
+    refused(capsys, apply_argv(work, rec), "perturbations[0].anomaly.field.file", "not found", folder=work)
+
+
+def test_anomaly_file_without_the_variable(work, capsys):
+    field_file(work / "anom.nc", np.arange(0, 360, 10.0), np.arange(-85, 90, 10.0))
+    rec = field_recipe(work, variable="dT")
+    refused(capsys, apply_argv(work, rec), "anom.nc", "'dT'", "perturbations[0].anomaly.field.variable",
+            folder=work)
+
+
+def test_anomaly_file_not_netcdf(work, capsys):
+    (work / "anom.nc").write_text("just text\n")
+    rec = field_recipe(work)
+    refused(capsys, apply_argv(work, rec), "anom.nc", "not a readable netCDF file", folder=work)
+
+
+def test_anomaly_file_covering_none_of_the_region(work, capsys):
+    """Policy: a field that covers none of the region is an error (exit 2), since every region
+    value would be extrapolated from far away; one that covers part of the region is accepted
+    with a warning naming the key and the coverage (nearest values beyond its edge), see
+    test_anomaly_file_covering_part_of_the_region_warns."""
+    field_file(work / "anom.nc", np.arange(200.0, 260.0, 5.0), np.arange(-60.0, -20.0, 5.0))
+    rec = field_recipe(work)
+    refused(capsys, apply_argv(work, rec), "perturbations[0].anomaly.field", "covers none of the region",
+            folder=work)
+
+
+def test_anomaly_file_covering_part_of_the_region_warns(work, capsys):
+    field_file(work / "anom.nc", np.arange(0.0, 52.0, 2.0), np.arange(-10.0, 62.0, 2.0))
+    rec = field_recipe(work)
+    src = sha(work / "in.nc")
+    capsys.readouterr()
+    rc, shown = run(apply_argv(work, rec, "--quiet"))
+    err = shown + capsys.readouterr().err.splitlines()
+    assert rc == 0
+    assert len(err) == 1 and err[0].startswith("initgen: warning: "), err
+    assert "perturbations[0].anomaly.field" in err[0] and "covers only" in err[0]
+    assert (work / "out.nc").exists() and sha(work / "in.nc") == src
+
+
+def test_anomaly_file_all_missing_values(work, capsys):
+    field_file(work / "anom.nc", np.arange(0, 360, 10.0), np.arange(-85, 90, 10.0),
+               values=np.full((18, 36), np.nan))
+    rec = field_recipe(work)
+    refused(capsys, apply_argv(work, rec), "perturbations[0].anomaly.field", "no finite values", folder=work)
+
+
+def test_anomaly_file_with_absurd_values(work, capsys):
+    field_file(work / "anom.nc", np.arange(0, 360, 10.0), np.arange(-85, 90, 10.0),
+               values=np.full((18, 36), 5000.0))
+    rec = field_recipe(work)
+    refused(capsys, apply_argv(work, rec), "perturbations[0].anomaly.field", "5000", folder=work)
+
+
+def test_donor_on_another_grid(work, capsys):
+    custom_file(work / "donor.nc")
+    rec = recipe(work, swap("anomaly: {constant_K: -2}", "anomaly: {donor: {file: donor.nc}}"))
+    refused(capsys, apply_argv(work, rec), "perturbations[0].anomaly.donor.file", "same grid", folder=work)
+
+
+# =============================================================================================
+# Layouts
+# =============================================================================================
+
+LAYOUT = """\
+initgen_layout: 1
+name: test-model
+roles:
+  longitude: lon
+  latitude: lat
+  soil_temperature: tsoil
+  land_fraction: landfrac
+  layer_node_depth: {values: [0.05, 0.15, 0.35, 0.75, 1.5], units: m}
+"""
+
+
+def layout(folder, text=LAYOUT):
+    p = Path(folder) / "layout.yaml"
+    p.write_text(text)
+    return p
+
+
+def test_layout_missing_file(work, capsys):
+    rec = recipe(work)
+    refused(capsys, apply_argv(work, rec, "--layout", work / "nolayout.yaml"), "nolayout.yaml", "not found",
+            folder=work)
+
+
+def test_layout_without_version_key(work, capsys):
+    rec = recipe(work)
+    lay = layout(work, LAYOUT.replace("initgen_layout: 1\n", ""))
+    refused(capsys, apply_argv(work, rec, "--layout", lay), "layout.yaml", "initgen_layout: 1", folder=work)
+
+
+def test_layout_unknown_role(work, capsys):
+    rec = recipe(work)
+    lay = layout(work, LAYOUT + "  soil_temprature: tsoil\n")
+    refused(capsys, apply_argv(work, rec, "--layout", lay), "roles.soil_temprature",
+            "did you mean 'soil_temperature'", folder=work)
+
+
+def test_layout_names_a_missing_variable(work, capsys):
+    rec = recipe(work)
+    lay = layout(work, LAYOUT.replace("soil_temperature: tsoil", "soil_temperature: TSL"))
+    refused(capsys, apply_argv(work, rec, "--layout", lay), "roles.soil_temperature", "'TSL'", "in.nc",
+            folder=work)
+
+
+def test_layout_names_a_missing_per_layer_variable(work, capsys):
+    rec = recipe(work)
+    lay = layout(work, LAYOUT.replace("soil_temperature: tsoil", "soil_temperature: [tsoil, T2]"))
+    refused(capsys, apply_argv(work, rec, "--layout", lay), "roles.soil_temperature", "'T2'", folder=work)
+
+
+def test_variable_with_unexpected_dimensions(work, capsys):
+    rec = recipe(work)
+    lay = layout(work, LAYOUT.replace("soil_temperature: tsoil", "soil_temperature: lev"))
+    refused(capsys, apply_argv(work, rec, "--layout", lay), "'lev'", "soil_temperature", "horizontal dims",
+            folder=work)
+
+
+def test_variable_with_two_candidate_layer_axes(work, capsys):
+    # neither extra axis has a coordinate with length units: initgen cannot tell which holds the layers
+    with netCDF4.Dataset(work / "in.nc", "a") as ds:
+        ds.createDimension("band", 3)
+        ds.createDimension("k", 5)
+        v = ds.createVariable("t4", "f4", ("band", "k", "lat", "lon"), fill_value=np.float32(1e20))
+        v.units = "K"
+        v[:] = 280.0
+    rec = recipe(work)
+    lay = layout(work, LAYOUT.replace("soil_temperature: tsoil", "soil_temperature: t4"))
+    refused(capsys, apply_argv(work, rec, "--layout", lay), "'t4'", "layer_dimension", folder=work)
+
+
+def test_layer_depths_not_monotonic(work, capsys):
+    rec = recipe(work)
+    lay = layout(work, LAYOUT.replace("[0.05, 0.15, 0.35, 0.75, 1.5]", "[0.05, 0.35, 0.15, 0.75, 1.5]"))
+    refused(capsys, apply_argv(work, rec, "--layout", lay), "roles.layer_node_depth", "strictly increasing",
+            folder=work)
+
+
+def test_layer_depths_not_monotonic_in_the_file(work, capsys):
+    with netCDF4.Dataset(work / "in.nc", "a") as ds:
+        ds["lev"][:] = np.array([0.05, 0.35, 0.15, 0.75, 1.5])
+    rec = recipe(work)
+    refused(capsys, apply_argv(work, rec), "lev", "strictly increasing", folder=work)
+
+
+def test_layer_depths_count_mismatch(work, capsys):
+    rec = recipe(work)
+    lay = layout(work, LAYOUT.replace("[0.05, 0.15, 0.35, 0.75, 1.5]", "[0.05, 0.15, 0.35]"))
+    refused(capsys, apply_argv(work, rec, "--layout", lay), "5 layers", "3", folder=work)
+
+
+def test_layer_depths_in_unknown_units(work, capsys):
+    rec = recipe(work)
+    lay = layout(work, LAYOUT.replace("units: m}", "units: fathoms}"))
+    refused(capsys, apply_argv(work, rec, "--layout", lay), "roles.layer_node_depth", "fathoms", "'m'",
+            folder=work)
+
+
+def test_layer_depths_with_nan(work, capsys):
+    rec = recipe(work)
+    lay = layout(work, LAYOUT.replace("[0.05, 0.15, 0.35, 0.75, 1.5]", "[0.05, .nan, 0.35, 0.75, 1.5]"))
+    refused(capsys, apply_argv(work, rec, "--layout", lay), "roles.layer_node_depth", folder=work)
+
+
+# =============================================================================================
+# Model files
+# =============================================================================================
+
+
+def test_missing_input_file(work, capsys):
+    rec = recipe(work)
+    refused(capsys, ["apply", rec, "--input", work / "gone.nc", "--output", work / "out.nc"],
+            "gone.nc", "not found", "check the path", folder=work)
+
+
+def test_input_is_a_folder(work, capsys):
+    (work / "dir.nc").mkdir()
+    rec = recipe(work)
+    refused(capsys, ["apply", rec, "--input", work / "dir.nc", "--output", work / "out.nc"],
+            "dir.nc", "is a folder", folder=work)
+
+
+def test_truncated_netcdf(work, capsys):
+    data = (work / "in.nc").read_bytes()
+    (work / "cut.nc").write_bytes(data[: len(data) // 2])
+    rec = recipe(work)
+    refused(capsys, ["apply", rec, "--input", work / "cut.nc", "--output", work / "out.nc"],
+            "cut.nc", "truncated or corrupt", folder=work)
+
+
+def test_truncated_netcdf3(work, capsys):
+    regular(work / "c.nc", fmt="NETCDF3_64BIT_OFFSET")
+    data = (work / "c.nc").read_bytes()
+    (work / "c.nc").write_bytes(data[: int(len(data) * 0.6)])
+    rec = recipe(work)
+    refused(capsys, ["apply", rec, "--input", work / "c.nc", "--output", work / "out.nc"],
+            "c.nc", "truncated netCDF file", "copy it again", folder=work)
+
+
+def test_corrupt_netcdf_random_bytes(work, capsys):
+    (work / "rnd.nc").write_bytes(np.random.default_rng(1).bytes(50_000))
+    rec = recipe(work)
+    refused(capsys, ["apply", rec, "--input", work / "rnd.nc", "--output", work / "out.nc"],
+            "rnd.nc", "not a readable netCDF file", folder=work)
+
+
+def test_corrupt_netcdf_header_right_body_garbage(work, capsys):
+    data = bytearray((work / "in.nc").read_bytes())
+    rng = np.random.default_rng(2)
+    data[4096:] = rng.bytes(len(data) - 4096)
+    (work / "bad.nc").write_bytes(bytes(data))
+    rec = recipe(work)
+    refused(capsys, ["apply", rec, "--input", work / "bad.nc", "--output", work / "out.nc"], "bad.nc",
+            folder=work)
+
+
+def test_empty_input_file(work, capsys):
+    (work / "empty.nc").write_bytes(b"")
+    rec = recipe(work)
+    refused(capsys, ["apply", rec, "--input", work / "empty.nc", "--output", work / "out.nc"],
+            "empty.nc", "not a readable netCDF file", folder=work)
+
+
+def test_no_lon_lat_found(work, capsys):
+    custom_file(work / "nolonlat.nc", coords=False)
+    rec = recipe(work)
+    refused(capsys, ["apply", rec, "--input", work / "nolonlat.nc", "--output", work / "out.nc"],
+            "nolonlat.nc", "no longitude/latitude", "roles.longitude", folder=work)
+
+
+def test_longitude_outside_its_range(work, capsys):
+    custom_file(work / "proj.nc", lon=np.arange(12) * 1.0e5)
+    rec = recipe(work)
+    refused(capsys, ["apply", rec, "--input", work / "proj.nc", "--output", work / "out.nc"],
+            "proj.nc", "longitude 'lon'", "-180..360", folder=work)
+
+
+def test_latitude_outside_its_range(work, capsys):
+    custom_file(work / "lat.nc", lat=np.linspace(-150.0, 150.0, 6))
+    rec = recipe(work)
+    refused(capsys, ["apply", rec, "--input", work / "lat.nc", "--output", work / "out.nc"],
+            "lat.nc", "latitude 'lat'", "-90..90", folder=work)
+
+
+def test_longitude_with_missing_values(work, capsys):
+    lon = np.arange(15.0, 360.0, 30.0)
+    lon[3] = np.nan
+    custom_file(work / "nanlon.nc", lon=lon)
+    rec = recipe(work)
+    refused(capsys, ["apply", rec, "--input", work / "nanlon.nc", "--output", work / "out.nc"],
+            "nanlon.nc", "missing values", folder=work)
+
+
+def test_soil_temperature_in_furlongs(work, capsys):
+    custom_file(work / "f.nc", t_units="furlongs")
+    rec = recipe(work)
+    refused(capsys, ["apply", rec, "--input", work / "f.nc", "--output", work / "out.nc"],
+            "tsoil", "furlongs", "K", folder=work)
+
+
+def test_soil_water_in_furlongs_in_a_physics_mode(work, capsys):
+    demo = write_demo_restart(work / "demo.nc")
+    with netCDF4.Dataset(demo, "a") as ds:
+        ds["wliq"].units = "furlongs"
+    rec = recipe(work, swap("lon: [20, 80], lat: [10, 50]", "lon: [170, 190], lat: [30, 45]")
+                 + "physics: {mode: energy, texture: loam}\n")
+    refused(capsys, ["apply", rec, "--input", demo, "--output", work / "o.nc"], "wliq", "furlongs",
+            folder=work)
+
+
+def test_soil_water_in_furlongs_is_ignored_without_physics(work, capsys):
+    """Without a physics mode initgen never reads the water, so odd water units are no error."""
+    demo = write_demo_restart(work / "demo.nc")
+    with netCDF4.Dataset(demo, "a") as ds:
+        ds["wliq"].units = "furlongs"
+    rec = recipe(work, swap("lon: [20, 80], lat: [10, 50]", "lon: [170, 190], lat: [30, 45]"))
+    assert main([str(a) for a in ["apply", rec, "--input", demo, "--output", work / "o.nc", "-q"]]) == 0
+
+
+def test_region_with_no_grid_cell(work, capsys):
+    demo = write_demo_restart(work / "demo.nc")
+    rec = recipe(work, swap("taper_km: 200", "taper_km: 0"))  # box at 20..80 E; the demo grid is 150..210 E
+    refused(capsys, ["apply", rec, "--input", demo, "--output", work / "o.nc"], "region 'blk'",
+            "contains no grid point", "check the region", folder=work)
+
+
+def test_region_all_ocean(work, capsys):
+    rec = recipe(work, swap("lon: [20, 80], lat: [10, 50]", "lon: [160, 190], lat: [-10, 10]").replace(
+        "taper_km: 200", "taper_km: 0"))
+    refused(capsys, apply_argv(work, rec), "region 'blk'", "no land grid cell", folder=work)
+
+
+def test_role_the_recipe_targets_is_absent(work, capsys):
+    rec = recipe(work, RECIPE + "    targets: [skin_temperature]\n")
+    refused(capsys, apply_argv(work, rec), "in.nc", "skin_temperature", "layout", folder=work)
+
+
+def test_nan_inside_region_without_fill_value(work, capsys):
+    T = np.full((NODES.size, 6, 12), 280.0, dtype="f4")
+    T[:, 3, 1] = np.nan  # lat 15 N, lon 45 E: inside the box
+    custom_file(work / "gap.nc", t_fill=False, t_values=T)
+    rec = recipe(work)
+    refused(capsys, ["apply", rec, "--input", work / "gap.nc", "--output", work / "out.nc"],
+            "'tsoil'", "NaN", "_FillValue", folder=work)
+
+
+def test_fill_value_inside_region_without_fill_value_declared(work, capsys):
+    """1e20 (the conventional netCDF fill) in a variable that declares no _FillValue."""
+    T = np.full((NODES.size, 6, 12), 280.0, dtype="f4")
+    T[:, 3, 1] = 9.96921e36
+    custom_file(work / "gap.nc", t_fill=False, t_values=T)
+    rec = recipe(work)
+    refused(capsys, ["apply", rec, "--input", work / "gap.nc", "--output", work / "out.nc"],
+            "'tsoil'", "_FillValue", folder=work)
+
+
+def test_curvilinear_grid_with_region_outside(work, capsys):
+    y, x = np.mgrid[0:8, 0:10]
+    curvilinear(work / "c.nc", 100.0 + 2.0 * x + 0.3 * y, -40.0 + 2.0 * y)
+    rec = recipe(work, swap("taper_km: 200", "taper_km: 0"))
+    refused(capsys, ["apply", rec, "--input", work / "c.nc", "--output", work / "out.nc"],
+            "region 'blk'", "contains no grid point", folder=work)
+
+
+def test_points_grid_with_region_outside(work, capsys):
+    points(work / "p.nc", np.linspace(100, 120, 15), np.linspace(-40, -30, 15))
+    rec = recipe(work, swap("taper_km: 200", "taper_km: 0"))
+    refused(capsys, ["apply", rec, "--input", work / "p.nc", "--output", work / "out.nc"],
+            "region 'blk'", "contains no grid point", folder=work)
+
+
+# =============================================================================================
+# Output paths
+# =============================================================================================
+
+
+def test_output_equal_to_the_input(work, capsys):
+    rec = recipe(work)
+    refused(capsys, ["apply", rec, "--input", work / "in.nc", "--output", work / "in.nc", "--force"],
+            "in.nc", "output is the input", "choose another name", folder=work)
+
+
+def test_output_equal_to_the_input_through_another_spelling(work, capsys):
+    rec = recipe(work)
+    (work / "sub").mkdir()
+    refused(capsys, ["apply", rec, "--input", work / "in.nc", "--output", work / "sub" / ".." / "in.nc"],
+            "output is the input", folder=work)
+
+
+def test_output_is_a_hard_link_to_the_input(work, capsys):
+    rec = recipe(work)
+    os.link(work / "in.nc", work / "link.nc")
+    refused(capsys, ["apply", rec, "--input", work / "in.nc", "--output", work / "link.nc", "--force"],
+            "link.nc", "output is the input", folder=work)
+
+
+def test_existing_output_without_force(work, capsys):
+    rec = recipe(work)
+    (work / "out.nc").write_bytes(b"precious")
+    refused(capsys, apply_argv(work, rec), "out.nc", "exists", "pass --force", folder=work)
+    assert (work / "out.nc").read_bytes() == b"precious"
+
+
+def test_output_is_a_folder(work, capsys):
+    rec = recipe(work)
+    (work / "out.nc").mkdir()
+    refused(capsys, apply_argv(work, rec, "--force"), "out.nc", "is a folder", folder=work)
+
+
+def test_missing_output_folder(work, capsys):
+    rec = recipe(work)
+    refused(capsys, ["apply", rec, "--input", work / "in.nc", "--output", work / "no" / "such" / "out.nc"],
+            "does not exist", "create it first", folder=work)
+
+
+def test_read_only_output_folder(work, capsys, monkeypatch):
+    # tests run as root, which chmod does not stop: simulate a read-only folder through os.access
+    ro = work / "ro"
+    ro.mkdir()
+    real_access = os.access
+    monkeypatch.setattr(os, "access", lambda p, mode, *a, **k: False if Path(p) == ro and mode & os.W_OK
+                        else real_access(p, mode, *a, **k))
+    rec = recipe(work)
+    refused(capsys, ["apply", rec, "--input", work / "in.nc", "--output", ro / "out.nc"],
+            "ro", "not writable", "choose another folder", folder=work)
+
+
+def test_output_folder_refusing_writes(work, capsys, monkeypatch):
+    """The folder looks writable but the file system refuses the copy (EROFS)."""
+    import errno
+    import shutil
+
+    def refuse(src, dst, *a, **k):
+        raise OSError(errno.EROFS, "Read-only file system", str(dst))
+
+    monkeypatch.setattr(shutil, "copyfile", refuse)
+    rec = recipe(work)
+    refused(capsys, apply_argv(work, rec), "out.nc", "Read-only file system", "choose another folder",
+            folder=work)
+
+
+def test_output_with_provenance_name_taken_by_a_folder(work, capsys):
+    rec = recipe(work)
+    (work / "out.nc.provenance.json").mkdir()
+    refused(capsys, apply_argv(work, rec), "out.nc.provenance.json", folder=work)
+
+
+def test_unknown_subcommand_option(work, capsys):
+    rec = recipe(work)
+    refused(capsys, apply_argv(work, rec, "--forse"), "--forse", folder=work)
+
+
+def test_apply_without_output(work, capsys):
+    rec = recipe(work)
+    refused(capsys, ["apply", rec, "--input", work / "in.nc"], "--output", folder=work)
+
+
+def test_preview_json_into_missing_folder(work, capsys):
+    rec = recipe(work)
+    refused(capsys, ["preview", rec, "--input", work / "in.nc", "--json", work / "no" / "l.json"],
+            "l.json", folder=work)
+
+
+# =============================================================================================
+# The real command line: one line on the real stderr, nothing else
+# =============================================================================================
+
+
+def test_real_process_prints_one_line_and_exit_2(work):
+    rec = recipe(work, swap("taper_km: 200", "taper_km: -1"))
+    before = listing(work)
+    proc = subprocess.run([sys.executable, "-m", "initgen.cli", "apply", str(rec), "--input", str(work / "in.nc"),
+                           "--output", str(work / "out.nc")], capture_output=True, text=True, timeout=60)
+    assert proc.returncode == 2
+    assert proc.stdout == ""
+    lines = proc.stderr.splitlines()
+    assert len(lines) == 1 and lines[0].startswith("initgen: error: ") and "taper_km" in lines[0]
+    assert listing(work) == before
