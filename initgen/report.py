@@ -477,9 +477,10 @@ def compare_text(result: dict) -> str:
     if result["identical"]:
         lines.append("result: OK, identical")
     elif result["ok"]:
-        lines.append("result: OK, differences only in " +
-                     (", ".join(sorted(changed)) + " (allowed) and " if changed else "") + "the history attribute"
-                     if changed else "result: OK, only the history attribute differs")
+        parts = [f"{', '.join(sorted(changed))} (allowed)"] if changed else []
+        if any(x.startswith(f"global attribute '{HISTORY}'") for x in result["structure"]):
+            parts.append("the history attribute")
+        lines.append("result: OK, differences only in " + " and ".join(parts))
     else:
         lines.append(f"result: DIFFERENT, {len(result['differences'])} difference(s) outside the allowed variables")
         for d in result["differences"]:
@@ -523,7 +524,19 @@ def compare_text(result: dict) -> str:
 
 
 def compare_markdown(result: dict) -> str:
-    """The :func:`compare` result as Markdown (the table of :func:`compare_text` in a code block)."""
+    """The :func:`compare` result as Markdown, for a report folder or an issue.
+
+    Parameters
+    ----------
+    result : dict
+        What :func:`compare` returned.
+
+    Returns
+    -------
+    str
+        A heading with the verdict, the :func:`compare_text` table in a code block, and what was
+        allowed to differ.
+    """
     verdict = "OK" if result["ok"] else "DIFFERENT"
     return (f"# initgen compare: {verdict}\n\n```text\n{compare_text(result)}\n```\n\n"
             f"Allowed to differ: {', '.join(result['allow']) or 'nothing'} (and the global history attribute).\n")
@@ -600,7 +613,9 @@ def verify(provenance_path, input=None, output=None) -> dict:
     recipe and layout files have the recorded canonical sha256, (3) the output's sha256 is the
     recorded one (the file was not altered after ``apply``), (4) the output differs from a
     re-run of the recorded recipe in nothing but the global ``history`` attribute, and (5) the
-    re-run's ledger equals the recorded ledger.
+    re-run's ledger equals the recorded ledger (and, for an ensemble member, the member's
+    scale, offset and seed). The re-run is written into a temporary folder (``TMPDIR``), which
+    needs as much free space as the output, and removed afterwards.
     """
     from . import api
     from . import provenance as prov

@@ -469,3 +469,19 @@ def test_verify_and_preview_of_one_ensemble_member(demo, tmp_path):
     assert "member cold-x0.5" in md
     row0 = record["ledger"]["variables"]["tsoil"]["layers"][0]
     assert f"| {row0['area_weighted_mean']:.4g} |" in md  # the member's ledger, not the recipe as written
+
+
+def test_compare_text_says_what_differs(tmp_path):
+    a = regular(tmp_path / "a.nc")
+    b = tmp_path / "b.nc"
+    shutil.copy(a, b)
+    with netCDF4.Dataset(b, "r+") as ds:
+        ds["other"][0, 0] = 5.0
+    text = report.compare_text(report.compare(a, b, allow=["other"]))
+    assert "result: OK, differences only in other (allowed)" in text and "history" not in text.splitlines()[2]
+    with netCDF4.Dataset(b, "r+") as ds:
+        ds.history = "changed"
+    text = report.compare_text(report.compare(a, b, allow=["other"]))
+    assert "result: OK, differences only in other (allowed) and the history attribute" in text
+    md = report.compare_markdown(report.compare(a, b))
+    assert md.startswith("# initgen compare: DIFFERENT") and "other" in md
