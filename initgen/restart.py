@@ -269,7 +269,7 @@ def open_netcdf(path: Path, mode: str = "r"):
     except PermissionError:
         raise InputError(f"{path}: permission denied; check the file's permissions") from None
     except OSError as exc:
-        msg = str(exc).split(":")[0] if str(exc) else "unknown error"
+        msg = exc.strerror or (str(exc).split(":")[0] if str(exc) else "unknown error")
         raise InputError(
             f"{path}: not a readable netCDF file ({msg}); it may be truncated or corrupt, or not netCDF at all"
         ) from None
