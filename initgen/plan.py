@@ -668,6 +668,7 @@ def _read_water(plan: Plan, store, hkey, shape, donor: ModelFile | None = None) 
         out[key] = soil.water_to_volumetric(raw, role.units or "kg m-2", dz, porosity=por, name=role.variables[0])
         out[key + "0"] = out[key].copy()
         out[key + "_units"] = role.units or "kg m-2"
+        out[key + "_name"] = f"{(model.store if donor else store).describe()}: variable '{role.variables[0]}'"
     c_solid = None
     if plan.physics.get("sand_pct") is not None and plan.physics.get("clay_pct") is not None:
         c_solid = soil.soil_solid_heat_capacity(plan.physics["sand_pct"], plan.physics["clay_pct"])
@@ -678,6 +679,11 @@ def _read_water(plan: Plan, store, hkey, shape, donor: ModelFile | None = None) 
 def _physics(T_old, T_new, water, sel, phys, led, area, nh, mode, dT=None):
     """Impose the change on the selected cells and bring water phase into line."""
     kw = dict(porosity=water["porosity"], psi_sat_m=water["psi"], b=water["b"], c_solid=water["c_solid"])
+    for key in ("liq", "ice"):
+        bad = sel & ~((water[key] >= 0) & np.isfinite(water[key]))
+        if np.any(bad):
+            raise InputError(f"{water[key + '_name']} has {int(bad.sum())} negative or missing value(s) in cells the "
+                             "recipe perturbs; fix the file, or mark missing cells with its _FillValue")
     if mode == "energy":
         res = soil.apply_energy_mode(T_old, water["liq"], water["ice"], dT, water["dz"], **kw)
     else:
