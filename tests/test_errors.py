@@ -685,7 +685,7 @@ def test_truncated_netcdf(work, capsys):
     (work / "cut.nc").write_bytes(data[: len(data) // 2])
     rec = recipe(work)
     refused(capsys, ["apply", rec, "--input", work / "cut.nc", "--output", work / "out.nc"],
-            "cut.nc", "truncated or corrupt", folder=work)
+            "cut.nc", "NetCDF: HDF error", "truncated or corrupt", folder=work)
 
 
 def test_truncated_netcdf3(work, capsys):
@@ -701,7 +701,7 @@ def test_corrupt_netcdf_random_bytes(work, capsys):
     (work / "rnd.nc").write_bytes(np.random.default_rng(1).bytes(50_000))
     rec = recipe(work)
     refused(capsys, ["apply", rec, "--input", work / "rnd.nc", "--output", work / "out.nc"],
-            "rnd.nc", "not a readable netCDF file", folder=work)
+            "rnd.nc", "not a readable netCDF file (NetCDF: Unknown file format)", folder=work)
 
 
 def test_corrupt_netcdf_header_right_body_garbage(work, capsys):
@@ -775,6 +775,19 @@ def test_soil_water_in_furlongs_is_ignored_without_physics(work, capsys):
         ds["wliq"].units = "furlongs"
     rec = recipe(work, swap("lon: [20, 80], lat: [10, 50]", "lon: [170, 190], lat: [30, 45]"))
     assert main([str(a) for a in ["apply", rec, "--input", demo, "--output", work / "o.nc", "-q"]]) == 0
+
+
+def test_negative_soil_water_in_a_physics_mode(work, capsys):
+    demo = write_demo_restart(work / "demo.nc")
+    with netCDF4.Dataset(demo, "a") as ds:
+        v = ds["wliq"]
+        a = v[:]
+        a[0, 2, 35:45, 55:65] = -1.0  # on the demo highland
+        v[:] = a
+    rec = recipe(work, swap("lon: [20, 80], lat: [10, 50]", "lon: [170, 190], lat: [30, 45]")
+                 + "physics: {mode: energy, texture: loam}\n")
+    refused(capsys, ["apply", rec, "--input", demo, "--output", work / "o.nc"], "demo.nc", "'wliq'",
+            "negative or missing", "fix the file", folder=work)
 
 
 def test_region_with_no_grid_cell(work, capsys):
