@@ -701,7 +701,7 @@ def test_corrupt_netcdf_random_bytes(work, capsys):
     (work / "rnd.nc").write_bytes(np.random.default_rng(1).bytes(50_000))
     rec = recipe(work)
     refused(capsys, ["apply", rec, "--input", work / "rnd.nc", "--output", work / "out.nc"],
-            "rnd.nc", "not a readable netCDF file (NetCDF: Unknown file format)", folder=work)
+            "rnd.nc", "not a readable netCDF file (NetCDF: ", folder=work)
 
 
 def test_corrupt_netcdf_header_right_body_garbage(work, capsys):
