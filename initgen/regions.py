@@ -150,7 +150,7 @@ def _ring_coords(coords, what, *, allow_cap=True):
                 f"{what}: edge from ({_fmt(lon[i])}, {_fmt(lat[i])}) to ({_fmt(lon[j])}, "
                 f"{_fmt(lat[j])}) spans more than 180 degrees of longitude; taken the short "
                 f"way across the 180-degree meridian; write continuous longitudes (e.g. "
-                f"170 to 190) to avoid this warning", InputWarning, stacklevel=4)
+                f"170 to 190) to avoid this warning", InputWarning, stacklevel=3)
         return np.column_stack([ulon, lat])
     if abs(abs(winding) - 360.0) < 1e-6 and allow_cap:
         mean_lat = float(np.mean(lat))
@@ -359,7 +359,8 @@ def published(set_name, abbrevs):
         for part in key.split("."):
             obj = getattr(obj, part)
     except Exception as err:  # noqa: BLE001 - download or parsing failures alike
-        msg = " ".join(str(err).split())[:200]
+        msg = " ".join(str(err).split())
+        msg = msg if len(msg) <= 160 else msg[:157] + "..."
         raise InputError(f"published region set {set_name!r} could not be loaded "
                          f"({type(err).__name__}: {msg}); regionmask downloads it on first "
                          f"use, so without internet use 'srex', 'giorgi', 'prudence' or a "

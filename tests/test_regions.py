@@ -138,6 +138,34 @@ def test_hard_mask_equals_regionmask(name, grid):
     np.testing.assert_array_equal(rg.hard_mask(lon1, lat1, geom, regular=True), expected)
 
 
+@settings(max_examples=15, deadline=None)
+@given(seed=st.integers(0, 2**32 - 1), res=st.sampled_from([0.25, 0.5, 1.0]),
+       half=st.booleans(), snap=st.booleans(), hole=st.booleans())
+def test_random_polygons_mask_equals_regionmask(seed, res, half, snap, hole):
+    rng = np.random.default_rng(seed)
+    n = int(rng.integers(3, 40))
+    th = np.sort(rng.uniform(0, 2 * np.pi, n))
+    r = rng.uniform(2, 25, n)
+    cx, cy = rng.uniform(-140, 140), rng.uniform(-60, 60)
+    v = np.column_stack([cx + 1.5 * r * np.cos(th), cy + r * np.sin(th)])
+    if snap:                                   # vertices and edges on grid lines
+        v = np.round(v * 2) / 2
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", InputWarning)
+        geom = rg.polygon(v)
+    if hole:
+        geom = geom.difference(shapely.Point(cx, cy).buffer(1.5))
+    off = res / 2 if half else 0.0
+    lon1 = -180 + off + res * np.arange(round(360 / res))
+    lat1 = -90 + off + res * np.arange(round(180 / res) + (not half))
+    lon, lat = regular(lon1, lat1)
+    expected = regionmask_mask(geom, lon1, lat1)
+    # reference: regionmask 0.13 mask_3D for the same polygon
+    np.testing.assert_array_equal(rg.hard_mask(lon, lat, geom, regular=True), expected)
+    # reference: regionmask 0.13 mask_3D for the same polygon
+    np.testing.assert_array_equal(rg.hard_mask(lon, lat, geom), expected)
+
+
 @pytest.mark.parametrize("set_name, abbrev", [("srex", "CEU"), ("srex", "ALA"), ("srex", "SAU"),
                                               ("giorgi", "NEU"), ("giorgi", "SSA")])
 def test_published_region_mask_equals_regionmask(set_name, abbrev):
