@@ -624,14 +624,22 @@ def read_field(path: Path, variable: str, key_name: str) -> tuple[np.ndarray, np
 
 def versions() -> dict:
     """Versions of the libraries that decide the bits of the output."""
-    import xarray
+    import sys
+    from importlib import metadata
 
     from . import __version__
 
+    # xarray's version from its package metadata when it is not imported yet: importing it takes
+    # about a second, which every ensemble worker would pay for one string
+    xr = sys.modules.get("xarray")
+    try:
+        xr_version = xr.__version__ if xr is not None else metadata.version("xarray")
+    except metadata.PackageNotFoundError:  # pragma: no cover - xarray is a dependency
+        xr_version = None
     return {
         "initgen": __version__,
         "numpy": np.__version__,
-        "xarray": xarray.__version__,
+        "xarray": xr_version,
         "netCDF4": netCDF4.__version__,
         "netcdf-c": netCDF4.__netcdf4libversion__,
         "hdf5": netCDF4.__hdf5libversion__,
