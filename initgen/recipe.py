@@ -170,6 +170,45 @@ PHYSICS = Obj(
     },
 )
 
+# Ensemble members: an explicit list or a generated set (see expand_members for the names)
+MEMBER_TEMPLATE_FIELDS = ("member", "input_stem", "input_name")
+
+MEMBER = Obj(
+    doc="one ensemble member: the change is w(x) f(z) (sign * scale * A(x) + offset_K + noise(x))",
+    fields={
+        "name": Str(doc="member name (letters, digits, '-', '_', '.', '+'); used in output names and the noise seed"),
+        "scale": Num(minimum=0.0, maximum=100.0, default=1.0, unit="1", doc="factor applied to the anomaly A(x)"),
+        "sign": Num(integer=True, minimum=-1, maximum=1, default=1, unit="1",
+                    doc="+1 keeps the anomaly's direction, -1 reverses it"),
+        "offset_K": Num(minimum=-60.0, maximum=60.0, default=0.0, unit="K",
+                        doc="constant added to the (scaled) anomaly before the weight and depth factor"),
+    },
+)
+
+MEMBERS = Obj(
+    default=None,
+    doc="ensemble members: give exactly one of list (explicit members) or scales (a generated set: one member "
+        "per scale and sign, named '<direction>-x<scale>', direction warm/cold when every perturbation has a "
+        "constant_K anomaly of one sign, else plus/minus for sign +1/-1, e.g. warm-x1.0, cold-x0.5)",
+    fields={
+        "list": List(item=MEMBER, min_items=1, unique_key="name", default=None, doc="explicit members"),
+        "scales": List(item=Num(minimum=0.0, maximum=100.0, unit="1"), min_items=1, default=None,
+                       doc="generated set: the anomaly scales"),
+        "signs": List(item=Num(integer=True, minimum=-1, maximum=1, unit="1"), min_items=1, max_items=2, default=None,
+                      doc="generated set: the signs, +1 and/or -1 (default [1, -1])"),
+        "noise": Obj(default=None, doc="spatially correlated Gaussian noise added to A(x), seeded per member "
+                                       "from the recipe seed and the member name",
+                     fields={"sigma_K": Num(minimum=0.0, maximum=20.0, unit="K", doc="standard deviation"),
+                             "length_km": Num(exclusive_minimum=0.0, maximum=20000.0, unit="km",
+                                              doc="correlation length L: correlation exp(-d^2 / (2 L^2)), "
+                                                  "d the great-circle distance")}),
+        "output_template": Str(default="{member}/{input_stem}.nc",
+                               doc="output file name inside the output folder; fields {member}, {input_stem} "
+                                   "(input file name without .nc), {input_name}"),
+    },
+    one_of=(("list", "scales"),),
+)
+
 # ---------------------------------------------------------------------------------------------
 # Layout schema
 # ---------------------------------------------------------------------------------------------
@@ -222,6 +261,7 @@ RECIPE = Obj(
         "perturbations": List(item=BLOCK, min_items=1, unique_key="name",
                               doc="perturbation blocks, applied in order (each adds its change to the result of the previous)"),
         "physics": replace(PHYSICS, default={}),
+        "members": MEMBERS,
         "layout": replace(LAYOUT, default=None, doc="an inline layout (used when no --layout is given)"),
     },
 )
@@ -421,6 +461,91 @@ def _check_semantics(data: dict, source: str) -> None:
     phys = data["physics"]
     if phys["soil_temperature_min_K"] >= phys["soil_temperature_max_K"]:
         raise InputError(f"{source}: recipe key physics.soil_temperature_min_K: must be below soil_temperature_max_K")
+    if data.get("members"):
+        try:
+            expand_members(data)
+        except InputError as exc:
+            raise InputError(f"{source}: {exc}") from None
+
+
+_NAME_OK = frozenset("abcdefghijklmnopqrstuvwxyzABCDEFGHIJKLMNOPQRSTUVWXYZ0123456789-_.+")
+
+
+def expand_members(data: dict) -> list[dict]:
+    """The recipe's members as dicts (name, scale, sign, offset_K), in order; [] without a members section.
+
+    A generated set (``scales`` x ``signs``) names each member ``<direction>-x<scale>``: the
+    direction is ``warm``/``cold`` when every perturbation has a ``constant_K`` anomaly of one sign
+    (so the name says which way the member moves the temperature), else ``plus``/``minus`` for
+    sign +1/-1. Checks: names usable as file names, no duplicates, signs +1/-1, an output template
+    that names every member apart, no donor anomalies (a member scales an anomaly; a blend has none).
+    """
+    mem = data.get("members")
+    if not mem:
+        return []
+    for i, block in enumerate(data["perturbations"]):
+        if block["anomaly"].get("donor"):
+            raise InputError(f"recipe key perturbations[{i}].anomaly.donor: a donor blend cannot be scaled per "
+                             "member; use constant_K, field or bias with members, or drop the members section")
+    if mem.get("list"):
+        if mem.get("signs") is not None:
+            raise InputError("recipe key members.signs: belongs to a generated set (scales); give each listed "
+                             "member its own sign")
+        out = [dict(m) for m in mem["list"]]
+        for i, m in enumerate(out):
+            if m["sign"] not in (1, -1):
+                raise InputError(f"recipe key members.list[{i}].sign: must be 1 or -1, got {m['sign']}")
+            _check_member_name(m["name"], f"members.list[{i}].name")
+    else:
+        signs = mem.get("signs") or [1, -1]
+        for j, sg in enumerate(signs):
+            if sg not in (1, -1):
+                raise InputError(f"recipe key members.signs[{j}]: must be 1 or -1, got {sg}")
+        consts = [b["anomaly"].get("constant_K") for b in data["perturbations"]]
+        if all(c is not None and c > 0 for c in consts):
+            label = {1: "warm", -1: "cold"}
+        elif all(c is not None and c < 0 for c in consts):
+            label = {1: "cold", -1: "warm"}
+        else:
+            label = {1: "plus", -1: "minus"}
+        out, where = [], {}
+        for i, sc in enumerate(mem["scales"]):
+            for j, sg in enumerate(signs):
+                name = f"{label[sg]}-x{float(sc)!r}"
+                if name in where:
+                    raise InputError(f"recipe key members.scales[{i}]: duplicate member name '{name}' "
+                                     f"(same as {where[name]}); give every scale and sign once")
+                where[name] = f"members.scales[{i}], members.signs[{j}]"
+                out.append({"name": name, "scale": float(sc), "sign": int(sg), "offset_K": 0.0})
+    _check_template(mem["output_template"], len(out))
+    return out
+
+
+def _check_member_name(name: str, key: str) -> None:
+    if not set(name) <= _NAME_OK or name.startswith("."):
+        raise InputError(f"recipe key {key}: member name {name!r} may hold only letters, digits, '-', '_', '.', "
+                         "'+' and may not start with '.', because it names files and folders")
+
+
+def _check_template(template: str, n_members: int) -> None:
+    import string
+
+    key = "members.output_template"
+    try:
+        fields = [f for _, f, _, _ in string.Formatter().parse(template) if f is not None]
+    except ValueError as exc:
+        raise InputError(f"recipe key {key}: {template!r} is not a valid template ({exc})") from None
+    for f in fields:
+        if f not in MEMBER_TEMPLATE_FIELDS:
+            raise InputError(f"recipe key {key}: unknown field {{{f}}} in {template!r}; use "
+                             + ", ".join("{" + k + "}" for k in MEMBER_TEMPLATE_FIELDS))
+    if n_members > 1 and "member" not in fields:
+        raise InputError(f"recipe key {key}: {template!r} has no {{member}}, so the members would overwrite "
+                         "each other; put {member} in the file or folder name")
+    parts = Path(template).parts
+    if Path(template).is_absolute() or ".." in parts or not parts:
+        raise InputError(f"recipe key {key}: {template!r} must be a relative path inside the output folder "
+                         "(no leading '/', no '..')")
 
 
 def _check_table(table: list, key: str) -> None:
