@@ -315,7 +315,7 @@ def test_width_zero_is_hard_mask(placement, use_regular):
         np.testing.assert_array_equal(w, rg.hard_mask(lon, lat, geom).astype(float))
 
 
-@settings(max_examples=25, deadline=None)
+@settings(max_examples=15, deadline=None)
 @given(lon0=st.floats(-200, 300), dlon=st.floats(1, 120), lat0=st.floats(-85, 70),
        dlat=st.floats(1, 40), width=st.floats(1, 2000))
 def test_placements_are_ordered_and_bounded(lon0, dlon, lat0, dlat, width):
