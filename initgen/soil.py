@@ -938,8 +938,9 @@ def _settle_on_curve(T, h, W, phi, psi, b, K):
     is then (T, l_e): energy exact to round-off, liquid never above the supercooled limit and
     below it by at most the effect of one step of T.
     """
+    lk = np.minimum(W, phi)
     s = T_FREEZE - T
-    lc = np.minimum(W, _liq_max_below(T, phi, psi, b))
+    lc = np.minimum(lk, _liq_max_below(T, phi, psi, b))
     le = (h + K * s) / (_LV - _DCV * s)
     i = np.flatnonzero(le > lc)                     # cells on the cold side of the root
     for _ in range(16):                             # (Halley leaves T within a few steps)
@@ -947,7 +948,7 @@ def _settle_on_curve(T, h, W, phi, psi, b, K):
             break
         Ti = np.nextafter(T[i], np.inf)
         si = T_FREEZE - Ti
-        lci = np.minimum(W[i], _liq_max_below(Ti, phi[i], psi[i], b[i]))
+        lci = np.minimum(lk[i], _liq_max_below(Ti, phi[i], psi[i], b[i]))
         lei = (h[i] + K[i] * si) / (_LV - _DCV * si)
         T[i], lc[i], le[i] = Ti, lci, lei
         i = i[lei > lci]
@@ -1335,8 +1336,9 @@ def clamp_pore_space(liq, ice, porosity):
     The excess is removed **from ice first**, then from liquid. Below freezing in
     equilibrium the liquid is at the supercooled limit (<= porosity), so removing ice keeps
     the cell in phase equilibrium; above freezing there is no ice and liquid is reduced.
-    This rule removes water: it is a clamp, counted, and the only place where initgen does
-    not conserve water (the caller records the removed mass in the ledger).
+    This rule removes water: it is a clamp, counted, and with :func:`clamp_negative_water`
+    one of the two places where the soil physics does not conserve water (the caller records
+    the changed mass in the ledger).
 
     Parameters
     ----------
