@@ -70,7 +70,8 @@ def regular(path: Path, *, fmt="NETCDF4", nlon=36, nlat=18, lon0=0.0, packed=Fal
         v.scale_factor, v.add_offset = np.float32(0.01), np.float32(273.15)
         v.units, v.standard_name = "K", "soil_temperature"
         v.set_auto_maskandscale(True)
-        v[:] = np.ma.masked_array(data, mask=(data == FILL))[None] if with_time else data
+        masked = np.ma.masked_array(np.where(data == FILL, 273.15, data), mask=(data == FILL))
+        v[:] = masked[None] if with_time else masked
     else:
         v = ds.createVariable("tsoil", "f4", tdims, **kw)
         v.units, v.standard_name = "K", "soil_temperature"
