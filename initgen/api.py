@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import contextlib
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -14,7 +13,7 @@ from . import provenance as prov
 from .errors import InputError
 from .grid import ModelFile, open_model
 from .recipe import Document, inline_layout, load_layout, load_recipe
-from .restart import NetCDFStore, XarrayStore, copy_and_patch, sha256_file, write_atomic_text
+from .restart import NetCDFStore, XarrayStore
 
 
 def _recipe(recipe) -> Document:
@@ -48,6 +47,11 @@ class CheckResult:
         lines = [f"recipe '{self.recipe.name}' is valid", f"recipe sha256: {self.recipe.sha256}"]
         if self.layout is not None:
             lines.append(f"layout '{self.layout.name}' sha256: {self.layout.sha256}")
+        if self.recipe.data.get("members"):
+            from .ensemble import members
+
+            names = [m.name for m in members(self.recipe)]
+            lines.append(f"members ({len(names)}): " + ", ".join(names))
         if self.model is not None:
             g = self.model.grid
             lines.append(f"grid: {g.kind} {'x'.join(map(str, g.shape))} ({g.extent()}); roles from {self.model.source}")
@@ -76,31 +80,42 @@ def check(recipe, layout=None, input=None, *, allow_outside_paths: bool = False)
         store.close()
 
 
-def preview(recipe, input, layout=None, *, allow_outside_paths: bool = False) -> dict:
-    """Compute everything ``apply`` would and return the ledger; writes nothing."""
+def preview(recipe, input, layout=None, *, member: str | None = None, allow_outside_paths: bool = False) -> dict:
+    """Compute everything ``apply`` would and return the ledger; writes nothing.
+
+    ``member`` names one member of a recipe with members (without it: the recipe as written,
+    scale 1 and no noise; :func:`preview_members` gives every member).
+    """
+    from . import ensemble
+
     rec = _recipe(recipe)
     lay = _layout(layout, rec)
+    mem = _member(rec, member)
     store = NetCDFStore(input)
     try:
         model = _model(store, lay, rec)
-        plan = plan_mod.build_plan(rec, model, allow_outside=allow_outside_paths)
+        plan = ensemble.configure(plan_mod.build_plan(rec, model, allow_outside=allow_outside_paths), mem)
         return plan_mod.run(plan, store, write=False)
     finally:
         store.close()
 
 
-def apply(recipe, input, output, layout=None, *, force: bool = False, allow_outside_paths: bool = False,
-          progress=None) -> dict:
+def apply(recipe, input, output, layout=None, *, member: str | None = None, force: bool = False,
+          allow_outside_paths: bool = False, progress=None) -> dict:
     """Write a perturbed copy of ``input`` to ``output`` and its provenance record beside it.
 
-    Returns the provenance record (a dict). The input is never modified; on any error no
-    output (and no provenance record) is left behind.
+    ``member`` names one member of a recipe with a members section (without it the recipe is
+    applied as written: scale 1, no offset, no noise; :func:`apply_ensemble` writes every member).
+    Returns the provenance record (a dict). The input is never modified; on any error no output
+    (and no provenance record) is left behind.
     """
+    from . import ensemble
+
     rec = _recipe(recipe)
     lay = _layout(layout, rec)
+    mem = _member(rec, member)
     input = Path(input)
     output = Path(output)
-    started = prov.utc_now()
     # validate everything against the input, read-only, before a byte is written
     store = NetCDFStore(input)
     try:
@@ -108,31 +123,49 @@ def apply(recipe, input, output, layout=None, *, force: bool = False, allow_outs
         plan_mod.build_plan(rec, model, allow_outside=allow_outside_paths)
     finally:
         store.close()
-    input_sha = sha256_file(input)
-    history = prov.history_line(rec, started)
-    holder: dict = {}
 
     def patch(out_store):
         model = _model(out_store, lay, rec)
-        plan = plan_mod.build_plan(rec, model, allow_outside=allow_outside_paths)
-        holder["ledger"] = plan_mod.run(plan, out_store, write=True, progress=progress)
+        plan = ensemble.configure(plan_mod.build_plan(rec, model, allow_outside=allow_outside_paths), mem)
+        return plan_mod.run(plan, out_store, write=True, progress=progress)
 
-    def after(tmp: Path):
-        out_sha = sha256_file(tmp)
-        holder["record"] = prov.record(
-            recipe=rec, layout=lay, input_path=input, input_sha256=input_sha, output_path=output,
-            output_sha256=out_sha, started=started, ended=prov.utc_now(), ledger=holder["ledger"],
-            history=history, allow_outside=allow_outside_paths)
-        write_atomic_text(prov.provenance_path(output), prov.dumps(holder["record"]))
+    return prov.write_perturbed(recipe=rec, layout=lay, input_path=input, output_path=output, patch=patch,
+                                force=force, allow_outside=allow_outside_paths,
+                                member=None if mem is None else mem.record())
 
-    try:
-        copy_and_patch(input, output, patch, force=force, history=history, after=after)
-    except BaseException:
-        if "record" in holder and not output.exists():
-            with contextlib.suppress(OSError):
-                prov.provenance_path(output).unlink()
-        raise
-    return holder["record"]
+
+def _member(rec: Document, member: str | None):
+    from . import ensemble
+
+    if member is None:  # the recipe as written: scale 1, sign +1, no offset, no noise
+        return None
+    return ensemble.select(rec, [member])[0]
+
+
+def apply_ensemble(recipe, inputs, output_dir, layout=None, *, members=None, workers: int | None = None,
+                   scheduler: str | None = None, force: bool = False, allow_outside_paths: bool = False,
+                   progress=None):
+    """Write every member (or those named in ``members``) for every input into ``output_dir``.
+
+    Outputs are named by the recipe's ``members.output_template``; ``manifest.json`` and
+    ``manifest.csv`` list them. Runs on ``workers`` local processes (default min(2, CPUs)) or on
+    the Dask scheduler at ``scheduler``. Returns an ``ensemble.EnsembleResult`` (``exit_code``
+    is 0 when every member was written, 2 when the failures were bad input, else 1).
+    """
+    from . import ensemble
+
+    rec = _recipe(recipe)
+    return ensemble.run(rec, [Path(i) for i in inputs], Path(output_dir), _layout(layout, rec), names=members,
+                        workers=workers, scheduler=scheduler, force=force, allow_outside_paths=allow_outside_paths,
+                        progress=progress)
+
+
+def preview_members(recipe, input, layout=None, *, members=None, allow_outside_paths: bool = False) -> list:
+    """The ledger of every member (or those named) for one input, writing nothing: [(Member, ledger)]."""
+    from . import ensemble
+
+    rec = _recipe(recipe)
+    return ensemble.preview(rec, input, _layout(layout, rec), names=members, allow_outside_paths=allow_outside_paths)
 
 
 def perturb(dataset, recipe, layout=None, *, allow_outside_paths: bool = False):
@@ -193,4 +226,4 @@ def ledger_text(ledger: dict) -> str:
     return "\n".join(lines)
 
 
-__all__ = ["check", "preview", "apply", "perturb", "weights", "ledger_text"]
+__all__ = ["check", "preview", "preview_members", "apply", "apply_ensemble", "perturb", "weights", "ledger_text"]

@@ -29,7 +29,7 @@ def provenance_path(output: Path) -> Path:
 
 def record(*, recipe, layout, input_path: Path, input_sha256: str, output_path: Path, output_sha256: str,
            started: str, ended: str, ledger: dict, history: str, member: dict | None = None,
-           allow_outside: bool = False) -> dict:
+           allow_outside: bool = False, command_line: list | None = None) -> dict:
     return {
         "format": FORMAT,
         "recipe": {"name": recipe.name, "path": str(recipe.path) if recipe.path else None,
@@ -42,12 +42,54 @@ def record(*, recipe, layout, input_path: Path, input_sha256: str, output_path: 
         "member": member,
         "options": {"allow_outside_paths": allow_outside},
         "versions": versions(),
-        "command_line": list(sys.argv),
+        "command_line": list(sys.argv if command_line is None else command_line),
         "started_utc": started,
         "ended_utc": ended,
         "history_line": history,
         "ledger": ledger,
     }
+
+
+def write_perturbed(*, recipe, layout, input_path, output_path, patch, force: bool = False,
+                    allow_outside: bool = False, member: dict | None = None, input_sha256: str | None = None,
+                    command_line: list | None = None) -> dict:
+    """Copy ``input_path`` to ``output_path``, run ``patch(out_store) -> ledger`` on the copy, and
+    write the provenance record beside it; returns the record.
+
+    The output and its record appear together or not at all (the record is written before the
+    output is moved into place, and removed again if that move fails). ``api.apply`` and every
+    ensemble member go through here.
+    """
+    import contextlib
+
+    from .restart import copy_and_patch
+
+    input_path, output_path = Path(input_path), Path(output_path)
+    started = utc_now()
+    input_sha = input_sha256 or sha256_file(input_path)
+    history = history_line(recipe, started)
+    holder: dict = {}
+
+    def run(out_store):
+        holder["ledger"] = patch(out_store)
+
+    def after(tmp: Path):
+        holder["record"] = record(
+            recipe=recipe, layout=layout, input_path=input_path, input_sha256=input_sha, output_path=output_path,
+            output_sha256=sha256_file(tmp), started=started, ended=utc_now(), ledger=holder["ledger"],
+            history=history, member=member, allow_outside=allow_outside, command_line=command_line)
+        from .restart import write_atomic_text
+
+        write_atomic_text(provenance_path(output_path), dumps(holder["record"]))
+
+    try:
+        copy_and_patch(input_path, output_path, run, force=force, history=history, after=after)
+    except BaseException:
+        if "record" in holder and not output_path.exists():
+            with contextlib.suppress(OSError):
+                provenance_path(output_path).unlink()
+        raise
+    return holder["record"]
 
 
 def dumps(rec: dict) -> str:
@@ -70,4 +112,4 @@ def load(path: Path) -> dict:
     return rec
 
 
-__all__ = ["record", "history_line", "provenance_path", "utc_now", "dumps", "load", "sha256_file"]
+__all__ = ["record", "write_perturbed", "history_line", "provenance_path", "utc_now", "dumps", "load", "sha256_file"]

@@ -1,0 +1,671 @@
+"""Ensembles: many perturbed starts from one recipe.
+
+A recipe's ``members`` section (see :func:`initgen.recipe.expand_members`) defines members that
+differ only in how the shared anomaly is used: the change applied for a member is ::
+
+    dT(z, x) = w(x) * f(z) * (sign * scale * A(x) + offset_K + noise(x))
+
+``w``, ``f`` and ``A`` are computed once per input grid (in the calling process) and shared with
+every member; ``noise`` is spatially correlated Gaussian noise (:func:`initgen.sources.correlated_noise`
+on the model grid, Gaussian correlation in great-circle distance) drawn from the member's seed
+``sources.member_seed(recipe seed, member name)``, so a member is reproducible from the recipe alone.
+Each output gets its own provenance record (``member`` holds the name, parameters and seed).
+
+:func:`run` writes every member for every input into one folder, named by the template
+``members.output_template`` (default ``{member}/{input_stem}.nc``), on local worker processes or
+on an existing Dask distributed cluster, and writes ``manifest.json`` and ``manifest.csv``. A
+failing member is reported in the manifest and does not stop the others.
+
+Parallel design (measured with ``tests/perf/bench_ensemble.py``): the shared arrays (weights,
+anomaly, layer factors) travel to each local worker once, through the pool's initializer, rather
+than being rebuilt by every worker from the recipe; see the benchmark for the numbers. Workers
+need only picklable arguments (paths, the validated recipe and layout documents, member
+parameters), so the code is safe under the ``spawn`` and ``forkserver`` start methods; on a Dask
+cluster the workers must see the same file system as the client.
+"""
+
+from __future__ import annotations
+
+import csv
+import hashlib
+import io
+import json
+import multiprocessing
+import os
+import sys
+import traceback
+from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
+from concurrent.futures.process import BrokenProcessPool
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+
+from . import plan as plan_mod
+from . import provenance as prov
+from . import sources
+from .errors import InputError
+from .grid import open_model
+from .recipe import Document, expand_members
+from .restart import NetCDFStore, sha256_file, write_atomic_text
+
+MANIFEST_FORMAT = "initgen-ensemble-manifest/1"
+
+
+# ---------------------------------------------------------------------------------------------
+# Members
+# ---------------------------------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class Member:
+    name: str
+    scale: float
+    sign: int
+    offset_K: float
+    seed: int
+    noise: dict | None  # {"sigma_K": ..., "length_km": ...}
+
+    @property
+    def factor(self) -> float:
+        """The factor on the anomaly A(x): sign * scale."""
+        return self.sign * self.scale
+
+    def record(self) -> dict:
+        """What the provenance record and the manifest say about the member."""
+        return {"name": self.name, "scale": self.scale, "sign": self.sign, "offset_K": self.offset_K,
+                "seed": self.seed, "noise": None if self.noise is None else dict(self.noise)}
+
+
+def members(recipe: Document) -> list[Member]:
+    """The recipe's members, in recipe order ([] if it has no members section)."""
+    data = recipe.data
+    noise = (data.get("members") or {}).get("noise")
+    return [Member(m["name"], float(m["scale"]), int(m["sign"]), float(m["offset_K"]),
+                   sources.member_seed(int(data["seed"]), m["name"]), None if noise is None else dict(noise))
+            for m in expand_members(data)]
+
+
+def select(recipe: Document, names=None) -> list[Member]:
+    """The members named in ``names`` (all when None); an unknown name is an InputError."""
+    allm = members(recipe)
+    if not allm:
+        raise InputError(f"recipe {recipe.name}: has no members section; add one (see `initgen schema`) "
+                         "or run without --member")
+    if names is None:
+        return allm
+    if isinstance(names, str):
+        names = [names]
+    by_name = {m.name: m for m in allm}
+    out = []
+    for n in names:
+        if n not in by_name:
+            raise InputError(f"--member {n}: the recipe has no member of that name; it has "
+                             + ", ".join(by_name))
+        out.append(by_name[n])
+    return out
+
+
+def member_noise(grid, region: np.ndarray, member: Member) -> np.ndarray | None:
+    """The member's noise field on the grid (K), computed where the region has weight > 0, else 0.
+
+    The noise at a point does not depend on which other points are computed, so restricting the
+    computation to the region changes nothing where it is used.
+    """
+    if member.noise is None or member.noise["sigma_K"] == 0:
+        return None
+    lon = np.broadcast_to(grid.lon, grid.shape)
+    lat = np.broadcast_to(grid.lat, grid.shape)
+    out = np.zeros(grid.shape)
+    out[region] = sources.correlated_noise(lon[region], lat[region], member.noise["sigma_K"],
+                                           member.noise["length_km"], member.seed)
+    return out
+
+
+def configure(plan, member: Member | None):
+    """Set the member's scale, offset and noise on a plan (in place; returns the plan)."""
+    if member is None:
+        return plan
+    plan.member_scale = member.factor
+    plan.member_offset_K = member.offset_K
+    plan.noise = member_noise(plan.model.grid, plan.region, member)
+    return plan
+
+
+# ---------------------------------------------------------------------------------------------
+# Output names
+# ---------------------------------------------------------------------------------------------
+
+
+def input_stem(path: Path) -> str:
+    name = Path(path).name
+    for ext in (".nc4", ".nc", ".cdf", ".netcdf"):
+        if name.lower().endswith(ext):
+            return name[: -len(ext)]
+    return Path(name).stem
+
+
+def output_path(recipe: Document, outdir: Path, member: Member, input_path: Path) -> Path:
+    template = recipe.data["members"]["output_template"]
+    rel = template.format(member=member.name, input_stem=input_stem(input_path), input_name=Path(input_path).name)
+    return Path(outdir) / rel
+
+
+# ---------------------------------------------------------------------------------------------
+# Shared arrays, once per input grid
+# ---------------------------------------------------------------------------------------------
+
+
+@dataclass
+class Shared:
+    """The arrays every member of one input grid shares: the plan's blocks and region."""
+
+    blocks: list
+    region: np.ndarray
+    shape: tuple
+
+
+def _grid_fingerprint(model, recipe: Document, layout: Document | None, allow_outside: bool) -> str:
+    """sha256 of everything the shared arrays depend on: recipe, layout, and what comes from the file."""
+    h = hashlib.sha256()
+    h.update(f"{recipe.sha256} {None if layout is None else layout.sha256} {allow_outside}".encode())
+    for arr in (model.grid.lon, model.grid.lat, model.grid.area):
+        a = np.ascontiguousarray(arr, dtype=np.float64)
+        h.update(str(a.shape).encode())
+        h.update(a.tobytes())
+    for name in ("land_fraction", "land_mask", "surface_altitude"):
+        role = model.role(name)
+        if role is not None:
+            a = np.ascontiguousarray(role.read(model.store, {}), dtype=np.float64)
+            h.update(name.encode())
+            h.update(a.tobytes())
+    if model.layers is not None:
+        for arr in (model.layers.node_m, model.layers.thickness_m):
+            h.update(np.ascontiguousarray(arr, dtype=np.float64).tobytes())
+    return h.hexdigest()
+
+
+def build_shared(recipe: Document, layout: Document | None, input_path: Path, *, allow_outside: bool = False,
+                 cache: dict | None = None) -> tuple[Shared, str]:
+    """Validate the recipe against ``input_path`` (read-only) and compute the shared arrays.
+
+    With a ``cache`` dict, inputs on the same grid (same coordinates, land and elevation fields
+    and layers) reuse one computation. Returns the arrays and the grid fingerprint.
+    """
+    store = NetCDFStore(input_path)
+    try:
+        model = open_model(store, layout, needed=plan_mod.needed_roles(recipe))
+        model.layout = layout
+        key = _grid_fingerprint(model, recipe, layout, allow_outside)
+        if cache is not None and key in cache:
+            return cache[key], key
+        p = plan_mod.build_plan(recipe, model, allow_outside=allow_outside)
+        shared = Shared(p.blocks, p.region, tuple(model.grid.shape))
+        if cache is not None:
+            cache[key] = shared
+        return shared, key
+    finally:
+        store.close()
+
+
+def plan_on(recipe: Document, layout: Document | None, store, shared: Shared, member: Member | None):
+    """A plan for ``store`` (the output copy) from shared arrays, configured for ``member``."""
+    model = open_model(store, layout, needed=plan_mod.needed_roles(recipe))
+    model.layout = layout
+    if tuple(model.grid.shape) != shared.shape:
+        raise InputError(f"{store.describe()}: grid shape {model.grid.shape} differs from the shared plan's "
+                         f"{shared.shape}")
+    p = plan_mod.Plan(recipe, model, shared.blocks, dict(recipe.data["physics"]), shared.region)
+    return configure(p, member)
+
+
+# ---------------------------------------------------------------------------------------------
+# One task: one member of one input
+# ---------------------------------------------------------------------------------------------
+
+
+@dataclass
+class Task:
+    index: int
+    member: Member
+    input: str
+    input_sha256: str
+    output: str
+    grid: str  # fingerprint: which Shared this task uses
+
+
+def ledger_summary(ledger: dict) -> dict:
+    """The manifest's short summary of a ledger: top soil layer change, phase change, clamps."""
+    top = None
+    for var in ledger.get("variables", {}).values():
+        if var["role"] == "soil_temperature":
+            row = (var.get("layers") or [var.get("field")])[0]
+            top = row.get("area_weighted_mean") if row else None
+            break
+    phys = ledger.get("physics", {})
+    return {
+        "top_soil_temperature_change_area_mean_K": top,
+        "frozen_kg": phys.get("frozen_region_total_kg"),
+        "melted_kg": phys.get("melted_region_total_kg"),
+        "latent_J": phys.get("latent_region_total_J"),
+        "sensible_J": phys.get("sensible_region_total_J"),
+        "clamped_cells": int(sum(ledger.get("clamps", {}).values())),
+    }
+
+
+def _result(task: Task, status: str, *, code: int = 0, message: str = "", output_sha256=None, ledger=None,
+            detail: str = "") -> dict:
+    return {"index": task.index, "member": task.member.record(), "input": task.input,
+            "input_sha256": task.input_sha256, "output": task.output, "output_sha256": output_sha256,
+            "status": status, "exit_code": code, "message": message, "detail": detail,
+            "summary": None if ledger is None else ledger_summary(ledger)}
+
+
+def run_task(recipe: Document, layout: Document | None, task: Task, shared: Shared | None, *, force: bool,
+             allow_outside: bool, command_line: list | None = None) -> dict:
+    """Write one member of one input; never raises for a failure of that member (returns it instead).
+
+    With ``shared`` None the worker computes the shared arrays itself (once per process and grid).
+    """
+    try:
+        if shared is None:
+            shared = _process_shared(recipe, layout, task, allow_outside)
+        out = Path(task.output)
+        try:
+            out.parent.mkdir(parents=True, exist_ok=True)
+        except OSError as exc:
+            raise InputError(f"{out}: cannot create the output folder {out.parent} ({exc.strerror or exc}); "
+                             "check members.output_template and --output") from None
+
+        def patch(out_store):
+            return plan_mod.run(plan_on(recipe, layout, out_store, shared, task.member), out_store, write=True)
+
+        rec = prov.write_perturbed(recipe=recipe, layout=layout, input_path=Path(task.input), output_path=out,
+                                   patch=patch, force=force, allow_outside=allow_outside,
+                                   member=task.member.record(), input_sha256=task.input_sha256,
+                                   command_line=command_line)
+        return _result(task, "ok", output_sha256=rec["output"]["sha256"], ledger=rec["ledger"])
+    except InputError as exc:
+        return _result(task, "failed", code=2, message=" ".join(str(exc).split()))
+    except Exception as exc:  # a bug or the machine: reported, the other members go on
+        return _result(task, "failed", code=1, message=f"{exc.__class__.__name__}: {exc}",
+                       detail=traceback.format_exc())
+
+
+# per-process state of local workers: shared arrays by grid fingerprint
+_WORKER_SHARED: dict = {}
+
+
+def _process_shared(recipe, layout, task: Task, allow_outside: bool) -> Shared:
+    if task.grid not in _WORKER_SHARED:
+        _WORKER_SHARED[task.grid] = build_shared(recipe, layout, Path(task.input), allow_outside=allow_outside)[0]
+    return _WORKER_SHARED[task.grid]
+
+
+def _init_worker(shared_by_grid: dict | None) -> None:
+    _WORKER_SHARED.clear()
+    if shared_by_grid:
+        _WORKER_SHARED.update(shared_by_grid)
+
+
+def _run_in_worker(recipe, layout, task, force, allow_outside, command_line):
+    return run_task(recipe, layout, task, _WORKER_SHARED.get(task.grid), force=force,
+                    allow_outside=allow_outside, command_line=command_line)
+
+
+# ---------------------------------------------------------------------------------------------
+# The ensemble
+# ---------------------------------------------------------------------------------------------
+
+
+@dataclass
+class EnsembleResult:
+    manifest: dict
+    outdir: Path
+    results: list = field(default_factory=list)
+
+    @property
+    def failed(self) -> list:
+        return [r for r in self.results if r["status"] != "ok"]
+
+    @property
+    def exit_code(self) -> int:
+        """0 all written; 2 every failure was bad input (of that member); 1 otherwise."""
+        bad = self.failed
+        if not bad:
+            return 0
+        return 2 if all(r["exit_code"] == 2 for r in bad) else 1
+
+
+def default_workers() -> int:
+    return max(1, min(2, os.cpu_count() or 1))
+
+
+def plan_tasks(recipe: Document, inputs, outdir: Path, chosen: list[Member], *, force: bool) -> list[Task]:
+    """One task per (input, member), with output paths checked before anything is written."""
+    inputs = [Path(i) for i in inputs]
+    if not inputs:
+        raise InputError("--input: give at least one input file")
+    seen_inputs = {}
+    for p in inputs:
+        if not p.is_file():
+            raise InputError(f"{p}: input file not found; check the path")
+        key = os.path.realpath(p)
+        if key in seen_inputs:
+            raise InputError(f"{p}: given twice in --input")
+        seen_inputs[key] = p
+    tasks, where = [], {}
+    in_real = set(seen_inputs)
+    for inp in inputs:
+        for m in chosen:
+            out = output_path(recipe, outdir, m, inp).resolve()
+            if str(out) in where:
+                raise InputError(f"recipe key members.output_template: gives the same output {out} for "
+                                 f"{where[str(out)]} and for member {m.name} of {inp}; add {{input_stem}} "
+                                 "(several inputs) or {member} to the template")
+            if os.path.realpath(out) in in_real:
+                raise InputError(f"recipe key members.output_template: output {out} is an input file; initgen never "
+                                 "modifies its input")
+            if out.exists() and not force:
+                raise InputError(f"{out}: exists; pass --force to replace the ensemble's outputs")
+            where[str(out)] = f"member {m.name} of {inp}"
+            tasks.append(Task(len(tasks), m, str(inp.resolve()), "", str(out), ""))
+    return tasks
+
+
+def run(recipe, inputs, outdir, layout=None, *, names=None, workers: int | None = None,
+        scheduler: str | None = None, force: bool = False, allow_outside_paths: bool = False,
+        progress=None, share: str = "arrays", method: str | None = None) -> EnsembleResult:
+    """Write every selected member for every input into ``outdir``, with a manifest.
+
+    ``recipe``/``layout`` are validated Documents. ``names`` selects members by name (all when
+    None). ``workers`` local processes (1 = in this process, one after the other; default
+    :func:`default_workers`), or ``scheduler`` the address of a Dask distributed scheduler.
+    ``progress(done, total, failed)`` is called as members finish. ``share`` is "arrays" (send
+    the precomputed shared arrays to the workers) or "rebuild" (each worker computes them once);
+    ``method`` the multiprocessing start method of local workers (default :func:`start_method`).
+    Bad recipes, inputs that do not fit it and output names that clash raise InputError before
+    anything is written; a member that fails while running is reported in the result and the
+    manifest, and the others go on.
+    """
+    if share not in ("arrays", "rebuild"):
+        raise ValueError(f"share: 'arrays' or 'rebuild', got {share!r}")
+    outdir = Path(outdir)
+    if outdir.exists() and not outdir.is_dir():
+        raise InputError(f"{outdir}: exists and is not a folder; an ensemble writes into a folder (--output DIR)")
+    chosen = select(recipe, names)
+    tasks = plan_tasks(recipe, inputs, outdir, chosen, force=force)
+    workers = default_workers() if workers is None else int(workers)
+    if workers < 1:
+        raise InputError(f"--workers: must be at least 1, got {workers}")
+    # validate each input against the recipe and compute the shared arrays, once per grid
+    cache: dict = {}
+    by_input: dict = {}
+    for t in tasks:
+        if t.input not in by_input:
+            shared, key = build_shared(recipe, layout, Path(t.input), allow_outside=allow_outside_paths, cache=cache)
+            by_input[t.input] = (key, sha256_file(t.input))
+        t.grid, t.input_sha256 = by_input[t.input]
+    try:
+        outdir.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise InputError(f"{outdir}: cannot create the output folder ({exc.strerror or exc})") from None
+    started = prov.utc_now()
+    payload = cache if share == "arrays" else None
+    results: dict = {}
+    command_line = list(sys.argv)
+    try:
+        if scheduler:
+            _run_dask(scheduler, recipe, layout, tasks, payload, force, allow_outside_paths, command_line,
+                      results, progress)
+        elif workers == 1 or len(tasks) == 1:
+            for t in tasks:
+                results[t.index] = run_task(recipe, layout, t, None if payload is None else payload[t.grid],
+                                            force=force, allow_outside=allow_outside_paths,
+                                            command_line=command_line)
+                _report(progress, results, len(tasks))
+        else:
+            _run_local(start_method(method), min(workers, len(tasks)), recipe, layout, tasks, payload, force,
+                       allow_outside_paths, command_line, results, progress)
+    finally:
+        ordered = [results.get(t.index) or _result(t, "not run", code=1, message="the run stopped before this member")
+                   for t in tasks]
+        manifest = _manifest(recipe, layout, outdir, ordered, started, workers, scheduler)
+        write_manifest(outdir, manifest)
+    return EnsembleResult(manifest, outdir, ordered)
+
+
+def _report(progress, results, total):
+    if progress:
+        progress(len(results), total, sum(1 for r in results.values() if r["status"] != "ok"))
+
+
+def start_method(requested: str | None = None) -> str:
+    """The multiprocessing start method for local workers.
+
+    Default: ``fork`` where the platform has it and this process runs no other thread (workers
+    start in milliseconds and inherit the imported libraries; nothing is open in the parent
+    while it forks), else ``forkserver``, else ``spawn``. The worker code is spawn-safe (it
+    takes only picklable arguments), so any method gives the same output.
+    """
+    import threading
+
+    methods = multiprocessing.get_all_start_methods()
+    if requested:
+        if requested not in methods:
+            raise InputError(f"start method {requested!r}: not available here; use one of {', '.join(methods)}")
+        return requested
+    if "fork" in methods and threading.active_count() == 1:
+        return "fork"
+    return "forkserver" if "forkserver" in methods else "spawn"
+
+
+def _mp_context(method: str):
+    ctx = multiprocessing.get_context(method)
+    if method == "forkserver":
+        ctx.set_forkserver_preload(["initgen.ensemble"])
+    return ctx
+
+
+def _run_local(method, nworkers, recipe, layout, tasks, payload, force, allow_outside, command_line, results, progress):
+    """Local worker processes.
+
+    If a worker process dies (killed for memory, a crash in a library), every unfinished member
+    of that pool fails with it; they are tried again in a fresh pool, and after a second death
+    each remaining member runs in a process of its own, so only the member that kills its
+    process is reported failed.
+    """
+    args = (recipe, layout)
+    pending, breaks = list(tasks), 0
+    while pending:
+        if breaks < 2:
+            pending = _pool_round(method, nworkers, args, pending, payload, force, allow_outside, command_line, results,
+                                  progress, len(tasks))
+            breaks += bool(pending)
+            continue
+        for t in pending:  # isolation: one process per member
+            if _pool_round(method, 1, args, [t], payload, force, allow_outside, command_line, results, progress,
+                           len(tasks)):
+                results[t.index] = _result(t, "failed", code=1, message="the worker process died while writing "
+                                           "this member (out of memory? a crash in a library?)")
+                _report(progress, results, len(tasks))
+        pending = []
+
+
+def _pool_round(method, nworkers, args, tasks, payload, force, allow_outside, command_line, results, progress,
+                total):
+    """Run ``tasks`` on a pool; returns the tasks lost to a broken pool."""
+    lost = []
+    pool = ProcessPoolExecutor(max_workers=min(nworkers, len(tasks)), mp_context=_mp_context(method),
+                               initializer=_init_worker, initargs=(payload,))
+    try:
+        futs = {pool.submit(_run_in_worker, *args, t, force, allow_outside, command_line): t for t in tasks}
+        todo = set(futs)
+        while todo:
+            done, todo = wait(todo, return_when=FIRST_COMPLETED)
+            for f in done:
+                t = futs[f]
+                try:
+                    results[t.index] = f.result()
+                except BrokenProcessPool:
+                    lost.append(t)
+                    continue
+                except Exception as exc:  # pickling problems and the like
+                    results[t.index] = _result(t, "failed", code=1, message=f"{exc.__class__.__name__}: {exc}",
+                                               detail=traceback.format_exc())
+                _report(progress, results, total)
+    except BaseException:  # interrupted: do not start the queued members
+        pool.shutdown(wait=False, cancel_futures=True)
+        raise
+    pool.shutdown()
+    return sorted(lost, key=lambda t: t.index)
+
+
+def _run_dask(address, recipe, layout, tasks, payload, force, allow_outside, command_line, results, progress):
+    try:
+        from distributed import Client, as_completed
+    except ImportError:
+        raise InputError("--scheduler needs Dask distributed; install it with: pip install 'initgen[dask]'") from None
+    try:
+        client = Client(address, timeout=30, set_as_default=False)
+    except (OSError, TimeoutError, ValueError) as exc:
+        raise InputError(f"--scheduler {address}: cannot connect to the Dask scheduler ({exc}); check the "
+                         "address (tcp://host:port) and that the scheduler is running") from None
+    try:
+        shared_f = {}
+        if payload is not None:
+            for key, shared in payload.items():
+                shared_f[key] = client.scatter(shared, broadcast=True, hash=False)
+        futs = {}
+        for t in tasks:
+            f = client.submit(run_task, recipe, layout, t, shared_f.get(t.grid), force=force,
+                              allow_outside=allow_outside, command_line=command_line, pure=False,
+                              key=f"initgen-{t.index}-{t.member.name}-{os.getpid()}-{id(tasks)}")
+            futs[f] = t
+        with client.as_current():
+            for f in as_completed(list(futs)):
+                t = futs[f]
+                try:
+                    results[t.index] = f.result()
+                except Exception as exc:  # a worker lost, KilledWorker, ...
+                    results[t.index] = _result(t, "failed", code=1, message=f"{exc.__class__.__name__}: {exc}")
+                _report(progress, results, len(tasks))
+    finally:
+        client.close()
+
+
+# ---------------------------------------------------------------------------------------------
+# The manifest
+# ---------------------------------------------------------------------------------------------
+
+CSV_COLUMNS = ("member", "scale", "sign", "offset_K", "noise_sigma_K", "noise_length_km", "seed", "input",
+               "input_sha256", "output", "output_sha256", "status", "message",
+               "top_soil_temperature_change_area_mean_K", "frozen_kg", "melted_kg", "latent_J", "sensible_J",
+               "clamped_cells")
+
+
+def _manifest(recipe, layout, outdir, results, started, workers, scheduler) -> dict:
+    from . import __version__
+
+    outputs = []
+    for r in results:
+        row = dict(r)
+        row.pop("index", None)
+        try:
+            row["output_relative"] = str(Path(r["output"]).resolve().relative_to(outdir.resolve()))
+        except ValueError:
+            row["output_relative"] = None
+        if not row["detail"]:
+            row.pop("detail")
+        outputs.append(row)
+    return {
+        "format": MANIFEST_FORMAT,
+        "initgen_version": __version__,
+        "recipe": {"name": recipe.name, "path": str(recipe.path) if recipe.path else None, "sha256": recipe.sha256,
+                   "seed": recipe.data["seed"]},
+        "layout": None if layout is None else {"name": layout.name, "sha256": layout.sha256},
+        "output_folder": str(outdir.resolve()),
+        "started_utc": started,
+        "ended_utc": prov.utc_now(),
+        "execution": {"scheduler": scheduler} if scheduler else {"workers": workers},
+        "counts": {"outputs": len(results), "ok": sum(r["status"] == "ok" for r in results),
+                   "failed": sum(r["status"] != "ok" for r in results)},
+        "outputs": outputs,
+    }
+
+
+def manifest_csv(manifest: dict) -> str:
+    buf = io.StringIO()
+    w = csv.writer(buf, lineterminator="\n")
+    w.writerow(CSV_COLUMNS)
+    for r in manifest["outputs"]:
+        m, s = r["member"], r["summary"] or {}
+        noise = m["noise"] or {}
+        vals = {"member": m["name"], "scale": m["scale"], "sign": m["sign"], "offset_K": m["offset_K"],
+                "noise_sigma_K": noise.get("sigma_K"), "noise_length_km": noise.get("length_km"), "seed": m["seed"],
+                "input": r["input"], "input_sha256": r["input_sha256"], "output": r["output"],
+                "output_sha256": r["output_sha256"], "status": r["status"], "message": r["message"], **s}
+        w.writerow(["" if vals.get(c) is None else vals.get(c) for c in CSV_COLUMNS])
+    return buf.getvalue()
+
+
+def write_manifest(outdir: Path, manifest: dict) -> None:
+    write_atomic_text(Path(outdir) / "manifest.json", json.dumps(manifest, indent=2, allow_nan=False) + "\n")
+    write_atomic_text(Path(outdir) / "manifest.csv", manifest_csv(manifest))
+
+
+# ---------------------------------------------------------------------------------------------
+# Dry run and text
+# ---------------------------------------------------------------------------------------------
+
+
+def preview(recipe, input_path, layout=None, *, names=None, allow_outside_paths: bool = False) -> list:
+    """Each selected member's ledger for one input, without writing: [(Member, ledger), ...]."""
+    chosen = select(recipe, names)
+    store = NetCDFStore(input_path)
+    try:
+        model = open_model(store, layout, needed=plan_mod.needed_roles(recipe))
+        model.layout = layout
+        base = plan_mod.build_plan(recipe, model, allow_outside=allow_outside_paths)
+        shared = Shared(base.blocks, base.region, tuple(model.grid.shape))
+        out = []
+        for m in chosen:
+            p = configure(plan_mod.Plan(recipe, model, shared.blocks, dict(recipe.data["physics"]), shared.region), m)
+            out.append((m, plan_mod.run(p, store, write=False)))
+        return out
+    finally:
+        store.close()
+
+
+def _fmt(v, spec):
+    return "-" if v is None else format(v, spec)
+
+
+def members_table(rows) -> str:
+    """One line per member: name, scale x sign, offset, mean top-layer change, frozen kg, latent J."""
+    lines = [f"{'member':<20} {'scale':>7} {'offset_K':>8} {'top_dT_K':>9} {'frozen_kg':>10} {'latent_J':>10}"]
+    for m, led in rows:
+        s = ledger_summary(led)
+        lines.append(f"{m.name:<20} {m.factor:>7.3g} {m.offset_K:>8.3g} "
+                     f"{_fmt(s['top_soil_temperature_change_area_mean_K'], '9.4g')} "
+                     f"{_fmt(s['frozen_kg'], '10.4g')} {_fmt(s['latent_J'], '10.4g')}")
+    return "\n".join(lines)
+
+
+def results_table(result: EnsembleResult) -> str:
+    """One line per output: member, input, status, mean top-layer change (or the failure)."""
+    lines = [f"{'member':<20} {'input':<24} {'status':<7} {'top_dT_K':>9}  output / message"]
+    for r in result.results:
+        s = r["summary"] or {}
+        tail = r["output"] if r["status"] == "ok" else r["message"]
+        lines.append(f"{r['member']['name']:<20} {Path(r['input']).name:<24} {r['status']:<7} "
+                     f"{_fmt(s.get('top_soil_temperature_change_area_mean_K'), '9.4g')}  {tail}")
+    c = result.manifest["counts"]
+    lines.append(f"{c['ok']} of {c['outputs']} output(s) written, {c['failed']} failed; manifest: "
+                 f"{result.outdir / 'manifest.json'} and manifest.csv")
+    return "\n".join(lines)
+
+
+__all__ = ["Member", "members", "select", "configure", "member_noise", "output_path", "build_shared", "run",
+           "run_task", "preview", "members_table", "results_table", "ledger_summary", "write_manifest",
+           "EnsembleResult", "default_workers"]
