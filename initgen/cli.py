@@ -25,9 +25,12 @@ class _Parser(argparse.ArgumentParser):
                   if " " in self.prog else f"initgen: error: {message} (see 'initgen --help')\n")
 
 
-def _common(p, input_required=True, layout=True):
+def _common(p, input_required=True, layout=True, many_inputs=False):
     p.add_argument("recipe", help="recipe YAML file")
-    if input_required is not None:
+    if many_inputs:
+        p.add_argument("--input", "-i", required=True, nargs="+", metavar="FILE",
+                       help="restart / initial-condition netCDF file(s); several (start dates) for an ensemble")
+    elif input_required is not None:
         p.add_argument("--input", "-i", required=input_required, help="restart / initial-condition netCDF file")
     if layout:
         p.add_argument("--layout", "-l", help="layout YAML file (default: the recipe's inline layout, else CF attributes)")
@@ -45,16 +48,24 @@ def build_parser() -> argparse.ArgumentParser:
     p = sub.add_parser("check", help="validate a recipe (and layout, and their fit to an input file); writes nothing")
     _common(p, input_required=False)
 
-    p = sub.add_parser("apply", help="write a perturbed copy of the input and its provenance record")
-    _common(p)
-    p.add_argument("--output", "-o", required=True, help="output netCDF file (never the input)")
-    p.add_argument("--force", action="store_true", help="replace an existing output")
+    p = sub.add_parser("apply", help="write a perturbed copy of the input and its provenance record "
+                       "(with members: every member for every input, into a folder)")
+    _common(p, many_inputs=True)
+    p.add_argument("--output", "-o", required=True, help="output netCDF file (never the input); for a recipe with "
+                   "members, the output folder (files named by members.output_template, plus manifest.json/.csv)")
+    p.add_argument("--member", metavar="NAME", help="write only this member, to the --output file")
+    p.add_argument("--workers", type=int, metavar="N", help="local worker processes for members (default min(2, CPUs))")
+    p.add_argument("--scheduler", metavar="ADDRESS", help="run members on this Dask distributed scheduler "
+                   "(e.g. tcp://host:8786; needs initgen[dask] and a file system the workers share)")
+    p.add_argument("--force", action="store_true", help="replace existing outputs")
     p.add_argument("--quiet", "-q", action="store_true", help="print nothing but errors")
 
     p = sub.add_parser("preview", help="dry run: show what apply would change; writes no netCDF file")
     _common(p)
     p.add_argument("--json", help="write the ledger as JSON to this file")
     p.add_argument("--report", help="write a Markdown report with figures into this folder")
+    p.add_argument("--member", metavar="NAME",
+                   help="preview only this member (for a recipe with members: default all, one row each)")
 
     p = sub.add_parser("mask", help="write the horizontal weight field on the model grid (netCDF, optional PNG)")
     _common(p)
@@ -118,6 +129,22 @@ def _show_warnings(caught) -> None:
             sys.stderr.write(warnings.formatwarning(w.message, w.category, w.filename, w.lineno))
 
 
+def _member_progress(quiet: bool):
+    if quiet or not sys.stderr.isatty():
+        return None
+
+    def show(done, total, failed):
+        width = 30
+        n = int(width * done / max(total, 1))
+        extra = f", {failed} failed" if failed else ""
+        sys.stderr.write(f"\r[{'#' * n}{'.' * (width - n)}] {done}/{total} members done{extra}")
+        if done == total:
+            sys.stderr.write("\n")
+        sys.stderr.flush()
+
+    return show
+
+
 def main(argv=None) -> int:
     warnings.formatwarning = _warn_line
     parser = build_parser()
@@ -159,7 +186,22 @@ def _dispatch(args) -> int:
         print(res.summary())
         return 0
     if args.command == "apply":
-        rec = api.apply(args.recipe, args.input, args.output, args.layout, force=args.force,
+        recipe = api.load_recipe(args.recipe)
+        if recipe.data.get("members") and args.member is None:
+            from .ensemble import results_table
+
+            res = api.apply_ensemble(recipe, args.input, args.output, args.layout, workers=args.workers,
+                                     scheduler=args.scheduler, force=args.force,
+                                     allow_outside_paths=args.allow_outside_paths,
+                                     progress=_member_progress(args.quiet))
+            if not args.quiet:
+                print(results_table(res))
+            for r in res.failed:
+                sys.stderr.write(f"initgen: error: member {r['member']['name']} of {r['input']}: {r['message']}\n")
+            return res.exit_code
+        if len(args.input) != 1:
+            raise InputError("--input: give one input file (several inputs need a recipe with a members section)")
+        rec = api.apply(recipe, args.input[0], args.output, args.layout, member=args.member, force=args.force,
                         allow_outside_paths=args.allow_outside_paths, progress=_progress_printer(args.quiet))
         if not args.quiet:
             print(api.ledger_text(rec["ledger"]))
@@ -167,7 +209,23 @@ def _dispatch(args) -> int:
             print(f"wrote {args.output}.provenance.json")
         return 0
     if args.command == "preview":
-        led = api.preview(args.recipe, args.input, args.layout, allow_outside_paths=args.allow_outside_paths)
+        recipe = api.load_recipe(args.recipe)
+        if recipe.data.get("members") and args.member is None:
+            from .ensemble import members_table
+
+            if args.report:
+                raise InputError("--report: the recipe has members; name one with --member NAME for a report")
+            rows = api.preview_members(recipe, args.input, args.layout, allow_outside_paths=args.allow_outside_paths)
+            print(members_table(rows))
+            if args.json:
+                from .restart import write_atomic_text
+
+                data = {"members": [{"member": m.record(), "ledger": led} for m, led in rows]}
+                write_atomic_text(Path(args.json), json.dumps(data, indent=2) + "\n")
+                print(f"wrote {args.json}")
+            return 0
+        led = api.preview(recipe, args.input, args.layout, member=args.member,
+                          allow_outside_paths=args.allow_outside_paths)
         print(api.ledger_text(led))
         if args.json:
             from .restart import write_atomic_text
