@@ -21,7 +21,9 @@ import hashlib
 import os
 import shutil
 import signal
+import socket
 import struct
+import time
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Callable, Iterator
@@ -445,6 +447,52 @@ def clean_stale_temporaries(output: Path) -> list[Path]:
     return removed
 
 
+LOCK_TAG = ".initgen-lock"
+
+
+def _lock_path(output: Path) -> Path:
+    return output.parent / f".{output.name}{LOCK_TAG}"
+
+
+def _lock_is_stale(lock: Path) -> bool:
+    """A lock left by a crashed run: its process (on this host) is gone, or it was never filled in."""
+    try:
+        text = lock.read_text(encoding="utf-8").split()
+        age = time.time() - lock.stat().st_mtime
+    except (OSError, UnicodeDecodeError):
+        return False
+    if len(text) != 2 or not text[1].isdigit():
+        return age > 60.0  # created but never written: a crash between the two steps
+    return text[0] == socket.gethostname() and not _pid_alive(int(text[1]))
+
+
+@contextlib.contextmanager
+def output_lock(output: Path) -> Iterator[None]:
+    """Hold ``.<name>.initgen-lock`` beside ``output`` while writing it, so that a second initgen
+    run for the same output stops at once with a clear message instead of racing to the end."""
+    lock = _lock_path(output)
+    for attempt in (0, 1):
+        try:
+            fd = os.open(lock, os.O_WRONLY | os.O_CREAT | os.O_EXCL, 0o644)
+            break
+        except FileExistsError:
+            if attempt == 0 and _lock_is_stale(lock):
+                with contextlib.suppress(OSError):
+                    lock.unlink()
+                continue
+            raise InputError(f"{output}: another initgen run is writing this output right now (lock file "
+                             f"{lock.name}); wait for it to finish or choose another output") from None
+        except OSError as exc:
+            raise _disk_error(exc, output) from None
+    try:
+        with os.fdopen(fd, "w", encoding="utf-8") as fh:
+            fh.write(f"{socket.gethostname()} {os.getpid()}\n")
+        yield
+    finally:
+        with contextlib.suppress(OSError):
+            lock.unlink()
+
+
 def _pid_alive(pid: int) -> bool:
     try:
         os.kill(pid, 0)
@@ -528,7 +576,8 @@ def copy_and_patch(input_path: str | os.PathLike, output: str | os.PathLike, pat
 
     ``after(tmp_path)`` runs once the patched copy is closed and synced, before it is published
     (used to write the provenance record, which needs the output's hash). Whatever goes wrong,
-    the temporary file is removed and no output appears.
+    the temporary file is removed and no output appears. A second initgen run for the same
+    output stops at once (see :func:`output_lock`).
     """
     input_path = Path(input_path)
     output = Path(output)
@@ -537,7 +586,7 @@ def copy_and_patch(input_path: str | os.PathLike, output: str | os.PathLike, pat
     tmp = _tmp_path(output)
     result = None
     try:
-        with _signals_raise():
+        with _signals_raise(), output_lock(output):
             try:
                 shutil.copyfile(input_path, tmp)
             except OSError as exc:
@@ -552,6 +601,9 @@ def copy_and_patch(input_path: str | os.PathLike, output: str | os.PathLike, pat
             finally:
                 store.close()
             fsync_path(tmp)
+            if not force and output.exists():  # made meanwhile by another program: keep its record too
+                raise InputError(f"{output}: another process created this file while initgen was writing; "
+                                 "kept theirs, pass --force to replace it")
             if after is not None:
                 after(tmp)
             publish(tmp, output, force)
@@ -559,10 +611,31 @@ def copy_and_patch(input_path: str | os.PathLike, output: str | os.PathLike, pat
         raise KeyboardInterrupt(str(exc)) from None
     except OSError as exc:
         raise _disk_error(exc, output) from None
+    except RuntimeError as exc:
+        # the netCDF library reports a full disk as "NetCDF: HDF error", without errno
+        free = _free_bytes(output.parent)
+        if free is not None and free < max(64 << 20, _size(input_path)):
+            raise InputError(f"{output}: writing failed ({exc}) with {free / 1e6:.1f} MB left on the device, so "
+                             "the disk is most likely full; free space or write elsewhere (nothing was written)") from None
+        raise
     finally:
         with contextlib.suppress(OSError):
             tmp.unlink()
     return result
+
+
+def _free_bytes(folder: Path) -> int | None:
+    try:
+        return shutil.disk_usage(folder).free
+    except OSError:
+        return None
+
+
+def _size(path: Path) -> int:
+    try:
+        return path.stat().st_size
+    except OSError:
+        return 0
 
 
 def create_netcdf(path: Path, build: Callable[[Any], None], fmt: str = "NETCDF4", force: bool = True) -> None:
