@@ -93,6 +93,9 @@ def shape_geometry(shape: dict, recipe: Document, key: str, allow_outside: bool)
         return _shape_geometry(shape, recipe, key, allow_outside)
     except InputError as exc:
         raise _keyed(exc, key) from None
+    except RecursionError:  # json.load of an absurdly nested file
+        raise InputError(f"recipe key {key}: the shape's file is nested too deeply to be a GeoJSON region; "
+                         "fix the file") from None
 
 
 def _shape_geometry(shape: dict, recipe: Document, key: str, allow_outside: bool):
