@@ -493,6 +493,70 @@ def test_anomaly_file_leaving_the_recipe_folder(tmp_path, capsys):
             "--allow-outside-paths", folder=work, watch=[tmp_path / "anom.nc"])
 
 
+def test_anomaly_file_outside_accepted_with_allow_outside_paths(tmp_path, capsys):
+    work = tmp_path / "w"
+    work.mkdir()
+    regular(work / "in.nc")
+    field_file(tmp_path / "anom.nc", np.arange(0, 360, 10.0), np.arange(-85, 90, 10.0))
+    rec = field_recipe(work, "../anom.nc")
+    assert main([str(a) for a in apply_argv(work, rec, "--allow-outside-paths", "-q")]) == 0
+    record = json.loads((work / "out.nc.provenance.json").read_text())
+    assert record["options"]["allow_outside_paths"] is True
+
+
+def test_bias_file_leaving_the_recipe_folder(work, capsys):
+    rec = recipe(work, swap("anomaly: {constant_K: -2}",
+                            "anomaly: {bias: {model_file: ../m.nc, reference_file: r.nc, variable: t}}"))
+    refused(capsys, apply_argv(work, rec), "perturbations[0].anomaly.bias.model_file", "leaves the recipe's folder",
+            "--allow-outside-paths", folder=work)
+
+
+def test_donor_file_leaving_the_recipe_folder(work, capsys):
+    rec = recipe(work, swap("anomaly: {constant_K: -2}", f"anomaly: {{donor: {{file: {work / 'in.nc'}}}}}"))
+    sub = work / "sub"
+    sub.mkdir()
+    rec = rec.rename(sub / "r.yaml")
+    refused(capsys, apply_argv(work, rec), "perturbations[0].anomaly.donor.file", "leaves the recipe's folder",
+            folder=work)
+
+
+def test_geojson_in_a_subfolder_of_the_recipe_is_fine(work, capsys):
+    (work / "shapes").mkdir()
+    (work / "shapes" / "s.geojson").write_text(json.dumps(GEO_POLY))
+    rec = geo_recipe(work, "shapes/s.geojson")
+    assert main([str(a) for a in ["check", rec, "--input", work / "in.nc"]]) == 0
+
+
+def test_geojson_path_is_a_folder(work, capsys):
+    (work / "shapes").mkdir()
+    rec = geo_recipe(work, "shapes")
+    refused(capsys, apply_argv(work, rec), "perturbations[0].region.include[0]", "shapes", "cannot be read",
+            folder=work)
+
+
+def test_geojson_nested_absurdly_deep(work, capsys):
+    (work / "shape.geojson").write_text("[" * 100_000)
+    rec = geo_recipe(work)
+    refused(capsys, apply_argv(work, rec), "perturbations[0].region.include[0]", "nested too deeply", folder=work)
+
+
+def test_recipe_with_a_yaml_alias_bomb(work, capsys):
+    bomb = "a: &a [x, x, x, x, x, x, x, x, x]\n" + "".join(
+        f"{c}: &{c} [*{p}, *{p}, *{p}, *{p}, *{p}, *{p}, *{p}, *{p}, *{p}]\n" for p, c in zip("abcdefgh", "bcdefghi"))
+    rec = recipe(work, bomb + RECIPE.replace("name: cat", "name: *i"))
+    refused(capsys, apply_argv(work, rec), "recipe key", folder=work)
+
+
+def test_recipe_with_a_key_given_twice(work, capsys):
+    rec = recipe(work, swap("taper_km: 200", "taper_km: 200\n      taper_km: 0"))
+    refused(capsys, apply_argv(work, rec), "r.yaml", "duplicate key 'taper_km'", "give each key once", folder=work)
+
+
+def test_recipe_nested_absurdly_deep(work, capsys):
+    rec = recipe(work, RECIPE + "description: " + "[" * 20_000 + "\n")
+    refused(capsys, apply_argv(work, rec), "r.yaml", folder=work)
+
+
 def test_anomaly_file_missing(work, capsys):
     rec = field_recipe(work, "nothing.nc")
     refused(capsys, apply_argv(work, rec), "perturbations[0].anomaly.field.file", "not found", folder=work)
