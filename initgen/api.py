@@ -190,7 +190,7 @@ def weights(recipe, input, layout=None, *, allow_outside_paths: bool = False):
     try:
         model = _model(store, lay, rec)
         plan = plan_mod.build_plan(rec, model, allow_outside=allow_outside_paths)
-        w = np.max([b.weight for b in plan.blocks], axis=0)
+        w = plan.full(np.max([b.weight for b in plan.blocks], axis=0))
         return w, model.grid, plan
     finally:
         store.close()

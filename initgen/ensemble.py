@@ -106,18 +106,17 @@ def select(recipe: Document, names=None) -> list[Member]:
     return out
 
 
-def member_noise(grid, region: np.ndarray, member: Member) -> np.ndarray | None:
-    """The member's noise field on the grid (K), computed where the region has weight > 0, else 0.
+def member_noise(plan, member: Member) -> np.ndarray | None:
+    """The member's noise field on the plan's window (K), computed where the region has weight > 0, else 0.
 
     The noise at a point does not depend on which other points are computed, so restricting the
     computation to the region changes nothing where it is used.
     """
     if member.noise is None or member.noise["sigma_K"] == 0:
         return None
-    lon = np.broadcast_to(grid.lon, grid.shape)
-    lat = np.broadcast_to(grid.lat, grid.shape)
-    out = np.zeros(grid.shape)
-    out[region] = sources.correlated_noise(lon[region], lat[region], member.noise["sigma_K"],
+    region = plan.region
+    out = np.zeros(region.shape)
+    out[region] = sources.correlated_noise(plan.lon[region], plan.lat[region], member.noise["sigma_K"],
                                            member.noise["length_km"], member.seed)
     return out
 
@@ -128,7 +127,7 @@ def configure(plan, member: Member | None):
         return plan
     plan.member_scale = member.factor
     plan.member_offset_K = member.offset_K
-    plan.noise = member_noise(plan.model.grid, plan.region, member)
+    plan.noise = member_noise(plan, member)
     return plan
 
 
@@ -163,13 +162,15 @@ class Shared:
     blocks: list
     region: np.ndarray
     shape: tuple
+    window: tuple
 
 
 def _grid_fingerprint(model, recipe: Document, layout: Document | None, allow_outside: bool) -> str:
     """sha256 of everything the shared arrays depend on: recipe, layout, and what comes from the file."""
     h = hashlib.sha256()
     h.update(f"{recipe.sha256} {None if layout is None else layout.sha256} {allow_outside}".encode())
-    for arr in (model.grid.lon, model.grid.lat, model.grid.area):
+    areas = model.grid.area_src if isinstance(model.grid.area_src, np.ndarray) else np.zeros(0)
+    for arr in (model.grid.lon_src, model.grid.lat_src, areas):
         a = np.ascontiguousarray(arr, dtype=np.float64)
         h.update(str(a.shape).encode())
         h.update(a.tobytes())
@@ -200,7 +201,7 @@ def build_shared(recipe: Document, layout: Document | None, input_path: Path, *,
         if cache is not None and key in cache:
             return cache[key], key
         p = plan_mod.build_plan(recipe, model, allow_outside=allow_outside)
-        shared = Shared(p.blocks, p.region, tuple(model.grid.shape))
+        shared = Shared(p.blocks, p.region, tuple(model.grid.shape), p.window)
         if cache is not None:
             cache[key] = shared
         return shared, key
@@ -215,7 +216,7 @@ def plan_on(recipe: Document, layout: Document | None, store, shared: Shared, me
     if tuple(model.grid.shape) != shared.shape:
         raise InputError(f"{store.describe()}: grid shape {model.grid.shape} differs from the shared plan's "
                          f"{shared.shape}")
-    p = plan_mod.Plan(recipe, model, shared.blocks, dict(recipe.data["physics"]), shared.region)
+    p = plan_mod.Plan(recipe, model, shared.blocks, dict(recipe.data["physics"]), shared.region, shared.window)
     return configure(p, member)
 
 
@@ -627,10 +628,10 @@ def preview(recipe, input_path, layout=None, *, names=None, allow_outside_paths:
         model = open_model(store, layout, needed=plan_mod.needed_roles(recipe))
         model.layout = layout
         base = plan_mod.build_plan(recipe, model, allow_outside=allow_outside_paths)
-        shared = Shared(base.blocks, base.region, tuple(model.grid.shape))
         out = []
         for m in chosen:
-            p = configure(plan_mod.Plan(recipe, model, shared.blocks, dict(recipe.data["physics"]), shared.region), m)
+            p = configure(plan_mod.Plan(recipe, model, base.blocks, dict(recipe.data["physics"]), base.region,
+                                        base.window), m)
             out.append((m, plan_mod.run(p, store, write=False)))
         return out
     finally:

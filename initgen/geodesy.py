@@ -239,9 +239,20 @@ def cell_areas_regular(lon_1d, lat_1d):
     Professional Paper 1395, pp. 76-85 (the cylindrical equal-area projection,
     ``y = R sin(lat)``, from which the area of a lon/lat rectangle follows).
     """
+    dsin, dlon = cell_area_factors(lon_1d, lat_1d)
+    r_m = EARTH_RADIUS_KM * 1.0e3
+    return r_m * r_m * dsin[:, None] * dlon[None, :]
+
+
+def cell_area_factors(lon_1d, lat_1d):
+    """The two 1-D factors of :func:`cell_areas_regular`: ``|sin(lat_n) - sin(lat_s)|`` per
+    row and ``|dlon|`` in radians per column, so that area = R^2 * outer(dsin, dlon).
+
+    A regular grid's cell areas are separable; callers that need the areas of a part of a
+    large grid multiply the two factors for that part only.
+    """
     blon = _bounds_1d(lon_1d, period=360.0)
     blat = _bounds_1d(lat_1d, clip=90.0)
     dlon = np.abs(np.radians(np.diff(blon)))
     dsin = np.abs(np.diff(np.sin(np.radians(blat))))
-    r_m = EARTH_RADIUS_KM * 1.0e3
-    return r_m * r_m * dsin[:, None] * dlon[None, :]
+    return dsin, dlon

@@ -46,30 +46,86 @@ LAYERED_ROLES = ("soil_temperature", "soil_liquid", "soil_ice", "snow_temperatur
                  "porosity", "psi_sat", "clapp_b", "sand", "clay")
 
 
-@dataclass
 class Grid:
-    """Horizontal grid: lon/lat of the horizontal shape, its dims, kind and cell areas (m2)."""
+    """Horizontal grid: coordinates as stored, dims, kind and cell areas (m2).
 
-    lon: np.ndarray
-    lat: np.ndarray
-    dims: tuple
-    kind: str
-    area: np.ndarray
-    area_source: str
-    lon1d: np.ndarray | None = None
-    lat1d: np.ndarray | None = None
+    Full-grid arrays (``lon``, ``lat``, ``area``, in the horizontal shape) are built on first
+    use only: on a regular grid they are ``nlat x nlon`` arrays that a large file's apply never
+    needs. :meth:`at` gives them for a window of the grid (per-dimension index arrays), which is
+    what the perturbation works on.
+    """
+
+    def __init__(self, lon_src, lat_src, dims, kind, area_src, area_source):
+        self.lon_src = np.asarray(lon_src, float)
+        self.lat_src = np.asarray(lat_src, float)
+        self.dims = tuple(dims)
+        self.kind = kind
+        self.area_src = area_src  # None: computed (regular); 'equal'; or an array of the horizontal shape
+        self.area_source = area_source
+        if kind == "regular":
+            self.shape = (self.lat_src.size, self.lon_src.size)
+            self._factors = geodesy.cell_area_factors(self.lon_src, self.lat_src) if area_src is None else None
+        else:
+            self.shape = tuple(self.lon_src.shape)
+            self._factors = None
+        self._full = None
 
     @property
-    def shape(self) -> tuple:
-        return self.lon.shape
+    def lon1d(self):
+        return self.lon_src if self.kind == "regular" else None
+
+    @property
+    def lat1d(self):
+        return self.lat_src if self.kind == "regular" else None
 
     @property
     def size(self) -> int:
-        return int(self.lon.size)
+        return int(np.prod(self.shape))
+
+    def full_window(self) -> tuple:
+        return tuple(np.arange(n) for n in self.shape)
+
+    def at(self, window: tuple | None) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """(lon, lat, area) for a window: one sorted index array per horizontal dim (None: all)."""
+        if window is None:
+            window = self.full_window()
+        if self.kind == "regular":
+            j, i = window
+            lon, lat = np.meshgrid(self.lon_src[i], self.lat_src[j])
+            if self._factors is not None:
+                r_m = geodesy.EARTH_RADIUS_KM * 1.0e3
+                area = r_m * r_m * np.outer(self._factors[0][j], self._factors[1][i])
+            else:
+                area = self._area_window(window)
+            return lon, lat, area
+        ix = np.ix_(*window)
+        return self.lon_src[ix], self.lat_src[ix], self._area_window(window)
+
+    def _area_window(self, window):
+        if isinstance(self.area_src, str):
+            return np.ones(tuple(len(w) for w in window))
+        return np.asarray(self.area_src)[np.ix_(*window)]
+
+    def _all(self):
+        if self._full is None:
+            self._full = self.at(None)
+        return self._full
+
+    @property
+    def lon(self) -> np.ndarray:
+        return self._all()[0]
+
+    @property
+    def lat(self) -> np.ndarray:
+        return self._all()[1]
+
+    @property
+    def area(self) -> np.ndarray:
+        return self._all()[2]
 
     def extent(self) -> str:
-        return (f"lon {np.nanmin(self.lon):.2f}..{np.nanmax(self.lon):.2f}, "
-                f"lat {np.nanmin(self.lat):.2f}..{np.nanmax(self.lat):.2f}")
+        return (f"lon {np.nanmin(self.lon_src):.2f}..{np.nanmax(self.lon_src):.2f}, "
+                f"lat {np.nanmin(self.lat_src):.2f}..{np.nanmax(self.lat_src):.2f}")
 
 
 @dataclass
@@ -245,27 +301,22 @@ def build_grid(store: Store, lon_name: str, lat_name: str, area_name: str | None
     if lat.min() < -90.0 - 1e-6 or lat.max() > 90.0 + 1e-6:
         raise InputError(f"{store.describe()}: latitude '{lat_name}' outside -90..90 degrees "
                          f"({lat.min():.6g}..{lat.max():.6g}); is it in radians or projected metres?")
-    lon1d = lat1d = None
     if lon.ndim == 1 and lat.ndim == 1 and lon_i.dims != lat_i.dims:
         kind = "regular"
         dims = (lat_i.dims[0], lon_i.dims[0])
-        lon1d, lat1d = lon, lat
-        lon2, lat2 = np.meshgrid(lon, lat)
     elif lon.ndim == 1 and lat.ndim == 1:
         kind = "points"
         dims = lon_i.dims
-        lon2, lat2 = lon, lat
     elif lon.ndim == 2 and lat.ndim == 2 and lon_i.dims == lat_i.dims:
         kind = "curvilinear"
         dims = lon_i.dims
-        lon2, lat2 = lon, lat
     else:
         raise InputError(f"{store.describe()}: cannot tell the grid from longitude {lon_name}{lon_i.dims} and "
                          f"latitude {lat_name}{lat_i.dims}; they must be 1-D on their own dims, 1-D on one shared "
                          "dim, or 2-D on the same dims")
     if area_name:
         info = store.variables[area_name]
-        if tuple(d for d in info.dims if d in dims) != dims or info.dims != dims:
+        if info.dims != dims:
             raise InputError(f"{store.describe()}: cell area '{area_name}' has dims {info.dims}, expected {dims}")
         area = store.read(area_name)
         u = info.units.lower().replace("^", "").replace("**", "")
@@ -276,14 +327,14 @@ def build_grid(store: Store, lon_name: str, lat_name: str, area_name: str | None
         area = np.where(np.isfinite(area), area, 0.0)
         src = f"variable {area_name}"
     elif kind == "regular":
-        area = geodesy.cell_areas_regular(lon1d, lat1d)
+        area = None
         src = "computed for a regular grid on a sphere of R = 6371.0 km"
     else:
         warnings.warn(f"{store.describe()}: no cell-area variable for a {kind} grid; area-weighted means use "
                       "equal weights (name roles.cell_area in the layout for true areas)", InputWarning, stacklevel=3)
-        area = np.ones(lon2.shape)
+        area = "equal"
         src = "equal weights (no cell-area variable)"
-    return Grid(np.asarray(lon2, float), np.asarray(lat2, float), tuple(dims), kind, area, src, lon1d, lat1d)
+    return Grid(lon, lat, dims, kind, area, src)
 
 
 def _layer_dim_of(info: VarInfo, hdims: tuple, given: str | None, store: Store, where: str) -> str | None:

@@ -97,7 +97,7 @@ class Ledger:
     def finish(self) -> dict:
         model = self.plan.model
         depths = model.layers.node_m.tolist() if model.layers is not None else None
-        region_area = float(model.grid.area[self.plan.region].sum())
+        region_area = float(self.plan.area[self.plan.region].sum())
         out = {
             "grid": {"kind": model.grid.kind, "shape": list(model.grid.shape), "dims": list(model.grid.dims),
                      "cell_area": model.grid.area_source, "roles_from": model.source},

@@ -21,7 +21,7 @@ from pathlib import Path
 import numpy as np
 
 from . import ledger as ledger_mod
-from . import profiles, regions, soil, sources
+from . import geodesy, profiles, regions, soil, sources
 from .errors import InputError, InputWarning
 from .grid import ModelFile
 from .layers import Layers
@@ -37,8 +37,8 @@ class BlockPlan:
     name: str
     index: int
     targets: tuple
-    weight: np.ndarray  # horizontal shape
-    anomaly: np.ndarray | None  # horizontal shape, K
+    weight: np.ndarray  # window shape
+    anomaly: np.ndarray | None  # window shape, K
     factors: np.ndarray | None  # per soil layer
     surface_factor: float
     donor: ModelFile | None = None
@@ -53,10 +53,22 @@ class Plan:
     model: ModelFile
     blocks: list
     physics: dict
-    region: np.ndarray  # bool, horizontal shape: any block's weight > 0
+    region: np.ndarray  # bool, window shape: any block's weight > 0
+    window: tuple | None = None  # per horizontal dim, sorted file indices; None: the whole grid
     member_scale: float = 1.0
     member_offset_K: float = 0.0
-    noise: np.ndarray | None = None
+    noise: np.ndarray | None = None  # window shape, K
+
+    def __post_init__(self):
+        if self.window is None:
+            self.window = self.model.grid.full_window()
+        self.lon, self.lat, self.area = self.model.grid.at(self.window)
+
+    def full(self, arr: np.ndarray, fill: float = 0.0) -> np.ndarray:
+        """A window-shaped array placed on the whole grid (for maps and mask files)."""
+        out = np.full(self.model.grid.shape, fill, dtype=np.result_type(arr, np.float64))
+        out[np.ix_(*self.window)] = arr
+        return out
 
     @property
     def targets(self) -> tuple:
@@ -132,33 +144,32 @@ def region_geometry(region: dict, recipe: Document, key: str, allow_outside: boo
     return regions.combine(inc, exc)
 
 
-def horizontal_weight(model: ModelFile, region: dict, geom, name: str) -> np.ndarray:
-    """w(x) = taper(x) * elevation ramp(x) * land weight(x); 0 where the land data are missing."""
+def horizontal_weight(model: ModelFile, region: dict, geom, name: str, window: tuple,
+                      lon: np.ndarray, lat: np.ndarray) -> np.ndarray:
+    """w(x) = taper(x) * elevation ramp(x) * land weight(x) on the window; 0 where land data are missing."""
     grid = model.grid
-    regular = grid.kind == "regular"
-    hard = regions.hard_mask(grid.lon, grid.lat, geom, regular=regular)
-    regions.check_coverage(hard | (regions.taper_weight(grid.lon, grid.lat, geom, region["taper_km"],
-                                                        placement=region["taper_placement"], regular=regular) > 0)
-                           if region["taper_km"] > 0 else hard, name, grid.lon, grid.lat)
     if region["taper_km"] > 0:
-        w = regions.taper_weight(grid.lon, grid.lat, geom, region["taper_km"], placement=region["taper_placement"],
-                                 regular=regular)
+        w = regions.taper_weight(lon, lat, geom, region["taper_km"], placement=region["taper_placement"])
     else:
-        w = hard.astype(np.float64)
+        w = regions.hard_mask(lon, lat, geom).astype(np.float64)
+    if not np.any(w > 0):
+        raise InputError(f"region '{name}' contains no grid point; the grid spans {grid.extent()}; check the "
+                         "region's coordinates and longitude convention")
+    regions.check_coverage(w > 0, name, lon, lat)
     elev = region.get("elevation")
     if elev:
         role = model.require("surface_altitude", f"region '{name}' has an elevation band")
-        z = _read_2d(model, role)
+        z = read_window(model, role, window)
         w = w * regions.elevation_ramp(z, elev["min_m"], elev["ramp_m"], elev.get("max_m"), elev["max_ramp_m"])
     frac = model.role("land_fraction")
     mask = model.role("land_mask")
     if frac is not None and region["use_land_fraction"]:
-        f = _read_2d(model, frac)
+        f = read_window(model, frac, window)
         if np.nanmax(f, initial=0.0) > 1.5:  # percent
             f = f / 100.0
         w = w * regions.land_weight(fraction=f)
     elif mask is not None:
-        w = w * regions.land_weight(mask=_read_2d(model, mask), threshold=region["land_threshold"])
+        w = w * regions.land_weight(mask=read_window(model, mask, window), threshold=region["land_threshold"])
     w = np.where(np.isfinite(w), w, 0.0)
     if not np.any(w > 0):
         raise InputError(f"region '{name}': no land grid cell keeps a weight above 0 after the elevation band and "
@@ -166,20 +177,86 @@ def horizontal_weight(model: ModelFile, region: dict, geom, name: str) -> np.nda
     return w
 
 
-def _read_2d(model: ModelFile, role) -> np.ndarray:
-    arr = role.read(model.store, {})
-    return arr[0] if arr.ndim == len(model.grid.shape) + 1 else arr.reshape(model.grid.shape)
+def _runs_of(idx: np.ndarray) -> list[tuple[int, int]]:
+    """Contiguous runs of a sorted index array, as (start, stop) positions in the array."""
+    if idx.size == 0:
+        return []
+    breaks = np.flatnonzero(np.diff(idx) != 1) + 1
+    starts = np.concatenate([[0], breaks])
+    stops = np.concatenate([breaks, [idx.size]])
+    return list(zip(starts.tolist(), stops.tolist()))
 
 
-def _interp_to_grid(model: ModelFile, lon, lat, vals, key: str, weight: np.ndarray) -> np.ndarray:
+def read_window(model: ModelFile, role, window: tuple, store=None) -> np.ndarray:
+    """A 2-D role on the window (first index of any extra axes), read run by run from the file."""
+    store = store or model.store
+    dims = model.grid.dims
+    pieces = []
+    for ra in _runs_of(window[0]):
+        row = []
+        for rb in (_runs_of(window[1]) if len(dims) > 1 else [None]):
+            hkey = {dims[0]: slice(int(window[0][ra[0]]), int(window[0][ra[1] - 1]) + 1)}
+            if rb is not None:
+                hkey[dims[1]] = slice(int(window[1][rb[0]]), int(window[1][rb[1] - 1]) + 1)
+            arr = role.read(store, hkey)
+            row.append(arr[0] if arr.ndim == len(dims) + 1 else arr.reshape(arr.shape[-len(dims):]))
+        pieces.append(np.concatenate(row, axis=1) if len(row) > 1 else row[0])
+    return np.concatenate(pieces, axis=0) if len(pieces) > 1 else pieces[0]
+
+
+def find_window(model: ModelFile, spans: list) -> tuple:
+    """Per horizontal dim, the sorted indices of the grid that any region (widened) can touch.
+
+    ``spans`` holds ``(geometry, reach_km)`` pairs. A cell can get a weight only if it lies in a
+    part's lon/lat bounding box widened by the reach (the taper width) in great-circle distance;
+    the widening in longitude grows as 1/cos(latitude), and reaching within a degree of a pole
+    takes every longitude. Everything outside the window is exactly 0.
+    """
     grid = model.grid
+    km_per_deg = geodesy.EARTH_RADIUS_KM * np.pi / 180.0
+    boxes = []
+    for geom, reach in spans:
+        parts = getattr(geom, "geoms", [geom])
+        for part in parts:
+            x0, y0, x1, y1 = part.bounds
+            dlat = reach / km_per_deg + 1e-6
+            lo, hi = y0 - dlat, y1 + dlat
+            polar = max(abs(lo), abs(hi)) >= 89.0
+            dlon = 360.0 if polar else reach / (km_per_deg * np.cos(np.radians(max(abs(lo), abs(hi))))) + 1e-6
+            width = (x1 - x0) + 2 * dlon
+            boxes.append((lo, hi, x0 - dlon, width))
+
+    def inside(lon, lat):
+        hit = np.zeros(np.shape(lon), bool)
+        for lo, hi, west, width in boxes:
+            band = (lat >= lo) & (lat <= hi)
+            hit |= band if width >= 360.0 else band & (np.mod(lon - west, 360.0) <= width)
+        return hit
+
+    if grid.kind == "regular":
+        rows = np.zeros(grid.shape[0], bool)
+        cols = np.zeros(grid.shape[1], bool)
+        for lo, hi, west, width in boxes:
+            band = (grid.lat_src >= lo) & (grid.lat_src <= hi)
+            rows |= band
+            if band.any():
+                cols |= True if width >= 360.0 else (np.mod(grid.lon_src - west, 360.0) <= width)
+        return np.flatnonzero(rows), np.flatnonzero(cols)
+    hit = inside(grid.lon_src, grid.lat_src)
+    if grid.kind == "points":
+        return (np.flatnonzero(hit),)
+    return np.flatnonzero(hit.any(axis=1)), np.flatnonzero(hit.any(axis=0))
+
+
+def _interp_to_grid(dst: tuple, lon, lat, vals, key: str, weight: np.ndarray) -> np.ndarray:
+    """Interpolate a source field to the window's points ``dst = (lon, lat)``."""
     try:
         if lon.ndim == 1 and lat.ndim == 1 and vals.shape == (lat.size, lon.size):
-            out, covered = sources.interp_regular(lon, lat, vals, grid.lon, grid.lat)
+            out, covered = sources.interp_regular(lon, lat, vals, dst[0], dst[1])
         else:
             lon2, lat2 = (np.meshgrid(lon, lat) if lon.ndim == 1 and vals.ndim == 2 and vals.shape != lon.shape
                           else (lon, lat))
-            out, covered = sources.interp_points(lon2, lat2, vals, grid.lon, grid.lat)
+            out, covered = sources.interp_points(lon2, lat2, vals, dst[0], dst[1])
     except InputError as exc:
         raise _keyed(exc, key) from None
     miss = (weight > 0) & ~np.asarray(covered, bool)
@@ -203,8 +280,8 @@ MAX_ANOMALY_K = 60.0  # the bound of anomaly.constant_K in the recipe schema
 
 
 def block_anomaly(model: ModelFile, anomaly: dict, recipe: Document, key: str, weight: np.ndarray,
-                  allow_outside: bool):
-    a, donor = _block_anomaly(model, anomaly, recipe, key, weight, allow_outside)
+                  allow_outside: bool, dst: tuple):
+    a, donor = _block_anomaly(model, anomaly, recipe, key, weight, allow_outside, dst)
     if a is not None:
         region = weight > 0
         big = region & ~(np.abs(a) <= MAX_ANOMALY_K)
@@ -217,14 +294,14 @@ def block_anomaly(model: ModelFile, anomaly: dict, recipe: Document, key: str, w
 
 
 def _block_anomaly(model: ModelFile, anomaly: dict, recipe: Document, key: str, weight: np.ndarray,
-                   allow_outside: bool):
+                   allow_outside: bool, dst: tuple):
     if anomaly.get("constant_K") is not None:
-        return np.full(model.grid.shape, float(anomaly["constant_K"])), None
+        return np.full(weight.shape, float(anomaly["constant_K"])), None
     if anomaly.get("field"):
         f = anomaly["field"]
         path = resolve_path(recipe, f["file"], f"{key}.field.file", allow_outside)
         lon, lat, vals = read_field(path, f["variable"], f"{key}.field.variable")
-        return f["scale"] * _interp_to_grid(model, lon, lat, vals, f"{key}.field", weight), None
+        return f["scale"] * _interp_to_grid(dst, lon, lat, vals, f"{key}.field", weight), None
     if anomaly.get("bias"):
         b = anomaly["bias"]
         mpath = resolve_path(recipe, b["model_file"], f"{key}.bias.model_file", allow_outside)
@@ -232,8 +309,8 @@ def _block_anomaly(model: ModelFile, anomaly: dict, recipe: Document, key: str, 
         mlon, mlat, mvals = read_field(mpath, b["variable"], f"{key}.bias.variable")
         rlon, rlat, rvals = read_field(rpath, b.get("reference_variable") or b["variable"],
                                        f"{key}.bias.reference_variable")
-        mod = _interp_to_grid(model, mlon, mlat, mvals, f"{key}.bias.model_file", weight)
-        ref = _interp_to_grid(model, rlon, rlat, rvals, f"{key}.bias.reference_file", weight)
+        mod = _interp_to_grid(dst, mlon, mlat, mvals, f"{key}.bias.model_file", weight)
+        ref = _interp_to_grid(dst, rlon, rlat, rvals, f"{key}.bias.reference_file", weight)
         return sources.bias_anomaly(mod, ref, b["scale"]), None
     d = anomaly["donor"]
     from .grid import open_model
@@ -241,8 +318,9 @@ def _block_anomaly(model: ModelFile, anomaly: dict, recipe: Document, key: str, 
     path = resolve_path(recipe, d["file"], f"{key}.donor.file", allow_outside)
     donor_store = NetCDFStore(path)
     donor = open_model(donor_store, _layout_of(model))
-    if donor.grid.shape != model.grid.shape or not np.allclose(donor.grid.lon, model.grid.lon) \
-            or not np.allclose(donor.grid.lat, model.grid.lat):
+    if donor.grid.shape != model.grid.shape or donor.grid.lon_src.shape != model.grid.lon_src.shape \
+            or not np.allclose(donor.grid.lon_src, model.grid.lon_src) \
+            or not np.allclose(donor.grid.lat_src, model.grid.lat_src):
         donor_store.close()
         raise InputError(f"recipe key {key}.donor.file: {path} is not on the same grid as the input; "
                          "a donor must be a restart file of the same model and grid")
@@ -276,12 +354,19 @@ def profile_factors(profile: dict, layers: Layers | None, key: str) -> tuple[np.
 
 def build_plan(recipe: Document, model: ModelFile, *, allow_outside: bool = False) -> Plan:
     blocks = []
-    region_any = np.zeros(model.grid.shape, bool)
-    for i, b in enumerate(recipe.data["perturbations"]):
+    geoms = [region_geometry(b["region"], recipe, f"perturbations[{i}].region", allow_outside)
+             for i, b in enumerate(recipe.data["perturbations"])]
+    window = find_window(model, [(g, b["region"]["taper_km"]) for g, b in zip(geoms, recipe.data["perturbations"])])
+    if any(w.size == 0 for w in window):
+        name = recipe.data["perturbations"][0]["name"]
+        raise InputError(f"region '{name}' contains no grid point; the grid spans {model.grid.extent()}; check the "
+                         "region's coordinates and longitude convention")
+    lon, lat, _ = model.grid.at(window)
+    region_any = np.zeros(lon.shape, bool)
+    for i, (b, geom) in enumerate(zip(recipe.data["perturbations"], geoms)):
         key = f"perturbations[{i}]"
-        geom = region_geometry(b["region"], recipe, f"{key}.region", allow_outside)
-        w = horizontal_weight(model, b["region"], geom, b["name"])
-        anomaly, donor = block_anomaly(model, b["anomaly"], recipe, f"{key}.anomaly", w, allow_outside)
+        w = horizontal_weight(model, b["region"], geom, b["name"], window, lon, lat)
+        anomaly, donor = block_anomaly(model, b["anomaly"], recipe, f"{key}.anomaly", w, allow_outside, (lon, lat))
         factors, fsurf = profile_factors(b["profile"], model.layers, f"{key}.profile")
         soil = model.role("soil_temperature")
         if factors is not None and soil is not None and soil.layered and soil.nlayers != factors.size:
@@ -292,7 +377,7 @@ def build_plan(recipe: Document, model: ModelFile, *, allow_outside: bool = Fals
         blocks.append(BlockPlan(b["name"], i, tuple(b["targets"]), w, anomaly, factors, fsurf, donor,
                                 b["snow_mass_mode"], b["snow_mass_change"], [str(geom.bounds)]))
         region_any |= w > 0
-    plan = Plan(recipe, model, blocks, dict(recipe.data["physics"]), region_any)
+    plan = Plan(recipe, model, blocks, dict(recipe.data["physics"]), region_any, window)
     check_before_writing(plan)
     return plan
 
@@ -322,19 +407,24 @@ def check_before_writing(plan: Plan) -> None:
 # ---------------------------------------------------------------------------------------------
 
 
-def _runs(flags: np.ndarray, min_gap: int) -> list[tuple[int, int]]:
-    """Contiguous index runs where ``flags`` is true, merging runs separated by < min_gap."""
-    idx = np.flatnonzero(flags)
-    if idx.size == 0:
+def _runs(flags: np.ndarray, min_gap: int, idx_file: np.ndarray) -> list[tuple[int, int]]:
+    """Runs (window positions) where ``flags`` is true, merging gaps < min_gap, never across a
+    break in the window's file indices (so every run is one contiguous slice of the file)."""
+    pos = np.flatnonzero(flags)
+    if pos.size == 0:
         return []
-    breaks = np.flatnonzero(np.diff(idx) > min_gap)
-    starts = np.concatenate([[idx[0]], idx[breaks + 1]])
-    ends = np.concatenate([idx[breaks], [idx[-1]]]) + 1
+    breaks = np.flatnonzero((np.diff(pos) > min_gap) | (np.diff(idx_file[pos]) != np.diff(pos)))
+    starts = np.concatenate([[pos[0]], pos[breaks + 1]])
+    ends = np.concatenate([pos[breaks], [pos[-1]]]) + 1
     return list(zip(starts.tolist(), ends.tolist()))
 
 
-def slabs(plan: Plan) -> list[dict]:
-    """Bounding slabs of the region in index space (one per run of each horizontal dim)."""
+def slabs(plan: Plan) -> list[tuple[dict, tuple]]:
+    """Bounding slabs of the region: (file slices per horizontal dim, window slices).
+
+    One slab per run of each horizontal dim: a region that wraps around the dateline on a
+    0..360 grid gives two slabs, not one spanning the globe.
+    """
     region = plan.region
     dims = plan.model.grid.dims
     per_dim = []
@@ -342,19 +432,22 @@ def slabs(plan: Plan) -> list[dict]:
         other = tuple(a for a in range(region.ndim) if a != ax)
         flags = region.any(axis=other) if other else region
         gap = max(8, region.shape[ax] // 20)
-        per_dim.append(_runs(flags, gap))
-    out = [{}]
-    for d, runs in zip(dims, per_dim):
-        out = [dict(o, **{d: slice(a, b)}) for o in out for (a, b) in runs]
+        per_dim.append(_runs(flags, gap, plan.window[ax]))
+    out = [({}, ())]
+    for ax, (d, runs) in enumerate(zip(dims, per_dim)):
+        win = plan.window[ax]
+        out = [(dict(h, **{d: slice(int(win[a]), int(win[b - 1]) + 1)}), w + (slice(a, b),))
+               for h, w in out for (a, b) in runs]
     return out
 
 
-def blocks_of(plan: Plan, slab: dict) -> list[dict]:
+def blocks_of(plan: Plan, slab: tuple) -> list[tuple[dict, tuple]]:
     """Split a slab along its first horizontal dim into blocks of bounded size, chunk-aligned."""
+    hkey, widx = slab
     model = plan.model
     d0 = model.grid.dims[0]
-    s0 = slab[d0]
-    other = int(np.prod([len(range(model.grid.shape[i])[slab[d]]) for i, d in enumerate(model.grid.dims) if i > 0]))
+    s0 = hkey[d0]
+    other = int(np.prod([len(range(model.grid.shape[i])[hkey[d]]) for i, d in enumerate(model.grid.dims) if i > 0]))
     depth = 1
     chunk0 = 1
     for role in model.roles.values():
@@ -369,9 +462,10 @@ def blocks_of(plan: Plan, slab: dict) -> list[dict]:
         rows = max(chunk0, (rows // chunk0) * chunk0)
     out = []
     start = s0.start
+    offset = widx[0].start - s0.start  # window position = file index + offset within a slab
     while start < s0.stop:
         stop = min(s0.stop, (start // rows + 1) * rows if chunk0 > 1 else start + rows)
-        out.append(dict(slab, **{d0: slice(start, stop)}))
+        out.append((dict(hkey, **{d0: slice(start, stop)}), (slice(start + offset, stop + offset),) + widx[1:]))
         start = stop
     return out
 
@@ -386,8 +480,8 @@ def run(plan: Plan, store, *, write: bool, progress=None) -> dict:
     model = plan.model
     led = ledger_mod.Ledger(plan)
     all_blocks = [b for s in slabs(plan) for b in blocks_of(plan, s)]
-    for k, hkey in enumerate(all_blocks):
-        apply_block(plan, store, hkey, led, write=write)
+    for k, (hkey, widx) in enumerate(all_blocks):
+        apply_block(plan, store, hkey, widx, led, write=write)
         if progress:
             progress(k + 1, len(all_blocks))
     if plan.blocks and any(b.donor for b in plan.blocks):
@@ -396,12 +490,7 @@ def run(plan: Plan, store, *, write: bool, progress=None) -> dict:
                 b.donor.store.close()
     out = led.finish()
     out["blocks_processed"] = len(all_blocks)
-    out["bytes_rewritten"] = int(getattr(store, "bytes_written", 0)) if write else 0
     return out
-
-
-def horizontal_index(model: ModelFile, hkey: dict) -> tuple:
-    return tuple(hkey.get(d, slice(None)) for d in model.grid.dims)
 
 
 __all__ = ["Plan", "BlockPlan", "build_plan", "run", "slabs", "blocks_of", "needed_roles", "apply_block"]
@@ -454,11 +543,12 @@ def _check_no_undeclared_gaps(role, values, inside, store):
                          "declares no _FillValue; fix the file or mark the missing cells with a fill value")
 
 
-def apply_block(plan: Plan, store, hkey: dict, led, *, write: bool) -> None:
+def apply_block(plan: Plan, store, hkey: dict, widx: tuple, led, *, write: bool) -> None:
+    """Apply the plan to one block: ``hkey`` the file slices, ``widx`` the same cells in the window."""
     model = plan.model
-    hidx = horizontal_index(model, hkey)
+    hidx = widx
     nh = len(model.grid.shape)
-    area = model.grid.area[hidx]
+    area = plan.area[hidx]
     weights = [b.weight[hidx] for b in plan.blocks]
     inside_h = np.any([w > 0 for w in weights], axis=0)
     if not np.any(inside_h):
@@ -522,10 +612,10 @@ def apply_block(plan: Plan, store, hkey: dict, led, *, write: bool) -> None:
     if "snow_mass" in targets:
         snow_mass_now = _snow_mass(plan, store, hkey, weights, inside_h, led, area, write)
     if "skin_temperature" in targets:
-        _surface_temperature(plan, store, hkey, "skin_temperature", weights, inside_h, led, area, write,
+        _surface_temperature(plan, store, hkey, widx, "skin_temperature", weights, inside_h, led, area, write,
                              snow_mass=snow_mass_now)
     if "snow_temperature" in targets:
-        _surface_temperature(plan, store, hkey, "snow_temperature", weights, inside_h, led, area, write)
+        _surface_temperature(plan, store, hkey, widx, "snow_temperature", weights, inside_h, led, area, write)
 
 
 def _anomaly(plan: Plan, b: BlockPlan, hidx) -> np.ndarray:
@@ -535,7 +625,7 @@ def _anomaly(plan: Plan, b: BlockPlan, hidx) -> np.ndarray:
     return a
 
 
-def _surface_temperature(plan, store, hkey, target, weights, inside_h, led, area, write, snow_mass=None):
+def _surface_temperature(plan, store, hkey, widx, target, weights, inside_h, led, area, write, snow_mass=None):
     model = plan.model
     role = model.role(target)
     T0 = _temp_read(role, store, hkey)
@@ -554,7 +644,7 @@ def _surface_temperature(plan, store, hkey, target, weights, inside_h, led, area
             D = D if layered else D[:, None]
             T = np.where(sel, sources.donor_blend(T, D, np.broadcast_to(ww, T.shape)), T)
         else:
-            T = np.where(sel, T + ww * b.surface_factor * _bcast_h(_anomaly(plan, b, horizontal_index(model, hkey)), 2), T)
+            T = np.where(sel, T + ww * b.surface_factor * _bcast_h(_anomaly(plan, b, widx), 2), T)
     if target == "snow_temperature":
         over = inside & (T > T_FREEZE)
         led.clamp("snow_temperature_above_freezing", np.count_nonzero(over & (T != T0)))

@@ -29,7 +29,7 @@ def provenance_path(output: Path) -> Path:
 
 def record(*, recipe, layout, input_path: Path, input_sha256: str, output_path: Path, output_sha256: str,
            started: str, ended: str, ledger: dict, history: str, member: dict | None = None,
-           allow_outside: bool = False, command_line: list | None = None) -> dict:
+           allow_outside: bool = False, command_line: list | None = None, io: dict | None = None) -> dict:
     return {
         "format": FORMAT,
         "recipe": {"name": recipe.name, "path": str(recipe.path) if recipe.path else None,
@@ -46,6 +46,7 @@ def record(*, recipe, layout, input_path: Path, input_sha256: str, output_path: 
         "started_utc": started,
         "ended_utc": ended,
         "history_line": history,
+        "io": io or {},
         "ledger": ledger,
     }
 
@@ -64,31 +65,47 @@ def write_perturbed(*, recipe, layout, input_path, output_path, patch, force: bo
 
     from .restart import copy_and_patch
 
+    from concurrent.futures import ThreadPoolExecutor
+
     input_path, output_path = Path(input_path), Path(output_path)
     started = utc_now()
-    input_sha = input_sha256 or sha256_file(input_path)
     history = history_line(recipe, started)
     holder: dict = {}
+    timings: dict = {}
+    # the input is hashed on a second core while it is being copied (both read the same pages)
+    pool = ThreadPoolExecutor(max_workers=1)
+    input_hash = pool.submit(lambda: input_sha256 or sha256_file(input_path))
 
     def run(out_store):
         holder["ledger"] = patch(out_store)
+        holder["bytes"] = int(getattr(out_store, "bytes_written", 0))
 
     def after(tmp: Path):
+        import time
+
+        t = time.perf_counter()
+        out_sha = sha256_file(tmp)
+        timings["hash_output_s"] = time.perf_counter() - t
+        io = {"bytes_rewritten": holder["bytes"], "output_size_bytes": tmp.stat().st_size,
+              "timings_s": {k: round(v, 4) for k, v in timings.items()}}
         holder["record"] = record(
-            recipe=recipe, layout=layout, input_path=input_path, input_sha256=input_sha, output_path=output_path,
-            output_sha256=sha256_file(tmp), started=started, ended=utc_now(), ledger=holder["ledger"],
-            history=history, member=member, allow_outside=allow_outside, command_line=command_line)
+            recipe=recipe, layout=layout, input_path=input_path, input_sha256=input_hash.result(),
+            output_path=output_path, output_sha256=out_sha, started=started, ended=utc_now(),
+            ledger=holder["ledger"], history=history, member=member, allow_outside=allow_outside,
+            command_line=command_line, io=io)
         from .restart import write_atomic_text
 
         write_atomic_text(provenance_path(output_path), dumps(holder["record"]))
 
     try:
-        copy_and_patch(input_path, output_path, run, force=force, history=history, after=after)
+        copy_and_patch(input_path, output_path, run, force=force, history=history, after=after, timings=timings)
     except BaseException:
         if "record" in holder and not output_path.exists():
             with contextlib.suppress(OSError):
                 provenance_path(output_path).unlink()
         raise
+    finally:
+        pool.shutdown(wait=True)
     return holder["record"]
 
 

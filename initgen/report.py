@@ -1097,7 +1097,7 @@ def preview_report(recipe, input, layout, out_dir, ledger=None, allow_outside_pa
 
             plan = configure(plan, api._member(rec, member))
         grid = model.grid
-        w = np.max([b.weight for b in plan.blocks], axis=0)
+        w = plan.full(np.max([b.weight for b in plan.blocks], axis=0))
         capture = _ChangeCapture(store, model, ledger)
         plan_mod.run(plan, capture, write=True)
     finally:
@@ -1112,7 +1112,7 @@ def preview_report(recipe, input, layout, out_dir, ledger=None, allow_outside_pa
         a = b.anomaly * plan.member_scale + getattr(plan, "member_offset_K", 0.0)
         if getattr(plan, "noise", None) is not None:
             a = a + plan.noise
-        surf += a * b.weight * b.surface_factor  # as plan.py applies it to skin and snow temperature
+        surf += plan.full(a * b.weight * b.surface_factor)  # as plan.py applies it to skin and snow temperature
     figures: dict[str, bytes] = {}
     figures["weights.png"] = _map_figure(grid, w, w, geoms, f"Horizontal weight w(x): recipe '{rec.name}'",
                                          "weight (1)", vmin=0.0, vmax=1.0)

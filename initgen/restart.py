@@ -24,6 +24,7 @@ import signal
 import socket
 import struct
 import time
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Callable, Iterator
@@ -571,14 +572,17 @@ def write_atomic_text(path: Path, text: str, force: bool = True) -> None:
 
 def copy_and_patch(input_path: str | os.PathLike, output: str | os.PathLike, patch: Callable[[NetCDFStore], Any],
                    *, force: bool = False, history: str | None = None,
-                   after: Callable[[Path], None] | None = None) -> Any:
+                   after: Callable[[Path], None] | None = None, timings: dict | None = None) -> Any:
     """Copy ``input_path`` beside ``output``, run ``patch(store)`` on the copy, move it into place.
 
-    ``after(tmp_path)`` runs once the patched copy is closed and synced, before it is published
-    (used to write the provenance record, which needs the output's hash). Whatever goes wrong,
-    the temporary file is removed and no output appears. A second initgen run for the same
-    output stops at once (see :func:`output_lock`).
+    ``after(tmp_path)`` runs once the patched copy is closed, before it is published (used to
+    write the provenance record, which needs the output's hash); it runs while the copy is
+    being synced to disk, and publishing waits for both. Whatever goes wrong, the temporary file
+    is removed and no output appears. A second initgen run for the same output stops at once
+    (see :func:`output_lock`). ``timings`` (a dict) receives the seconds spent per stage.
     """
+    timings = {} if timings is None else timings
+    clock = time.perf_counter
     input_path = Path(input_path)
     output = Path(output)
     check_output_path(input_path, output, force)
@@ -587,12 +591,15 @@ def copy_and_patch(input_path: str | os.PathLike, output: str | os.PathLike, pat
     result = None
     try:
         with _signals_raise(), output_lock(output):
+            t = clock()
             try:
                 shutil.copyfile(input_path, tmp)
             except OSError as exc:
                 raise _disk_error(exc, output) from None
             with contextlib.suppress(OSError):
                 os.chmod(tmp, 0o644 | (os.stat(input_path).st_mode & 0o777))
+            timings["copy_s"] = clock() - t
+            t = clock()
             store = NetCDFStore(tmp, "r+", label=str(input_path))
             try:
                 result = patch(store)
@@ -600,12 +607,18 @@ def copy_and_patch(input_path: str | os.PathLike, output: str | os.PathLike, pat
                     store.set_history(history)
             finally:
                 store.close()
-            fsync_path(tmp)
-            if not force and output.exists():  # made meanwhile by another program: keep its record too
-                raise InputError(f"{output}: another process created this file while initgen was writing; "
-                                 "kept theirs, pass --force to replace it")
-            if after is not None:
-                after(tmp)
+            timings["patch_s"] = clock() - t
+            t = clock()
+            # sync the copy to disk while the caller hashes it (both only read the page cache)
+            with ThreadPoolExecutor(max_workers=1) as pool:
+                synced = pool.submit(fsync_path, tmp)
+                if not force and output.exists():  # made meanwhile by another program: keep its record too
+                    raise InputError(f"{output}: another process created this file while initgen was writing; "
+                                     "kept theirs, pass --force to replace it")
+                if after is not None:
+                    after(tmp)
+                synced.result()
+            timings["sync_and_record_s"] = clock() - t
             publish(tmp, output, force)
     except _Interrupted as exc:
         raise KeyboardInterrupt(str(exc)) from None

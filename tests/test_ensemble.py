@@ -168,10 +168,11 @@ def test_noise_same_for_same_seed_and_member_different_otherwise(tmp_path, demo)
     other_seed = load_recipe(recipe_file(tmp_path, {"list": [{"name": "a"}], "noise": noise},
                                          BASE.replace("seed: 11", "seed: 12"), name="s.yaml"))
     check = api.check(rec, input=demo)
-    grid, region = check.model.grid, check.plan.region
-    a1, b1 = (ensemble.member_noise(grid, region, m) for m in ensemble.members(rec))
-    a2 = ensemble.member_noise(grid, region, ensemble.members(load_recipe(rec.path))[0])
-    a3 = ensemble.member_noise(grid, region, ensemble.members(other_seed)[0])
+    plan = check.plan
+    region = plan.region
+    a1, b1 = (ensemble.member_noise(plan, m) for m in ensemble.members(rec))
+    a2 = ensemble.member_noise(plan, ensemble.members(load_recipe(rec.path))[0])
+    a3 = ensemble.member_noise(plan, ensemble.members(other_seed)[0])
     assert np.array_equal(a1, a2)
     assert not np.allclose(a1[region], b1[region]) and not np.allclose(a1[region], a3[region])
     assert np.all(a1[~region] == 0) and 0.2 < a1[region].std() < 1.0
@@ -255,10 +256,10 @@ def test_a_failing_member_leaves_the_others_complete(tmp_path, demo, capsys):
 def test_an_unexpected_failure_gives_exit_1_and_the_rest_finish(tmp_path, demo, monkeypatch):
     real = ensemble.member_noise
 
-    def boom(grid, region, member):
+    def boom(plan, member):
         if member.name == "warm-x0.5":
             raise RuntimeError("simulated crash")
-        return real(grid, region, member)
+        return real(plan, member)
 
     monkeypatch.setattr(ensemble, "member_noise", boom)
     seen = []
