@@ -116,17 +116,16 @@ def apply(recipe, input, output, layout=None, *, member: str | None = None, forc
     mem = _member(rec, member)
     input = Path(input)
     output = Path(output)
-    # validate everything against the input, read-only, before a byte is written
+    # validate everything against the input, read-only, before a byte is written; the plan's
+    # arrays depend only on the input, so the same plan then patches the copy
     store = NetCDFStore(input)
     try:
         model = _model(store, lay, rec)
-        plan_mod.build_plan(rec, model, allow_outside=allow_outside_paths)
+        plan = ensemble.configure(plan_mod.build_plan(rec, model, allow_outside=allow_outside_paths), mem)
     finally:
         store.close()
 
     def patch(out_store):
-        model = _model(out_store, lay, rec)
-        plan = ensemble.configure(plan_mod.build_plan(rec, model, allow_outside=allow_outside_paths), mem)
         return plan_mod.run(plan, out_store, write=True, progress=progress)
 
     return prov.write_perturbed(recipe=rec, layout=lay, input_path=input, output_path=output, patch=patch,
