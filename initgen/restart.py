@@ -507,6 +507,10 @@ def _pid_alive(pid: int) -> bool:
 def _disk_error(exc: OSError, output: Path) -> InputError:
     if exc.errno == errno.ENOSPC:
         return InputError(f"{output}: no space left on the device; free space or write elsewhere (nothing was written)")
+    if exc.errno == errno.ENOENT and not output.parent.exists():
+        return InputError(f"{output}: output folder {output.parent} does not exist; create it first")
+    if exc.errno == errno.ENOTDIR:
+        return InputError(f"{output}: {output.parent} is not a folder; give an output path inside a folder")
     if exc.errno in (errno.EACCES, errno.EPERM, errno.EROFS):
         return InputError(f"{output}: cannot write there ({exc.strerror}); choose another folder")
     return InputError(f"{output}: write failed ({exc.strerror or exc}); nothing was written")
