@@ -995,7 +995,13 @@ def test_apply_without_output(work, capsys):
 def test_preview_json_into_missing_folder(work, capsys):
     rec = recipe(work)
     refused(capsys, ["preview", rec, "--input", work / "in.nc", "--json", work / "no" / "l.json"],
-            "l.json", folder=work)
+            "l.json", "does not exist", "create it first", folder=work)
+
+
+def test_output_inside_a_file_instead_of_a_folder(work, capsys):
+    rec = recipe(work)
+    refused(capsys, ["apply", rec, "--input", work / "in.nc", "--output", work / "in.nc" / "out.nc"],
+            "in.nc is not a folder", folder=work)
 
 
 # =============================================================================================
