@@ -8,7 +8,8 @@ the gentler ones (leaf values replaced by nearby or boundary values) go on throu
 ``initgen.api.check`` against a small file, and a few through ``initgen.api.apply``, where a
 refusal must leave no output, no record and no temporary file, and the input unchanged.
 
-About 1200 examples in all; ``database=None`` so that nothing is written into the checkout.
+About 1300 examples in all (``INITGEN_FUZZ_SCALE=20`` multiplies them for a long hunt);
+``database=None`` so that nothing is written into the checkout.
 """
 
 from __future__ import annotations
@@ -17,6 +18,7 @@ import copy
 import hashlib
 import json
 import math
+import os
 import warnings
 from pathlib import Path
 
@@ -33,8 +35,11 @@ from initgen.schema import walk_reference
 
 from filemaker import regular
 
+SCALE = float(os.environ.get("INITGEN_FUZZ_SCALE", "1"))  # e.g. 20 for a long hunt before a release
+
+
 def fuzz(n: int) -> settings:
-    return settings(max_examples=n, deadline=None, database=None,
+    return settings(max_examples=max(1, int(n * SCALE)), deadline=None, database=None,
                     suppress_health_check=[HealthCheck.too_slow, HealthCheck.function_scoped_fixture])
 
 # ---------------------------------------------------------------------------------------------
@@ -356,3 +361,26 @@ def test_recipe_mutants_applied_leave_nothing_when_refused(folder, data):
         assert left == ["o.nc", "o.nc.provenance.json"], left
         assert rec["output"]["sha256"] == sha(out)
     assert sha(folder / "in.nc") == before
+
+
+@fuzz(120)
+@given(data=st.data())
+def test_cli_mutants_exit_0_or_2_with_one_line(folder, data, capsys):
+    """Through the command line: exit 0, or exit 2 with exactly one 'initgen: error:' line."""
+    from initgen.cli import main
+
+    doc = mutant(data, BASE_RECIPES, wild=data.draw(st.booleans()))
+    text = dump(doc)
+    if text is None:
+        return
+    (folder / "cli.yaml").write_text(text, encoding="utf-8")
+    command = data.draw(st.sampled_from(["check", "preview"]))
+    capsys.readouterr()
+    rc = main([command, str(folder / "cli.yaml"), "--input", str(folder / "in.nc")])
+    err = capsys.readouterr().err.splitlines()
+    event(f"cli {command}: exit {rc}")
+    assert rc in (0, 2), err
+    if rc == 2:
+        assert len(err) == 1 and err[0].startswith("initgen: error: "), err
+    else:
+        assert all(line.startswith("initgen: warning: ") for line in err), err
