@@ -59,6 +59,7 @@ def build_parser() -> argparse.ArgumentParser:
                    "(e.g. tcp://host:8786; needs initgen[dask] and a file system the workers share)")
     p.add_argument("--force", action="store_true", help="replace existing outputs")
     p.add_argument("--quiet", "-q", action="store_true", help="print nothing but errors")
+    p.add_argument("--verbose", "-v", action="store_true", help="also print the time spent per stage")
 
     p = sub.add_parser("preview", help="dry run: show what apply would change; writes no netCDF file")
     _common(p)
@@ -207,6 +208,10 @@ def _dispatch(args) -> int:
             print(api.ledger_text(rec["ledger"]))
             print(f"wrote {args.output} (sha256 {rec['output']['sha256']})")
             print(f"wrote {args.output}.provenance.json")
+        if args.verbose:
+            io = rec.get("io", {})
+            stages = ", ".join(f"{k[:-2]} {v:.2f} s" for k, v in io.get("timings_s", {}).items())
+            print(f"timings: {stages}; {io.get('bytes_rewritten', 0):,} bytes rewritten")
         return 0
     if args.command == "preview":
         recipe = api.load_recipe(args.recipe)
@@ -236,7 +241,7 @@ def _dispatch(args) -> int:
             from . import report
 
             path = report.preview_report(args.recipe, args.input, args.layout, Path(args.report), ledger=led,
-                                         allow_outside_paths=args.allow_outside_paths)
+                                         allow_outside_paths=args.allow_outside_paths, member=args.member)
             print(f"wrote {path}")
         return 0
     if args.command == "mask":
@@ -249,12 +254,19 @@ def _dispatch(args) -> int:
     if args.command == "compare":
         from . import report
 
+        from .restart import write_atomic_text
+
         result = report.compare(args.a, args.b, allow=args.allow, layout=args.layout)
         print(report.compare_text(result))
         if args.json:
-            from .restart import write_atomic_text
-
             write_atomic_text(Path(args.json), json.dumps(result, indent=2) + "\n")
+        if args.report:
+            folder = Path(args.report)
+            if folder.exists() and not folder.is_dir():
+                raise InputError(f"--report {folder}: exists and is not a folder; give a folder for the report")
+            folder.mkdir(parents=True, exist_ok=True)
+            write_atomic_text(folder / "compare.md", report.compare_markdown(result))
+            print(f"wrote {folder / 'compare.md'}")
         return 0 if result["ok"] else 3
     if args.command == "verify":
         from . import report

@@ -31,7 +31,8 @@ from typing import Any, Iterable, Iterator
 import numpy as np
 
 from .errors import InputError
-from .restart import NetCDFStore, check_output_path, create_netcdf, sha256_file, unpack, write_atomic_text
+from .restart import (NetCDFStore, check_output_path, create_netcdf, sha256_file, unpack, write_atomic_bytes,
+                      write_atomic_text)
 
 #: Largest number of elements of one variable read at once by :func:`compare` (per file).
 BLOCK_ELEMENTS = 2_000_000
@@ -738,21 +739,6 @@ def _png_bytes(fig) -> bytes:
     return buf.getvalue()
 
 
-def _write_bytes(path: Path, data: bytes) -> None:
-    """Write a small binary file (a PNG) through a temporary file beside it and a rename."""
-    path = Path(path)
-    tmp = path.parent / f".{path.name}.{os.getpid()}.initgen-tmp"
-    try:
-        with open(tmp, "wb") as fh:
-            fh.write(data)
-        os.replace(tmp, path)
-    except OSError as exc:
-        raise InputError(f"{path}: cannot write the figure ({exc.strerror or exc}); choose another place") from None
-    finally:
-        with contextlib.suppress(OSError):
-            tmp.unlink()
-
-
 def _frame_centre(grid, w: np.ndarray) -> float:
     """Centre longitude of the plotting frame: the circular mean of the region, in the grid's convention."""
     lon = grid.lon[w > 0] if np.any(w > 0) else grid.lon.ravel()
@@ -1137,7 +1123,7 @@ def preview_report(recipe, input, layout, out_dir, ledger=None, allow_outside_pa
     md = _preview_markdown(rec, lay, input, grid, ledger, figures, captions, donors, member)
     out_dir.mkdir(parents=True, exist_ok=True)
     for fname, data in figures.items():
-        _write_bytes(out_dir / fname, data)
+        write_atomic_bytes(out_dir / fname, data)
     path = out_dir / "preview.md"
     write_atomic_text(path, md)
     return path
@@ -1330,7 +1316,7 @@ def write_mask(recipe, input, layout, output, png=None, force=False, allow_outsi
                            f"Region weight: recipe '{rec.name}'", "weight (1)", vmin=0.0, vmax=1.0)
     create_netcdf(output, build, fmt="NETCDF4", force=force)
     if data is not None:
-        _write_bytes(png, data)
+        write_atomic_bytes(png, data)
     return output
 
 

@@ -555,13 +555,13 @@ def publish(tmp: Path, output: Path, force: bool) -> None:
             os.close(dfd)
 
 
-def write_atomic_text(path: Path, text: str, force: bool = True) -> None:
-    """Write a small text file (provenance, reports) through a temporary file and a rename."""
+def write_atomic_bytes(path: Path, data: bytes) -> None:
+    """Write a small file (provenance, reports, figures) through a temporary file and a rename."""
     path = Path(path)
     tmp = _tmp_path(path)
     try:
-        with open(tmp, "w", encoding="utf-8") as fh:
-            fh.write(text)
+        with open(tmp, "wb") as fh:
+            fh.write(data)
             fh.flush()
             os.fsync(fh.fileno())
         publish(tmp, path, force=True)
@@ -572,6 +572,11 @@ def write_atomic_text(path: Path, text: str, force: bool = True) -> None:
     finally:
         with contextlib.suppress(OSError):
             tmp.unlink()
+
+
+def write_atomic_text(path: Path, text: str, force: bool = True) -> None:
+    """Write a small text file (UTF-8) atomically; see :func:`write_atomic_bytes`."""
+    write_atomic_bytes(path, text.encode("utf-8"))
 
 
 def copy_and_patch(input_path: str | os.PathLike, output: str | os.PathLike, patch: Callable[[NetCDFStore], Any],
