@@ -267,6 +267,8 @@ def open_netcdf(path: Path, mode: str = "r"):
         raise InputError(f"{path}: is a folder, not a netCDF file; give the path of the restart file")
     if not path.exists():
         raise InputError(f"{path}: file not found; check the path")
+    if not path.is_file():  # opening a pipe would wait for a writer for ever; netCDF needs random access
+        raise InputError(f"{path}: is not a regular file (a pipe or a device); give the path of a netCDF file")
     try:
         ds = netCDF4.Dataset(path, mode)
     except PermissionError:
@@ -390,13 +392,13 @@ class _Interrupted(BaseException):
 
 @contextlib.contextmanager
 def _signals_raise() -> Iterator[None]:
-    """Turn SIGTERM (and SIGINT) into an exception so that clean-up code runs."""
+    """Turn SIGTERM, SIGINT and SIGHUP into an exception so that clean-up code runs."""
     def handler(signum, frame):
         raise _Interrupted(signal.Signals(signum).name)
 
     old = {}
     try:
-        for sig in (signal.SIGTERM, signal.SIGINT):
+        for sig in (signal.SIGTERM, signal.SIGINT, getattr(signal, "SIGHUP", signal.SIGTERM)):
             try:
                 old[sig] = signal.signal(sig, handler)
             except ValueError:  # not in the main thread
