@@ -744,6 +744,13 @@ def test_input_is_a_folder(work, capsys):
             "dir.nc", "is a folder", folder=work)
 
 
+def test_input_is_a_named_pipe(work, capsys):
+    os.mkfifo(work / "pipe.nc")  # opening it would wait for a writer for ever
+    rec = recipe(work)
+    refused(capsys, ["apply", rec, "--input", work / "pipe.nc", "--output", work / "out.nc"],
+            "pipe.nc", "not a regular file", folder=work)
+
+
 def test_truncated_netcdf(work, capsys):
     data = (work / "in.nc").read_bytes()
     (work / "cut.nc").write_bytes(data[: len(data) // 2])

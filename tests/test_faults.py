@@ -120,7 +120,7 @@ def assert_nothing_left(work, before_names, input_sha):
 # ---------------------------------------------------------------------------------------------
 
 
-@pytest.mark.parametrize("sig", [signal.SIGTERM, signal.SIGINT], ids=["SIGTERM", "SIGINT"])
+@pytest.mark.parametrize("sig", [signal.SIGTERM, signal.SIGINT, signal.SIGHUP], ids=["SIGTERM", "SIGINT", "SIGHUP"])
 def test_signal_during_the_write_leaves_nothing(work, sig):
     before, src = names(work), sha(work / "in.nc")
     proc, marker, _ = start(work, "a", *apply_args(work))
