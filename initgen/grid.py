@@ -340,6 +340,9 @@ def build_grid(store: Store, lon_name: str, lat_name: str, area_name: str | None
 def _layer_dim_of(info: VarInfo, hdims: tuple, given: str | None, store: Store, where: str) -> str | None:
     rest = [d for d in info.dims if d not in hdims]
     if given:
+        if given in hdims:
+            raise InputError(f"{where}: layer_dimension '{given}' is a horizontal dimension of the grid {hdims}; "
+                             f"name the layer axis of '{info.name}' {tuple(rest)}")
         return given if given in info.dims else None
     if not rest:
         return None
@@ -369,8 +372,11 @@ def _bind(store, role, spec, hdims, layout_data, where) -> Role:
         ldim = None
         sel = slice(None)
         if layered_role and len(names) == 1:
-            ldim = _layer_dim_of(info, hdims, layout_data.get("layer_dimension") if layout_data else None,
-                                 store, where)
+            given = layout_data.get("layer_dimension") if layout_data else None
+            ldim = _layer_dim_of(info, hdims, given, store, where)
+            if given and ldim is None and role == "soil_temperature":
+                raise InputError(f"{where}: layer_dimension '{given}' is not a dimension of '{n}' {info.dims}; "
+                                 f"name its layer axis, one of {tuple(d for d in info.dims if d not in hdims)}")
             if ldim and nsnow:
                 sel = slice(0, nsnow) if role == "snow_temperature" else slice(nsnow, None)
         views.append(View(info, hdims, ldim, sel))
