@@ -693,6 +693,19 @@ def test_variable_with_two_candidate_layer_axes(work, capsys):
     refused(capsys, apply_argv(work, rec, "--layout", lay), "'t4'", "layer_dimension", folder=work)
 
 
+def test_layout_layer_dimension_not_on_the_variable(work, capsys):
+    rec = recipe(work)
+    lay = layout(work, LAYOUT + "layer_dimension: levels\n")
+    refused(capsys, apply_argv(work, rec, "--layout", lay), "layout.yaml", "layer_dimension 'levels'", "'tsoil'",
+            "one of ('time', 'lev')", folder=work)
+
+
+def test_layout_layer_dimension_is_horizontal(work, capsys):
+    rec = recipe(work)
+    lay = layout(work, LAYOUT + "layer_dimension: lat\n")
+    refused(capsys, apply_argv(work, rec, "--layout", lay), "layer_dimension 'lat'", "horizontal", folder=work)
+
+
 def test_layer_depths_not_monotonic(work, capsys):
     rec = recipe(work)
     lay = layout(work, LAYOUT.replace("[0.05, 0.15, 0.35, 0.75, 1.5]", "[0.05, 0.35, 0.15, 0.75, 1.5]"))
