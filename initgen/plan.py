@@ -29,7 +29,7 @@ from .recipe import Document, resolve_path
 from .restart import NetCDFStore, read_field
 
 T_FREEZE = 273.15
-BLOCK_ELEMENTS = 4_000_000  # float64 elements per role per block (32 MB)
+BLOCK_ELEMENTS = 250_000  # values per variable per block (2 MB as float64): memory stays flat
 
 
 @dataclass
@@ -441,32 +441,58 @@ def slabs(plan: Plan) -> list[tuple[dict, tuple]]:
     return out
 
 
+def _chunk_edges(start: int, stop: int, step: int, chunk: int) -> list[tuple[int, int]]:
+    """Split [start, stop) into pieces of about ``step``, cut at multiples of ``chunk``."""
+    if chunk > 1:
+        step = max(chunk, (step // chunk) * chunk)
+    out = []
+    a = start
+    while a < stop:
+        b = min(stop, ((a // step) + 1) * step if chunk > 1 else a + step)
+        out.append((a, b))
+        a = b
+    return out
+
+
 def blocks_of(plan: Plan, slab: tuple) -> list[tuple[dict, tuple]]:
-    """Split a slab along its first horizontal dim into blocks of bounded size, chunk-aligned."""
+    """Tile a slab into blocks of at most about ``BLOCK_ELEMENTS`` values per variable.
+
+    Blocks are cut along both horizontal dims, at the chunk boundaries of chunked variables (a
+    block never holds part of a chunk that another block also writes), so the memory a block
+    needs does not grow with the file or the region.
+    """
     hkey, widx = slab
     model = plan.model
-    d0 = model.grid.dims[0]
-    s0 = hkey[d0]
-    other = int(np.prod([len(range(model.grid.shape[i])[hkey[d]]) for i, d in enumerate(model.grid.dims) if i > 0]))
-    depth = 1
-    chunk0 = 1
+    dims = model.grid.dims
+    depth, chunks = 1, [1] * len(dims)
     for role in model.roles.values():
         for v in role.views:
             info = v.info
-            n = int(np.prod([s for dd, s in zip(info.dims, info.shape) if dd not in model.grid.dims]))
-            depth = max(depth, n)
-            if info.chunks and d0 in info.dims:
-                chunk0 = max(chunk0, info.chunks[info.dims.index(d0)])
-    rows = max(1, BLOCK_ELEMENTS // max(1, other * depth))
-    if chunk0 > 1:
-        rows = max(chunk0, (rows // chunk0) * chunk0)
+            depth = max(depth, int(np.prod([s for dd, s in zip(info.dims, info.shape) if dd not in dims])))
+            if info.chunks:
+                for ax, d in enumerate(dims):
+                    if d in info.dims:
+                        chunks[ax] = max(chunks[ax], info.chunks[info.dims.index(d)])
+    budget = max(1, BLOCK_ELEMENTS // depth)  # horizontal cells per block
+    spans = [(hkey[d].start, hkey[d].stop) for d in dims]
+    if len(dims) == 1:
+        pieces = [[p] for p in _chunk_edges(*spans[0], budget, chunks[0])]
+    else:
+        ncols = spans[1][1] - spans[1][0]
+        cols = ncols if ncols * chunks[0] <= budget else max(1, budget // max(chunks[0], 1))
+        col_pieces = _chunk_edges(*spans[1], cols, chunks[1])
+        width = max(b - a for a, b in col_pieces)
+        row_pieces = _chunk_edges(*spans[0], max(1, budget // width), chunks[0])
+        pieces = [[r, c] for r in row_pieces for c in col_pieces]
     out = []
-    start = s0.start
-    offset = widx[0].start - s0.start  # window position = file index + offset within a slab
-    while start < s0.stop:
-        stop = min(s0.stop, (start // rows + 1) * rows if chunk0 > 1 else start + rows)
-        out.append((dict(hkey, **{d0: slice(start, stop)}), (slice(start + offset, stop + offset),) + widx[1:]))
-        start = stop
+    for piece in pieces:
+        h = dict(hkey)
+        w = list(widx)
+        for ax, (d, (a, b)) in enumerate(zip(dims, piece)):
+            offset = widx[ax].start - hkey[d].start  # window position = file index + offset in a slab
+            h[d] = slice(a, b)
+            w[ax] = slice(a + offset, b + offset)
+        out.append((h, tuple(w)))
     return out
 
 

@@ -274,3 +274,36 @@ def test_version(capsys):
         main(["--version"])
     assert exc.value.code == 0
     assert initgen.__version__ in capsys.readouterr().out
+
+
+def test_region_across_the_grid_seam_reads_two_slabs_not_the_globe(tmp_path, monkeypatch):
+    """A box across 0 degrees on a 0..360 grid touches two runs of longitude indices."""
+    from initgen import plan as plan_mod
+    from initgen.grid import open_model
+    from initgen.recipe import load_recipe
+    from initgen.restart import NetCDFStore
+
+    src = regular(tmp_path / "in.nc", nlon=72, nlat=36, lon0=0.0, chunked=True)
+    rec = load_recipe(box_recipe(tmp_path, w=-20, e=20, s=-30, n=30))
+    store = NetCDFStore(src)
+    try:
+        p = plan_mod.build_plan(rec, open_model(store))
+        lon_idx = p.window[1]
+        assert lon_idx.size < 72 // 2  # the window is not the whole globe
+        slabs = plan_mod.slabs(p)
+        assert len(slabs) == 2
+        spans = sorted((h["lon"].start, h["lon"].stop) for h, _ in slabs)
+        assert spans[0][0] == 0 and spans[1][1] == 72
+        # tiny blocks tile each slab exactly, cut at the 6 x 6 chunk boundaries of the file
+        monkeypatch.setattr(plan_mod, "BLOCK_ELEMENTS", 40)
+        for slab in slabs:
+            blocks = plan_mod.blocks_of(p, slab)
+            cells = sum((h["lat"].stop - h["lat"].start) * (h["lon"].stop - h["lon"].start) for h, _ in blocks)
+            h0 = slab[0]
+            assert cells == (h0["lat"].stop - h0["lat"].start) * (h0["lon"].stop - h0["lon"].start)
+            for h, w in blocks:
+                assert (h["lat"].stop - h["lat"].start) == (w[0].stop - w[0].start)
+                for d in ("lat", "lon"):
+                    assert h[d].start % 6 == 0 or h[d].start == h0[d].start
+    finally:
+        store.close()
