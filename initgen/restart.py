@@ -511,6 +511,8 @@ def _disk_error(exc: OSError, output: Path) -> InputError:
         return InputError(f"{output}: no space left on the device; free space or write elsewhere (nothing was written)")
     if exc.errno == errno.ENOENT and not output.parent.exists():
         return InputError(f"{output}: output folder {output.parent} does not exist; create it first")
+    if exc.errno == errno.EISDIR:
+        return InputError(f"{output}: is a folder; remove it or choose another output name")
     if exc.errno == errno.ENOTDIR:
         return InputError(f"{output}: {output.parent} is not a folder; give an output path inside a folder")
     if exc.errno in (errno.EACCES, errno.EPERM, errno.EROFS):
