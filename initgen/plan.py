@@ -385,11 +385,18 @@ def build_plan(recipe: Document, model: ModelFile, *, allow_outside: bool = Fals
 def check_before_writing(plan: Plan) -> None:
     """Refuse units and soil textures initgen cannot use, before anything is read block by block or written."""
     model = plan.model
+    try:
+        _check_units(plan, model)
+    except InputError as exc:
+        raise InputError(f"{model.store.describe()}: {exc}") from None
     if plan.physics.get("texture"):
         try:
             soil.hydraulics_from_texture(plan.physics["texture"])
         except InputError as exc:
             raise _keyed(exc, "physics.texture") from None
+
+
+def _check_units(plan: Plan, model: ModelFile) -> None:
     for target in ("soil_temperature", "skin_temperature", "snow_temperature"):
         role = model.role(target)
         if target in plan.targets and role is not None:
