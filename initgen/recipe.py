@@ -382,7 +382,8 @@ def _validate(raw: Any, node: Obj, kind: str, source: str, version_key: str, ver
     try:
         return node.validate(copy.deepcopy(raw), "")
     except InputError as exc:
-        raise InputError(f"{source}: {exc}") from None
+        msg = str(exc) if kind == "recipe" else str(exc).replace("recipe key ", f"{kind} key ", 1)
+        raise InputError(f"{source}: {msg}") from None
     except RecursionError:
         raise InputError(f"{source}: the {kind} is nested too deeply; start from `initgen schema`") from None
 
