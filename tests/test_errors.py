@@ -656,7 +656,7 @@ def test_layout_without_version_key(work, capsys):
 def test_layout_unknown_role(work, capsys):
     rec = recipe(work)
     lay = layout(work, LAYOUT + "  soil_temprature: tsoil\n")
-    refused(capsys, apply_argv(work, rec, "--layout", lay), "roles.soil_temprature",
+    refused(capsys, apply_argv(work, rec, "--layout", lay), "layout key roles.soil_temprature",
             "did you mean 'soil_temperature'", folder=work)
 
 
@@ -839,7 +839,7 @@ def test_soil_temperature_in_furlongs(work, capsys):
     custom_file(work / "f.nc", t_units="furlongs")
     rec = recipe(work)
     refused(capsys, ["apply", rec, "--input", work / "f.nc", "--output", work / "out.nc"],
-            "tsoil", "furlongs", "K", folder=work)
+            "f.nc", "'tsoil'", "furlongs", "set its units to 'K'", folder=work)
 
 
 def test_soil_water_in_furlongs_in_a_physics_mode(work, capsys):
@@ -848,8 +848,8 @@ def test_soil_water_in_furlongs_in_a_physics_mode(work, capsys):
         ds["wliq"].units = "furlongs"
     rec = recipe(work, swap("lon: [20, 80], lat: [10, 50]", "lon: [170, 190], lat: [30, 45]")
                  + "physics: {mode: energy, texture: loam}\n")
-    refused(capsys, ["apply", rec, "--input", demo, "--output", work / "o.nc"], "wliq", "furlongs",
-            folder=work)
+    refused(capsys, ["apply", rec, "--input", demo, "--output", work / "o.nc"], "demo.nc", "'wliq'", "furlongs",
+            "kg m-2", folder=work)
 
 
 def test_soil_water_in_furlongs_is_ignored_without_physics(work, capsys):
@@ -999,7 +999,7 @@ def test_output_folder_refusing_writes(work, capsys, monkeypatch):
 def test_output_with_provenance_name_taken_by_a_folder(work, capsys):
     rec = recipe(work)
     (work / "out.nc.provenance.json").mkdir()
-    refused(capsys, apply_argv(work, rec), "out.nc.provenance.json", folder=work)
+    refused(capsys, apply_argv(work, rec), "out.nc.provenance.json", "is a folder", "remove it", folder=work)
 
 
 def test_unknown_subcommand_option(work, capsys):
