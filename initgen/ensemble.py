@@ -174,12 +174,15 @@ def _grid_fingerprint(model, recipe: Document, layout: Document | None, allow_ou
         a = np.ascontiguousarray(arr, dtype=np.float64)
         h.update(str(a.shape).encode())
         h.update(a.tobytes())
+    d0, n0 = model.grid.dims[0], model.grid.shape[0]
+    rows = max(1, 4_000_000 // max(1, model.grid.size // max(1, n0)))  # bounded memory: ~32 MB a read
     for name in ("land_fraction", "land_mask", "surface_altitude"):
         role = model.role(name)
         if role is not None:
-            a = np.ascontiguousarray(role.read(model.store, {}), dtype=np.float64)
             h.update(name.encode())
-            h.update(a.tobytes())
+            for start in range(0, n0, rows):
+                a = role.read(model.store, {d0: slice(start, min(n0, start + rows))})
+                h.update(np.ascontiguousarray(a, dtype=np.float64).tobytes())
     if model.layers is not None:
         for arr in (model.layers.node_m, model.layers.thickness_m):
             h.update(np.ascontiguousarray(arr, dtype=np.float64).tobytes())

@@ -272,15 +272,19 @@ def test_an_unexpected_failure_gives_exit_1_and_the_rest_finish(tmp_path, demo, 
     assert not list((tmp_path / "out").rglob("*initgen-tmp"))
 
 
-def test_several_inputs_naming_and_clashes(tmp_path, demo, capsys):
+def test_several_inputs_naming_and_clashes(tmp_path, demo, capsys, monkeypatch):
     b = tmp_path / "start-0402.nc"
     shutil.copy(demo, b)
+    builds = []
+    real_build = ensemble.plan_mod.build_plan
+    monkeypatch.setattr(ensemble.plan_mod, "build_plan", lambda *a, **k: builds.append(1) or real_build(*a, **k))
     shutil.copy(shipped_file("masks", "demo-highland.geojson"), tmp_path)
     rec = recipe_file(tmp_path, {"list": [{"name": "p", "offset_K": 0.5}],
                                  "output_template": "{input_stem}-{member}.nc"})
     assert main(["apply", str(rec), "--input", str(demo), str(b), "--output", str(tmp_path / "o"), "--workers", "1",
                  "-q"]) == 0
     assert sorted(p.name for p in (tmp_path / "o").glob("*.nc")) == ["demo-restart-p.nc", "start-0402-p.nc"]
+    assert len(builds) == 1  # two start dates on one grid: weights, profile and anomaly computed once
     # the second time without --force: refused before anything is written
     assert main(["apply", str(rec), "--input", str(demo), "--output", str(tmp_path / "o")]) == 2
     assert "exists; pass --force" in capsys.readouterr().err
