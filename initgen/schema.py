@@ -211,8 +211,7 @@ class Obj(Node):
             sub = _join(path, key)
             if key in value and value[key] is not None:
                 out[key] = node.validate(value[key], sub)
-            elif key in value and value[key] is None and not node.required:
-                out[key] = node.default
+            # an optional key written empty ("physics:" with nothing below) is the same as absent
             elif node.required and not any(key in g for g in self.one_of):
                 raise InputError(f"recipe key {sub}: is required ({node.doc or 'see initgen schema'})")
             elif not node.required:
