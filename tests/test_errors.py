@@ -247,6 +247,20 @@ def test_yaml_key_that_is_not_a_string(work, capsys):
     refused(capsys, apply_argv(work, rec), "perturbations[0].anomaly", "keys must be strings", folder=work)
 
 
+def test_empty_optional_sections_are_the_same_as_absent(work, capsys):
+    """Not an error: "physics:" with every line below commented out once crashed (KeyError)."""
+    from initgen.recipe import load_recipe
+
+    plain = load_recipe(recipe(work, RECIPE, "plain.yaml"))
+    for extra in ("physics:\n", "physics: null\n", "physics: {}\n"):
+        rec = recipe(work, RECIPE + extra, "empty.yaml")
+        assert main(["check", str(rec), "--input", str(work / "in.nc")]) == 0
+        assert load_recipe(rec).sha256 == plain.sha256
+    rec = recipe(work, swap("    profile: {kind: exponential, efolding_m: 0.5}", "    profile:\n    targets:"),
+                 "empty.yaml")
+    assert load_recipe(rec).data["perturbations"][0]["profile"]["kind"] == "uniform"
+
+
 def test_unknown_top_level_key(work, capsys):
     rec = recipe(work, RECIPE.replace("perturbations:", "perturbation:"))
     refused(capsys, apply_argv(work, rec), "recipe key perturbation", "did you mean 'perturbations'",
