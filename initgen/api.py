@@ -101,7 +101,7 @@ def preview(recipe, input, layout=None, *, member: str | None = None, allow_outs
 
 
 def apply(recipe, input, output, layout=None, *, member: str | None = None, force: bool = False,
-          allow_outside_paths: bool = False, progress=None) -> dict:
+          allow_outside_paths: bool = False, progress=None, repack: bool = False) -> dict:
     """Write a perturbed copy of ``input`` to ``output`` and its provenance record beside it.
 
     ``member`` names one member of a recipe with a members section (without it the recipe is
@@ -130,7 +130,7 @@ def apply(recipe, input, output, layout=None, *, member: str | None = None, forc
 
     return prov.write_perturbed(recipe=rec, layout=lay, input_path=input, output_path=output, patch=patch,
                                 force=force, allow_outside=allow_outside_paths,
-                                member=None if mem is None else mem.record())
+                                member=None if mem is None else mem.record(), repack=repack)
 
 
 def _member(rec: Document, member: str | None):

@@ -60,6 +60,8 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--force", action="store_true", help="replace existing outputs")
     p.add_argument("--quiet", "-q", action="store_true", help="print nothing but errors")
     p.add_argument("--verbose", "-v", action="store_true", help="also print the time spent per stage")
+    p.add_argument("--repack", action="store_true",
+                   help="rewrite the output whole so compressed chunks are packed afresh (smaller, slower)")
 
     p = sub.add_parser("preview", help="dry run: show what apply would change; writes no netCDF file")
     _common(p)
@@ -203,7 +205,8 @@ def _dispatch(args) -> int:
         if len(args.input) != 1:
             raise InputError("--input: give one input file (several inputs need a recipe with a members section)")
         rec = api.apply(recipe, args.input[0], args.output, args.layout, member=args.member, force=args.force,
-                        allow_outside_paths=args.allow_outside_paths, progress=_progress_printer(args.quiet))
+                        allow_outside_paths=args.allow_outside_paths, progress=_progress_printer(args.quiet),
+                        repack=args.repack)
         if not args.quiet:
             print(api.ledger_text(rec["ledger"]))
             print(f"wrote {args.output} (sha256 {rec['output']['sha256']})")
@@ -211,7 +214,8 @@ def _dispatch(args) -> int:
         if args.verbose:
             io = rec.get("io", {})
             stages = ", ".join(f"{k[:-2]} {v:.2f} s" for k, v in io.get("timings_s", {}).items())
-            print(f"timings: {stages}; {io.get('bytes_rewritten', 0):,} bytes rewritten")
+            print(f"timings: {stages}; {io.get('bytes_rewritten', 0):,} bytes rewritten; file size "
+                  f"{io.get('size_growth_bytes', 0):+,} bytes" + (" (repacked)" if io.get("repacked") else ""))
         return 0
     if args.command == "preview":
         recipe = api.load_recipe(args.recipe)

@@ -53,7 +53,7 @@ def record(*, recipe, layout, input_path: Path, input_sha256: str, output_path: 
 
 def write_perturbed(*, recipe, layout, input_path, output_path, patch, force: bool = False,
                     allow_outside: bool = False, member: dict | None = None, input_sha256: str | None = None,
-                    command_line: list | None = None) -> dict:
+                    command_line: list | None = None, repack: bool = False) -> dict:
     """Copy ``input_path`` to ``output_path``, run ``patch(out_store) -> ledger`` on the copy, and
     write the provenance record beside it; returns the record.
 
@@ -86,7 +86,9 @@ def write_perturbed(*, recipe, layout, input_path, output_path, patch, force: bo
         t = time.perf_counter()
         out_sha = sha256_file(tmp)
         timings["hash_output_s"] = time.perf_counter() - t
-        io = {"bytes_rewritten": holder["bytes"], "output_size_bytes": tmp.stat().st_size,
+        size_in, size_out = input_path.stat().st_size, tmp.stat().st_size
+        io = {"bytes_rewritten": holder["bytes"], "input_size_bytes": size_in, "output_size_bytes": size_out,
+              "size_growth_bytes": size_out - size_in, "repacked": bool(repack),
               "timings_s": {k: round(v, 4) for k, v in timings.items()}}
         holder["record"] = record(
             recipe=recipe, layout=layout, input_path=input_path, input_sha256=input_hash.result(),
@@ -98,7 +100,8 @@ def write_perturbed(*, recipe, layout, input_path, output_path, patch, force: bo
         write_atomic_text(provenance_path(output_path), dumps(holder["record"]))
 
     try:
-        copy_and_patch(input_path, output_path, run, force=force, history=history, after=after, timings=timings)
+        copy_and_patch(input_path, output_path, run, force=force, history=history, after=after, timings=timings,
+                       repack_output=repack)
     except BaseException:
         if "record" in holder and not output_path.exists():
             with contextlib.suppress(OSError):

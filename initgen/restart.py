@@ -585,7 +585,8 @@ def write_atomic_text(path: Path, text: str, force: bool = True) -> None:
 
 def copy_and_patch(input_path: str | os.PathLike, output: str | os.PathLike, patch: Callable[[NetCDFStore], Any],
                    *, force: bool = False, history: str | None = None,
-                   after: Callable[[Path], None] | None = None, timings: dict | None = None) -> Any:
+                   after: Callable[[Path], None] | None = None, timings: dict | None = None,
+                   repack_output: bool = False) -> Any:
     """Copy ``input_path`` beside ``output``, run ``patch(store)`` on the copy, move it into place.
 
     ``after(tmp_path)`` runs once the patched copy is closed, before it is published (used to
@@ -593,6 +594,8 @@ def copy_and_patch(input_path: str | os.PathLike, output: str | os.PathLike, pat
     being synced to disk, and publishing waits for both. Whatever goes wrong, the temporary file
     is removed and no output appears. A second initgen run for the same output stops at once
     (see :func:`output_lock`). ``timings`` (a dict) receives the seconds spent per stage.
+    ``repack_output`` rewrites the patched copy whole (see :func:`repack`), for users who
+    prefer a compact file to a fast run.
     """
     timings = {} if timings is None else timings
     clock = time.perf_counter
@@ -621,6 +624,16 @@ def copy_and_patch(input_path: str | os.PathLike, output: str | os.PathLike, pat
             finally:
                 store.close()
             timings["patch_s"] = clock() - t
+            if repack_output:
+                t = clock()
+                packed = tmp.parent / (tmp.name + ".repack")
+                try:
+                    repack(tmp, packed)
+                    os.replace(packed, tmp)
+                finally:
+                    with contextlib.suppress(OSError):
+                        packed.unlink()
+                timings["repack_s"] = clock() - t
             t = clock()
             # sync the copy to disk while the caller hashes it (both only read the page cache)
             with ThreadPoolExecutor(max_workers=1) as pool:
@@ -662,6 +675,52 @@ def _size(path: Path) -> int:
         return path.stat().st_size
     except OSError:
         return 0
+
+
+def repack(src: Path, dst: Path, block_elements: int = 4_000_000) -> None:
+    """Rewrite a netCDF file whole into ``dst``: the same format, dimensions, variables, attributes
+    and encodings (chunking, compression, shuffle, checksums, endianness, fill values), with every
+    chunk compressed afresh and the file laid out without the holes an in-place patch can leave.
+
+    Values are copied raw (no unpacking), block by block along the first dimension, so memory
+    stays bounded. Files with groups are refused.
+    """
+    with netCDF4.Dataset(src) as ds_in:
+        if ds_in.groups:
+            raise InputError(f"{src}: has groups, which repacking does not support; run without --repack")
+        ds_out = netCDF4.Dataset(dst, "w", format=ds_in.data_model)
+        try:
+            ds_out.setncatts({k: ds_in.getncattr(k) for k in ds_in.ncattrs()})
+            for name, dim in ds_in.dimensions.items():
+                ds_out.createDimension(name, None if dim.isunlimited() else len(dim))
+            for name, var in ds_in.variables.items():
+                var.set_auto_maskandscale(False)
+                kw = {}
+                if ds_in.data_model.startswith("NETCDF4"):
+                    filters = var.filters() or {}
+                    chunking = var.chunking()
+                    kw = dict(zlib=bool(filters.get("zlib")), complevel=filters.get("complevel") or 4,
+                              shuffle=bool(filters.get("shuffle")), fletcher32=bool(filters.get("fletcher32")),
+                              endian=var.endian())
+                    if chunking == "contiguous":
+                        kw["contiguous"] = not var.dimensions or all(
+                            not ds_in.dimensions[d].isunlimited() for d in var.dimensions)
+                    elif chunking:
+                        kw["chunksizes"] = tuple(chunking)
+                attrs = {k: var.getncattr(k) for k in var.ncattrs()}
+                fill = attrs.pop("_FillValue", None)
+                out = ds_out.createVariable(name, var.datatype, var.dimensions, fill_value=fill, **kw)
+                out.set_auto_maskandscale(False)
+                out.setncatts(attrs)
+                if var.ndim == 0:
+                    out.assignValue(var.getValue())
+                    continue
+                row = int(np.prod(var.shape[1:])) if var.ndim > 1 else 1
+                step = max(1, block_elements // max(row, 1))
+                for i in range(0, var.shape[0], step):
+                    out[i:i + step] = var[i:i + step]
+        finally:
+            ds_out.close()
 
 
 def create_netcdf(path: Path, build: Callable[[Any], None], fmt: str = "NETCDF4", force: bool = True) -> None:
