@@ -74,6 +74,7 @@ class Ledger:
         self.plan = plan
         self.vars: dict = {}
         self.clamps: Counter = Counter()
+        self.flags: Counter = Counter()
         self.phase = {}
         self.disequilibrium = 0
         self.nlayers = {}
@@ -84,8 +85,14 @@ class Ledger:
         return self.vars[name]["stats"]
 
     def clamp(self, rule: str, count: int) -> None:
+        """Cells whose new value a limit changed, by rule."""
         if count:
             self.clamps[rule] += int(count)
+
+    def flag(self, rule: str, count: int) -> None:
+        """Cells worth a modeller's attention that initgen left as they were, by rule."""
+        if count:
+            self.flags[rule] += int(count)
 
     def add_phase(self, key: str, per_layer: np.ndarray, total: float | None = None) -> None:
         """Accumulate area-integrated per-layer quantities (already multiplied by area)."""
@@ -114,6 +121,7 @@ class Ledger:
                        for b in self.plan.blocks],
             "variables": {},
             "clamps": dict(sorted(self.clamps.items())),
+            "flags": dict(sorted(self.flags.items())),
             "physics": {"mode": self.plan.physics["mode"]},
             "cells_not_in_phase_equilibrium_before": int(self.disequilibrium),
         }

@@ -817,6 +817,10 @@ def _physics(T_old, T_new, water, sel, phys, led, area, nh, mode, dT=None):
     T = np.where(sel, res.T, T_old)
     water["liq"] = np.where(sel, res.liq, water["liq"])
     water["ice"] = np.where(sel, res.ice, water["ice"])
+    # total water is conserved, so a layer holding more than its pores did so before the change:
+    # it is reported, not "corrected" (removing water would break the water budget)
+    over = sel & (water["liq"] + water["ice"] > water["porosity"] * (1.0 + 1e-9))
+    led.flag("water_above_porosity_kept", np.count_nonzero(over))
     a = _bcast_h(area, 2)
     for key, arr in (("frozen_kg", res.frozen_kg_m2), ("melted_kg", res.melted_kg_m2),
                      ("sensible_J", res.sensible_J_m2), ("latent_J", res.latent_J_m2)):

@@ -124,3 +124,30 @@ def test_per_layer_variables_with_land_mask(tmp_path):
         np.testing.assert_allclose(changed, -2.0 * np.exp(-nodes[k] / 0.5), atol=2e-6)
     with netCDF4.Dataset(out) as ds:
         assert ds.data_model == "NETCDF3_64BIT_OFFSET"
+
+
+def test_overfull_pores_are_flagged_not_changed(tmp_path):
+    """Water above porosity before the change is reported in the ledger and the water kept."""
+    lon = np.arange(-175, 180, 10.0)
+    lat = np.arange(-85, 90, 10.0)
+    z = np.array([0.05, 0.2, 0.5, 1.2])
+    with netCDF4.Dataset(tmp_path / "g.nc", "w") as ds:
+        for d, n in (("lon", lon.size), ("lat", lat.size), ("layer", z.size)):
+            ds.createDimension(d, n)
+        ds.createVariable("lon", "f8", ("lon",))[:] = lon
+        ds.createVariable("lat", "f8", ("lat",))[:] = lat
+        v = ds.createVariable("layer_z", "f4", ("layer",))
+        v.units = "m"
+        v[:] = z
+        for name, val, units in (("soil_t", 280.0, "K"), ("soil_liq", 0.6, "m3 m-3"), ("soil_ice", 0.0, "m3 m-3")):
+            v = ds.createVariable(name, "f4", ("layer", "lat", "lon"), fill_value=np.float32(-1e30))
+            v.units = units
+            v[:] = np.full((z.size, lat.size, lon.size), val, "f4")
+        ds.createVariable("land_frac", "f4", ("lat", "lon"))[:] = np.ones((lat.size, lon.size))
+        ds.createVariable("orog", "f4", ("lat", "lon"))[:] = np.zeros((lat.size, lon.size))
+    out = tmp_path / "g.out.nc"
+    rec = api.apply(recipe(tmp_path, physics="physics: {mode: temperature, texture: loam}\n"), tmp_path / "g.nc", out,
+                    layout=LAYOUTS / "gridded-layered.yaml")
+    # loam porosity 0.451 (Clapp and Hornberger 1978, Table 2) < 0.6 m3 m-3 of liquid
+    assert rec["ledger"]["flags"]["water_above_porosity_kept"] > 0
+    assert np.array_equal(raw(out, "soil_liq"), raw(tmp_path / "g.nc", "soil_liq"))
