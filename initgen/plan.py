@@ -110,10 +110,18 @@ def shape_geometry(shape: dict, recipe: Document, key: str, allow_outside: bool)
                          "fix the file") from None
 
 
+MAX_ABS_LON = 720.0  # two turns either way; beyond, wrapping a shape would take for ever
+
+
 def _shape_geometry(shape: dict, recipe: Document, key: str, allow_outside: bool):
     if shape.get("geojson"):
         path = resolve_shape_file(recipe, shape["geojson"], key + ".geojson", allow_outside)
-        return regions.read_geojson(path)
+        geom = regions.read_geojson(path)
+        west, _, east, _ = geom.bounds
+        if not (-MAX_ABS_LON <= west and east <= MAX_ABS_LON):
+            raise InputError(f"recipe key {key}.geojson: {path.name} has longitudes {west:.6g}..{east:.6g}, beyond "
+                             f"+-{MAX_ABS_LON:g} degrees; give longitude/latitude in degrees (EPSG:4326)")
+        return geom
     if shape.get("box"):
         (w, e), (s, n) = shape["box"]["lon"], shape["box"]["lat"]
         if s >= n:
@@ -588,6 +596,7 @@ def apply_block(plan: Plan, store, hkey: dict, widx: tuple, led, *, write: bool)
         return
     targets = plan.targets
     phys = plan.physics
+    top_change = None  # realised change of the top soil layer, set when a physics mode runs
 
     # --- soil temperature (with water and ice when physics is on) ---------------------------
     if "soil_temperature" in targets:
@@ -639,6 +648,8 @@ def apply_block(plan: Plan, store, hkey: dict, widx: tuple, led, *, write: bool)
         _temp_write(role, store, hkey, T if layered else T[:, 0], changed if layered else changed[:, 0], write)
         if water is not None:
             _write_water(plan, store, hkey, water, inside, led, area, write)
+            # with a physics mode the skin follows the top layer's realised change (latent heat included)
+            top_change = np.where(np.isfinite(T[:, 0]) & np.isfinite(T0[:, 0]), T[:, 0] - T0[:, 0], 0.0)
 
     # --- skin temperature, snow temperature, snow mass ---------------------------------------
     snow_mass_now = None
@@ -646,7 +657,7 @@ def apply_block(plan: Plan, store, hkey: dict, widx: tuple, led, *, write: bool)
         snow_mass_now = _snow_mass(plan, store, hkey, weights, inside_h, led, area, write)
     if "skin_temperature" in targets:
         _surface_temperature(plan, store, hkey, widx, "skin_temperature", weights, inside_h, led, area, write,
-                             snow_mass=snow_mass_now)
+                             snow_mass=snow_mass_now, follow=top_change)
     if "snow_temperature" in targets:
         _surface_temperature(plan, store, hkey, widx, "snow_temperature", weights, inside_h, led, area, write)
 
@@ -658,7 +669,10 @@ def _anomaly(plan: Plan, b: BlockPlan, hidx) -> np.ndarray:
     return a
 
 
-def _surface_temperature(plan, store, hkey, widx, target, weights, inside_h, led, area, write, snow_mass=None):
+def _surface_temperature(plan, store, hkey, widx, target, weights, inside_h, led, area, write, snow_mass=None,
+                         follow=None):
+    """Skin or snow temperature: moves with the surface factor, or (skin, physics modes) follows the
+    realised change of the top soil layer (``follow``); under snow the skin stays at or below 0 C."""
     model = plan.model
     role = model.role(target)
     T0 = _temp_read(role, store, hkey)
@@ -667,8 +681,14 @@ def _surface_temperature(plan, store, hkey, widx, target, weights, inside_h, led
     inside = np.broadcast_to(_bcast_h(inside_h, 2), T0.shape) & np.isfinite(T0)
     _check_no_undeclared_gaps(role, T0, np.broadcast_to(_bcast_h(inside_h, 2), T0.shape), store)
     T = T0.copy()
+    mine = [b for b in plan.blocks if target in b.targets]
+    if follow is not None and follow.shape[0] == T.shape[0] and all(
+            "soil_temperature" in b.targets and b.donor is None for b in mine):
+        sel = np.any([_bcast_h(w, 2) != 0 for b, w in zip(plan.blocks, weights) if b in mine], axis=0)
+        T = np.where(sel & np.isfinite(T), T0 + follow[:, None], T)
+        mine = []
     for b, w in zip(plan.blocks, weights):
-        if target not in b.targets:
+        if b not in mine:
             continue
         ww = _bcast_h(w, 2)
         sel = (ww != 0) & np.isfinite(T)

@@ -108,3 +108,20 @@ def test_demo_profile_decays_as_damping_formula(demo):
     expect = d * (np.exp(-top / d) - np.exp(-bot / d)) / (bot - top)
     np.testing.assert_allclose(factors, expect, rtol=1e-6)
     assert np.all(np.diff(factors) < 0)
+
+
+def test_skin_follows_top_layer_in_energy_mode(demo, tmp_path):
+    """With a physics mode the skin temperature moves with the top soil layer's realised change,
+    which latent heat makes smaller than the imposed one where water freezes (issue: energy and
+    phase stay consistent), and stays at or below 0 C under snow."""
+    out = tmp_path / "e.nc"
+    api.apply(demo / "demo-cold-highland.yaml", demo / "demo-restart.nc", out)
+    t0, t1 = raw(demo / "demo-restart.nc", "tsoil")[0, 0], raw(out, "tsoil")[0, 0]
+    s0, s1 = raw(demo / "demo-restart.nc", "tskin")[0], raw(out, "tskin")[0]
+    land = t0 != -9999.0
+    d_top = (t1.astype(float) - t0)[land]
+    d_skin = (s1.astype(float) - s0)[land]
+    snow = raw(demo / "demo-restart.nc", "snow_amount")[0][land]
+    free = (snow <= 0) | (s0[land] + d_top <= 273.15)
+    np.testing.assert_allclose(d_skin[free], d_top[free], atol=3e-5)  # float32 ulp near 270 K
+    assert np.any(d_top < -0.5) and np.all(s1[land][snow > 0] <= 273.15 + 1e-4)
