@@ -125,3 +125,20 @@ def test_skin_follows_top_layer_in_energy_mode(demo, tmp_path):
     free = (snow <= 0) | (s0[land] + d_top <= 273.15)
     np.testing.assert_allclose(d_skin[free], d_top[free], atol=3e-5)  # float32 ulp near 270 K
     assert np.any(d_top < -0.5) and np.all(s1[land][snow > 0] <= 273.15 + 1e-4)
+
+
+def test_start_dates_recipe_writes_every_member_for_every_input(demo, tmp_path):
+    res = api.apply_ensemble(demo / "demo-start-dates.yaml",
+                             [demo / "demo-restart.nc", demo / "demo-restart-donor.nc"], tmp_path / "starts", workers=1)
+    assert res.exit_code == 0
+    for start in ("demo-restart", "demo-restart-donor"):
+        for member in ("cold", "cold-strong"):
+            assert (tmp_path / "starts" / start / f"{member}.nc").is_file()
+    import json
+
+    manifest = json.loads((tmp_path / "starts" / "manifest.json").read_text())
+    assert len(manifest["outputs"]) == 4 and {r["status"] for r in manifest["outputs"]} == {"ok"}
+    # the strong member's change is 1.5 times the plain one where no phase change intervenes
+    d1 = raw(tmp_path / "starts/demo-restart/cold.nc", "tsoil") - raw(demo / "demo-restart.nc", "tsoil")
+    d2 = raw(tmp_path / "starts/demo-restart/cold-strong.nc", "tsoil") - raw(demo / "demo-restart.nc", "tsoil")
+    assert np.median(d2[d1 < -0.5] / d1[d1 < -0.5]) == pytest.approx(1.5, rel=1e-3)
