@@ -386,6 +386,21 @@ def test_vertices_beyond_the_pole(work, capsys):
     refused(capsys, apply_argv(work, rec), "perturbations[0].region.include[0]", "latitude", folder=work)
 
 
+def test_vertices_with_an_absurd_longitude(work, capsys):
+    # once: wrapping this polygon onto -180..180 tried 2.8e9 copies of it (a hang, then out of memory)
+    rec = recipe(work, swap("{box: {lon: [20, 80], lat: [10, 50]}}", "{vertices: [[10, 0], [1.0e12, 0], [60, 40]]}"))
+    refused(capsys, apply_argv(work, rec), "perturbations[0].region.include[0].vertices[1][0]", "<= 720",
+            folder=work)
+
+
+def test_geojson_with_an_absurd_longitude(work, capsys):
+    (work / "shape.geojson").write_text(json.dumps(
+        {"type": "Polygon", "coordinates": [[[10, 0], [1e12, 0], [60, 40], [10, 40], [10, 0]]]}))
+    rec = geo_recipe(work)
+    refused(capsys, apply_argv(work, rec), "perturbations[0].region.include[0].geojson", "shape.geojson",
+            "EPSG:4326", folder=work)
+
+
 def test_degenerate_vertices(work, capsys):
     rec = recipe(work, swap("{box: {lon: [20, 80], lat: [10, 50]}}", "{vertices: [[20, 10], [30, 20], [40, 30]]}"))
     refused(capsys, apply_argv(work, rec), "perturbations[0].region.include[0]", folder=work)
