@@ -181,8 +181,41 @@ def main(argv=None) -> int:
     return code
 
 
+def _same_file(a, b) -> bool:
+    try:
+        if os.path.exists(a) and os.path.exists(b):
+            return os.path.samefile(a, b)
+    except OSError:
+        pass
+    return os.path.abspath(a) == os.path.abspath(b)
+
+
+def _guard_outputs(args) -> None:
+    """No file the command writes may be one it reads (--json onto the input once replaced the restart file)."""
+    def given(*names):
+        out = []
+        for n in names:
+            v = getattr(args, n, None)
+            out.extend(v if isinstance(v, list) else [v] if isinstance(v, str) and v else [])
+        return out
+
+    reads = given("recipe", "input", "layout", "a", "b", "provenance")
+    pairs = [(w, r) for w in given("json", "png") for r in reads]
+    # --output against the input is checked by the writer, with its own message
+    outputs = given("output") if args.command in ("apply", "mask") else []
+    if args.command == "apply" and outputs and not os.path.isdir(outputs[0]):
+        outputs.append(outputs[0] + ".provenance.json")
+    pairs += [(w, r) for w in outputs for r in given("recipe", "layout")]
+    for w, r in pairs:
+        if _same_file(w, r):
+            raise InputError(f"{w}: is also an input of this command ({r}); initgen never overwrites its "
+                             "inputs, choose another name")
+
+
 def _dispatch(args) -> int:
     from . import api
+
+    _guard_outputs(args)
 
     if args.command == "check":
         res = api.check(args.recipe, args.layout, args.input, allow_outside_paths=args.allow_outside_paths)
