@@ -1047,6 +1047,31 @@ def test_preview_json_into_missing_folder(work, capsys):
             "l.json", "does not exist", "create it first", folder=work)
 
 
+def test_preview_json_onto_the_input(work, capsys):
+    # once: the restart file was silently replaced by the ledger's JSON
+    rec = recipe(work)
+    refused(capsys, ["preview", rec, "--input", work / "in.nc", "--json", work / "in.nc"],
+            "in.nc", "is also an input", "choose another name", folder=work)
+
+
+def test_preview_json_onto_the_recipe(work, capsys):
+    rec = recipe(work)
+    refused(capsys, ["preview", rec, "--input", work / "in.nc", "--json", rec], "r.yaml", "is also an input",
+            folder=work)
+
+
+def test_apply_output_onto_the_recipe(work, capsys):
+    rec = recipe(work)
+    refused(capsys, ["apply", rec, "--input", work / "in.nc", "--output", rec, "--force"], "r.yaml",
+            "is also an input", folder=work)
+
+
+def test_compare_json_onto_a_compared_file(work, capsys):
+    regular(work / "b.nc")
+    refused(capsys, ["compare", work / "in.nc", work / "b.nc", "--json", work / "b.nc"], "b.nc",
+            "is also an input", folder=work)
+
+
 def test_output_inside_a_file_instead_of_a_folder(work, capsys):
     rec = recipe(work)
     refused(capsys, ["apply", rec, "--input", work / "in.nc", "--output", work / "in.nc" / "out.nc"],
