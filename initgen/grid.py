@@ -199,6 +199,21 @@ class Role:
         parts = [v.to_canonical(store.read(v.info.name, v.key(hkey))) for v in self.views]
         return np.stack(parts, axis=1)
 
+    def stored(self, values: np.ndarray) -> np.ndarray:
+        """``values`` (canonical order, the variable's units) as they will read back once written:
+        rounded to the variable's type and packing. The ledger measures changes on these, so its
+        counts are those of the file."""
+        from .restart import pack, unpack
+
+        def one(info, vals):
+            ok = np.isfinite(vals)
+            q = unpack(pack(np.where(ok, vals, 0.0), info.attrs, info.dtype), info.attrs)
+            return np.where(ok, q, vals)
+
+        if len(self.views) == 1:
+            return one(self.views[0].info, values)
+        return np.stack([one(v.info, values[:, i]) for i, v in enumerate(self.views)], axis=1)
+
     def write(self, store: Store, hkey: dict, values: np.ndarray, changed: np.ndarray) -> int:
         n = 0
         if len(self.views) == 1:

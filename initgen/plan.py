@@ -557,6 +557,14 @@ def _temp_read(role, store, hkey):
     return soil.temperature_to_kelvin(vals, role.units or "K", name=role.variables[0])
 
 
+def _temp_stored(role, kelvin: np.ndarray, layered: bool) -> np.ndarray:
+    """Temperatures in K as they will read back from the file (type and packing of the variable)."""
+    units = role.units or "K"
+    vals = kelvin if layered else kelvin[:, 0]
+    q = soil.temperature_to_kelvin(role.stored(soil.kelvin_to_units(vals, units)), units, name=role.variables[0])
+    return q if layered else q[:, None]
+
+
 def _temp_write(role, store, hkey, kelvin, changed, write):
     if write:
         role.write(store, hkey, soil.kelvin_to_units(kelvin, role.units or "K"), changed)
@@ -642,6 +650,7 @@ def apply_block(plan: Plan, store, hkey: dict, widx: tuple, led, *, write: bool)
         led.clamp("soil_temperature_below_min", np.count_nonzero(low))
         led.clamp("soil_temperature_above_max", np.count_nonzero(high))
         T = np.clip(T, lo, hi, where=inside, out=T)
+        T = np.where(inside, _temp_stored(role, T, layered), T)
         changed = inside & (T != T0)
         led.stats(role.variables[0] if len(role.variables) == 1 else "+".join(role.variables), "soil_temperature",
                   "K", T.shape[1], layered).add(T - T0, inside, area)
@@ -711,6 +720,7 @@ def _surface_temperature(plan, store, hkey, widx, target, weights, inside_h, led
             over = inside & covered & (T > T_FREEZE) & (T != T0)
             led.clamp("skin_temperature_above_freezing_under_snow", np.count_nonzero(over))
             T = np.where(over, np.maximum(T_FREEZE, np.minimum(T0, T)), T)
+    T = np.where(inside, _temp_stored(role, T, layered), T)
     changed = inside & (T != T0)
     led.stats(role.variables[0], target, "K", T.shape[1], layered).add(T - T0, inside, area)
     _temp_write(role, store, hkey, T if layered else T[:, 0], changed if layered else changed[:, 0], write)
@@ -739,6 +749,7 @@ def _snow_mass(plan, store, hkey, weights, inside_h, led, area, write):
     neg = inside & (m < 0)
     led.clamp("snow_mass_negative", np.count_nonzero(neg))
     m = np.where(neg, 0.0, m)
+    m = np.where(inside, role.stored(m), m)
     changed = inside & (m != m0)
     led.stats(role.variables[0], "snow_mass", role.units or "kg m-2", 1, False).add(m - m0, inside, area)
     if write:
@@ -750,6 +761,7 @@ def _snow_mass(plan, store, hkey, weights, inside_h, led, area, write):
             ratio = np.where(m0 > 0, m / m0, np.nan)
         d = np.where(changed & (m0 > 0), d0 * ratio, d0)
         d = np.where(changed & ~(m0 > 0), m / FRESH_SNOW_DENSITY, d)
+        d = np.where(changed & np.isfinite(d0), depth_role.stored(d), d0)
         dchanged = changed & np.isfinite(d0) & (d != d0)
         led.stats(depth_role.variables[0], "snow_depth", depth_role.units or "m", 1, False).add(d - d0, inside, area)
         if write:
@@ -813,6 +825,7 @@ def _read_water(plan: Plan, store, hkey, shape, donor: ModelFile | None = None) 
         raw = raw if role.layered else raw[:, None]
         out[key] = soil.water_to_volumetric(raw, role.units or "kg m-2", dz, porosity=por, name=role.variables[0])
         out[key + "0"] = out[key].copy()
+        out[key + "_raw"] = raw
         out[key + "_units"] = role.units or "kg m-2"
         out[key + "_name"] = f"{(model.store if donor else store).describe()}: variable '{role.variables[0]}'"
     c_solid = None
@@ -854,8 +867,10 @@ def _write_water(plan, store, hkey, water, inside, led, area, write):
     for key, rname in (("liq", "soil_liquid"), ("ice", "soil_ice")):
         role = model.role(rname)
         new = soil.volumetric_to_water(water[key], water[key + "_units"], water["dz"], porosity=water["porosity"])
-        old = soil.volumetric_to_water(water[key + "0"], water[key + "_units"], water["dz"], porosity=water["porosity"])
-        changed = inside & (water[key] != water[key + "0"])
+        old = water[key + "_raw"]  # as read, in the file's units
+        moved = inside & (water[key] != water[key + "0"])
+        new = np.where(moved, role.stored(new if role.layered else new[:, 0]).reshape(new.shape), old)
+        changed = inside & (new != old)
         led.stats(role.variables[0] if len(role.variables) == 1 else "+".join(role.variables), rname,
                   water[key + "_units"], new.shape[1], role.layered).add(np.where(changed, new - old, 0.0), inside, area)
         if write:
