@@ -36,11 +36,13 @@ def raw(path, name):
         return np.array(v[:])
 
 
-def test_gridded_layered_layout_with_physics(tmp_path):
+def gridded_file(path, fields):
+    """A 10-degree global file in the shape of the gridded-layered layout; ``fields`` gives
+    (name, constant value, units) of each layered variable."""
     lon = np.arange(-175, 180, 10.0)
     lat = np.arange(-85, 90, 10.0)
     z = np.array([0.05, 0.2, 0.5, 1.2])
-    with netCDF4.Dataset(tmp_path / "g.nc", "w") as ds:
+    with netCDF4.Dataset(path, "w") as ds:
         for d, n in (("lon", lon.size), ("lat", lat.size), ("layer", z.size)):
             ds.createDimension(d, n)
         ds.createVariable("lon", "f8", ("lon",))[:] = lon
@@ -48,12 +50,16 @@ def test_gridded_layered_layout_with_physics(tmp_path):
         v = ds.createVariable("layer_z", "f4", ("layer",))
         v.units = "m"
         v[:] = z
-        for name, val, units in (("soil_t", 272.0, "K"), ("soil_liq", 20.0, "kg m-2"), ("soil_ice", 5.0, "kg m-2")):
+        for name, val, units in fields:
             v = ds.createVariable(name, "f4", ("layer", "lat", "lon"), fill_value=np.float32(-1e30))
             v.units = units
             v[:] = np.full((z.size, lat.size, lon.size), val, "f4")
         ds.createVariable("land_frac", "f4", ("lat", "lon"))[:] = np.ones((lat.size, lon.size))
         ds.createVariable("orog", "f4", ("lat", "lon"))[:] = np.zeros((lat.size, lon.size))
+
+
+def test_gridded_layered_layout_with_physics(tmp_path):
+    gridded_file(tmp_path / "g.nc", (("soil_t", 272.0, "K"), ("soil_liq", 20.0, "kg m-2"), ("soil_ice", 5.0, "kg m-2")))
     out = tmp_path / "g.out.nc"
     rec = api.apply(recipe(tmp_path, physics="physics: {mode: energy, texture: loam}\n"), tmp_path / "g.nc", out,
                     layout=LAYOUTS / "gridded-layered.yaml")
@@ -128,23 +134,7 @@ def test_per_layer_variables_with_land_mask(tmp_path):
 
 def test_overfull_pores_are_flagged_not_changed(tmp_path):
     """Water above porosity before the change is reported in the ledger and the water kept."""
-    lon = np.arange(-175, 180, 10.0)
-    lat = np.arange(-85, 90, 10.0)
-    z = np.array([0.05, 0.2, 0.5, 1.2])
-    with netCDF4.Dataset(tmp_path / "g.nc", "w") as ds:
-        for d, n in (("lon", lon.size), ("lat", lat.size), ("layer", z.size)):
-            ds.createDimension(d, n)
-        ds.createVariable("lon", "f8", ("lon",))[:] = lon
-        ds.createVariable("lat", "f8", ("lat",))[:] = lat
-        v = ds.createVariable("layer_z", "f4", ("layer",))
-        v.units = "m"
-        v[:] = z
-        for name, val, units in (("soil_t", 280.0, "K"), ("soil_liq", 0.6, "m3 m-3"), ("soil_ice", 0.0, "m3 m-3")):
-            v = ds.createVariable(name, "f4", ("layer", "lat", "lon"), fill_value=np.float32(-1e30))
-            v.units = units
-            v[:] = np.full((z.size, lat.size, lon.size), val, "f4")
-        ds.createVariable("land_frac", "f4", ("lat", "lon"))[:] = np.ones((lat.size, lon.size))
-        ds.createVariable("orog", "f4", ("lat", "lon"))[:] = np.zeros((lat.size, lon.size))
+    gridded_file(tmp_path / "g.nc", (("soil_t", 280.0, "K"), ("soil_liq", 0.6, "m3 m-3"), ("soil_ice", 0.0, "m3 m-3")))
     out = tmp_path / "g.out.nc"
     rec = api.apply(recipe(tmp_path, physics="physics: {mode: temperature, texture: loam}\n"), tmp_path / "g.nc", out,
                     layout=LAYOUTS / "gridded-layered.yaml")
