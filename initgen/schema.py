@@ -200,7 +200,7 @@ class Obj(Node):
                 extra = f"; did you mean '{hint[0]}'?" if hint else f"; known keys: {', '.join(self.fields)}"
                 raise InputError(f"recipe key {_join(path, key)}: unknown key{extra}")
         for group in self.one_of:
-            present = [k for k in group if k in value]
+            present = [k for k in group if value.get(k) is not None]  # "constant_K:" left empty is absent
             if len(present) != 1:
                 got = ", ".join(present) if present else "none"
                 raise InputError(
