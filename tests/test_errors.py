@@ -358,6 +358,13 @@ def test_two_anomaly_kinds_at_once(work, capsys):
     refused(capsys, apply_argv(work, rec), "perturbations[0].anomaly", "give exactly one of", folder=work)
 
 
+def test_anomaly_value_left_empty(work, capsys):
+    # once: "constant_K:" with no value passed as the one anomaly kind, then crashed (TypeError)
+    rec = recipe(work, swap("anomaly: {constant_K: -2}", "anomaly: {constant_K: }"))
+    refused(capsys, apply_argv(work, rec), "perturbations[0].anomaly", "give exactly one of", "(got none)",
+            folder=work)
+
+
 def test_duplicate_perturbation_names(work, capsys):
     body = RECIPE.split("perturbations:\n")[1]
     rec = recipe(work, RECIPE + body)
