@@ -10,7 +10,9 @@ The writer never touches the input. It copies the input to a temporary file besi
 (the operating system's file copy), patches the touched variables in place with netCDF4, fsyncs,
 and moves the result into place atomically: an existing output is only replaced with ``force``,
 and two runs racing for the same output end with one complete file and a clear message from
-the other. A run that is interrupted (SIGINT, SIGTERM, a full disk) removes its temporary file.
+the other (a lock file ``.NAME.initgen-lock`` beside the output stops the second at once). A run
+that is interrupted (SIGINT, SIGTERM, SIGHUP, a full disk) removes its temporary file and lock;
+those of a run that was killed outright are removed by the next run for the same output.
 """
 
 from __future__ import annotations
