@@ -134,16 +134,19 @@ def _shape_geometry(shape: dict, recipe: Document, key: str, allow_outside: bool
 
 
 def resolve_shape_file(recipe: Document, rel: str, key: str, allow_outside: bool) -> Path:
-    """A GeoJSON path relative to the recipe, or a file of the shipped masks/ library."""
+    """A GeoJSON path relative to the recipe; a bare file name that is not beside the recipe is
+    looked up in the shipped masks/ library. A path with folders is never replaced by a shipped
+    file of the same name."""
     from .shipped import shipped_file
 
-    try:
-        return resolve_path(recipe, rel, key, allow_outside)
-    except InputError:
-        lib = shipped_file("masks", Path(rel).name)
+    bare = Path(rel).name == rel
+    if bare and not (recipe.base_dir / rel).exists():
+        lib = shipped_file("masks", rel)
         if lib is not None:
             return lib
-        raise
+        raise InputError(f"recipe key {key}: file '{rel}' not found beside the recipe ({recipe.base_dir}) nor in "
+                         "the shipped masks library; check the name")
+    return resolve_path(recipe, rel, key, allow_outside)
 
 
 def region_geometry(region: dict, recipe: Document, key: str, allow_outside: bool):

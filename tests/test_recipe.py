@@ -142,3 +142,22 @@ def test_paths_may_not_leave_recipe_folder(tmp_path):
     assert resolve_path(r, "../secret.nc", "k", allow_outside=True).name == "secret.nc"
     with pytest.raises(InputError, match="leaves the recipe's folder"):
         resolve_path(r, str(tmp_path / "secret.nc"), "k")
+
+
+def test_shipped_mask_never_replaces_a_path_with_folders(tmp_path):
+    """A GeoJSON reference with folders resolves only as written (regression: a '../x.geojson'
+    that left the recipe folder was silently swapped for the shipped mask of the same name)."""
+    from initgen.plan import resolve_shape_file
+
+    exp = tmp_path / "exp"
+    exp.mkdir()
+    (tmp_path / "other").mkdir()
+    (tmp_path / "other" / "demo-highland.geojson").write_text("{}")
+    r = load_text(exp, GOOD)
+    with pytest.raises(InputError, match="leaves the recipe's folder"):
+        resolve_shape_file(r, "../other/demo-highland.geojson", "k", False)
+    assert resolve_shape_file(r, "demo-highland.geojson", "k", False).parent.name == "masks"
+    (exp / "demo-highland.geojson").write_text("{}")
+    assert resolve_shape_file(r, "demo-highland.geojson", "k", False) == (exp / "demo-highland.geojson").resolve()
+    with pytest.raises(InputError, match="not found beside the recipe"):
+        resolve_shape_file(r, "nothere.geojson", "k", False)
