@@ -17,7 +17,9 @@ Prints ``name: value`` lines: ``ensemble_serial_s``, ``ensemble_parallel_s``,
 ``ensemble_parallel_vs_serial_ratio`` (target <= 0.65 on 2 free cores) and, without --quick,
 the variants that decided the defaults: ``parallel_<method>_s`` per start method (fork,
 forkserver, spawn) and ``parallel_rebuild_s`` (every worker rebuilds the shared arrays from
-the recipe instead of receiving them).
+the recipe instead of receiving them). ``cpu_reference_ratio`` is the same comparison for
+perfectly parallel numpy work, measured right after: on a machine whose other processes keep
+the cores busy it is near 1, and no ensemble ratio can be better than it.
 """
 
 from __future__ import annotations
@@ -31,6 +33,7 @@ import tempfile
 import time
 from pathlib import Path
 
+import numpy as np
 import yaml
 
 sys.path.insert(0, os.path.join(os.path.dirname(__file__), "..", ".."))
@@ -65,6 +68,29 @@ def timed(recipe, src, out, **kw) -> float:
     return dt
 
 
+def _cpu_work(_):
+    x = np.random.default_rng(0).standard_normal((400, 1024))
+    for _ in range(10):
+        np.cos(x).sum()
+    return 0
+
+
+def cpu_reference_ratio() -> float:
+    """What 2 processes give on perfectly parallel numpy work right now (machine load included)."""
+    import multiprocessing
+    from concurrent.futures import ProcessPoolExecutor
+
+    t0 = time.perf_counter()
+    for i in range(16):
+        _cpu_work(i)
+    serial = time.perf_counter() - t0
+    with ProcessPoolExecutor(2, mp_context=multiprocessing.get_context(ensemble.start_method())) as pool:
+        t0 = time.perf_counter()
+        list(pool.map(_cpu_work, range(16)))
+        parallel = time.perf_counter() - t0
+    return parallel / serial
+
+
 def main() -> None:
     ap = argparse.ArgumentParser()
     ap.add_argument("--quick", action="store_true", help="one run each, no variants")
@@ -95,6 +121,7 @@ def main() -> None:
                 print(f"{k}_s: {med[k]:.3f}")
                 print(f"{k}_vs_serial_ratio: {med[k] / med['serial']:.3f}")
         print(f"load_average_1min: {os.getloadavg()[0]:.2f}")
+        print(f"cpu_reference_ratio: {cpu_reference_ratio():.3f}")
 
 
 if __name__ == "__main__":
