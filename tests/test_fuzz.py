@@ -140,6 +140,13 @@ def containers(obj, out=None):
     return out
 
 
+def _times(value, factor):
+    try:
+        return value * factor
+    except OverflowError:  # an integer of 400 digits times a float
+        return value
+
+
 def mutate(doc, data, *, wild=True, edge=False):
     """Apply one random mutation to ``doc`` in place (``wild=False``: leaf values only, near their
     type; ``edge``: leaf values only, replaced by boundary values and odd strings)."""
@@ -160,8 +167,8 @@ def mutate(doc, data, *, wild=True, edge=False):
             c[k] = data.draw(st.one_of(st.booleans(), leaf))
         elif isinstance(old, (int, float)):
             c[k] = data.draw(st.one_of(
-                st.builds(lambda f: old * f, st.sampled_from([0.5, 0.9, 1.1, 1.5, 2, 3])),
-                st.builds(lambda f: old * f, st.sampled_from([-1, 0, 10, 1000, 1e-6])),
+                st.builds(lambda f: _times(old, f), st.sampled_from([0.5, 0.9, 1.1, 1.5, 2, 3])),
+                st.builds(lambda f: _times(old, f), st.sampled_from([-1, 0, 10, 1000, 1e-6])),
                 st.floats(min_value=-100, max_value=100, allow_nan=False),
                 st.sampled_from(BOUNDARY)))
         else:
