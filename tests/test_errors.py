@@ -1100,3 +1100,17 @@ def test_real_process_prints_one_line_and_exit_2(work):
     lines = proc.stderr.splitlines()
     assert len(lines) == 1 and lines[0].startswith("initgen: error: ") and "taper_km" in lines[0]
     assert listing(work) == before
+
+
+def test_real_process_corrupt_file_prints_no_library_diagnostics(work):
+    """The HDF5 library can print its own error stack to stderr; only initgen's line may appear."""
+    data = (work / "in.nc").read_bytes()
+    (work / "cut.nc").write_bytes(data[: len(data) // 2])
+    rec = recipe(work)
+    before = listing(work)
+    proc = subprocess.run([sys.executable, "-m", "initgen.cli", "apply", str(rec), "--input", str(work / "cut.nc"),
+                           "--output", str(work / "out.nc")], capture_output=True, text=True, timeout=60)
+    assert proc.returncode == 2
+    lines = proc.stderr.splitlines()
+    assert len(lines) == 1 and lines[0].startswith("initgen: error: ") and "cut.nc" in lines[0], lines
+    assert listing(work) == before
