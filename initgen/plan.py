@@ -671,7 +671,8 @@ def apply_block(plan: Plan, store, hkey: dict, widx: tuple, led, *, write: bool)
         _surface_temperature(plan, store, hkey, widx, "skin_temperature", weights, inside_h, led, area, write,
                              snow_mass=snow_mass_now, follow=top_change)
     if "snow_temperature" in targets:
-        _surface_temperature(plan, store, hkey, widx, "snow_temperature", weights, inside_h, led, area, write)
+        _surface_temperature(plan, store, hkey, widx, "snow_temperature", weights, inside_h, led, area, write,
+                             snow_mass=snow_mass_now)
 
 
 def _anomaly(plan: Plan, b: BlockPlan, hidx) -> np.ndarray:
@@ -692,18 +693,22 @@ def _surface_temperature(plan, store, hkey, widx, target, weights, inside_h, led
     T0 = T0 if layered else T0[:, None]
     inside = np.broadcast_to(_bcast_h(inside_h, 2), T0.shape) & np.isfinite(T0)
     _check_no_undeclared_gaps(role, T0, np.broadcast_to(_bcast_h(inside_h, 2), T0.shape), store)
+    if target == "snow_temperature" and model.role("snow_mass") is not None:
+        # snow layers of a snow-free cell hold no snow: their temperature is a placeholder
+        snow_now = snow_mass if snow_mass is not None else model.role("snow_mass").read(store, hkey)
+        inside = inside & np.broadcast_to((snow_now > 0)[:, None], T0.shape)
     T = T0.copy()
     mine = [b for b in plan.blocks if target in b.targets]
     if follow is not None and follow.shape[0] == T.shape[0] and all(
             "soil_temperature" in b.targets and b.donor is None for b in mine):
         sel = np.any([_bcast_h(w, 2) != 0 for b, w in zip(plan.blocks, weights) if b in mine], axis=0)
-        T = np.where(sel & np.isfinite(T), T0 + follow[:, None], T)
+        T = np.where(sel & inside, T0 + follow[:, None], T)
         mine = []
     for b, w in zip(plan.blocks, weights):
         if b not in mine:
             continue
         ww = _bcast_h(w, 2)
-        sel = (ww != 0) & np.isfinite(T)
+        sel = (ww != 0) & inside
         if b.donor is not None:
             D = _temp_read(b.donor.require(target, "the donor must hold the targets"), b.donor.store, hkey)
             D = D if layered else D[:, None]

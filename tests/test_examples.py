@@ -142,3 +142,12 @@ def test_start_dates_recipe_writes_every_member_for_every_input(demo, tmp_path):
     d1 = raw(tmp_path / "starts/demo-restart/cold.nc", "tsoil") - raw(demo / "demo-restart.nc", "tsoil")
     d2 = raw(tmp_path / "starts/demo-restart/cold-strong.nc", "tsoil") - raw(demo / "demo-restart.nc", "tsoil")
     assert np.median(d2[d1 < -0.5] / d1[d1 < -0.5]) == pytest.approx(1.5, rel=1e-3)
+
+
+def test_snow_temperature_changes_only_where_there_is_snow(demo, tmp_path):
+    out = tmp_path / "s.nc"
+    api.apply(demo / "demo-cold-highland.yaml", demo / "demo-restart.nc", out)
+    snow = raw(demo / "demo-restart.nc", "snow_amount")[0]
+    d = raw(out, "tsnow")[0] - raw(demo / "demo-restart.nc", "tsnow")[0]
+    assert np.any(d[:, snow > 0] != 0)
+    assert not np.any(d[:, snow <= 0])
