@@ -173,6 +173,7 @@ class Role:
     name: str
     views: list
     layered: bool
+    fallback_units: str = ""  # the layout's units for this role, used when the file has none
 
     @property
     def variables(self) -> list:
@@ -180,7 +181,7 @@ class Role:
 
     @property
     def units(self) -> str:
-        return self.views[0].info.units
+        return self.views[0].info.units or self.fallback_units
 
     @property
     def nlayers(self) -> int:
@@ -400,7 +401,8 @@ def _bind(store, role, spec, hdims, layout_data, where) -> Role:
         if v.info.dims != views[0].info.dims:
             raise InputError(f"{store.describe()}: per-layer variables of role {role} differ in dims "
                              f"({views[0].info.name}{views[0].info.dims} vs {v.info.name}{v.info.dims})")
-    return Role(role, views, layered)
+    fallback = ((layout_data or {}).get("units") or {}).get(role) or ""
+    return Role(role, views, layered, fallback)
 
 
 def _depth_layers(store: Store, layout_data: dict | None, soil: Role | None, where: str):

@@ -170,7 +170,7 @@ def horizontal_weight(model: ModelFile, region: dict, geom, name: str, window: t
     elev = region.get("elevation")
     if elev:
         role = model.require("surface_altitude", f"region '{name}' has an elevation band")
-        z = read_window(model, role, window)
+        z = read_window(model, role, window) * _metres_per(role, model)
         w = w * regions.elevation_ramp(z, elev["min_m"], elev["ramp_m"], elev.get("max_m"), elev["max_ramp_m"])
     frac = model.role("land_fraction")
     mask = model.role("land_mask")
@@ -186,6 +186,19 @@ def horizontal_weight(model: ModelFile, region: dict, geom, name: str, window: t
         raise InputError(f"region '{name}': no land grid cell keeps a weight above 0 after the elevation band and "
                          f"land weighting (grid spans {model.grid.extent()}); check the region and thresholds")
     return w
+
+
+_LENGTH = {"": 1.0, "m": 1.0, "meter": 1.0, "meters": 1.0, "metre": 1.0, "metres": 1.0, "km": 1000.0,
+           "kilometer": 1000.0, "kilometers": 1000.0, "kilometre": 1000.0, "kilometres": 1000.0}
+
+
+def _metres_per(role, model: ModelFile) -> float:
+    """Metres per unit of a length variable (surface altitude), from its units attribute."""
+    units = role.units.strip().lower()
+    if units not in _LENGTH:
+        raise InputError(f"{model.store.describe()}: variable '{role.variables[0]}' (surface altitude) has units "
+                         f"'{role.units}'; initgen reads m or km, fix the units attribute")
+    return _LENGTH[units]
 
 
 def _runs_of(idx: np.ndarray) -> list[tuple[int, int]]:
@@ -410,6 +423,9 @@ def check_before_writing(plan: Plan) -> None:
 def _check_units(plan: Plan, model: ModelFile) -> None:
     for target in ("soil_temperature", "skin_temperature", "snow_temperature"):
         role = model.role(target)
+        if target in plan.targets and role is not None and not role.units:
+            warnings.warn(f"{model.store.describe()}: variable '{role.variables[0]}' ({target}) has no units "
+                          "attribute; assuming K (give it units, or set units in the layout)", InputWarning, stacklevel=2)
         if target in plan.targets and role is not None:
             soil.temperature_to_kelvin(np.zeros(1), role.units or "K", name=role.variables[0])
     if plan.physics["mode"] != "none" and "soil_temperature" in plan.targets:
@@ -851,6 +867,11 @@ def _physics(T_old, T_new, water, sel, phys, led, area, nh, mode, dT=None):
         if np.any(bad):
             raise InputError(f"{water[key + '_name']} has {int(bad.sum())} negative or missing value(s) in cells the "
                              "recipe perturbs; fix the file, or mark missing cells with its _FillValue")
+        over = sel & (water[key] > 1.0 + 1e-6)
+        if np.any(over):
+            raise InputError(f"{water[key + '_name']} holds more water than the layer's volume in {int(over.sum())} "
+                             f"perturbed cell(s) when read as '{water[key + '_units']}'; check its units attribute "
+                             "(kg m-2, m3 m-3 or saturation_fraction)")
     if mode == "energy":
         res = soil.apply_energy_mode(T_old, water["liq"], water["ice"], dT, water["dz"], **kw)
     else:

@@ -141,3 +141,25 @@ def test_overfull_pores_are_flagged_not_changed(tmp_path):
     # loam porosity 0.451 (Clapp and Hornberger 1978, Table 2) < 0.6 m3 m-3 of liquid
     assert rec["ledger"]["flags"]["water_above_porosity_kept"] > 0
     assert np.array_equal(raw(out, "soil_liq"), raw(tmp_path / "g.nc", "soil_liq"))
+
+
+def test_units_checks_altitude_km_volumetric_above_one_and_missing_units(tmp_path):
+    from initgen.cli import main
+
+    gridded_file(tmp_path / "g.nc", (("soil_t", 272.0, ""), ("soil_liq", 1.5, "m3 m-3"), ("soil_ice", 0.0, "m3 m-3")))
+    with netCDF4.Dataset(tmp_path / "g.nc", "a") as ds:
+        ds["orog"][:] = np.full(ds["orog"].shape, 2.5)  # 2.5 km
+        ds["orog"].units = "km"
+        ds["soil_t"].delncattr("units")
+    band = RECIPE.replace("taper_km: 0}", "taper_km: 0, elevation: {min_m: 2000}}").replace("TARGETS", "[soil_temperature]")
+    (tmp_path / "band.yaml").write_text(band)
+    # km are read as km: 2.5 km is above the 2000 m band, so the region keeps its cells
+    rec = api.preview(tmp_path / "band.yaml", tmp_path / "g.nc", layout=LAYOUTS / "gridded-layered.yaml")
+    assert rec["region"]["cells_weight_above_0"] > 0
+    # no units on the soil temperature: assumed K, with a warning naming the variable
+    with pytest.warns(UserWarning, match="'soil_t'.*no units attribute; assuming K"):
+        api.preview(tmp_path / "band.yaml", tmp_path / "g.nc", layout=LAYOUTS / "gridded-layered.yaml")
+    # 1.5 m3 m-3 of liquid cannot be: refused in a physics mode, naming the variable and its units
+    phys = tmp_path / "phys.yaml"
+    phys.write_text(band + "physics: {mode: temperature, texture: loam}\n")
+    assert main(["preview", str(phys), "-i", str(tmp_path / "g.nc"), "-l", str(LAYOUTS / "gridded-layered.yaml")]) == 2
