@@ -54,7 +54,8 @@ class CheckResult:
             lines.append(f"members ({len(names)}): " + ", ".join(names))
         if self.model is not None:
             g = self.model.grid
-            lines.append(f"grid: {g.kind} {'x'.join(map(str, g.shape))} ({g.extent()}); roles from {self.model.source}")
+            size = " x ".join(f"{n} {d}" for n, d in zip(g.shape, g.dims))
+            lines.append(f"grid: {g.kind}, {size} ({g.extent()}); roles from {self.model.source}")
             lines.append("roles: " + ", ".join(f"{k}={'+'.join(r.variables)}" for k, r in sorted(self.model.roles.items())))
             if self.model.layers is not None:
                 lines.append("soil layer nodes (m): " + ", ".join(f"{z:.3g}" for z in self.model.layers.node_m))

@@ -226,6 +226,10 @@ def _dispatch(args) -> int:
         if recipe.data.get("members") and args.member is None:
             from .ensemble import results_table
 
+            if Path(args.output).suffix.lower() in (".nc", ".nc4", ".cdf") and not Path(args.output).is_dir():
+                raise InputError(f"--output {args.output}: the recipe has members, so the output is a folder; give a "
+                                 "folder name (or --member NAME to write one member to this file)")
+
             res = api.apply_ensemble(recipe, args.input, args.output, args.layout, workers=args.workers,
                                      scheduler=args.scheduler, force=args.force,
                                      allow_outside_paths=args.allow_outside_paths,
@@ -235,6 +239,8 @@ def _dispatch(args) -> int:
             for r in res.failed:
                 sys.stderr.write(f"initgen: error: member {r['member']['name']} of {r['input']}: {r['message']}\n")
             return res.exit_code
+        if args.output.endswith(("/", os.sep)):
+            raise InputError(f"--output {args.output}: names a folder; give the output file's name")
         if len(args.input) != 1:
             raise InputError("--input: give one input file (several inputs need a recipe with a members section)")
         rec = api.apply(recipe, args.input[0], args.output, args.layout, member=args.member, force=args.force,

@@ -463,6 +463,14 @@ def _check_semantics(data: dict, source: str) -> None:
     phys = data["physics"]
     if phys["soil_temperature_min_K"] >= phys["soil_temperature_max_K"]:
         raise InputError(f"{source}: recipe key physics.soil_temperature_min_K: must be below soil_temperature_max_K")
+    given = [k for k, keys in (("texture", ("texture",)), ("sand_pct/clay_pct", ("sand_pct", "clay_pct")),
+                               ("porosity/psi_sat_m/clapp_b", ("porosity", "psi_sat_m", "clapp_b")))
+             if any(phys.get(x) is not None for x in keys)]
+    if len(given) > 1:
+        raise InputError(f"{source}: recipe key physics: give one source of soil parameters, not {' and '.join(given)}")
+    if phys.get("texture"):
+        # one spelling per class, so 'sandy_loam' and 'Sandy loam' hash the same
+        phys["texture"] = " ".join(phys["texture"].strip().lower().replace("_", " ").replace("-", " ").split())
     if data.get("members"):
         try:
             expand_members(data)

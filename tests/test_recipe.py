@@ -161,3 +161,22 @@ def test_shipped_mask_never_replaces_a_path_with_folders(tmp_path):
     assert resolve_shape_file(r, "demo-highland.geojson", "k", False) == (exp / "demo-highland.geojson").resolve()
     with pytest.raises(InputError, match="not found beside the recipe"):
         resolve_shape_file(r, "nothere.geojson", "k", False)
+
+
+def test_texture_spellings_hash_the_same_and_one_parameter_source(tmp_path):
+    a = load_text(tmp_path, GOOD + "physics: {mode: energy, texture: sandy_loam}\n")
+    b = load_text(tmp_path, GOOD + "physics: {mode: energy, texture: ' Sandy loam'}\n")
+    assert a.sha256 == b.sha256 and a.data["physics"]["texture"] == "sandy loam"
+    with pytest.raises(InputError, match="physics: give one source of soil parameters, not texture and sand_pct/clay_pct"):
+        load_text(tmp_path, GOOD + "physics: {mode: energy, texture: loam, sand_pct: 40, clay_pct: 20}\n")
+
+
+def test_output_path_must_fit_the_recipe(tmp_path, capsys):
+    from filemaker import regular
+
+    src = regular(tmp_path / "in.nc")
+    rec = tmp_path / "r.yaml"
+    rec.write_text(GOOD)
+    assert main(["apply", str(rec), "-i", str(src), "-o", str(tmp_path / "outdir") + "/"]) == 2
+    assert "names a folder" in capsys.readouterr().err
+    assert not (tmp_path / "outdir").exists()
