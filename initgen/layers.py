@@ -119,8 +119,20 @@ def _to_depth_m(values, units: str, positive: str | None, name: str) -> np.ndarr
         )
     if up:
         arr = -arr
+    deep = np.flatnonzero(np.abs(arr) > MAX_DEPTH_M)
+    if deep.size:
+        i = int(deep[0])
+        raise InputError(
+            f"{name}: value at index {i} ({raw[i]:g} {units}) lies more than {MAX_DEPTH_M:g} m from the "
+            "surface, which no soil layer does; check the units, or a fill value among the depths"
+        )
     # -0.0 -> 0.0 so that round trips compare equal and print cleanly
     return arr + 0.0
+
+
+#: Deepest soil depth (and largest thickness) accepted, m; the recipe's max_depth_m has the same
+#: bound. Deeper values are a units slip or an undeclared fill value (1e20, 9.97e36).
+MAX_DEPTH_M = 1000.0
 
 
 def _check_increasing(arr: np.ndarray, name: str, what: str = "depth") -> None:
