@@ -756,6 +756,21 @@ def test_layer_depths_not_monotonic_in_the_file(work, capsys):
     refused(capsys, apply_argv(work, rec), "lev", "strictly increasing", folder=work)
 
 
+def test_layer_depths_absurdly_deep(work, capsys):
+    # once: accepted, then the infinite thickness reached the provenance record (ValueError, exit 1)
+    rec = recipe(work)
+    lay = layout(work, LAYOUT.replace("[0.05, 0.15, 0.35, 0.75, 1.5]", "[0.05, 0.15, 0.35, 0.75, 1.0e300]"))
+    refused(capsys, apply_argv(work, rec, "--layout", lay), "roles.layer_node_depth", "index 4",
+            "more than 1000 m", "check the units", folder=work)
+
+
+def test_depth_coordinate_holding_an_undeclared_fill_value(work, capsys):
+    with netCDF4.Dataset(work / "in.nc", "a") as ds:
+        ds["lev"][4] = 9.96921e36
+    rec = recipe(work)
+    refused(capsys, apply_argv(work, rec), "in.nc", "lev", "fill value", folder=work)
+
+
 def test_layer_depths_count_mismatch(work, capsys):
     rec = recipe(work)
     lay = layout(work, LAYOUT.replace("[0.05, 0.15, 0.35, 0.75, 1.5]", "[0.05, 0.15, 0.35]"))
