@@ -218,7 +218,7 @@ def ledger_text(ledger: dict) -> str:
     else:
         lines.append("clamps: none")
     if ledger.get("flags"):
-        lines.append("flags (left as they were): " + ", ".join(f"{k} {v}" for k, v in ledger["flags"].items()))
+        lines.append("flags: " + ", ".join(f"{k} {v}" for k, v in ledger["flags"].items()))
     phys = ledger.get("physics", {})
     extra = [f"{k} {v:.4g}" for k, v in phys.items() if k.endswith("_total_J") or k.endswith("_total_kg")]
     lines.append(f"physics: mode {phys.get('mode')}" + (("; " + ", ".join(extra)) if extra else ""))

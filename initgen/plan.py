@@ -550,6 +550,15 @@ def run(plan: Plan, store, *, write: bool, progress=None) -> dict:
                 b.donor.store.close()
     out = led.finish()
     out["blocks_processed"] = len(all_blocks)
+    odd = sum(out["flags"].get(k, 0) for k in ("realised_change_opposite_to_imposed",
+                                                "realised_change_larger_than_imposed"))
+    if odd:
+        source = plan.physics.get("texture") or ("sand/clay" if plan.physics.get("sand_pct") is not None else
+                                                 "the given parameters")
+        warnings.warn(f"{odd} soil layer-cell(s) moved against, or by more than, the imposed change: the start is "
+                      f"not in phase equilibrium for the soil parameters used ({source}), so water froze or melted on "
+                      "its own; check that physics matches your model (or give its parameters in the layout)",
+                      InputWarning, stacklevel=2)
     return out
 
 
@@ -663,7 +672,9 @@ def apply_block(plan: Plan, store, hkey: dict, widx: tuple, led, *, write: bool)
             if water is None:
                 T = np.where(sel, T + dT, T)
             else:
+                T_before = T
                 T = _physics(T, T + dT, water, sel, phys, led, area, nh, mode=phys["mode"], dT=dT)
+                _flag_departures(led, T - T_before, np.where(sel, dT, 0.0), sel)
         lo, hi = phys["soil_temperature_min_K"], phys["soil_temperature_max_K"]
         low, high = inside & (T < lo), inside & (T > hi)
         led.clamp("soil_temperature_below_min", np.count_nonzero(low))
@@ -889,6 +900,23 @@ def _physics(T_old, T_new, water, sel, phys, led, area, nh, mode, dT=None):
         vals = np.where(sel, arr, 0.0) * a
         led.add_phase(key, vals.sum(axis=tuple(i for i in range(vals.ndim) if i != 1)))
     return T
+
+
+DEPARTURE_K = 0.05  # realised minus imposed change beyond which a cell is flagged (K)
+
+
+def _flag_departures(led, realised: np.ndarray, imposed: np.ndarray, sel: np.ndarray) -> None:
+    """Count cells whose temperature moved against the imposed change, or by clearly more than it.
+
+    Latent heat can only damp an imposed change (water freezes as soil cools, ice melts as it
+    warms). A change of the opposite sign, or larger than imposed, means the starting state was
+    not in phase equilibrium for the soil parameters used: its water froze or melted on its own.
+    """
+    big = sel & (np.abs(imposed) > 0)
+    opposite = big & (realised * imposed < 0) & (np.abs(realised) > DEPARTURE_K)
+    larger = big & ~opposite & (np.abs(realised) > np.abs(imposed) + DEPARTURE_K)
+    led.flag("realised_change_opposite_to_imposed", np.count_nonzero(opposite))
+    led.flag("realised_change_larger_than_imposed", np.count_nonzero(larger))
 
 
 def _write_water(plan, store, hkey, water, inside, led, area, write):

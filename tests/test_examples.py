@@ -151,3 +151,17 @@ def test_snow_temperature_changes_only_where_there_is_snow(demo, tmp_path):
     d = raw(out, "tsnow")[0] - raw(demo / "demo-restart.nc", "tsnow")[0]
     assert np.any(d[:, snow > 0] != 0)
     assert not np.any(d[:, snow <= 0])
+
+
+def test_mismatched_soil_parameters_are_flagged_and_warned(demo, tmp_path):
+    """The demo's water was put in equilibrium for loam (Clapp and Hornberger 1978). With sand
+    parameters its liquid water lies above sand's supercooled limit (Niu and Yang 2006), so in
+    energy mode water freezes on its own and releases heat: the soil warms under a cold recipe.
+    The ledger flags such cells and a warning says why."""
+    text = (demo / "demo-cold-highland.yaml").read_text().replace("texture: loam", "texture: sand")
+    (demo / "sand.yaml").write_text(text)
+    with pytest.warns(UserWarning, match="not in phase equilibrium for the soil parameters used \\(sand\\)"):
+        led = api.preview(demo / "sand.yaml", demo / "demo-restart.nc")
+    assert led["flags"]["realised_change_opposite_to_imposed"] > 0
+    plain = api.preview(demo / "demo-cold-highland.yaml", demo / "demo-restart.nc")
+    assert "realised_change_opposite_to_imposed" not in plain["flags"]

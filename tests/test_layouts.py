@@ -61,8 +61,10 @@ def gridded_file(path, fields):
 def test_gridded_layered_layout_with_physics(tmp_path):
     gridded_file(tmp_path / "g.nc", (("soil_t", 272.0, "K"), ("soil_liq", 20.0, "kg m-2"), ("soil_ice", 5.0, "kg m-2")))
     out = tmp_path / "g.out.nc"
-    rec = api.apply(recipe(tmp_path, physics="physics: {mode: energy, texture: loam}\n"), tmp_path / "g.nc", out,
-                    layout=LAYOUTS / "gridded-layered.yaml")
+    # 20 kg m-2 of liquid at 272 K is more than loam can hold unfrozen: the start is flagged
+    with pytest.warns(UserWarning, match="not in phase equilibrium"):
+        rec = api.apply(recipe(tmp_path, physics="physics: {mode: energy, texture: loam}\n"), tmp_path / "g.nc", out,
+                        layout=LAYOUTS / "gridded-layered.yaml")
     assert rec["ledger"]["physics"]["frozen_region_total_kg"] > 0
     w0, w1 = raw(tmp_path / "g.nc", "soil_liq") + raw(tmp_path / "g.nc", "soil_ice"), raw(out, "soil_liq") + raw(out, "soil_ice")
     np.testing.assert_allclose(w1, w0, rtol=1e-6)  # water mass per layer conserved
@@ -153,12 +155,11 @@ def test_units_checks_altitude_km_volumetric_above_one_and_missing_units(tmp_pat
         ds["soil_t"].delncattr("units")
     band = RECIPE.replace("taper_km: 0}", "taper_km: 0, elevation: {min_m: 2000}}").replace("TARGETS", "[soil_temperature]")
     (tmp_path / "band.yaml").write_text(band)
-    # km are read as km: 2.5 km is above the 2000 m band, so the region keeps its cells
-    rec = api.preview(tmp_path / "band.yaml", tmp_path / "g.nc", layout=LAYOUTS / "gridded-layered.yaml")
-    assert rec["region"]["cells_weight_above_0"] > 0
     # no units on the soil temperature: assumed K, with a warning naming the variable
     with pytest.warns(UserWarning, match="'soil_t'.*no units attribute; assuming K"):
-        api.preview(tmp_path / "band.yaml", tmp_path / "g.nc", layout=LAYOUTS / "gridded-layered.yaml")
+        rec = api.preview(tmp_path / "band.yaml", tmp_path / "g.nc", layout=LAYOUTS / "gridded-layered.yaml")
+    # km are read as km: 2.5 km is above the 2000 m band, so the region keeps its cells
+    assert rec["region"]["cells_weight_above_0"] > 0
     # 1.5 m3 m-3 of liquid cannot be: refused in a physics mode, naming the variable and its units
     phys = tmp_path / "phys.yaml"
     phys.write_text(band + "physics: {mode: temperature, texture: loam}\n")
