@@ -60,6 +60,8 @@ class CheckResult:
             if self.model.layers is not None:
                 lines.append("soil layer nodes (m): " + ", ".join(f"{z:.3g}" for z in self.model.layers.node_m))
         if self.plan is not None:
+            for key, f in self.plan.files.items():
+                lines.append(f"file {key}: {f['path']} (sha256 {f['sha256']})")
             for b in self.plan.blocks:
                 n = int((b.weight > 0).sum())
                 lines.append(f"perturbation '{b.name}': {n} cell(s) with weight > 0, {int((b.weight >= 1).sum())} at full weight")
@@ -131,7 +133,7 @@ def apply(recipe, input, output, layout=None, *, member: str | None = None, forc
 
     return prov.write_perturbed(recipe=rec, layout=lay, input_path=input, output_path=output, patch=patch,
                                 force=force, allow_outside=allow_outside_paths,
-                                member=None if mem is None else mem.record(), repack=repack)
+                                member=None if mem is None else mem.record(), repack=repack, files=plan.files)
 
 
 def _member(rec: Document, member: str | None):

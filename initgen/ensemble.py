@@ -163,6 +163,7 @@ class Shared:
     region: np.ndarray
     shape: tuple
     window: tuple
+    files: dict = field(default_factory=dict)  # files the recipe reads, with their sha256
 
 
 def _grid_fingerprint(model, recipe: Document, layout: Document | None, allow_outside: bool) -> str:
@@ -204,7 +205,7 @@ def build_shared(recipe: Document, layout: Document | None, input_path: Path, *,
         if cache is not None and key in cache:
             return cache[key], key
         p = plan_mod.build_plan(recipe, model, allow_outside=allow_outside)
-        shared = Shared(p.blocks, p.region, tuple(model.grid.shape), p.window)
+        shared = Shared(p.blocks, p.region, tuple(model.grid.shape), p.window, p.files)
         if cache is not None:
             cache[key] = shared
         return shared, key
@@ -287,7 +288,7 @@ def run_task(recipe: Document, layout: Document | None, task: Task, shared: Shar
         rec = prov.write_perturbed(recipe=recipe, layout=layout, input_path=Path(task.input), output_path=out,
                                    patch=patch, force=force, allow_outside=allow_outside,
                                    member=task.member.record(), input_sha256=task.input_sha256,
-                                   command_line=command_line)
+                                   command_line=command_line, files=shared.files)
         return _result(task, "ok", output_sha256=rec["output"]["sha256"], ledger=rec["ledger"])
     except InputError as exc:
         return _result(task, "failed", code=2, message=" ".join(str(exc).split()))

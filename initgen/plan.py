@@ -58,6 +58,7 @@ class Plan:
     member_scale: float = 1.0
     member_offset_K: float = 0.0
     noise: np.ndarray | None = None  # window shape, K
+    files: dict = field(default_factory=dict)  # files the recipe reads: key -> {path, sha256}
 
     def __post_init__(self):
         if self.window is None:
@@ -147,6 +148,29 @@ def resolve_shape_file(recipe: Document, rel: str, key: str, allow_outside: bool
         raise InputError(f"recipe key {key}: file '{rel}' not found beside the recipe ({recipe.base_dir}) nor in "
                          "the shipped masks library; check the name")
     return resolve_path(recipe, rel, key, allow_outside)
+
+
+def referenced_files(recipe: Document, allow_outside: bool = False) -> dict:
+    """Every file the recipe reads (GeoJSON shapes, anomaly fields, climatologies, donors), by
+    recipe key: its resolved path and sha256. The recipe's hash covers its text; these hashes
+    cover what its text points to, so a changed outline or field shows in the provenance."""
+    from .restart import sha256_file
+
+    out = {}
+    for i, b in enumerate(recipe.data["perturbations"]):
+        key = f"perturbations[{i}]"
+        for part in ("include", "exclude"):
+            for j, shape in enumerate(b["region"][part]):
+                if shape.get("geojson"):
+                    k = f"{key}.region.{part}[{j}].geojson"
+                    out[k] = resolve_shape_file(recipe, shape["geojson"], k, allow_outside)
+        anomaly = b["anomaly"]
+        for kind, names in (("field", ("file",)), ("bias", ("model_file", "reference_file")), ("donor", ("file",))):
+            for name in names:
+                if anomaly.get(kind):
+                    k = f"{key}.anomaly.{kind}.{name}"
+                    out[k] = resolve_path(recipe, anomaly[kind][name], k, allow_outside)
+    return {k: {"path": str(p), "sha256": sha256_file(p)} for k, p in out.items()}
 
 
 def region_geometry(region: dict, recipe: Document, key: str, allow_outside: bool):
@@ -402,6 +426,7 @@ def build_plan(recipe: Document, model: ModelFile, *, allow_outside: bool = Fals
                                 b["snow_mass_mode"], b["snow_mass_change"], [str(geom.bounds)]))
         region_any |= w > 0
     plan = Plan(recipe, model, blocks, dict(recipe.data["physics"]), region_any, window)
+    plan.files = referenced_files(recipe, allow_outside)
     check_before_writing(plan)
     return plan
 

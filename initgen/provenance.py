@@ -29,11 +29,12 @@ def provenance_path(output: Path) -> Path:
 
 def record(*, recipe, layout, input_path: Path, input_sha256: str, output_path: Path, output_sha256: str,
            started: str, ended: str, ledger: dict, history: str, member: dict | None = None,
-           allow_outside: bool = False, command_line: list | None = None, io: dict | None = None) -> dict:
+           allow_outside: bool = False, command_line: list | None = None, io: dict | None = None,
+           files: dict | None = None) -> dict:
     return {
         "format": FORMAT,
         "recipe": {"name": recipe.name, "path": str(recipe.path) if recipe.path else None,
-                   "sha256": recipe.sha256, "text": recipe.text},
+                   "sha256": recipe.sha256, "text": recipe.text, "files": files or {}},
         "layout": None if layout is None else {"name": layout.name, "path": str(layout.path) if layout.path else None,
                                                "sha256": layout.sha256, "text": layout.text},
         "input": {"path": str(Path(input_path).resolve()), "size_bytes": Path(input_path).stat().st_size,
@@ -53,7 +54,7 @@ def record(*, recipe, layout, input_path: Path, input_sha256: str, output_path: 
 
 def write_perturbed(*, recipe, layout, input_path, output_path, patch, force: bool = False,
                     allow_outside: bool = False, member: dict | None = None, input_sha256: str | None = None,
-                    command_line: list | None = None, repack: bool = False) -> dict:
+                    command_line: list | None = None, repack: bool = False, files: dict | None = None) -> dict:
     """Copy ``input_path`` to ``output_path``, run ``patch(out_store) -> ledger`` on the copy, and
     write the provenance record beside it; returns the record.
 
@@ -94,7 +95,7 @@ def write_perturbed(*, recipe, layout, input_path, output_path, patch, force: bo
             recipe=recipe, layout=layout, input_path=input_path, input_sha256=input_hash.result(),
             output_path=output_path, output_sha256=out_sha, started=started, ended=utc_now(),
             ledger=holder["ledger"], history=history, member=member, allow_outside=allow_outside,
-            command_line=command_line, io=io)
+            command_line=command_line, io=io, files=files)
         from .restart import write_atomic_text
 
         write_atomic_text(provenance_path(output_path), dumps(holder["record"]))

@@ -659,6 +659,13 @@ def verify(provenance_path, input=None, output=None) -> dict:
         checks["layout_sha256"] = layout_doc.sha256 == layout_entry.get("sha256")
         if not checks["layout_sha256"]:
             failures.append(_document_changed("layout", layout_doc, layout_entry, rec))
+    for key, f in (recipe_entry.get("files") or {}).items():
+        now = sha256_file(f["path"]) if Path(f["path"]).is_file() else None
+        checks[f"file {key}"] = now == f["sha256"]
+        if now != f["sha256"]:
+            failures.append(f"the file {f['path']} (recipe key {key}) "
+                            + ("is missing" if now is None else "has changed since the run")
+                            + f"; the recorded sha256 is {f['sha256'][:12]}...")
     checks["output_sha256"] = sha256_file(out_path) == want_out
     if not checks["output_sha256"]:
         failures.append(f"the output {out_path} was altered after apply (its sha256 is not the recorded "

@@ -482,3 +482,24 @@ def test_compare_text_says_what_differs(tmp_path):
     assert "result: OK, differences only in other (allowed) and the history attribute" in text
     md = report.compare_markdown(report.compare(a, b))
     assert md.startswith("# initgen compare: DIFFERENT") and "other" in md
+
+
+def test_provenance_records_referenced_files_and_verify_names_a_changed_one(tmp_path):
+    """The recipe's hash covers its text; the record also hashes every file the recipe reads,
+    and verify names a file that changed since the run (sha256 via hashlib as the reference)."""
+    write_demo_restart(tmp_path / "in.nc")
+    (tmp_path / "shape.geojson").write_text(json.dumps({"type": "Polygon", "coordinates": [
+        [[175, 33], [188, 33], [188, 44], [175, 44], [175, 33]]]}))
+    rec = tmp_path / "r.yaml"
+    rec.write_text(BOX.replace("[{{box: {{lon: [{w}, {e}], lat: [{s}, {n}]}}}}]", "[{{geojson: shape.geojson}}]")
+                   .format(taper=0))
+    record = api.apply(rec, tmp_path / "in.nc", tmp_path / "out.nc")
+    files = record["recipe"]["files"]
+    key = "perturbations[0].region.include[0].geojson"
+    assert files[key]["sha256"] == sha(tmp_path / "shape.geojson")
+    prov = tmp_path / "out.nc.provenance.json"
+    assert report.verify(prov)["ok"]
+    (tmp_path / "shape.geojson").write_text(json.dumps({"type": "Polygon", "coordinates": [
+        [[176, 34], [186, 34], [186, 42], [176, 42], [176, 34]]]}))
+    res = report.verify(prov)
+    assert not res["ok"] and "shape.geojson" in res["message"] and key in res["message"]
