@@ -205,7 +205,7 @@ def ledger_text(ledger: dict) -> str:
     lines.append(f"region: {reg['cells_weight_above_0']} cells with weight > 0 "
                  f"({reg['cells_full_weight']} at full weight), area {reg['area_m2'] / 1e6:,.0f} km2")
     for name, var in ledger["variables"].items():
-        lines.append(f"{name} ({var['role']}, change in {var['units']}):")
+        lines.append(f"{name} ({var['role']}, change in {var['units']}; area_mean over the region's valid cells):")
         rows = var.get("layers") or [var.get("field")]
         lines.append(f"  {'layer':>5} {'depth_m':>8} {'changed':>8} {'area_mean':>10} {'min':>9} {'max':>9}")
         for r in rows:

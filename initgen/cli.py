@@ -166,7 +166,8 @@ def main(argv=None) -> int:
             sys.stderr.write(f"initgen: error: {msg}\n")
             return 2
         except KeyboardInterrupt:
-            sys.stderr.write("initgen: interrupted; no output was written\n")
+            sys.stderr.write("initgen: interrupted; the output being written was removed (finished ensemble "
+                             "members, if any, stay and are listed in the manifest)\n")
             return 130
         except BrokenPipeError:
             return 0

@@ -87,7 +87,8 @@ ANOMALY = Obj(
     doc="the surface anomaly A(x): give exactly one of constant_K, field, bias, donor",
     fields={
         "constant_K": Num(minimum=-60.0, maximum=60.0, unit="K", default=None,
-                          doc="a constant temperature change in kelvin"),
+                          doc="a constant temperature change in kelvin",
+                          doc_hint_over=" (this is a change, an anomaly, not an absolute temperature)"),
         "field": Obj(default=None, doc="an anomaly field from a netCDF file on any lon/lat grid",
                      fields={"file": Str(doc="netCDF file, relative to the recipe"),
                              "variable": Str(doc="variable name of the anomaly in K"),

@@ -68,6 +68,7 @@ class Num(Node):
     exclusive_minimum: float | None = None
     integer: bool = False
     unit: str = ""
+    doc_hint_over: str = ""  # added to the message when a value is above the maximum
 
     def validate(self, value, path):
         kind = "an integer" if self.integer else "a number"
@@ -90,7 +91,8 @@ class Num(Node):
         if self.exclusive_minimum is not None and value <= self.exclusive_minimum:
             raise InputError(f"recipe key {path}: must be > {self.exclusive_minimum}{unit}, got {value}")
         if self.maximum is not None and value > self.maximum:
-            raise InputError(f"recipe key {path}: must be <= {self.maximum}{unit}, got {value}")
+            hint = self.doc_hint_over if self.doc_hint_over else ""
+            raise InputError(f"recipe key {path}: must be <= {self.maximum}{unit}, got {value}{hint}")
         return value if self.integer else float(value)  # 100 and 100.0 hash the same
 
     def json(self):

@@ -164,3 +164,28 @@ def test_units_checks_altitude_km_volumetric_above_one_and_missing_units(tmp_pat
     phys = tmp_path / "phys.yaml"
     phys.write_text(band + "physics: {mode: temperature, texture: loam}\n")
     assert main(["preview", str(phys), "-i", str(tmp_path / "g.nc"), "-l", str(LAYOUTS / "gridded-layered.yaml")]) == 2
+
+
+def test_layout_units_apply_to_variables_without_a_units_attribute(tmp_path):
+    import warnings
+
+    from filemaker import points
+
+    lon = np.linspace(-10, 30, 50)
+    lat = np.linspace(-5, 25, 50)
+    src = points(tmp_path / "p.nc", lon, lat, T=np.full((5, 50), 3.0, "f4"))
+    with netCDF4.Dataset(src, "a") as ds:
+        ds["tsoil"].delncattr("units")
+    layout = tmp_path / "l.yaml"
+    layout.write_text("initgen_layout: 1\nroles: {longitude: clon, latitude: clat, soil_temperature: tsoil, "
+                      "cell_area: null}\nunits: {soil_temperature: degC}\n")
+    rec = tmp_path / "r.yaml"
+    rec.write_text(RECIPE.replace("TARGETS", "[soil_temperature]")
+                   .replace("physics", "") + "physics: {soil_temperature_min_K: 273.15}\n")
+    with warnings.catch_warnings():
+        warnings.simplefilter("error", UserWarning)  # no "assuming K" warning: the layout says degC
+        warnings.filterwarnings("ignore", message=".*no cell-area variable.*")
+        api.apply(rec, src, tmp_path / "o.nc", layout=layout)
+    # 3 degC cooled by up to 2 K stays above the 0 degC = 273.15 K bound: no clamp, as in degC
+    d = raw(tmp_path / "o.nc", "tsoil") - raw(src, "tsoil")
+    assert d.min() < -1.0 and raw(tmp_path / "o.nc", "tsoil").min() >= 1.0 - 1e-5
