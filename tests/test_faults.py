@@ -131,7 +131,8 @@ def test_signal_during_the_write_leaves_nothing(work, sig):
     proc.send_signal(sig)
     out, err = proc.communicate(timeout=60)
     assert proc.returncode == 130, err
-    assert err.splitlines() == ["initgen: interrupted; no output was written"]
+    lines = err.splitlines()
+    assert len(lines) == 1 and lines[0].startswith("initgen: interrupted"), lines
     assert_nothing_left(work, before, src)
 
 
