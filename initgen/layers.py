@@ -32,6 +32,11 @@ _UNIT_FACTORS = {
     "centimeters": 1.0e-2,
     "centimetre": 1.0e-2,
     "centimetres": 1.0e-2,
+    "km": 1.0e3,
+    "kilometer": 1.0e3,
+    "kilometers": 1.0e3,
+    "kilometre": 1.0e3,
+    "kilometres": 1.0e3,
     "mm": 1.0e-3,
     "millimeter": 1.0e-3,
     "millimeters": 1.0e-3,
@@ -46,7 +51,7 @@ def units_to_metres(units: str, *, name: str = "units") -> float:
     Parameters
     ----------
     units : str
-        ``'m'``, ``'cm'`` or ``'mm'``, or a spelling such as ``'meters'``, ``'metres'``,
+        ``'m'``, ``'cm'``, ``'mm'`` or ``'km'``, or a spelling such as ``'meters'``, ``'metres'``,
         ``'centimeters'`` (case and surrounding blanks are ignored).
     name : str, optional
         Name of the argument or variable the units belong to, used in error messages.

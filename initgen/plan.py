@@ -212,17 +212,15 @@ def horizontal_weight(model: ModelFile, region: dict, geom, name: str, window: t
     return w
 
 
-_LENGTH = {"": 1.0, "m": 1.0, "meter": 1.0, "meters": 1.0, "metre": 1.0, "metres": 1.0, "km": 1000.0,
-           "kilometer": 1000.0, "kilometers": 1000.0, "kilometre": 1000.0, "kilometres": 1000.0}
-
-
 def _metres_per(role, model: ModelFile) -> float:
-    """Metres per unit of a length variable (surface altitude), from its units attribute."""
-    units = role.units.strip().lower()
-    if units not in _LENGTH:
+    """Metres per unit of a length variable (surface altitude), from its units attribute (m if none)."""
+    from .layers import units_to_metres
+
+    try:
+        return units_to_metres(role.units or "m", name=role.variables[0])
+    except InputError:
         raise InputError(f"{model.store.describe()}: variable '{role.variables[0]}' (surface altitude) has units "
-                         f"'{role.units}'; initgen reads m or km, fix the units attribute")
-    return _LENGTH[units]
+                         f"'{role.units}'; initgen reads m or km, fix the units attribute") from None
 
 
 def _runs_of(idx: np.ndarray) -> list[tuple[int, int]]:
