@@ -953,7 +953,7 @@ def _profile_figure(ledger: dict) -> bytes | None:
             hi = [r["max"] for r in rr]
             ax.fill_betweenx(z, lo, hi, color="C0", alpha=0.2, label="min..max")
             ax.axvline(0.0, color="0.5", lw=0.8)
-            ax.set_ylim(max(z) * 1.1 if max(z) > 0 else 1.0, 0.0)  # depth increases downward
+            ax.set_ylim(max(z) * 1.35 if max(z) > 0 else 1.0, 0.0)  # depth increases downward; room for the legend
             ax.set_xlabel(f"change ({var.get('units', '')})")
             ax.set_ylabel("layer node depth (m)")
             ax.set_title(f"{name} ({var.get('role', '')})", fontsize=9)
