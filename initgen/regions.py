@@ -501,6 +501,8 @@ class _Shape:
     def tree(self, spacing_km):
         """Densified boundary as unit vectors, a k-d tree over them, and arc links."""
         if spacing_km not in self._trees:
+            if len(self._trees) >= _TREES_PER_SHAPE:  # bounded: a long-lived process sees many widths
+                self._trees.pop(next(iter(self._trees)))
             self._trees[spacing_km] = _densify(self.boundary, spacing_km)
         return self._trees[spacing_km]
 
@@ -540,6 +542,9 @@ def _build_shape(geom):
     _, miny, _, maxy = wrapped.bounds
     return _Shape(wrapped=wrapped, periodic=periodic, edges=edges, lat_range=(miny, maxy),
                   lon_arc=_lon_arc(wseg[:, 0], wseg[:, 2]), boundary=seg)
+
+
+_TREES_PER_SHAPE = 4  # boundary samplings kept per cached shape (one per sample spacing)
 
 
 @dataclass
