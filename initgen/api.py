@@ -63,6 +63,9 @@ class CheckResult:
             for key, f in self.plan.files.items():
                 lines.append(f"file {key}: {f['path']} (sha256 {f['sha256']})")
             for b in self.plan.blocks:
+                if b.factors is not None:
+                    lines.append(f"perturbation '{b.name}': depth factors f(z) per soil layer: "
+                                 + ", ".join(f"{f:.3g}" for f in b.factors) + f"; at the surface {b.surface_factor:.3g}")
                 n = int((b.weight > 0).sum())
                 lines.append(f"perturbation '{b.name}': {n} cell(s) with weight > 0, {int((b.weight >= 1).sum())} at full weight")
         return "\n".join(lines)
