@@ -206,7 +206,8 @@ def ledger_text(ledger: dict) -> str:
     lines = []
     reg = ledger["region"]
     lines.append(f"region: {reg['cells_weight_above_0']} cells with weight > 0 "
-                 f"({reg['cells_full_weight']} at full weight), area {reg['area_m2'] / 1e6:,.0f} km2")
+                 f"({reg['cells_full_weight']} at full weight), {reg.get('area_is', 'area')} "
+                 f"{reg['area_m2'] / 1e6:,.0f} km2; means and totals below are over this area")
     for name, var in ledger["variables"].items():
         lines.append(f"{name} ({var['role']}, change in {var['units']}; area_mean over the region's valid cells):")
         rows = var.get("layers") or [var.get("field")]

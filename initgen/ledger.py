@@ -112,6 +112,8 @@ class Ledger:
                 "cells_weight_above_0": int(self.plan.region.sum()),
                 "cells_full_weight": int(np.any([b.weight >= 1.0 for b in self.plan.blocks], axis=0).sum()),
                 "area_m2": region_area,
+                "area_is": "land area (cell area x land fraction)" if model.role("land_fraction") is not None
+                           else "cell area",
             },
             "blocks": [{"name": b.name, "targets": list(b.targets),
                         "cells_weight_above_0": int((b.weight > 0).sum()),

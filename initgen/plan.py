@@ -64,6 +64,13 @@ class Plan:
         if self.window is None:
             self.window = self.model.grid.full_window()
         self.lon, self.lat, self.area = self.model.grid.at(self.window)
+        # the soil quantities are per m2 of land: weight means and totals by land area
+        frac = self.model.role("land_fraction")
+        if frac is not None:
+            f = read_window(self.model, frac, self.window)
+            if np.nanmax(f, initial=0.0) > 1.5:  # percent
+                f = f / 100.0
+            self.area = self.area * np.clip(np.nan_to_num(f, nan=0.0), 0.0, 1.0)
 
     def full(self, arr: np.ndarray, fill: float = 0.0) -> np.ndarray:
         """A window-shaped array placed on the whole grid (for maps and mask files)."""
@@ -832,11 +839,50 @@ def _snow_mass(plan, store, hkey, weights, inside_h, led, area, write):
 # ---------------------------------------------------------------------------------------------
 
 
+_SUCTION_PER_PASCAL = 1.0 / (1000.0 * 9.80616)  # m of water per Pa: psi = p / (rho_w g), constants.py set
+
+
+def _suction_metres(values: np.ndarray, role, model: ModelFile) -> np.ndarray:
+    """Saturated matric potential from a file as a suction magnitude in metres of water.
+
+    Lengths (m, cm, mm, also written 'mm H2O' or 'm of water') are converted with their unit;
+    pressures (Pa, hPa, kPa, MPa) with psi = p / (rho_w g). Missing or unknown units are refused:
+    a suction read in the wrong unit moves the freezing curve by orders of magnitude.
+    """
+    from .layers import units_to_metres
+
+    raw = role.units.strip().lower()
+    unit = raw.replace("h2o", "").replace("of water", "").replace("water", "").strip()
+    pressure = {"pa": 1.0, "hpa": 1e2, "kpa": 1e3, "mpa": 1e6}
+    where = f"{model.store.describe()}: variable '{role.variables[0]}' (saturated matric potential)"
+    if unit in pressure:
+        return np.abs(values) * pressure[unit] * _SUCTION_PER_PASCAL
+    if not unit:
+        raise InputError(f"{where} has no units attribute; give its units (m, mm, kPa ...) in the file or in the "
+                         "layout's units section")
+    try:
+        return np.abs(values) * units_to_metres(unit, name=role.variables[0])
+    except InputError:
+        raise InputError(f"{where} has units '{role.units}'; initgen reads lengths of water (m, cm, mm) or "
+                         "pressures (Pa, kPa, MPa)") from None
+
+
+def _percent(values: np.ndarray, role) -> np.ndarray:
+    """Sand or clay content in percent: fractions (units '1' or none, all values <= 1) are scaled."""
+    u = role.units.strip().lower()
+    if u in ("%", "percent", "pct"):
+        return values
+    if u in ("", "1", "fraction", "kg kg-1", "kg/kg") and np.nanmax(values, initial=0.0) <= 1.0:
+        return values * 100.0
+    return values
+
+
 def _hydraulics(plan: Plan, store, hkey, shape, model=None):
-    """Porosity, saturated suction (m) and Clapp-Hornberger b broadcast to ``shape`` (E, L, *h)."""
+    """Porosity, saturated suction (m), Clapp-Hornberger b and solids heat capacity (or None),
+    broadcast to ``shape`` (E, L, *h). Cells where a file's parameters are missing get NaN, which
+    the soil functions refuse only where the recipe perturbs."""
     model = model or plan.model
     phys = plan.physics
-    nh = len(model.grid.shape)
 
     def role_or_none(name):
         r = model.role(name)
@@ -845,18 +891,25 @@ def _hydraulics(plan: Plan, store, hkey, shape, model=None):
         v = r.read(store, hkey)
         return v if r.layered else v[:, None]
 
-    if model.role("porosity") is not None and model.role("clapp_b") is not None and model.role("psi_sat") is not None:
+    named = [r for r in ("porosity", "psi_sat", "clapp_b") if model.role(r) is not None]
+    c_solid = None
+    if named and len(named) < 3:
+        missing = sorted({"porosity", "psi_sat", "clapp_b"} - set(named))
+        raise InputError(f"layout: names {', '.join(named)} but not {', '.join(missing)}; give all three soil "
+                         "parameters in the layout, or none (then the recipe's physics section is used)")
+    if named:
         por, b = role_or_none("porosity"), role_or_none("clapp_b")
-        psi = np.abs(role_or_none("psi_sat"))
-        u = model.role("psi_sat").units.lower()
-        if u in ("mm", "millimeter", "millimeters"):
-            psi = psi / 1000.0
-        elif u in ("cm", "centimeter", "centimeters"):
-            psi = psi / 100.0
+        psi = _suction_metres(role_or_none("psi_sat"), model.role("psi_sat"), model)
     elif model.role("sand") is not None and model.role("clay") is not None:
-        por, psi, b = soil.cosby_1984(role_or_none("sand"), role_or_none("clay"))
+        sand = _percent(role_or_none("sand"), model.role("sand"))
+        clay = _percent(role_or_none("clay"), model.role("clay"))
+        ok = np.isfinite(sand) & np.isfinite(clay)
+        sand_ok, clay_ok = np.where(ok, sand, 40.0), np.where(ok, clay, 20.0)
+        por, psi, b = (np.where(ok, x, np.nan) for x in soil.cosby_1984(sand_ok, clay_ok))
+        c_solid = np.where(ok, soil.soil_solid_heat_capacity(sand_ok, clay_ok), np.nan)
     elif phys.get("sand_pct") is not None and phys.get("clay_pct") is not None:
         por, psi, b = soil.cosby_1984(phys["sand_pct"], phys["clay_pct"])
+        c_solid = soil.soil_solid_heat_capacity(phys["sand_pct"], phys["clay_pct"])
     elif phys.get("texture"):
         por, psi, b = soil.hydraulics_from_texture(phys["texture"])
     elif phys.get("porosity") and phys.get("psi_sat_m") and phys.get("clapp_b"):
@@ -864,7 +917,8 @@ def _hydraulics(plan: Plan, store, hkey, shape, model=None):
     else:
         raise InputError("recipe key physics: a physics mode needs soil hydraulic parameters; give physics.texture, "
                          "physics.sand_pct and clay_pct, or porosity, psi_sat_m and clapp_b (or name them in the layout)")
-    return tuple(np.broadcast_to(np.asarray(x, float), shape) for x in (por, psi, b))
+    out = tuple(np.broadcast_to(np.asarray(x, float), shape) for x in (por, psi, b))
+    return out + (None if c_solid is None else np.broadcast_to(np.asarray(c_solid, float), shape),)
 
 
 def _read_water(plan: Plan, store, hkey, shape, donor: ModelFile | None = None) -> dict:
@@ -875,8 +929,8 @@ def _read_water(plan: Plan, store, hkey, shape, donor: ModelFile | None = None) 
         raise InputError(f"{plan.model.store.describe()}: a physics mode needs soil layer thicknesses; name "
                          "roles.layer_node_depth (or interfaces/thickness) in the layout")
     dz = np.broadcast_to(_layer_col(np.asarray(layers.thickness_m), nh), shape)
-    por, psi, b = _hydraulics(plan, model.store if donor else store, hkey, shape, model=model)
-    out = {"dz": dz, "porosity": por, "psi": psi, "b": b}
+    por, psi, b, c_solid = _hydraulics(plan, model.store if donor else store, hkey, shape, model=model)
+    out = {"dz": dz, "porosity": por, "psi": psi, "b": b, "c_solid": c_solid}
     for key, rname in (("liq", "soil_liquid"), ("ice", "soil_ice")):
         role = model.require(rname, "physics modes change water and ice")
         raw = role.read(model.store if donor else store, hkey)
@@ -886,10 +940,6 @@ def _read_water(plan: Plan, store, hkey, shape, donor: ModelFile | None = None) 
         out[key + "_raw"] = raw
         out[key + "_units"] = role.units or "kg m-2"
         out[key + "_name"] = f"{(model.store if donor else store).describe()}: variable '{role.variables[0]}'"
-    c_solid = None
-    if plan.physics.get("sand_pct") is not None and plan.physics.get("clay_pct") is not None:
-        c_solid = soil.soil_solid_heat_capacity(plan.physics["sand_pct"], plan.physics["clay_pct"])
-    out["c_solid"] = c_solid
     return out
 
 

@@ -161,7 +161,7 @@ PHYSICS = Obj(
         "texture": Str(default=None, doc="soil texture class of Clapp and Hornberger (1978) for the freezing curve"),
         "porosity": Num(exclusive_minimum=0.0, maximum=1.0, default=None, unit="m3 m-3",
                         doc="porosity (constant), if not from texture or the layout"),
-        "psi_sat_m": Num(exclusive_minimum=0.0, maximum=100.0, default=None, unit="m",
+        "psi_sat_m": Num(exclusive_minimum=0.0, maximum=10.0, default=None, unit="m",
                          doc="saturated matric suction magnitude (constant)"),
         "clapp_b": Num(exclusive_minimum=0.0, maximum=30.0, default=None, unit="1",
                        doc="Clapp-Hornberger exponent b (constant)"),

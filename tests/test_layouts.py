@@ -189,3 +189,77 @@ def test_layout_units_apply_to_variables_without_a_units_attribute(tmp_path):
     # 3 degC cooled by up to 2 K stays above the 0 degC = 273.15 K bound: no clamp, as in degC
     d = raw(tmp_path / "o.nc", "tsoil") - raw(src, "tsoil")
     assert d.min() < -1.0 and raw(tmp_path / "o.nc", "tsoil").min() >= 1.0 - 1e-5
+
+
+def _physics_params_file(tmp_path, extra):
+    gridded_file(tmp_path / "g.nc", (("soil_t", 274.0, "K"), ("soil_liq", 0.30, "m3 m-3"), ("soil_ice", 0.0, "m3 m-3")))
+    with netCDF4.Dataset(tmp_path / "g.nc", "a") as ds:
+        for name, val, units in extra:
+            v = ds.createVariable(name, "f4", ("layer", "lat", "lon"))
+            v.units = units
+            data = np.full(v.shape, val, "f4")
+            data[:, 0, 0] = np.nan  # a polar cell outside the region: missing parameters there are fine
+            v[:] = data
+    return tmp_path / "g.nc"
+
+
+def _layout_with(tmp_path, roles):
+    text = (LAYOUTS / "gridded-layered.yaml").read_text().replace("layer_dimension:", roles + "\nlayer_dimension:")
+    (tmp_path / "l.yaml").write_text(text)
+    return tmp_path / "l.yaml"
+
+
+def test_file_soil_parameters_units_suction_and_fractions(tmp_path):
+    """Loam of Clapp and Hornberger (1978, Table 2): b 5.39, psi_s 47.8 cm, porosity 0.451, given
+    in a file as suction in 'mm H2O' (negative, as models store potentials), or as sand and
+    clay fractions for Cosby et al. (1984); both must give the same energy-mode result as the
+    recipe's texture where the parameters agree (the suction case), and run with fractions."""
+    rec = recipe(tmp_path, physics="physics: {mode: energy}\n")
+    src = _physics_params_file(tmp_path, (("por", 0.451, "1"), ("psi", -478.0, "mm H2O"), ("bexp", 5.39, "1")))
+    lay = _layout_with(tmp_path, "  porosity: por\n  psi_sat: psi\n  clapp_b: bexp")
+    a = api.apply(rec, src, tmp_path / "a.nc", layout=lay)
+    tex = recipe(tmp_path, physics="physics: {mode: energy, texture: loam}\n")
+    tex_path = tmp_path / "tex.yaml"
+    tex_path.write_text(tex.read_text())
+    b = api.apply(tex_path, src, tmp_path / "b.nc", layout=LAYOUTS / "gridded-layered.yaml")
+    assert a["ledger"]["physics"]["frozen_region_total_kg"] == pytest.approx(
+        b["ledger"]["physics"]["frozen_region_total_kg"], rel=1e-5)
+    # a suction without units is refused, naming the variable
+    with netCDF4.Dataset(src, "a") as ds:
+        ds["psi"].delncattr("units")
+    with pytest.raises(Exception, match="'psi'.*no units attribute"):
+        api.apply(rec, src, tmp_path / "c.nc", layout=lay)
+    # only some of the three parameters named: refused
+    with pytest.raises(Exception, match="names porosity but not clapp_b, psi_sat"):
+        api.apply(rec, src, tmp_path / "d.nc", layout=_layout_with(tmp_path, "  porosity: por"))
+
+
+def test_file_sand_clay_as_fractions_with_missing_cells(tmp_path):
+    rec = recipe(tmp_path, physics="physics: {mode: energy}\n")
+    src = _physics_params_file(tmp_path, (("sandf", 0.4, "1"), ("clayf", 0.2, "1")))
+    lay = _layout_with(tmp_path, "  sand: sandf\n  clay: clayf")
+    pct = tmp_path / "pct.yaml"
+    pct.write_text(recipe(tmp_path, physics="physics: {mode: energy, sand_pct: 40, clay_pct: 20}\n").read_text())
+    a = api.apply(rec, src, tmp_path / "a.nc", layout=lay)
+    b = api.apply(pct, src, tmp_path / "b.nc", layout=LAYOUTS / "gridded-layered.yaml")
+    assert a["ledger"]["variables"]["soil_t"] == b["ledger"]["variables"]["soil_t"]
+
+
+def test_region_totals_are_over_land_area(tmp_path):
+    """Soil water and energy are per m2 of land: totals use cell area x land fraction."""
+    totals = []
+    for frac in (1.0, 0.4):
+        folder = tmp_path / f"f{frac}"
+        folder.mkdir()
+        gridded_file(folder / "g.nc", (("soil_t", 274.0, "K"), ("soil_liq", 0.30, "m3 m-3"),
+                                       ("soil_ice", 0.0, "m3 m-3")))
+        with netCDF4.Dataset(folder / "g.nc", "a") as ds:
+            ds["land_frac"][:] = np.full(ds["land_frac"].shape, frac)
+        rec = folder / "r.yaml"
+        rec.write_text(RECIPE.replace("taper_km: 0}", "taper_km: 0, use_land_fraction: false}")
+                       .replace("TARGETS", "[soil_temperature]") + "physics: {mode: energy, texture: loam}\n")
+        led = api.preview(rec, folder / "g.nc", layout=LAYOUTS / "gridded-layered.yaml")
+        totals.append((led["physics"]["frozen_region_total_kg"], led["region"]["area_m2"]))
+    f32 = float(np.float32(0.4))  # the file stores the fraction as float32
+    assert totals[1][0] == pytest.approx(f32 * totals[0][0], rel=1e-9)
+    assert totals[1][1] == pytest.approx(f32 * totals[0][1], rel=1e-9)
