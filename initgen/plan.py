@@ -21,7 +21,7 @@ from pathlib import Path
 import numpy as np
 
 from . import ledger as ledger_mod
-from . import geodesy, profiles, regions, soil, sources
+from . import constants, geodesy, profiles, regions, soil, sources
 from .errors import InputError, InputWarning
 from .grid import ModelFile
 from .layers import Layers
@@ -696,7 +696,7 @@ def apply_block(plan: Plan, store, hkey: dict, widx: tuple, led, *, write: bool)
                         water[k] = np.where(sel, sources.donor_blend(water[k], dw[k], np.broadcast_to(wf, T.shape)),
                                             water[k])
                 if water is not None:
-                    _physics(T, T, water, sel, phys, led, area, nh, mode="temperature")
+                    _equilibrate_blend(T, water, sel, led, area)
                 continue
             dT = wf * _bcast_h(_anomaly(plan, b, hidx), 2)
             if water is None:
@@ -973,6 +973,26 @@ def _physics(T_old, T_new, water, sel, phys, led, area, nh, mode, dT=None):
         vals = np.where(sel, arr, 0.0) * a
         led.add_phase(key, vals.sum(axis=tuple(i for i in range(vals.ndim) if i != 1)))
     return T
+
+
+def _equilibrate_blend(T, water, sel, led, area) -> None:
+    """Bring a donor-blended state into phase equilibrium at its blended temperature.
+
+    A blend of two equilibrium states need not be in equilibrium itself (the freezing curve is
+    not linear); the temperature-mode rule applies: liquid above the supercooled limit freezes,
+    ice below freezing melts back up to the limit, no ice above 0 C; water is conserved.
+    """
+    ok = sel & np.isfinite(T)
+    liq, ice = soil.equilibrate_phase(np.where(ok, T, T_FREEZE), water["liq"], water["ice"], water["porosity"],
+                                      water["psi"], water["b"])
+    dice = np.where(ok, ice - water["ice"], 0.0)
+    water["liq"] = np.where(ok, liq, water["liq"])
+    water["ice"] = np.where(ok, ice, water["ice"])
+    led.flag("donor_blend_re_equilibrated", np.count_nonzero(np.abs(dice) > 1e-12))
+    a = _bcast_h(area, 2) * water["dz"] * constants.RHO_WATER  # m3 m-3 of water -> kg, times m2
+    for key, vals in (("frozen_kg", np.maximum(dice, 0.0)), ("melted_kg", np.maximum(-dice, 0.0))):
+        per = vals * a
+        led.add_phase(key, per.sum(axis=tuple(i for i in range(per.ndim) if i != 1)))
 
 
 DEPARTURE_K = 0.05  # realised minus imposed change beyond which a cell is flagged (K)
