@@ -947,6 +947,11 @@ def _physics(T_old, T_new, water, sel, phys, led, area, nh, mode, dT=None):
     """Impose the change on the selected cells and bring water phase into line."""
     kw = dict(porosity=water["porosity"], psi_sat_m=water["psi"], b=water["b"], c_solid=water["c_solid"])
     for key in ("liq", "ice"):
+        # round-off negatives (a model's own arithmetic leaves -1e-12 kg m-2 about) become 0, counted
+        tiny = sel & (water[key] < 0) & (water[key] >= -NEGATIVE_WATER_ROUNDING)
+        if np.any(tiny):
+            led.clamp(f"soil_{key}_rounding_negative_to_zero", np.count_nonzero(tiny))
+            water[key] = np.where(tiny, 0.0, water[key])
         bad = sel & ~((water[key] >= 0) & np.isfinite(water[key]))
         if np.any(bad):
             raise InputError(f"{water[key + '_name']} has {int(bad.sum())} negative or missing value(s) in cells the "
@@ -995,6 +1000,7 @@ def _equilibrate_blend(T, water, sel, led, area) -> None:
         led.add_phase(key, per.sum(axis=tuple(i for i in range(per.ndim) if i != 1)))
 
 
+NEGATIVE_WATER_ROUNDING = 1e-9  # m3 m-3: negative water this small is round-off, set to 0 (counted)
 DEPARTURE_K = 0.05  # realised minus imposed change beyond which a cell is flagged (K)
 
 

@@ -263,3 +263,11 @@ def test_region_totals_are_over_land_area(tmp_path):
     f32 = float(np.float32(0.4))  # the file stores the fraction as float32
     assert totals[1][0] == pytest.approx(f32 * totals[0][0], rel=1e-9)
     assert totals[1][1] == pytest.approx(f32 * totals[0][1], rel=1e-9)
+
+
+def test_round_off_negative_water_is_zeroed_and_counted(tmp_path):
+    gridded_file(tmp_path / "g.nc", (("soil_t", 274.0, "K"), ("soil_liq", 0.30, "m3 m-3"),
+                                     ("soil_ice", -1e-12, "m3 m-3")))
+    rec = recipe(tmp_path, physics="physics: {mode: energy, texture: loam}\n")
+    led = api.preview(rec, tmp_path / "g.nc", layout=LAYOUTS / "gridded-layered.yaml")
+    assert led["clamps"]["soil_ice_rounding_negative_to_zero"] > 0
