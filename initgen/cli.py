@@ -84,7 +84,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--json", help="write the differences as JSON to this file")
     p.add_argument("--report", help="write a Markdown report into this folder")
 
-    p = sub.add_parser("verify", help="re-run a provenance record and check the output is bit-identical")
+    p = sub.add_parser("verify", help="re-run a provenance record and check the output matches it (all but the history line)")
     p.add_argument("provenance", help="the .provenance.json written by apply")
     p.add_argument("--input", "-i", help="the original input file (default: the path in the record)")
     p.add_argument("--output", "-o", help="the file to check (default: the path in the record)")
