@@ -187,7 +187,7 @@ def region_geometry(region: dict, recipe: Document, key: str, allow_outside: boo
 
 
 def horizontal_weight(model: ModelFile, region: dict, geom, name: str, window: tuple,
-                      lon: np.ndarray, lat: np.ndarray) -> np.ndarray:
+                      lon: np.ndarray, lat: np.ndarray, key: str = "region") -> np.ndarray:
     """w(x) = taper(x) * elevation ramp(x) * land weight(x) on the window; 0 where land data are missing."""
     grid = model.grid
     if region["taper_km"] > 0:
@@ -214,8 +214,13 @@ def horizontal_weight(model: ModelFile, region: dict, geom, name: str, window: t
         w = w * regions.land_weight(mask=read_window(model, mask, window), threshold=region["land_threshold"])
     w = np.where(np.isfinite(w), w, 0.0)
     if not np.any(w > 0):
-        raise InputError(f"region '{name}': no land grid cell keeps a weight above 0 after the elevation band and "
-                         f"land weighting (grid spans {model.grid.extent()}); check the region and thresholds")
+        found = ""
+        if elev:
+            inside = regions.hard_mask(lon, lat, geom) & np.isfinite(z)
+            if np.any(inside):
+                found = f"; surface altitude in the region spans {np.nanmin(z[inside]):.0f}..{np.nanmax(z[inside]):.0f} m"
+        raise InputError(f"recipe key {key}: region '{name}' keeps no land grid cell above weight 0 after the "
+                         f"elevation band and land weighting{found}; check elevation.min_m/max_m and the land data")
     return w
 
 
@@ -418,7 +423,7 @@ def build_plan(recipe: Document, model: ModelFile, *, allow_outside: bool = Fals
     region_any = np.zeros(lon.shape, bool)
     for i, (b, geom) in enumerate(zip(recipe.data["perturbations"], geoms)):
         key = f"perturbations[{i}]"
-        w = horizontal_weight(model, b["region"], geom, b["name"], window, lon, lat)
+        w = horizontal_weight(model, b["region"], geom, b["name"], window, lon, lat, key=f"{key}.region")
         anomaly, donor = block_anomaly(model, b["anomaly"], recipe, f"{key}.anomaly", w, allow_outside, (lon, lat))
         factors, fsurf = profile_factors(b["profile"], model.layers, f"{key}.profile")
         soil = model.role("soil_temperature")
@@ -579,13 +584,15 @@ def run(plan: Plan, store, *, write: bool, progress=None) -> dict:
             if b.donor:
                 b.donor.store.close()
     out = led.finish()
-    out["blocks_processed"] = len(all_blocks)
+    out["data_blocks_read"] = len(all_blocks)
     odd = sum(out["flags"].get(k, 0) for k in ("realised_change_opposite_to_imposed",
-                                                "realised_change_larger_than_imposed"))
+                                                "realised_change_larger_than_imposed",
+                                                "phase_change_against_imposed_change"))
     if odd:
         source = plan.physics.get("texture") or ("sand/clay" if plan.physics.get("sand_pct") is not None else
                                                  "the given parameters")
-        warnings.warn(f"{odd} soil layer-cell(s) moved against, or by more than, the imposed change: the start is "
+        warnings.warn(f"{odd} soil layer-cell flag(s) where water froze while warming, ice melted while cooling, or "
+                      "the temperature moved against or beyond the imposed change: the start is "
                       f"not in phase equilibrium for the soil parameters used ({source}), so water froze or melted on "
                       "its own; check that physics matches your model (or give its parameters in the layout)",
                       InputWarning, stacklevel=2)
@@ -867,6 +874,19 @@ def _suction_metres(values: np.ndarray, role, model: ModelFile) -> np.ndarray:
                          "pressures (Pa, kPa, MPa)") from None
 
 
+def _check_range(values: np.ndarray, lo: float, hi: float, model: ModelFile, role_name: str, what: str = "",
+                 low_open: bool = True) -> None:
+    """Refuse soil parameters outside a physically possible range (usually a unit slip)."""
+    v = np.asarray(values, float)
+    below = (v <= lo) if low_open else (v < lo)
+    bad = np.isfinite(v) & (below | (v > hi))
+    if np.any(bad):
+        role = model.role(role_name)
+        name = what or f"variable '{role.variables[0]}' ({role_name}, units '{role.units}')"
+        raise InputError(f"{model.store.describe()}: {name} has {int(bad.sum())} value(s) outside {lo:g}..{hi:g} "
+                         f"(e.g. {float(v[bad].flat[0]):.6g}); check its units")
+
+
 def _percent(values: np.ndarray, role) -> np.ndarray:
     """Sand or clay content in percent: fractions (units '1' or none, all values <= 1) are scaled."""
     u = role.units.strip().lower()
@@ -899,10 +919,18 @@ def _hydraulics(plan: Plan, store, hkey, shape, model=None):
                          "parameters in the layout, or none (then the recipe's physics section is used)")
     if named:
         por, b = role_or_none("porosity"), role_or_none("clapp_b")
+        if model.role("porosity").units.strip().lower() in ("%", "percent"):
+            por = por / 100.0
         psi = _suction_metres(role_or_none("psi_sat"), model.role("psi_sat"), model)
+        for vals, role, lo, hi in ((por, "porosity", 0.0, 1.0), (psi, "psi_sat", 1e-4, 10.0),
+                                   (b, "clapp_b", 0.0, 30.0)):
+            _check_range(vals, lo, hi, model, role)
     elif model.role("sand") is not None and model.role("clay") is not None:
         sand = _percent(role_or_none("sand"), model.role("sand"))
         clay = _percent(role_or_none("clay"), model.role("clay"))
+        _check_range(sand, 0.0, 100.0, model, "sand", low_open=False)
+        _check_range(clay, 0.0, 100.0, model, "clay", low_open=False)
+        _check_range(sand + clay, 0.0, 100.0, model, "sand", what="sand + clay", low_open=False)
         ok = np.isfinite(sand) & np.isfinite(clay)
         sand_ok, clay_ok = np.where(ok, sand, 40.0), np.where(ok, clay, 20.0)
         por, psi, b = (np.where(ok, x, np.nan) for x in soil.cosby_1984(sand_ok, clay_ok))
@@ -972,6 +1000,11 @@ def _physics(T_old, T_new, water, sel, phys, led, area, nh, mode, dT=None):
     # it is reported, not "corrected" (removing water would break the water budget)
     over = sel & (water["liq"] + water["ice"] > water["porosity"] * (1.0 + 1e-9))
     led.flag("water_above_porosity_kept", np.count_nonzero(over))
+    # warming cannot freeze water and cooling cannot melt ice: where it does, the starting state
+    # was not in phase equilibrium for these soil parameters (in either mode)
+    imposed = dT if mode == "energy" else T_new - T_old
+    against = sel & (((imposed > 0) & (res.frozen_kg_m2 > PHASE_TOL_KG)) | ((imposed < 0) & (res.melted_kg_m2 > PHASE_TOL_KG)))
+    led.flag("phase_change_against_imposed_change", np.count_nonzero(against))
     a = _bcast_h(area, 2)
     for key, arr in (("frozen_kg", res.frozen_kg_m2), ("melted_kg", res.melted_kg_m2),
                      ("sensible_J", res.sensible_J_m2), ("latent_J", res.latent_J_m2)):
@@ -1000,6 +1033,7 @@ def _equilibrate_blend(T, water, sel, led, area) -> None:
         led.add_phase(key, per.sum(axis=tuple(i for i in range(per.ndim) if i != 1)))
 
 
+PHASE_TOL_KG = 1e-6  # kg m-2 of water changing phase below which a cell is not flagged
 NEGATIVE_WATER_ROUNDING = 1e-9  # m3 m-3: negative water this small is round-off, set to 0 (counted)
 DEPARTURE_K = 0.05  # realised minus imposed change beyond which a cell is flagged (K)
 

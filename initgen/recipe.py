@@ -469,6 +469,12 @@ def _check_semantics(data: dict, source: str) -> None:
              if any(phys.get(x) is not None for x in keys)]
     if len(given) > 1:
         raise InputError(f"{source}: recipe key physics: give one source of soil parameters, not {' and '.join(given)}")
+    if phys.get("sand_pct") is not None and phys.get("clay_pct") is not None and \
+            phys["sand_pct"] + phys["clay_pct"] > 100.0:
+        raise InputError(f"{source}: recipe key physics.clay_pct: sand_pct + clay_pct is "
+                         f"{phys['sand_pct'] + phys['clay_pct']:g} %, more than 100 %")
+    if (phys.get("sand_pct") is None) != (phys.get("clay_pct") is None):
+        raise InputError(f"{source}: recipe key physics: give both sand_pct and clay_pct, or neither")
     if phys.get("texture"):
         # one spelling per class, so 'sandy_loam' and 'Sandy loam' hash the same
         phys["texture"] = " ".join(phys["texture"].strip().lower().replace("_", " ").replace("-", " ").split())

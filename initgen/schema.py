@@ -165,9 +165,12 @@ class List(Node):
             seen = set()
             for i, v in enumerate(out):
                 key = v.get(self.unique_key) if isinstance(v, dict) else v
+                # names become folder and file names: 'Warm' and 'warm' would collide on some systems
+                shown = key
+                key = key.casefold() if isinstance(key, str) else key
                 if key in seen:
                     raise InputError(
-                        f"recipe key {path}[{i}].{self.unique_key}: duplicate name {_show(key)}; "
+                        f"recipe key {path}[{i}].{self.unique_key}: duplicate name {_show(shown)} (names are compared without case); "
                         "give every entry its own name"
                     )
                 seen.add(key)

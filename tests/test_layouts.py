@@ -271,3 +271,27 @@ def test_round_off_negative_water_is_zeroed_and_counted(tmp_path):
     rec = recipe(tmp_path, physics="physics: {mode: energy, texture: loam}\n")
     led = api.preview(rec, tmp_path / "g.nc", layout=LAYOUTS / "gridded-layered.yaml")
     assert led["clamps"]["soil_ice_rounding_negative_to_zero"] > 0
+
+
+def test_soil_parameters_out_of_range_and_phase_change_against_a_warming(tmp_path):
+    from initgen.cli import main
+
+    # psi_sat stored in mm but labelled m: 478 m is no soil's suction (Clapp and Hornberger 1978
+    # list 0.09..0.79 m): refused, naming the variable
+    rec = recipe(tmp_path, physics="physics: {mode: energy}\n")
+    src = _physics_params_file(tmp_path, (("por", 0.451, "1"), ("psi", 478.0, "m"), ("bexp", 5.39, "1")))
+    lay = _layout_with(tmp_path, "  porosity: por\n  psi_sat: psi\n  clapp_b: bexp")
+    with pytest.raises(Exception, match="'psi' \\(psi_sat, units 'm'\\).*outside 0.0001..10"):
+        api.preview(rec, src, layout=lay)
+    # a warming in temperature mode that freezes water flags it and warns (in any mode)
+    warm = tmp_path / "warm.yaml"
+    warm.write_text(RECIPE.replace("constant_K: -2.0", "constant_K: 0.01").replace("TARGETS", "[soil_temperature]")
+                    + "physics: {mode: temperature, texture: sand}\n")
+    gridded_file(tmp_path / "w.nc", (("soil_t", 271.0, "K"), ("soil_liq", 0.30, "m3 m-3"),
+                                     ("soil_ice", 0.0, "m3 m-3")))
+    with pytest.warns(UserWarning, match="water froze while warming"):
+        led = api.preview(warm, tmp_path / "w.nc", layout=LAYOUTS / "gridded-layered.yaml")
+    assert led["flags"]["phase_change_against_imposed_change"] > 0
+    bad = tmp_path / "bad.yaml"
+    bad.write_text(recipe(tmp_path, physics="physics: {mode: energy, sand_pct: 70, clay_pct: 50}\n").read_text())
+    assert main(["check", str(bad)]) == 2

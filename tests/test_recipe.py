@@ -180,3 +180,9 @@ def test_output_path_must_fit_the_recipe(tmp_path, capsys):
     assert main(["apply", str(rec), "-i", str(src), "-o", str(tmp_path / "outdir") + "/"]) == 2
     assert "names a folder" in capsys.readouterr().err
     assert not (tmp_path / "outdir").exists()
+
+
+def test_names_differing_only_in_case_are_duplicates(tmp_path):
+    text = GOOD + "  - name: A\n    region: {include: [{box: {lon: [1, 2], lat: [1, 2]}}]}\n    anomaly: {constant_K: 1}\n"
+    with pytest.raises(InputError, match="duplicate name 'A'"):
+        load_text(tmp_path, text)
