@@ -453,6 +453,16 @@ def check_before_writing(plan: Plan) -> None:
             soil.hydraulics_from_texture(plan.physics["texture"])
         except InputError as exc:
             raise _keyed(exc, "physics.texture") from None
+    # the soil parameters the physics will use, read and range-checked where the region lies,
+    # so that `check` and `apply` refuse them before anything is written
+    soil_role = model.role("soil_temperature")
+    if plan.physics["mode"] != "none" and "soil_temperature" in plan.targets and soil_role is not None \
+            and model.layers is not None:
+        for slab in slabs(plan):
+            for hkey, _ in blocks_of(plan, slab):
+                shape = soil_role.read(model.store, hkey).shape
+                shape = shape if soil_role.layered else (shape[0], 1) + shape[1:]
+                _hydraulics(plan, model.store, hkey, shape)
 
 
 def _check_units(plan: Plan, model: ModelFile) -> None:

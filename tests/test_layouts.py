@@ -295,3 +295,16 @@ def test_soil_parameters_out_of_range_and_phase_change_against_a_warming(tmp_pat
     bad = tmp_path / "bad.yaml"
     bad.write_text(recipe(tmp_path, physics="physics: {mode: energy, sand_pct: 70, clay_pct: 50}\n").read_text())
     assert main(["check", str(bad)]) == 2
+
+
+def test_check_refuses_bad_file_soil_parameters_before_anything_is_written(tmp_path, capsys):
+    from initgen.cli import main
+
+    rec = recipe(tmp_path, physics="physics: {mode: energy}\n")
+    src = _physics_params_file(tmp_path, (("por", 45.0, "1"), ("psi", 0.478, "m"), ("bexp", 5.39, "1")))
+    lay = _layout_with(tmp_path, "  porosity: por\n  psi_sat: psi\n  clapp_b: bexp")
+    argv = ["-l", str(lay), "-i", str(src)]
+    assert main(["check", str(rec)] + argv) == 2
+    assert "'por' (porosity" in capsys.readouterr().err
+    assert main(["apply", str(rec)] + argv + ["-o", str(tmp_path / "o.nc")]) == 2
+    assert not (tmp_path / "o.nc").exists()
