@@ -10,7 +10,6 @@ import numpy as np
 
 from . import plan as plan_mod
 from . import provenance as prov
-from .errors import InputError
 from .grid import ModelFile, open_model
 from .recipe import Document, inline_layout, load_layout, load_recipe
 from .restart import NetCDFStore, XarrayStore

@@ -585,7 +585,6 @@ def blocks_of(plan: Plan, slab: tuple) -> list[tuple[dict, tuple]]:
 
 def run(plan: Plan, store, *, write: bool, progress=None) -> dict:
     """Apply the plan to ``store`` (writing only when ``write``) and return the ledger."""
-    model = plan.model
     led = ledger_mod.Ledger(plan)
     all_blocks = [b for s in slabs(plan) for b in blocks_of(plan, s)]
     for k, (hkey, widx) in enumerate(all_blocks):

@@ -18,11 +18,9 @@ interactive session is left as it is.
 
 from __future__ import annotations
 
-import contextlib
 import io
 import json
 import math
-import os
 import tempfile
 import warnings
 from pathlib import Path
@@ -1144,7 +1142,7 @@ def _preview_markdown(rec, lay, input, grid, ledger, figures, captions, donors, 
         L += [f"_{rec.data['description']}_", ""]
     L += ["## What", "",
           f"- recipe: `{rec.name}`, canonical sha256 `{rec.sha256}`" + (f" ({rec.path})" if rec.path else ""),
-          f"- layout: " + (f"`{lay.name}`, sha256 `{lay.sha256}`" if lay is not None else "none (roles from CF attributes)"),
+          "- layout: " + (f"`{lay.name}`, sha256 `{lay.sha256}`" if lay is not None else "none (roles from CF attributes)"),
           f"- input: {Path(input).resolve()} ({Path(input).stat().st_size:,} bytes)",
           f"- grid: {grid.kind} {' x '.join(map(str, grid.shape))} on dims ({', '.join(grid.dims)}), "
           f"{grid.extent()}; cell area {grid.area_source}",

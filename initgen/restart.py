@@ -311,7 +311,6 @@ def netcdf3_data_end(path: Path) -> int | None:
         version = head[3]
         big = version == 5
         count_fmt = ">Q" if big else ">I"
-        csize = 8 if big else 4
         offset_fmt = ">I" if version == 1 else ">Q"
 
         def read(fmt):

@@ -71,7 +71,6 @@ import numpy as np
 
 from initgen.constants import (
     CP_ICE,
-    CP_WATER,
     CV_CLAY_TEXTURE,
     CV_SAND_TEXTURE,
     CV_SOLID_DEFAULT,

@@ -25,7 +25,6 @@ import pytest
 
 from initgen.cli import main
 from initgen.demo import write_demo_restart
-from initgen.errors import InputWarning
 
 from filemaker import NODES, curvilinear, points, regular
 

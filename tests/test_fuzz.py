@@ -17,7 +17,6 @@ from __future__ import annotations
 import copy
 import hashlib
 import json
-import math
 import os
 import warnings
 from pathlib import Path
