@@ -131,6 +131,9 @@ class Ledger:
             "clamps": dict(sorted(self.clamps.items())),
             "flags": dict(sorted(self.flags.items())),
             "physics": {"mode": self.plan.physics["mode"]},
+            "member_factors": {"scale_times_sign": _num(self.plan.member_scale),
+                               "offset_K": _num(self.plan.member_offset_K),
+                               "noise": self.plan.noise is not None},
             "cells_not_in_phase_equilibrium_before": int(self.disequilibrium),
         }
         for name, rec in self.vars.items():
