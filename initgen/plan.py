@@ -66,11 +66,8 @@ class Plan:
             self.window = self.model.grid.full_window()
         self.lon, self.lat, self.area = self.model.grid.at(self.window)
         # the soil quantities are per m2 of land: weight means and totals by land area
-        frac = self.model.role("land_fraction")
-        if frac is not None:
-            f = read_window(self.model, frac, self.window)
-            if np.nanmax(f, initial=0.0) > 1.5:  # percent
-                f = f / 100.0
+        f = land_fraction(self.model, self.window)
+        if f is not None:
             self.area = self.area * np.clip(np.nan_to_num(f, nan=0.0), 0.0, 1.0)
 
     def full(self, arr: np.ndarray, fill: float = 0.0) -> np.ndarray:
@@ -207,10 +204,7 @@ def horizontal_weight(model: ModelFile, region: dict, geom, name: str, window: t
     frac = model.role("land_fraction")
     mask = model.role("land_mask")
     if frac is not None and region["use_land_fraction"]:
-        f = read_window(model, frac, window)
-        if np.nanmax(f, initial=0.0) > 1.5:  # percent
-            f = f / 100.0
-        w = w * regions.land_weight(fraction=f)
+        w = w * regions.land_weight(fraction=land_fraction(model, window))
     elif mask is not None:
         w = w * regions.land_weight(mask=read_window(model, mask, window), threshold=region["land_threshold"])
     # the last sliver of a taper (w < 1e-6, a micro-kelvin per kelvin of anomaly) cannot change a
@@ -246,6 +240,15 @@ def _runs_of(idx: np.ndarray) -> list[tuple[int, int]]:
     starts = np.concatenate([[0], breaks])
     stops = np.concatenate([breaks, [idx.size]])
     return list(zip(starts.tolist(), stops.tolist()))
+
+
+def land_fraction(model: ModelFile, window: tuple) -> np.ndarray | None:
+    """The land fraction on the window as a fraction (a file in percent is scaled), or None."""
+    role = model.role("land_fraction")
+    if role is None:
+        return None
+    f = read_window(model, role, window)
+    return f / 100.0 if np.nanmax(f, initial=0.0) > 1.5 else f
 
 
 def read_window(model: ModelFile, role, window: tuple, store=None) -> np.ndarray:
