@@ -21,7 +21,7 @@ import numpy as np
 
 from . import geodesy, layers as layers_mod
 from .errors import InputError, InputWarning
-from .restart import Store, VarInfo
+from .restart import Store, VarInfo, find_coordinate
 
 CF_ROLES = {
     "soil_temperature": ("soil_temperature",),
@@ -38,8 +38,6 @@ CF_ROLES = {
     "snow_depth": ("surface_snow_thickness",),
     "cell_area": ("cell_area",),
 }
-_LON_NAMES = ("lon", "longitude", "nav_lon", "xlon", "glon", "lons")
-_LAT_NAMES = ("lat", "latitude", "nav_lat", "xlat", "glat", "lats")
 _LENGTH_UNITS = ("m", "meter", "meters", "metre", "metres", "cm", "centimeter", "centimeters", "mm")
 
 LAYERED_ROLES = ("soil_temperature", "soil_liquid", "soil_ice", "snow_temperature",
@@ -277,23 +275,6 @@ def _find_cf(store: Store, role: str) -> str | None:
     return None
 
 
-def _find_coord(store: Store, axis: str) -> str | None:
-    sn, units, names, ax = (("longitude", ("degrees_east", "degree_east", "degree_e", "degrees_e"), _LON_NAMES, "X")
-                            if axis == "lon" else
-                            ("latitude", ("degrees_north", "degree_north", "degree_n", "degrees_n"), _LAT_NAMES, "Y"))
-    vars_ = store.variables
-    for test in (
-        lambda i: str(i.attrs.get("standard_name", "")).lower() == sn,
-        lambda i: i.units.lower() in units,
-        lambda i: i.name.lower() in names,
-        lambda i: str(i.attrs.get("axis", "")).upper() == ax and "degree" in i.units.lower(),
-    ):
-        hits = [n for n, i in vars_.items() if test(i) and len(i.dims) in (1, 2)]
-        if hits:
-            return hits[0]
-    return None
-
-
 def _var(store: Store, name: str, role: str, where: str) -> VarInfo:
     if name not in store.variables:
         import difflib
@@ -481,8 +462,8 @@ def open_model(store: Store, layout=None, needed: tuple = ()) -> ModelFile:
     data = layout.data if layout is not None else None
     where = str(layout.path) if layout is not None and layout.path else ("layout" if layout else "CF detection")
     roles_spec = dict((data or {}).get("roles") or {})
-    lon_name = roles_spec.get("longitude") or _find_coord(store, "lon")
-    lat_name = roles_spec.get("latitude") or _find_coord(store, "lat")
+    lon_name = roles_spec.get("longitude") or find_coordinate(store, "lon")
+    lat_name = roles_spec.get("latitude") or find_coordinate(store, "lat")
     if lon_name and lon_name not in store.variables:
         _var(store, lon_name, "longitude", where)
     if lat_name and lat_name not in store.variables:

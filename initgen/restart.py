@@ -742,6 +742,29 @@ def create_netcdf(path: Path, build: Callable[[Any], None], fmt: str = "NETCDF4"
             tmp.unlink()
 
 
+_LON_NAMES = ("lon", "longitude", "nav_lon", "xlon", "glon", "lons")
+_LAT_NAMES = ("lat", "latitude", "nav_lat", "xlat", "glat", "lats")
+
+
+def find_coordinate(store: Store, axis: str) -> str | None:
+    """The longitude (``axis='lon'``) or latitude variable of a store, by CF attributes
+    (standard_name, then units, then a usual name, then axis X/Y with degree units)."""
+    sn, units, names, ax = (("longitude", ("degrees_east", "degree_east", "degree_e", "degrees_e"), _LON_NAMES, "X")
+                            if axis == "lon" else
+                            ("latitude", ("degrees_north", "degree_north", "degree_n", "degrees_n"), _LAT_NAMES, "Y"))
+    vars_ = store.variables
+    for test in (
+        lambda i: str(i.attrs.get("standard_name", "")).lower() == sn,
+        lambda i: i.units.lower() in units,
+        lambda i: i.name.lower() in names,
+        lambda i: str(i.attrs.get("axis", "")).upper() == ax and "degree" in i.units.lower(),
+    ):
+        hits = [n for n, i in vars_.items() if test(i) and len(i.dims) in (1, 2)]
+        if hits:
+            return hits[0]
+    return None
+
+
 def read_field(path: Path, variable: str, key_name: str) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Read a 2-D lon/lat field (squeezing size-1 dims) from a netCDF file: (lon, lat, values).
 
@@ -752,14 +775,7 @@ def read_field(path: Path, variable: str, key_name: str) -> tuple[np.ndarray, np
         if variable not in store.variables:
             raise InputError(f"{path}: has no variable '{variable}' (recipe key {key_name}); "
                              f"variables: {', '.join(sorted(store.variables))}")
-        lon_name = lat_name = None
-        for name, info in store.variables.items():
-            sn = str(info.attrs.get("standard_name", "")).lower()
-            un = info.units.lower()
-            if sn == "longitude" or un in ("degrees_east", "degree_east", "degrees_e") or name.lower() in ("lon", "longitude"):
-                lon_name = lon_name or name
-            if sn == "latitude" or un in ("degrees_north", "degree_north", "degrees_n") or name.lower() in ("lat", "latitude"):
-                lat_name = lat_name or name
+        lon_name, lat_name = find_coordinate(store, "lon"), find_coordinate(store, "lat")
         if lon_name is None or lat_name is None:
             raise InputError(f"{path}: no longitude/latitude variables found (recipe key {key_name}); "
                              "give them standard_name longitude/latitude")
