@@ -51,6 +51,13 @@ class CheckResult:
 
             names = [m.name for m in members(self.recipe)]
             lines.append(f"members ({len(names)}): " + ", ".join(names))
+        phys = self.recipe.data.get("physics") or {}
+        if phys.get("mode", "none") != "none":
+            rule = phys.get("phase_rule", "change_driven")
+            lines.append(f"physics: mode {phys['mode']}, phase rule {rule} ("
+                         + ("water changes phase only where the imposed change requires it"
+                            if rule == "change_driven" else
+                            "the liquid/ice split is put on the freezing curve, as a diagnosing model would") + ")")
         if self.model is not None:
             g = self.model.grid
             size = " x ".join(f"{n} {d}" for n, d in zip(g.shape, g.dims))
@@ -226,8 +233,16 @@ def ledger_text(ledger: dict) -> str:
         lines.append("flags: " + ", ".join(f"{k} {v}" for k, v in ledger["flags"].items()))
     phys = ledger.get("physics", {})
     extra = [f"{k} {v:.4g}" for k, v in phys.items() if k.endswith("_total_J") or k.endswith("_total_kg")]
-    lines.append(f"physics: mode {phys.get('mode')}" + (("; " + ", ".join(extra)) if extra else ""))
-    if ledger.get("cells_not_in_phase_equilibrium_before"):
+    rule = f", phase rule {phys['phase_rule']}" if phys.get("phase_rule") else ""
+    lines.append(f"physics: mode {phys.get('mode')}{rule}" + (("; " + ", ".join(extra)) if extra else ""))
+    shift = ledger.get("input_phase_disequilibrium")
+    if shift and sum(shift["cells_per_layer"]):
+        cells = ", ".join(str(c) for c in shift["cells_per_layer"])
+        fr = ", ".join(f"{v:.3g}" for v in shift["equilibrium_rule_would_freeze_kg_per_layer"])
+        me = ", ".join(f"{v:.3g}" for v in shift["equilibrium_rule_would_melt_kg_per_layer"])
+        lines.append(f"input off the freezing curve ({'re-balanced' if shift['acted_on'] else 'reported, not acted on'}): "
+                     f"cells per layer [{cells}]; the equilibrium rule would freeze [{fr}] kg and melt [{me}] kg")
+    elif ledger.get("cells_not_in_phase_equilibrium_before"):
         lines.append(f"note: {ledger['cells_not_in_phase_equilibrium_before']} region layer-cells were not in phase "
                      "equilibrium before the change (left as they were outside the region)")
     return "\n".join(lines)

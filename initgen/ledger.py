@@ -77,6 +77,7 @@ class Ledger:
         self.flags: Counter = Counter()
         self.phase = {}
         self.disequilibrium = 0
+        self.input_shift = {}     # per layer: cells and kg the equilibrium rule would move in the input
         self.nlayers = {}
 
     def stats(self, name: str, role: str, units: str, nlayers: int, layered: bool) -> _Stats:
@@ -107,6 +108,13 @@ class Ledger:
             cur = np.zeros_like(per_layer, dtype=float)
         self.phase[key] = cur + per_layer
 
+    def add_input_shift(self, cells: np.ndarray, freeze_kg: np.ndarray, melt_kg: np.ndarray) -> None:
+        """Accumulate, per layer, the input's cells out of phase equilibrium and the kg (area
+        integrated) of water the equilibrium rule would freeze and melt in them."""
+        for key, v in (("cells", cells), ("freeze_kg", freeze_kg), ("melt_kg", melt_kg)):
+            cur = self.input_shift.get(key)
+            self.input_shift[key] = v if cur is None or cur.shape != v.shape else cur + v
+
     def finish(self) -> dict:
         model = self.plan.model
         depths = model.layers.node_m.tolist() if model.layers is not None else None
@@ -130,7 +138,9 @@ class Ledger:
             "variables": {},
             "clamps": dict(sorted(self.clamps.items())),
             "flags": dict(sorted(self.flags.items())),
-            "physics": {"mode": self.plan.physics["mode"]},
+            "physics": {"mode": self.plan.physics["mode"],
+                        **({"phase_rule": self.plan.physics.get("phase_rule", "change_driven")}
+                           if self.plan.physics["mode"] != "none" else {})},
             "member_factors": {"scale_times_sign": _num(self.plan.member_scale),
                                "offset_K": _num(self.plan.member_offset_K),
                                "noise": self.plan.noise is not None},
@@ -140,6 +150,20 @@ class Ledger:
             rows = rec["stats"].rows(depths if rec["role"] in ("soil_temperature", "soil_liquid", "soil_ice") else None)
             out["variables"][name] = {"role": rec["role"], "units": rec["units"],
                                       "layers" if rec["layered"] else "field": rows if rec["layered"] else rows[0]}
+        if self.input_shift:
+            rule = self.plan.physics.get("phase_rule", "change_driven")
+            s = self.input_shift
+            out["input_phase_disequilibrium"] = {
+                "cells_per_layer": [int(v) for v in s["cells"]],
+                "equilibrium_rule_would_freeze_kg_per_layer": [_num(v) for v in s["freeze_kg"]],
+                "equilibrium_rule_would_melt_kg_per_layer": [_num(v) for v in s["melt_kg"]],
+                "acted_on": rule == "equilibrium",
+                "meaning": ("region layer-cells of the input whose liquid/ice split is not on the freezing curve of "
+                            "the soil parameters used; "
+                            + ("the equilibrium rule re-balances them (as a model that diagnoses the split would)"
+                               if rule == "equilibrium" else
+                               "the change-driven rule leaves them as they are (reported, not acted on)")),
+            }
         if self.phase:
             phys = out["physics"]
             area = region_area if region_area > 0 else 1.0

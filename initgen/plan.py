@@ -603,9 +603,20 @@ def run(plan: Plan, store, *, write: bool, progress=None) -> dict:
     odd = sum(out["flags"].get(k, 0) for k in ("realised_change_opposite_to_imposed",
                                                 "realised_change_larger_than_imposed",
                                                 "phase_change_against_imposed_change"))
+    source = plan.physics.get("texture") or ("sand/clay" if plan.physics.get("sand_pct") is not None else
+                                             "the given parameters")
+    shift = out.get("input_phase_disequilibrium")
+    if shift and sum(shift["cells_per_layer"]):
+        fr = sum(shift["equilibrium_rule_would_freeze_kg_per_layer"])
+        me = sum(shift["equilibrium_rule_would_melt_kg_per_layer"])
+        warnings.warn(f"{sum(shift['cells_per_layer'])} region layer-cell(s) of the input are not in phase equilibrium "
+                      f"for the soil parameters used ({source}): the equilibrium rule would freeze {fr:.3g} kg and "
+                      f"melt {me:.3g} kg of water there; "
+                      + ("physics.phase_rule equilibrium re-balances them" if shift["acted_on"] else
+                         "the change-driven rule leaves them as they are")
+                      + "; check that physics matches your model (or give its parameters in the layout)",
+                      InputWarning, stacklevel=2)
     if odd:
-        source = plan.physics.get("texture") or ("sand/clay" if plan.physics.get("sand_pct") is not None else
-                                                 "the given parameters")
         warnings.warn(f"{odd} soil layer-cell flag(s) where water froze while warming, ice melted while cooling, or "
                       "the temperature moved against or beyond the imposed change: the start is "
                       f"not in phase equilibrium for the soil parameters used ({source}), so water froze or melted on "
@@ -701,6 +712,7 @@ def apply_block(plan: Plan, store, hkey: dict, widx: tuple, led, *, write: bool)
             led.disequilibrium += int(np.count_nonzero(
                 soil.disequilibrium(T0, water["liq"], water["ice"], water["porosity"], water["psi"], water["b"])
                 & inside))
+            _report_input_shift(T0, water, inside, led, area)
         for b, w in zip(plan.blocks, weights):
             if "soil_temperature" not in b.targets:
                 continue
@@ -718,7 +730,7 @@ def apply_block(plan: Plan, store, hkey: dict, widx: tuple, led, *, write: bool)
                         water[k] = np.where(sel, sources.donor_blend(water[k], dw[k], np.broadcast_to(wf, T.shape)),
                                             water[k])
                 if water is not None:
-                    _equilibrate_blend(T, water, sel, led, area)
+                    _equilibrate_blend(T, water, sel, led, area, phys.get("phase_rule", "change_driven"))
                 continue
             dT = wf * _bcast_h(_anomaly(plan, b, hidx), 2)
             if water is None:
@@ -1004,10 +1016,12 @@ def _physics(T_old, T_new, water, sel, phys, led, area, nh, mode, dT=None):
             raise InputError(f"{water[key + '_name']} holds more water than the layer's volume in {int(over.sum())} "
                              f"perturbed cell(s) when read as '{water[key + '_units']}'; check its units attribute "
                              "(kg m-2, m3 m-3 or saturation_fraction)")
+    rule = phys.get("phase_rule", "change_driven")
     if mode == "energy":
-        res = soil.apply_energy_mode(T_old, water["liq"], water["ice"], dT, water["dz"], **kw)
+        res = soil.apply_energy_mode(T_old, water["liq"], water["ice"], dT, water["dz"], rule=rule, **kw)
     else:
-        res = soil.apply_temperature_mode(T_old, water["liq"], water["ice"], T_new - T_old, water["dz"], **kw)
+        res = soil.apply_temperature_mode(T_old, water["liq"], water["ice"], T_new - T_old, water["dz"], rule=rule,
+                                          **kw)
     T = np.where(sel, res.T, T_old)
     water["liq"] = np.where(sel, res.liq, water["liq"])
     water["ice"] = np.where(sel, res.ice, water["ice"])
@@ -1028,16 +1042,35 @@ def _physics(T_old, T_new, water, sel, phys, led, area, nh, mode, dT=None):
     return T
 
 
-def _equilibrate_blend(T, water, sel, led, area) -> None:
-    """Bring a donor-blended state into phase equilibrium at its blended temperature.
+def _report_input_shift(T0, water, inside, led, area) -> None:
+    """Per layer: input cells off the freezing curve and the kg the equilibrium rule would move."""
+    ok = inside & np.isfinite(T0) & np.isfinite(water["liq"]) & np.isfinite(water["ice"])
+    with np.errstate(invalid="ignore"):
+        shift = soil.equilibrium_shift(np.where(ok, T0, constants.T_FREEZE), water["liq"], water["ice"],
+                                       water["porosity"], water["psi"], water["b"])
+    # shifts within the tolerance of soil.disequilibrium (1e-4 m3 m-3: float32 storage, slightly
+    # different constants) are not counted
+    shift = np.where(ok & (np.abs(shift) > soil.DISEQUILIBRIUM_TOL), shift, 0.0)
+    kg_m2 = shift * water["dz"] * constants.RHO_WATER
+    moved = shift != 0
+    a = _bcast_h(area, 2)
+    axes = tuple(i for i in range(kg_m2.ndim) if i != 1)
+    led.add_input_shift(moved.sum(axis=axes), (np.maximum(kg_m2, 0.0) * a).sum(axis=axes),
+                        (np.maximum(-kg_m2, 0.0) * a).sum(axis=axes))
 
-    A blend of two equilibrium states need not be in equilibrium itself (the freezing curve is
-    not linear); the temperature-mode rule applies: liquid above the supercooled limit freezes,
-    ice below freezing melts back up to the limit, no ice above 0 C; water is conserved.
+
+def _equilibrate_blend(T, water, sel, led, area, rule) -> None:
+    """Bring a donor-blended state into line with the phase rule at its blended temperature.
+
+    A blend of two consistent states need not be consistent itself (the freezing curve is not
+    linear). Change-driven rule: liquid above the supercooled limit freezes and ice above 0 C
+    melts, nothing else (:func:`soil.settle_one_sided`). Equilibrium rule: the split is put on
+    the freezing curve (:func:`soil.equilibrate_phase`). Water is conserved.
     """
     ok = sel & np.isfinite(T)
-    liq, ice = soil.equilibrate_phase(np.where(ok, T, T_FREEZE), water["liq"], water["ice"], water["porosity"],
-                                      water["psi"], water["b"])
+    settle = soil.equilibrate_phase if rule == "equilibrium" else soil.settle_one_sided
+    liq, ice = settle(np.where(ok, T, T_FREEZE), water["liq"], water["ice"], water["porosity"], water["psi"],
+                      water["b"])
     dice = np.where(ok, ice - water["ice"], 0.0)
     water["liq"] = np.where(ok, liq, water["liq"])
     water["ice"] = np.where(ok, ice, water["ice"])

@@ -152,8 +152,15 @@ PHYSICS = Obj(
     doc="how temperature changes interact with soil water and ice",
     fields={
         "mode": Str(choices=("none", "temperature", "energy"), default="none",
-                    doc="none: add dT only; temperature: add dT then re-equilibrate water phase; "
-                        "energy: impose the enthalpy change C*dT*dz and solve temperature and phase"),
+                    doc="none: add dT only; temperature: add dT exactly, water changes phase as the "
+                        "phase rule requires; energy: impose the enthalpy change C*dT*dz and solve "
+                        "temperature and phase"),
+        "phase_rule": Str(choices=("change_driven", "equilibrium"), default="change_driven",
+                          doc="change_driven: water changes phase only where the imposed change "
+                              "requires it (freeze liquid above the freezing curve on cooling, melt "
+                              "ice only above 273.15 K), for models with a one-sided rule; "
+                              "equilibrium: the liquid/ice split is put on the freezing curve at the "
+                              "new temperature, for models that diagnose it from temperature"),
         "soil_temperature_min_K": Num(minimum=100.0, maximum=273.15, default=180.0, unit="K",
                                       doc="lower bound for soil temperature (values below are clamped)"),
         "soil_temperature_max_K": Num(minimum=273.15, maximum=400.0, default=340.0, unit="K",

@@ -19,18 +19,34 @@ Enthalpy reference state
     H = 0 for soil whose water is **all frozen at T_f = 273.15 K**:
     ``H = C(theta_liq, theta_ice) * (T - T_f) * dz + RHO_WATER * L_f * theta_liq * dz`` (J m-2).
     The solvers, :func:`energy_of_change` and the tests all use this one function.
-Phase equilibrium
-    Below T_f the liquid content equals ``min(total water, supercooled limit)`` (Niu and Yang
-    2006); above T_f there is no ice. At exactly T_f, a layer whose water exceeds the porosity
-    may hold ice (the latent plateau of the enthalpy curve).
+Phase rules (``rule=`` of the two modes; recipe key ``physics.phase_rule``)
+    ``change_driven`` (the default): water changes phase only where the imposed change requires
+    it, as models with a one-sided rule do (freeze only liquid in excess of the supercooled
+    curve, melt only above T_f, hold the temperature at T_f while latent heat is paid).
+    Cooling freezes only liquid above the freezing curve at the new temperature; warming melts
+    ice only where the temperature would rise above T_f; in energy mode a layer at T_f with both
+    phases stays there until the latent heat is paid. A state such a model holds as stable
+    (ice with liquid below the curve, both phases at T_f) is never re-balanced.
+    ``equilibrium``: for models that diagnose the liquid/ice split from temperature at every
+    step. The split at the starting temperature is first taken as such a model would diagnose
+    it (:func:`equilibrate_phase`; no imposed energy is spent on it), then the change is
+    imposed and the new state is put on the equilibrium curve: below T_f the liquid content
+    equals ``min(total water, supercooled limit)`` (Niu and Yang 2006); above T_f there is no
+    ice; at exactly T_f a layer whose water exceeds the porosity may hold ice.
 Disequilibrium policy
-    A starting state need not be in phase equilibrium (e.g. liquid above the supercooled limit
-    below freezing, as another model's freezing curve may leave it). :func:`disequilibrium`
-    flags such cells so that the caller can report them. The mode functions re-equilibrate
-    **only the cells they perturb** (``dT != 0``); cells with ``dT == 0`` are returned
-    bit-identical, whatever their state. In energy mode a perturbed cell that starts out of
-    equilibrium is re-equilibrated within the imposed energy budget: the enthalpy change is
-    still exactly ``C * dT * dz``.
+    A starting state need not be in phase equilibrium for the soil parameters used (another
+    model's freezing curve or parameters may leave liquid above the curve, or ice with liquid
+    below it). :func:`equilibrium_shift` measures what the equilibrium rule would move, so that
+    the caller can report it. The change-driven rule does not act on it: liquid above the
+    starting temperature's curve is kept aside as liquid (only the curve's own drop freezes on
+    cooling), and ice above T_f is left to the model. Cells with ``dT == 0`` are returned
+    bit-identical, whatever their state, under both rules.
+Invariants (tested as properties)
+    Water (liquid + ice) is conserved exactly. The temperature change never has the sign
+    opposite to the imposed one. Energy mode: ``|dT| <= |imposed dT|`` and the enthalpy change
+    is ``C_0 * dT_imposed * dz``; the phase change is what that energy pays for. Temperature
+    mode: ``dT`` is the imposed change exactly. From a state consistent with the rule (no liquid
+    above the curve below T_f, no ice above T_f) the result is consistent again.
 Missing values and invalid inputs
     The mode functions change only cells with ``dT != 0`` and finite T and dT; every other
     cell (including NaN or fill-valued ones) is returned bit-identical with zero ledger
@@ -42,7 +58,8 @@ Suggested order for a caller
     1. convert units (:func:`temperature_to_kelvin`, :func:`water_to_volumetric`);
     2. on the input, :func:`clamp_negative_water` and :func:`clamp_pore_space` (counted: they
        change water), and :func:`disequilibrium` (reported only);
-    3. :func:`apply_energy_mode` or :func:`apply_temperature_mode` (water conserved exactly);
+    3. :func:`apply_energy_mode` or :func:`apply_temperature_mode` with the recipe's phase
+       rule (water conserved exactly);
     4. on the output, :func:`clamp_soil_temperature` and :func:`clamp_snow_temperature`
        (counted: they change energy; the phase is not re-equilibrated after them);
     5. convert back (:func:`kelvin_to_units`, :func:`volumetric_to_water`).
@@ -104,6 +121,9 @@ __all__ = [
     "apply_energy_mode",
     "apply_temperature_mode",
     "disequilibrium",
+    "equilibrium_shift",
+    "settle_one_sided",
+    "PHASE_RULES",
     "clamp",
     "clamp_soil_temperature",
     "clamp_snow_temperature",
@@ -877,7 +897,7 @@ def solve_enthalpy(H_target, total_water, dz, porosity, psi_sat_m, b, c_solid=No
     out = [np.empty(shape) for _ in range(3)]
     for sl, flat in _flat_blocks(shape, views):
         Hb, Wb, dzb, phib, psib, bb, csb = flat[:7]
-        Tb, lb = _solve_block(Hb / dzb, Wb, phib, psib, bb, csb,
+        Tb, lb = _solve_block(Hb / dzb, Wb, phib, psib, bb, (1.0 - phib) * csb,
                               flat[7] if T_guess is not None else None, max_iter)
         bshape = out[0][sl].shape
         out[0][sl] = Tb.reshape(bshape)
@@ -895,12 +915,16 @@ def _flat_blocks(shape, views):
         yield sl, [np.ascontiguousarray(v[sl]).reshape(-1) for v in views]
 
 
-def _solve_block(Hd, W, phi, psi, b, cs, T_guess, max_iter):
+def _solve_block(Hd, W, phi, psi, b, Cfix, T_guess, max_iter):
     """Solve one block of 1-D contiguous arrays (see :func:`solve_enthalpy`); Hd in J m-3.
+
+    ``Cfix`` is the heat capacity of everything that does not change phase, J m-3 K-1: the
+    solids ``(1 - phi) c_s``, plus (for the change-driven rule) ice already present and liquid
+    that the rule leaves alone. ``W`` is the water that may change phase along the curve.
 
     Returns (T, liq)."""
     psi = np.abs(psi)
-    K = (1.0 - phi) * cs + _CV_ICE_WE * W         # capacity with all water frozen, J m-3 K-1
+    K = Cfix + _CV_ICE_WE * W                     # capacity with all of W frozen, J m-3 K-1
     LW = _LV * W                                  # latent content of all the water, J m-3
     lk = np.minimum(W, phi)                       # liquid content at the kink
     Llk = _LV * lk
@@ -1132,18 +1156,67 @@ def _finish(T0, liq0, ice0, T1, liq1, ice1, touched, H0d, Csol, dz):
     return T1, liq1, ice1, np.maximum(-dmass, 0.0), np.maximum(dmass, 0.0), sensible, latent
 
 
+def settle_one_sided(T, liq, ice, porosity, psi_sat_m, b):
+    r"""Bring a state to the consistency the change-driven rule keeps, changing phase only where
+    the state's own temperature requires it.
+
+    .. math:: T < T_f:\ \theta_{liq}' = \min(\theta_{liq}, \theta_{liq}^{max}(T)); \qquad
+              T > T_f:\ \theta_{ice}' = 0; \qquad T = T_f:\ \text{unchanged}
+
+    (liquid above the supercooled limit of Niu and Yang 2006 freezes; ice above T_f melts;
+    liquid below the curve with ice present is stable and kept). Total water is conserved.
+    Used for a state that no imposed change produced, such as a blend of two files.
+
+    Parameters
+    ----------
+    T : array_like
+        Temperature, K.
+    liq, ice : array_like
+        Liquid and ice (liquid-equivalent) contents, m3 m-3.
+    porosity, psi_sat_m, b : array_like
+        Freezing-curve parameters (see :func:`supercooled_liquid_max`).
+
+    Returns
+    -------
+    tuple of numpy.ndarray
+        ``(theta_liq, theta_ice)``, m3 m-3.
+
+    References
+    ----------
+    .. [1] Niu, G.-Y., and Yang, Z.-L. (2006). *Journal of Hydrometeorology* 7, 937-952.
+    """
+    T, liq, ice = _f64(T), _f64(liq), _f64(ice)
+    below = T < T_FREEZE
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+        lmax = _liq_max_below(np.where(below, T, T_FREEZE - 1.0), _f64(porosity), np.abs(_f64(psi_sat_m)), _f64(b))
+    stays = np.where(below, np.minimum(liq, lmax), liq)
+    above = T > T_FREEZE
+    liq1 = np.where(above, liq + ice, stays)
+    ice1 = np.where(above, 0.0, ice + (liq - stays))
+    return liq1, ice1
+
+
+def _diagnosed_start(T, liq, ice, phi, psi, b, touched):
+    """The equilibrium rule's starting state: the split a model that diagnoses the phase from
+    temperature would see at the starting temperature (only where the cell is perturbed)."""
+    le, ie = equilibrate_phase(np.where(touched, T, T_FREEZE), liq, ice, phi, psi, b)
+    return np.where(touched, le, liq), np.where(touched, ie, ice)
+
+
 def _energy_block(T, liq, ice, dT, dz, phi, psi, b, cs, touched):
+    liq, ice = _diagnosed_start(T, liq, ice, phi, psi, b, touched)
     W = liq + ice
     Csol = (1.0 - phi) * cs
     C0 = Csol + CV_WATER * liq + _CV_ICE_WE * ice
     H0d = C0 * (T - T_FREEZE) + _LV * liq                  # J m-3
     target = H0d + C0 * dT
     target[~touched] = np.nan                              # untouched cells are not solved
-    T1, liq1 = _solve_block(target, W, phi, psi, b, cs, T, 40)
+    T1, liq1 = _solve_block(target, W, phi, psi, b, Csol, T, 40)
     return _finish(T, liq, ice, T1, liq1, W - liq1, touched, H0d, Csol, dz)
 
 
 def _temperature_block(T, liq, ice, dT, dz, phi, psi, b, cs, touched):
+    liq, ice = _diagnosed_start(T, liq, ice, phi, psi, b, touched)
     Csol = (1.0 - phi) * cs
     H0d = (Csol + CV_WATER * liq + _CV_ICE_WE * ice) * (T - T_FREEZE) + _LV * liq
     T1 = T + dT
@@ -1151,18 +1224,109 @@ def _temperature_block(T, liq, ice, dT, dz, phi, psi, b, cs, touched):
     return _finish(T, liq, ice, T1, liq1, ice1, touched, H0d, Csol, dz)
 
 
-def apply_energy_mode(T, liq, ice, dT_target, dz, porosity, psi_sat_m, b, c_solid=None):
+def _freezable(T, liq, phi, psi, b):
+    """Liquid the change-driven rule may freeze on cooling, and the liquid it leaves alone.
+
+    At or above T_f all liquid may freeze (once the curve requires it). Below T_f only the
+    liquid on or below the supercooled curve at the starting temperature takes part; liquid
+    above that curve (a state these soil parameters call out of equilibrium) is input
+    disequilibrium: it is reported by the caller and kept as it is, not acted on.
+    Returns ``(W_eligible, kept)`` with ``W_eligible + kept == liq``.
+    """
+    lmax0 = np.where(T < T_FREEZE, _liq_max_below(np.minimum(T, T_FREEZE), phi, psi, b), np.inf)
+    elig = np.where(T >= T_FREEZE, liq, np.minimum(liq, lmax0))
+    return elig, liq - elig
+
+
+def _energy_block_change_driven(T, liq, ice, dT, dz, phi, psi, b, cs, touched):
+    Csol = (1.0 - phi) * cs
+    C0 = Csol + CV_WATER * liq + _CV_ICE_WE * ice
+    H0d = C0 * (T - T_FREEZE) + _LV * liq                  # J m-3
+    e = C0 * dT                                            # imposed enthalpy change, J m-3
+    T1 = T + dT
+    liq1, ice1 = liq.copy(), ice.copy()
+    # warming: sensible up to T_f; at T_f the energy melts ice (the temperature is held there
+    # until the latent heat is paid); what is left warms the all-liquid layer. Below T_f no ice
+    # melts, and a layer already above T_f (ice there is input disequilibrium) only warms.
+    melt = touched & (dT > 0) & (T <= T_FREEZE) & (ice > 0) & (T1 > T_FREEZE)
+    if melt.any():
+        e2 = e - C0 * (T_FREEZE - T)                       # left at T_f, J m-3 (> 0)
+        m = np.minimum(ice, e2 / _LV)
+        e3 = np.maximum(e2 - _LV * m, 0.0)
+        T1 = np.where(melt, T_FREEZE + e3 / (C0 + _DCV * m), T1)
+        liq1 = np.where(melt, liq + m, liq1)
+        ice1 = np.where(melt, ice - m, ice1)
+    # cooling: along the freezing curve, freezing only the liquid that the curve at the new,
+    # lower temperature cannot hold (ice present and liquid kept aside are fixed capacities)
+    cool = touched & (dT < 0)
+    if cool.any():
+        elig, kept = _freezable(T, liq, phi, psi, b)
+        Cfix = Csol + _CV_ICE_WE * ice + CV_WATER * kept
+        target = np.where(cool, (Cfix + CV_WATER * elig) * (T - T_FREEZE) + _LV * elig + e, np.nan)
+        Tc, lc = _solve_block(target, elig, phi, psi, b, Cfix, T, 40)
+        T1 = np.where(cool, Tc, T1)
+        liq1 = np.where(cool, lc + kept, liq1)
+        ice1 = np.where(cool, ice + (elig - lc), ice1)
+    return _finish(T, liq, ice, T1, liq1, ice1, touched, H0d, Csol, dz)
+
+
+def _temperature_block_change_driven(T, liq, ice, dT, dz, phi, psi, b, cs, touched):
+    Csol = (1.0 - phi) * cs
+    H0d = (Csol + CV_WATER * liq + _CV_ICE_WE * ice) * (T - T_FREEZE) + _LV * liq
+    T1 = T + dT
+    W = liq + ice
+    # warming melts ice only where the temperature rises from at or below T_f to above it
+    melt = (dT > 0) & (T <= T_FREEZE) & (T1 > T_FREEZE)
+    liq1 = np.where(melt, W, liq)
+    ice1 = np.where(melt, 0.0, ice)
+    # cooling freezes only liquid above the curve at the new temperature
+    cool = (dT < 0) & (T1 < T_FREEZE)
+    if cool.any():
+        elig, kept = _freezable(T, liq, phi, psi, b)
+        lmax1 = _liq_max_below(np.where(cool, T1, T_FREEZE - 1.0), phi, psi, b)
+        stays = np.minimum(elig, lmax1)
+        liq1 = np.where(cool, stays + kept, liq1)
+        ice1 = np.where(cool, ice + (elig - stays), ice1)
+    return _finish(T, liq, ice, T1, liq1, ice1, touched, H0d, Csol, dz)
+
+
+#: The phase rules a mode can follow (recipe key ``physics.phase_rule``).
+PHASE_RULES = ("change_driven", "equilibrium")
+
+_BLOCKS = {
+    ("energy", "change_driven"): _energy_block_change_driven,
+    ("energy", "equilibrium"): _energy_block,
+    ("temperature", "change_driven"): _temperature_block_change_driven,
+    ("temperature", "equilibrium"): _temperature_block,
+}
+
+
+def _block_fn(mode, rule):
+    fn = _BLOCKS.get((mode, rule))
+    if fn is None:
+        raise InputError(f"physics.phase_rule: unknown phase rule {rule!r}; use one of {', '.join(PHASE_RULES)}")
+    return fn
+
+
+def apply_energy_mode(T, liq, ice, dT_target, dz, porosity, psi_sat_m, b, c_solid=None, rule="change_driven"):
     """Impose the enthalpy change of a temperature anomaly and solve temperature and phase.
 
     .. math:: \\Delta H = C_0\\,\\Delta T_{target}\\,\\Delta z, \\qquad
               H(T_1, \\theta_{liq,1}, \\theta_{ice,1}) = H(T_0, \\theta_{liq,0},
               \\theta_{ice,0}) + \\Delta H
 
-    with C_0 = :func:`heat_capacity` of the starting state, H from :func:`enthalpy` and the
-    new state on the freezing curve (as :func:`solve_enthalpy`). Water is conserved: a cold
-    anomaly freezes water (so the temperature falls by less than dT), a warm one melts ice.
-    Cells with ``dT_target == 0``, or a NaN temperature or anomaly, are returned unchanged
-    (not re-equilibrated).
+    with C_0 = :func:`heat_capacity` of the starting state and H from :func:`enthalpy`. Water
+    is conserved; latent heat can only damp the change (|dT| <= |dT_target|).
+
+    ``rule='change_driven'`` (default): warming below T_f is sensible only; a layer reaching
+    T_f with ice is held there while the energy melts ice (H = rho_w L_f theta_liq at T_f), and
+    what is left warms the all-liquid layer. Cooling follows the freezing curve, freezing only
+    the liquid the curve at the new temperature cannot hold (solved as :func:`solve_enthalpy`
+    with the ice present and any liquid above the starting curve as fixed capacities).
+    ``rule='equilibrium'``: the starting split is taken as diagnosed at T_0
+    (:func:`equilibrate_phase`) and the new state lies on the equilibrium curve
+    (:func:`solve_enthalpy`). Cells with ``dT_target == 0``, or a NaN temperature or anomaly,
+    are returned unchanged under both rules.
 
     Parameters
     ----------
@@ -1178,6 +1342,8 @@ def apply_energy_mode(T, liq, ice, dT_target, dz, porosity, psi_sat_m, b, c_soli
         Freezing-curve parameters (see :func:`supercooled_liquid_max`).
     c_solid : array_like, optional
         Heat capacity of the solids, J m-3 K-1 (default ``CV_SOLID_DEFAULT``).
+    rule : {'change_driven', 'equilibrium'}
+        Phase rule (see the module notes).
 
     Returns
     -------
@@ -1195,19 +1361,23 @@ def apply_energy_mode(T, liq, ice, dT_target, dz, porosity, psi_sat_m, b, c_soli
     ----------
     .. [1] de Vries (1963) for C; Niu and Yang (2006) for the freezing curve.
     """
+    block = _block_fn("energy", rule)
     shape, views = _mode_inputs(T, liq, ice, dT_target, dz, porosity, psi_sat_m, b, c_solid)
-    return _run_mode(_energy_block, shape, views, "apply_energy_mode")
+    return _run_mode(block, shape, views, "apply_energy_mode")
 
 
-def apply_temperature_mode(T, liq, ice, dT, dz, porosity, psi_sat_m, b, c_solid=None):
-    """Add a temperature anomaly, then re-equilibrate the water phase at the new temperature.
+def apply_temperature_mode(T, liq, ice, dT, dz, porosity, psi_sat_m, b, c_solid=None, rule="change_driven"):
+    """Add a temperature anomaly exactly, and change the water phase as the rule requires.
 
-    .. math:: T_1 = T_0 + \\Delta T, \\qquad (\\theta_{liq,1}, \\theta_{ice,1}) =
-              \\mathrm{equilibrate\\_phase}(T_1, \\theta_{liq,0}, \\theta_{ice,0})
+    .. math:: T_1 = T_0 + \\Delta T
 
-    The temperature change is exact; the energy it implies (sensible and latent, from
-    :func:`enthalpy`) is reported. Cells with ``dT == 0``, or a NaN temperature or anomaly,
-    are returned unchanged (not re-equilibrated).
+    ``rule='change_driven'`` (default): cooling to T_1 < T_f freezes only liquid above the
+    supercooled limit at T_1 (Niu and Yang 2006); warming from T_0 <= T_f to T_1 > T_f melts
+    all ice; nothing else changes phase. ``rule='equilibrium'``:
+    ``(theta_liq, theta_ice) = equilibrate_phase(T_1, ...)``, the split a diagnosing model
+    would see, measured from the split it diagnoses at T_0.
+    The energy the change implies (sensible and latent, from :func:`enthalpy`) is reported.
+    Cells with ``dT == 0``, or a NaN temperature or anomaly, are returned unchanged.
 
     Parameters
     ----------
@@ -1217,6 +1387,8 @@ def apply_temperature_mode(T, liq, ice, dT, dz, porosity, psi_sat_m, b, c_solid=
         Temperature anomaly, K.
     dz, porosity, psi_sat_m, b, c_solid : array_like
         As in :func:`apply_energy_mode`.
+    rule : {'change_driven', 'equilibrium'}
+        Phase rule (see the module notes).
 
     Returns
     -------
@@ -1232,15 +1404,20 @@ def apply_temperature_mode(T, liq, ice, dT, dz, porosity, psi_sat_m, b, c_solid=
     ----------
     .. [1] Niu, G.-Y., and Yang, Z.-L. (2006). *Journal of Hydrometeorology* 7, 937-952.
     """
+    block = _block_fn("temperature", rule)
     shape, views = _mode_inputs(T, liq, ice, dT, dz, porosity, psi_sat_m, b, c_solid)
-    return _run_mode(_temperature_block, shape, views, "apply_temperature_mode")
+    return _run_mode(block, shape, views, "apply_temperature_mode")
 
 
 # =============================================================================================
 # Starting-state checks and limits
 # =============================================================================================
 
-def disequilibrium(T, liq, ice, porosity, psi_sat_m, b, tol=1e-4):
+#: Tolerance below which a departure from the freezing curve is not reported, m3 m-3.
+DISEQUILIBRIUM_TOL = 1e-4
+
+
+def disequilibrium(T, liq, ice, porosity, psi_sat_m, b, tol=DISEQUILIBRIUM_TOL):
     """Cells whose starting state is not in phase equilibrium (for the ledger).
 
     A cell is flagged when (T > T_f and ice > tol), or (T < T_f and liq > theta_liq_max(T)
@@ -1270,6 +1447,40 @@ def disequilibrium(T, liq, ice, porosity, psi_sat_m, b, tol=1e-4):
     return (((T > T_FREEZE) & (ice > tol))
             | ((T < T_FREEZE) & (liq > lmax + tol))
             | ((T <= T_FREEZE) & (ice > tol) & (liq < lmax - tol)))
+
+
+def equilibrium_shift(T, liq, ice, porosity, psi_sat_m, b):
+    r"""Water the equilibrium rule would move between phases in a state, at its own temperature.
+
+    .. math:: \Delta\theta_{ice} = \theta_{ice}^{eq}(T) - \theta_{ice}
+
+    with :math:`\theta^{eq}` from :func:`equilibrate_phase` (Niu and Yang 2006 curve). Positive
+    values freeze liquid, negative ones melt ice. Used to report the input's disequilibrium
+    (it is not acted on under the change-driven rule).
+
+    Parameters
+    ----------
+    T : array_like
+        Temperature, K.
+    liq, ice : array_like
+        Liquid and ice (liquid-equivalent) contents, m3 m-3.
+    porosity, psi_sat_m, b : array_like
+        Freezing-curve parameters.
+
+    Returns
+    -------
+    numpy.ndarray
+        Ice that would form (> 0) or melt (< 0), m3 m-3 of liquid-water equivalent; NaN where
+        T is NaN.
+
+    References
+    ----------
+    .. [1] Niu, G.-Y., and Yang, Z.-L. (2006). *Journal of Hydrometeorology* 7, 937-952.
+    """
+    T, liq, ice = _f64(T), _f64(liq), _f64(ice)
+    with np.errstate(invalid="ignore"):
+        _, ie = equilibrate_phase(T, liq, ice, porosity, psi_sat_m, b)
+    return np.where(np.isfinite(T), ie - ice, np.nan)
 
 
 def clamp(values, lower=None, upper=None):

@@ -153,15 +153,25 @@ def test_snow_temperature_changes_only_where_there_is_snow(demo, tmp_path):
     assert not np.any(d[:, snow <= 0])
 
 
-def test_mismatched_soil_parameters_are_flagged_and_warned(demo, tmp_path):
+def test_mismatched_soil_parameters_are_reported_not_acted_on(demo, tmp_path):
     """The demo's water was put in equilibrium for loam (Clapp and Hornberger 1978). With sand
-    parameters its liquid water lies above sand's supercooled limit (Niu and Yang 2006), so in
-    energy mode water freezes on its own and releases heat: the soil warms under a cold recipe.
-    The ledger flags such cells and a warning says why."""
+    parameters its liquid water lies above sand's supercooled limit (Niu and Yang 2006). The
+    change-driven rule leaves that as it is (the soil never moves against the imposed change);
+    the ledger counts, per layer, what the equilibrium rule would move, and a warning says so.
+    With phase_rule equilibrium the water freezes on its own and releases heat: the soil warms
+    under a cold recipe, which the ledger flags."""
     text = (demo / "demo-cold-highland.yaml").read_text().replace("texture: loam", "texture: sand")
     (demo / "sand.yaml").write_text(text)
     with pytest.warns(UserWarning, match="not in phase equilibrium for the soil parameters used \\(sand\\)"):
         led = api.preview(demo / "sand.yaml", demo / "demo-restart.nc")
-    assert led["flags"]["realised_change_opposite_to_imposed"] > 0
+    shift = led["input_phase_disequilibrium"]
+    assert sum(shift["cells_per_layer"]) > 0 and sum(shift["equilibrium_rule_would_freeze_kg_per_layer"]) > 0
+    assert shift["acted_on"] is False
+    assert "realised_change_opposite_to_imposed" not in led["flags"]
+    (demo / "sand-eq.yaml").write_text(text.replace("physics:", "physics:\n  phase_rule: equilibrium"))
+    with pytest.warns(UserWarning, match="not in phase equilibrium"):
+        eq = api.preview(demo / "sand-eq.yaml", demo / "demo-restart.nc")
+    assert eq["input_phase_disequilibrium"]["acted_on"] is True
     plain = api.preview(demo / "demo-cold-highland.yaml", demo / "demo-restart.nc")
     assert "realised_change_opposite_to_imposed" not in plain["flags"]
+    assert sum(plain["input_phase_disequilibrium"]["cells_per_layer"]) == 0

@@ -283,15 +283,25 @@ def test_soil_parameters_out_of_range_and_phase_change_against_a_warming(tmp_pat
     lay = _layout_with(tmp_path, "  porosity: por\n  psi_sat: psi\n  clapp_b: bexp")
     with pytest.raises(Exception, match="'psi' \\(psi_sat, units 'm'\\).*outside 0.0001..10"):
         api.preview(rec, src, layout=lay)
-    # a warming in temperature mode that freezes water flags it and warns (in any mode)
+    # 0.30 liquid at 271 K lies far above sand's supercooled limit (Niu and Yang 2006): the
+    # equilibrium rule diagnoses the split at 271 K first, freezing water under a warming; the
+    # ledger counts it per layer as acted on, and a warning says so
     warm = tmp_path / "warm.yaml"
     warm.write_text(RECIPE.replace("constant_K: -2.0", "constant_K: 0.01").replace("TARGETS", "[soil_temperature]")
-                    + "physics: {mode: temperature, texture: sand}\n")
+                    + "physics: {mode: temperature, texture: sand, phase_rule: equilibrium}\n")
     gridded_file(tmp_path / "w.nc", (("soil_t", 271.0, "K"), ("soil_liq", 0.30, "m3 m-3"),
                                      ("soil_ice", 0.0, "m3 m-3")))
-    with pytest.warns(UserWarning, match="water froze while warming"):
+    with pytest.warns(UserWarning, match="would freeze .* kg.*equilibrium re-balances them"):
         led = api.preview(warm, tmp_path / "w.nc", layout=LAYOUTS / "gridded-layered.yaml")
-    assert led["flags"]["phase_change_against_imposed_change"] > 0
+    shift = led["input_phase_disequilibrium"]
+    assert shift["acted_on"] and sum(shift["equilibrium_rule_would_freeze_kg_per_layer"]) > 0
+    assert led["variables"]["soil_liq"]["layers"][0]["max"] < 0      # the liquid went down
+    # the change-driven rule leaves the input's state alone and reports it
+    warm.write_text(warm.read_text().replace(", phase_rule: equilibrium", ""))
+    with pytest.warns(UserWarning, match="not in phase equilibrium.*leaves them as they are"):
+        led = api.preview(warm, tmp_path / "w.nc", layout=LAYOUTS / "gridded-layered.yaml")
+    assert "phase_change_against_imposed_change" not in led["flags"]
+    assert led["physics"]["frozen_region_total_kg"] == 0
     bad = tmp_path / "bad.yaml"
     bad.write_text(recipe(tmp_path, physics="physics: {mode: energy, sand_pct: 70, clay_pct: 50}\n").read_text())
     assert main(["check", str(bad)]) == 2
