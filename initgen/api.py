@@ -58,6 +58,9 @@ class CheckResult:
                          + ("water changes phase only where the imposed change requires it"
                             if rule == "change_driven" else
                             "the liquid/ice split is put on the freezing curve, as a diagnosing model would") + ")")
+            if self.model is not None:
+                src = plan_mod.soil_parameter_sources(self.plan.physics if self.plan else phys, self.model)
+                lines.append("soil parameters: " + "; ".join(f"{k.replace('_', ' ')} {v}" for k, v in src.items()))
         if self.model is not None:
             g = self.model.grid
             size = " x ".join(f"{n} {d}" for n, d in zip(g.shape, g.dims))

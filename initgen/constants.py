@@ -28,6 +28,8 @@ References
 .. [4] IUGG mean Earth radius R1 of the Geodetic Reference System 1980 (Moritz, H., 2000,
    *Journal of Geodesy* 74, 128-133), rounded to 6371.0 km as listed in REFERENCES.md
    (R1 = 6371.0088 km recalled from memory, not re-read).
+.. [5] Lee, R. (1978). *Forest Microclimatology*. Columbia University Press (cited by [3],
+   Table 2.2, for ice and snow).
 """
 
 from __future__ import annotations
@@ -47,7 +49,7 @@ __all__ = [
     "CV_CLAY_MINERALS_DE_VRIES",
     "CV_ORGANIC_DE_VRIES",
     "CV_WATER_DE_VRIES",
-    "CV_ICE_DE_VRIES",
+    "CV_ICE_TABLE",
     "CV_SAND_TEXTURE",
     "CV_CLAY_TEXTURE",
     "CV_ORGANIC_TEXTURE",
@@ -102,9 +104,10 @@ CV_ORGANIC_DE_VRIES = 2.47e6
 #: reference only: the physics uses ``CV_WATER`` of the CESM set.
 CV_WATER_DE_VRIES = 4.18e6
 
-#: Volumetric heat capacity of ice, J m-3 K-1. Source: de Vries (1963) [2] via [3]. For
-#: reference only: the physics uses ``CV_ICE`` of the CESM set.
-CV_ICE_DE_VRIES = 1.88e6
+#: Volumetric heat capacity of ice, J m-3 K-1. Source: Lee (1978) [5], as tabulated in [3]
+#: Table 2.2 (the table credits its "other materials", ice among them, to Lee, not to de Vries).
+#: For reference only: the physics uses ``CV_ICE`` of the CESM set.
+CV_ICE_TABLE = 1.88e6
 
 # --- texture formula for soil solids (de Vries values as used by land models) ---------------
 

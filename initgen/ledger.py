@@ -78,6 +78,7 @@ class Ledger:
         self.phase = {}
         self.disequilibrium = 0
         self.input_shift = {}     # per layer: cells and kg the equilibrium rule would move in the input
+        self.soil_sources = None  # where the soil parameters came from (set by the plan's run)
         self.nlayers = {}
 
     def stats(self, name: str, role: str, units: str, nlayers: int, layered: bool) -> _Stats:
@@ -139,7 +140,8 @@ class Ledger:
             "clamps": dict(sorted(self.clamps.items())),
             "flags": dict(sorted(self.flags.items())),
             "physics": {"mode": self.plan.physics["mode"],
-                        **({"phase_rule": self.plan.physics.get("phase_rule", "change_driven")}
+                        **({"phase_rule": self.plan.physics.get("phase_rule", "change_driven"),
+                            "soil_parameters": self.soil_sources}
                            if self.plan.physics["mode"] != "none" else {})},
             "member_factors": {"scale_times_sign": _num(self.plan.member_scale),
                                "offset_K": _num(self.plan.member_offset_K),

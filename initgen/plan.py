@@ -589,6 +589,8 @@ def blocks_of(plan: Plan, slab: tuple) -> list[tuple[dict, tuple]]:
 def run(plan: Plan, store, *, write: bool, progress=None) -> dict:
     """Apply the plan to ``store`` (writing only when ``write``) and return the ledger."""
     led = ledger_mod.Ledger(plan)
+    if plan.physics["mode"] != "none":
+        led.soil_sources = soil_parameter_sources(plan.physics, plan.model)
     all_blocks = [b for s in slabs(plan) for b in blocks_of(plan, s)]
     for k, (hkey, widx) in enumerate(all_blocks):
         apply_block(plan, store, hkey, widx, led, write=write)
@@ -967,13 +969,48 @@ def _hydraulics(plan: Plan, store, hkey, shape, model=None):
         c_solid = soil.soil_solid_heat_capacity(phys["sand_pct"], phys["clay_pct"])
     elif phys.get("texture"):
         por, psi, b = soil.hydraulics_from_texture(phys["texture"])
+        c_solid = soil.texture_solid_heat_capacity(phys["texture"])
     elif phys.get("porosity") and phys.get("psi_sat_m") and phys.get("clapp_b"):
         por, psi, b = phys["porosity"], phys["psi_sat_m"], phys["clapp_b"]
     else:
         raise InputError("recipe key physics: a physics mode needs soil hydraulic parameters; give physics.texture, "
                          "physics.sand_pct and clay_pct, or porosity, psi_sat_m and clapp_b (or name them in the layout)")
+    if phys.get("organic_fraction") is not None:
+        if named:
+            raise InputError("recipe key physics.organic_fraction: the layout gives the model's own soil parameters "
+                             f"({', '.join(named)}); blend organic soil into recipe parameters only (remove one)")
+        (por, psi, b), c_solid = soil.blend_organic(
+            (por, psi, b), soil.CV_SOLID_DEFAULT if c_solid is None else c_solid, phys["organic_fraction"])
     out = tuple(np.broadcast_to(np.asarray(x, float), shape) for x in (por, psi, b))
     return out + (None if c_solid is None else np.broadcast_to(np.asarray(c_solid, float), shape),)
+
+
+def soil_parameter_sources(physics: dict, model: ModelFile) -> dict:
+    """Where the soil parameters of a physics mode come from, in words (for check and the ledger):
+    the same order of precedence as :func:`_hydraulics`."""
+    named = [r for r in ("porosity", "psi_sat", "clapp_b") if model.role(r) is not None]
+    default_cs = (f"default {soil.CV_SOLID_DEFAULT:.5g} J m-3 K-1 (texture formula at equal sand and clay; "
+                  "a choice of initgen: give sand/clay or a texture to set it)")
+    if named:
+        hyd, cs = "file variables " + ", ".join(model.role(r).variables[0] for r in named), default_cs
+    elif model.role("sand") is not None and model.role("clay") is not None:
+        hyd = "Cosby et al. (1984) Table 5 from the file's sand and clay"
+        cs = "texture formula (de Vries 1963 values) from the file's sand and clay"
+    elif physics.get("sand_pct") is not None:
+        hyd = f"Cosby et al. (1984) Table 5 at sand {physics['sand_pct']:g} %, clay {physics['clay_pct']:g} %"
+        cs = "texture formula (de Vries 1963 values) at the same sand and clay"
+    elif physics.get("texture"):
+        sand, clay = soil.TEXTURE_CLASS_CENTROID_PCT.get(physics["texture"], (None, None))
+        hyd = f"Clapp and Hornberger (1978) Table 2, {physics['texture']}"
+        cs = (f"texture formula at the class centroid (sand {sand:g} %, clay {clay:g} %)" if sand is not None
+              else "texture formula at the class centroid")
+    else:
+        hyd, cs = "recipe constants porosity, psi_sat_m, clapp_b", default_cs
+    out = {"hydraulics": hyd, "solids_heat_capacity": cs}
+    if physics.get("organic_fraction") is not None:
+        out["organic_fraction"] = (f"{physics['organic_fraction']:g}, blended linearly with the organic soil of "
+                                   "Lawrence and Slater (2008)")
+    return out
 
 
 def _read_water(plan: Plan, store, hkey, shape, donor: ModelFile | None = None) -> dict:

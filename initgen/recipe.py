@@ -176,6 +176,10 @@ PHYSICS = Obj(
                         doc="sand percentage for the Cosby et al. (1984) regressions"),
         "clay_pct": Num(minimum=0.0, maximum=100.0, default=None, unit="%",
                         doc="clay percentage for the Cosby et al. (1984) regressions"),
+        "organic_fraction": Num(minimum=0.0, maximum=1.0, default=None, unit="1",
+                                doc="organic-matter fraction of the soil solids: porosity, suction, b and solids "
+                                    "heat capacity are blended linearly with the organic-soil values of Lawrence "
+                                    "and Slater (2008)"),
     },
 )
 

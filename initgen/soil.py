@@ -112,6 +112,10 @@ __all__ = [
     "hydraulics_from_texture",
     "cosby_1984",
     "soil_solid_heat_capacity",
+    "texture_solid_heat_capacity",
+    "blend_organic",
+    "TEXTURE_CLASS_CENTROID_PCT",
+    "ORGANIC_LAWRENCE_SLATER_2008",
     "supercooled_liquid_max",
     "heat_capacity",
     "enthalpy",
@@ -424,6 +428,104 @@ CLAPP_HORNBERGER_1978 = {
     "silty clay": ClappHornberger(10.4, 49.0, 0.492, 0.0062),
     "clay": ClappHornberger(11.4, 40.5, 0.482, 0.0077),
 }
+
+
+#: Centroid composition of each texture class of the USDA texture triangle, percent
+#: ``(sand, clay)``: the mean over the class's area in the triangle, computed from the class
+#: definitions of the Soil Survey Manual (Soil Science Division Staff 2017, USDA Handbook 18;
+#: the class limits are a fact of the trade) on a 0.1 % grid and rounded to 0.1 %. Used to give
+#: a texture class the solids heat capacity of the texture formula; tests/test_phase_rules.py
+#: recomputes it from the definitions.
+TEXTURE_CLASS_CENTROID_PCT = {
+    "sand": (91.6, 3.3),
+    "loamy sand": (81.6, 5.8),
+    "sandy loam": (64.6, 10.4),
+    "silt loam": (21.5, 13.2),
+    "loam": (41.0, 18.3),
+    "sandy clay loam": (59.8, 27.1),
+    "silty clay loam": (10.0, 33.5),
+    "clay loam": (32.5, 33.5),
+    "sandy clay": (51.7, 41.6),
+    "silty clay": (6.6, 46.7),
+    "clay": (19.5, 62.9),
+}
+
+#: Organic soil (peat) parameters of Lawrence and Slater (2008): porosity 0.9, saturated
+#: suction 10.3 mm, Clapp-Hornberger b 2.7 (after Letts et al. 2000) and solids heat capacity
+#: 2.5e6 J m-3 K-1 (after Farouki 1986). Values confirmed in published model code implementing
+#: that paper.
+ORGANIC_LAWRENCE_SLATER_2008 = {"porosity": 0.9, "psi_sat_m": 0.0103, "b": 2.7, "c_solid": 2.5e6}
+
+
+def _texture_key(name):
+    return " ".join(str(name).strip().lower().replace("_", " ").replace("-", " ").split())
+
+
+def texture_solid_heat_capacity(name):
+    """Solids heat capacity of a texture class, J m-3 K-1: :func:`soil_solid_heat_capacity`
+    at the class's centroid composition (:data:`TEXTURE_CLASS_CENTROID_PCT`).
+
+    Parameters
+    ----------
+    name : str
+        A Clapp and Hornberger (1978) texture class (spelling as :func:`hydraulics_from_texture`).
+
+    Returns
+    -------
+    float
+        c_s, J m-3 K-1.
+
+    References
+    ----------
+    .. [1] de Vries (1963) values in the texture formula (see :func:`soil_solid_heat_capacity`).
+    .. [2] Soil Science Division Staff (2017). *Soil Survey Manual*, USDA Handbook 18 (texture
+       class definitions).
+    """
+    hydraulics_from_texture(name)                       # validates the name
+    sand, clay = TEXTURE_CLASS_CENTROID_PCT[_texture_key(name)]
+    return float(soil_solid_heat_capacity(sand, clay))
+
+
+def blend_organic(hydraulics, c_solid, organic_fraction):
+    r"""Blend mineral soil parameters with those of organic soil, linearly in the organic fraction.
+
+    .. math:: x = (1 - f_{om})\,x_{mineral} + f_{om}\,x_{organic}
+
+    for porosity, saturated suction |psi_s|, Clapp-Hornberger b and the solids heat capacity,
+    with the organic values of Lawrence and Slater (2008) (:data:`ORGANIC_LAWRENCE_SLATER_2008`).
+
+    Parameters
+    ----------
+    hydraulics : Hydraulics
+        Mineral ``(porosity m3 m-3, psi_sat_m m, b)``.
+    c_solid : array_like
+        Mineral solids heat capacity, J m-3 K-1.
+    organic_fraction : array_like
+        f_om, 0..1.
+
+    Returns
+    -------
+    tuple
+        ``(Hydraulics, c_solid)`` blended.
+
+    Raises
+    ------
+    InputError
+        If the fraction lies outside 0..1.
+
+    References
+    ----------
+    .. [1] Lawrence, D. M., and Slater, A. G. (2008). Incorporating organic soil into a global
+       climate model. *Climate Dynamics* 30, 145-160.
+    """
+    f = _f64(organic_fraction)
+    if not np.all((f >= 0) & (f <= 1)):
+        raise InputError("recipe key physics.organic_fraction: must lie in 0..1 (a fraction, not percent)")
+    om = ORGANIC_LAWRENCE_SLATER_2008
+    por, psi, b = (_f64(x) for x in hydraulics)
+    mix = (lambda mineral, organic: (1.0 - f) * mineral + f * organic)
+    return (Hydraulics(mix(por, om["porosity"]), mix(np.abs(psi), om["psi_sat_m"]), mix(b, om["b"])),
+            mix(_f64(c_solid), om["c_solid"]))
 
 
 def hydraulics_from_texture(name):

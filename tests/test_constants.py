@@ -31,7 +31,7 @@ from initgen import constants as K
         ("CV_CLAY_MINERALS_DE_VRIES", 2.39e6, "Moene and van Dam 2014, Table 2.2 (confirmed)"),
         ("CV_ORGANIC_DE_VRIES", 2.47e6, "Moene and van Dam 2014, Table 2.2 (confirmed)"),
         ("CV_WATER_DE_VRIES", 4.18e6, "Moene and van Dam 2014, Table 2.2 (confirmed)"),
-        ("CV_ICE_DE_VRIES", 1.88e6, "Moene and van Dam 2014, Table 2.2 (confirmed)"),
+        ("CV_ICE_TABLE", 1.88e6, "Moene and van Dam 2014, Table 2.2, credited there to Lee 1978 (confirmed)"),
         ("CV_SAND_TEXTURE", 2.128e6, "REFERENCES.md texture formula (confirmed)"),
         ("CV_CLAY_TEXTURE", 2.385e6, "REFERENCES.md texture formula (confirmed)"),
         ("CV_ORGANIC_TEXTURE", 2.5e6, "REFERENCES.md texture formula (confirmed)"),
@@ -49,16 +49,6 @@ def test_derived_capacities_computed_by_hand():
     assert K.CV_ICE == pytest.approx(1941536.59, rel=1e-12)
     # computed by hand: (2.128e6 + 2.385e6) / 2 = 2.2565e6 J m-3 K-1 (documented default)
     assert K.CV_SOLID_DEFAULT == pytest.approx(2.2565e6, rel=1e-12)
-
-
-def test_sets_agree_with_de_vries_within_stated_tolerance():
-    """The CESM water/ice values and the de Vries tabulation are different published sets;
-    they agree to 0.2 % (water) and 3.5 % (ice), which bounds what mixing sets would change."""
-    assert K.CV_WATER == pytest.approx(K.CV_WATER_DE_VRIES, rel=2e-3)   # 4.188e6 vs 4.18e6
-    assert K.CV_ICE == pytest.approx(K.CV_ICE_DE_VRIES, rel=3.5e-2)     # 1.9415e6 vs 1.88e6
-    # texture end members vs de Vries quartz and clay minerals (2.128 vs 2.13; 2.385 vs 2.39)
-    assert K.CV_SAND_TEXTURE == pytest.approx(K.CV_QUARTZ_DE_VRIES, rel=2e-3)
-    assert K.CV_CLAY_TEXTURE == pytest.approx(K.CV_CLAY_MINERALS_DE_VRIES, rel=3e-3)
 
 
 def test_module_names_its_constant_set():

@@ -432,6 +432,23 @@ def test_unknown_soil_texture(work, capsys):
             folder=work)
 
 
+def test_unknown_phase_rule(work, capsys):
+    demo = write_demo_restart(work / "demo.nc")
+    rec = recipe(work, swap("lon: [20, 80], lat: [10, 50]", "lon: [170, 190], lat: [30, 45]")
+                 + "physics: {mode: energy, texture: loam, phase_rule: nearest}\n")
+    refused(capsys, ["apply", rec, "--input", demo, "--output", work / "o.nc"], "physics.phase_rule", "nearest",
+            folder=work)
+
+
+@pytest.mark.parametrize("value", ["1.5", "-0.1", "40"])
+def test_organic_fraction_outside_0_to_1(work, capsys, value):
+    demo = write_demo_restart(work / "demo.nc")
+    rec = recipe(work, swap("lon: [20, 80], lat: [10, 50]", "lon: [170, 190], lat: [30, 45]")
+                 + f"physics: {{mode: energy, texture: loam, organic_fraction: {value}}}\n")
+    refused(capsys, ["apply", rec, "--input", demo, "--output", work / "o.nc"], "physics.organic_fraction",
+            folder=work)
+
+
 def test_physics_mode_without_soil_parameters(work, capsys):
     demo = write_demo_restart(work / "demo.nc")
     rec = recipe(work, swap("lon: [20, 80], lat: [10, 50]", "lon: [170, 190], lat: [30, 45]")

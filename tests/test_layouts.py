@@ -213,12 +213,13 @@ def test_file_soil_parameters_units_suction_and_fractions(tmp_path):
     """Loam of Clapp and Hornberger (1978, Table 2): b 5.39, psi_s 47.8 cm, porosity 0.451, given
     in a file as suction in 'mm H2O' (negative, as models store potentials), or as sand and
     clay fractions for Cosby et al. (1984); both must give the same energy-mode result as the
-    recipe's texture where the parameters agree (the suction case), and run with fractions."""
+    recipe's constants where the parameters agree (the suction case; both use the default
+    solids heat capacity), and run with fractions."""
     rec = recipe(tmp_path, physics="physics: {mode: energy}\n")
     src = _physics_params_file(tmp_path, (("por", 0.451, "1"), ("psi", -478.0, "mm H2O"), ("bexp", 5.39, "1")))
     lay = _layout_with(tmp_path, "  porosity: por\n  psi_sat: psi\n  clapp_b: bexp")
     a = api.apply(rec, src, tmp_path / "a.nc", layout=lay)
-    tex = recipe(tmp_path, physics="physics: {mode: energy, texture: loam}\n")
+    tex = recipe(tmp_path, physics="physics: {mode: energy, porosity: 0.451, psi_sat_m: 0.478, clapp_b: 5.39}\n")
     tex_path = tmp_path / "tex.yaml"
     tex_path.write_text(tex.read_text())
     b = api.apply(tex_path, src, tmp_path / "b.nc", layout=LAYOUTS / "gridded-layered.yaml")

@@ -252,3 +252,82 @@ def test_settle_one_sided_changes_phase_only_where_the_temperature_requires_it()
     np.testing.assert_allclose(liq, [lmax(268.15), 0.05, 0.2, 0.2], rtol=1e-12)
     np.testing.assert_allclose(ice, [0.25 - lmax(268.15) + 0.0, 0.25, 0.0, 0.15], rtol=1e-12)
     assert liq[0] == pytest.approx(0.1188, abs=1e-4)
+
+
+# =============================================================================================
+# Soil properties: texture-class heat capacity, organic soil
+# =============================================================================================
+
+def _usda_class(sand, clay):
+    """The twelve USDA texture classes from their definitions in the Soil Survey Manual (Soil
+    Science Division Staff 2017, USDA Handbook 18); percentages of sand, silt and clay."""
+    silt = 100.0 - sand - clay
+    return [
+        ("sand", (silt + 1.5 * clay) < 15),
+        ("loamy sand", ((silt + 1.5 * clay) >= 15) & ((silt + 2 * clay) < 30)),
+        ("sandy loam", (((clay >= 7) & (clay < 20) & (sand > 52)) | ((clay < 7) & (silt < 50)))
+         & ((silt + 2 * clay) >= 30)),
+        ("loam", (clay >= 7) & (clay < 27) & (silt >= 28) & (silt < 50) & (sand <= 52)),
+        ("silt loam", ((silt >= 50) & (clay >= 12) & (clay < 27)) | ((silt >= 50) & (silt < 80) & (clay < 12))),
+        ("silt", (silt >= 80) & (clay < 12)),
+        ("sandy clay loam", (clay >= 20) & (clay < 35) & (silt < 28) & (sand > 45)),
+        ("clay loam", (clay >= 27) & (clay < 40) & (sand > 20) & (sand <= 45)),
+        ("silty clay loam", (clay >= 27) & (clay < 40) & (sand <= 20)),
+        ("sandy clay", (clay >= 35) & (sand > 45)),
+        ("silty clay", (clay >= 40) & (silt >= 40)),
+        ("clay", (clay >= 40) & (sand <= 45) & (silt < 40)),
+    ]
+
+
+def test_texture_class_centroids_follow_from_the_class_definitions():
+    """The definitions partition the triangle (every composition in exactly one class); the
+    centroid table is the mean composition of each class; three classes with simple polygons
+    are checked against shapely's polygon centroid (vertices from the same definitions):
+    sand (85,0)-(100,0)-(90,10), loamy sand (70,0)-(85,0)-(90,10)-(85,15) and silty clay
+    (0,40)-(20,40)-(0,60) in (sand, clay) percent."""
+    from shapely.geometry import Polygon
+
+    g = np.arange(0.05, 100, 0.1)
+    S, Cl = np.meshgrid(g, g)
+    ok = S + Cl < 100
+    S, Cl = S[ok], Cl[ok]
+    classes = _usda_class(S, Cl)
+    assert np.all(sum(c.astype(int) for _, c in classes) == 1)
+    for name, m in classes:
+        if name == "silt":               # not a Clapp and Hornberger (1978) class
+            continue
+        sand, clay = soil.TEXTURE_CLASS_CENTROID_PCT[name]
+        assert sand == pytest.approx(S[m].mean(), abs=0.06), name
+        assert clay == pytest.approx(Cl[m].mean(), abs=0.06), name
+    for name, verts in (("sand", [(85, 0), (100, 0), (90, 10)]),
+                        ("loamy sand", [(70, 0), (85, 0), (90, 10), (85, 15)]),
+                        ("silty clay", [(0, 40), (20, 40), (0, 60)])):
+        c = Polygon(verts).centroid
+        assert soil.TEXTURE_CLASS_CENTROID_PCT[name] == pytest.approx((c.x, c.y), abs=0.1), name
+    assert set(soil.TEXTURE_CLASS_CENTROID_PCT) == set(soil.CLAPP_HORNBERGER_1978)
+
+
+def test_texture_class_heat_capacity_uses_the_texture_formula():
+    """Loam: centroid 41.0 % sand, 18.3 % clay; c_s = (2.128 * 41.0 + 2.385 * 18.3) / 59.3 * 1e6
+    = 2.2073e6 J m-3 K-1 (texture formula of REFERENCES.md, de Vries 1963 values)."""
+    assert soil.texture_solid_heat_capacity("Loam") == pytest.approx(
+        (2.128e6 * 41.0 + 2.385e6 * 18.3) / 59.3, rel=1e-12)
+    assert soil.texture_solid_heat_capacity("loam") == pytest.approx(2.2073e6, rel=1e-4)
+    with pytest.raises(soil.InputError, match="Clapp and Hornberger"):
+        soil.texture_solid_heat_capacity("peat")
+
+
+def test_organic_blend_against_lawrence_and_slater_2008():
+    """Lawrence and Slater (2008): organic soil porosity 0.9, |psi_s| 10.3 mm, b 2.7, solids
+    heat capacity 2.5e6 J m-3 K-1, blended linearly. Pure organic soil gives those values; loam
+    (Clapp and Hornberger 1978: 0.451, 478 mm, 5.39) at f = 0.25 gives
+    porosity 0.75 * 0.451 + 0.25 * 0.9 = 0.56325, |psi_s| 0.75 * 0.478 + 0.25 * 0.0103 = 0.361075 m,
+    b 0.75 * 5.39 + 0.25 * 2.7 = 4.7175, c_s 0.75 * 2.2e6 + 0.25 * 2.5e6 = 2.275e6."""
+    (por, psi, b), cs = soil.blend_organic(soil.Hydraulics(*LOAM), 2.2e6, 1.0)
+    assert (float(por), float(psi), float(b), float(cs)) == pytest.approx((0.9, 0.0103, 2.7, 2.5e6))
+    (por, psi, b), cs = soil.blend_organic(soil.Hydraulics(*LOAM), 2.2e6, 0.25)
+    assert (float(por), float(psi), float(b), float(cs)) == pytest.approx((0.56325, 0.361075, 4.7175, 2.275e6))
+    (por, psi, b), cs = soil.blend_organic(soil.Hydraulics(*LOAM), 2.2e6, 0.0)
+    assert (float(por), float(psi), float(b), float(cs)) == pytest.approx((*LOAM, 2.2e6))
+    with pytest.raises(soil.InputError, match="organic_fraction"):
+        soil.blend_organic(soil.Hydraulics(*LOAM), 2.2e6, 1.5)
