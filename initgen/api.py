@@ -238,6 +238,16 @@ def ledger_text(ledger: dict) -> str:
     extra = [f"{k} {v:.4g}" for k, v in phys.items() if k.endswith("_total_J") or k.endswith("_total_kg")]
     rule = f", phase rule {phys['phase_rule']}" if phys.get("phase_rule") else ""
     lines.append(f"physics: mode {phys.get('mode')}{rule}" + (("; " + ", ".join(extra)) if extra else ""))
+    inv = phys.get("invariants")
+    if inv:
+        bad = [k for k in ("cells_change_opposite_to_imposed", "cells_change_beyond_imposed",
+                           "cells_change_not_equal_to_imposed") if inv.get(k)]
+        text = (f"water change {inv['water_change_region_kg']:.3g} kg (relative {inv['water_change_relative']:.3g})"
+                + (f", energy budget error <= {inv['max_energy_budget_rel_error']:.2g} (relative)"
+                   if "max_energy_budget_rel_error" in inv else ""))
+        lines.append(f"invariants on {inv['cells_checked']} changed layer-cells: "
+                     + ("; ".join(f"{k} {inv[k]}" for k in bad) + "; " if bad else "sign and size as imposed; ")
+                     + text)
     shift = ledger.get("input_phase_disequilibrium")
     if shift and sum(shift["cells_per_layer"]):
         cells = ", ".join(str(c) for c in shift["cells_per_layer"])

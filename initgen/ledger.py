@@ -79,6 +79,7 @@ class Ledger:
         self.disequilibrium = 0
         self.input_shift = {}     # per layer: cells and kg the equilibrium rule would move in the input
         self.soil_sources = None  # where the soil parameters came from (set by the plan's run)
+        self.invariants = Counter()   # the physics' promises, measured on the cells it changed
         self.nlayers = {}
 
     def stats(self, name: str, role: str, units: str, nlayers: int, layered: bool) -> _Stats:
@@ -152,6 +153,25 @@ class Ledger:
             rows = rec["stats"].rows(depths if rec["role"] in ("soil_temperature", "soil_liquid", "soil_ice") else None)
             out["variables"][name] = {"role": rec["role"], "units": rec["units"],
                                       "layers" if rec["layered"] else "field": rows if rec["layered"] else rows[0]}
+        inv = self.invariants
+        if inv.get("cells_checked"):
+            mode = self.plan.physics["mode"]
+            rec = {"cells_checked": int(inv["cells_checked"]),
+                   "water_change_region_kg": _num(inv["water_change_kg"]),
+                   "water_change_relative": float(f"{inv['water_change_kg'] / inv['water_before_kg']:.3g}")
+                   if inv["water_before_kg"] > 0 else 0.0,
+                   "cells_change_opposite_to_imposed": int(inv["cells_opposite_sign"])}
+            if mode == "energy":
+                rec["cells_change_beyond_imposed"] = int(inv["cells_beyond_imposed"])
+                rec["max_energy_budget_rel_error"] = float(f"{inv['max_energy_budget_rel_error']:.3g}")
+            else:
+                rec["cells_change_not_equal_to_imposed"] = int(inv["cells_not_exact"])
+            rec["meaning"] = ("measured on the changed soil layer-cells before values are stored (storage rounds to "
+                              "the file's precision): water (liquid + ice) conserved; the temperature change never "
+                              "opposite to the imposed one; "
+                              + ("|dT| <= |imposed dT| and the enthalpy change C0 dT dz" if mode == "energy"
+                                 else "dT equal to the imposed change"))
+            out["physics"]["invariants"] = rec
         if self.input_shift:
             rule = self.plan.physics.get("phase_rule", "change_driven")
             s = self.input_shift

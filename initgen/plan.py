@@ -1060,6 +1060,7 @@ def _physics(T_old, T_new, water, sel, phys, led, area, nh, mode, dT=None):
         res = soil.apply_temperature_mode(T_old, water["liq"], water["ice"], T_new - T_old, water["dz"], rule=rule,
                                           **kw)
     T = np.where(sel, res.T, T_old)
+    _check_invariants(T_old, water, res, sel, dT if mode == "energy" else T_new - T_old, mode, rule, led, area, kw)
     water["liq"] = np.where(sel, res.liq, water["liq"])
     water["ice"] = np.where(sel, res.ice, water["ice"])
     # total water is conserved, so a layer holding more than its pores did so before the change:
@@ -1077,6 +1078,42 @@ def _physics(T_old, T_new, water, sel, phys, led, area, nh, mode, dT=None):
         vals = np.where(sel, arr, 0.0) * a
         led.add_phase(key, vals.sum(axis=tuple(i for i in range(vals.ndim) if i != 1)))
     return T
+
+
+def _check_invariants(T_old, water, res, sel, imposed, mode, rule, led, area, kw) -> None:
+    """Measure the physics' promises on the cells it changed and put them in the ledger:
+    water (liquid + ice) conserved; the temperature change never opposite to the imposed one;
+    energy mode: |dT| <= |imposed dT| and the enthalpy change equal to C0 dT dz; temperature
+    mode: dT equal to the imposed change."""
+    s = sel & np.isfinite(res.T)
+    if not np.any(s):
+        return
+    dz = water["dz"]
+    w0 = (water["liq"] + water["ice"])[s]
+    w1 = (res.liq + res.ice)[s]
+    a = np.broadcast_to(_bcast_h(area, 2), s.shape)[s] * dz[s] * constants.RHO_WATER
+    dT = (res.T - T_old)[s]
+    imp = imposed[s]
+    inv = led.invariants
+    inv["water_before_kg"] += float((w0 * a).sum())
+    inv["water_change_kg"] += float(((w1 - w0) * a).sum())
+    inv["cells_checked"] += int(s.sum())
+    inv["cells_opposite_sign"] += int(np.count_nonzero(dT * imp < 0))
+    if mode == "energy":
+        inv["cells_beyond_imposed"] += int(np.count_nonzero(np.abs(dT) > np.abs(imp) * (1 + 1e-12) + 1e-9))
+        liq0, ice0 = water["liq"], water["ice"]
+        if rule == "equilibrium":
+            liq0, ice0 = soil.equilibrate_phase(np.where(sel, T_old, constants.T_FREEZE), liq0, ice0,
+                                                kw["porosity"], kw["psi_sat_m"], kw["b"])
+        C0 = soil.heat_capacity(liq0, ice0, kw["porosity"], kw["c_solid"])
+        target = (C0 * imposed * dz)[s]
+        err = np.abs((res.sensible_J_m2 + res.latent_J_m2)[s] - target)
+        big = np.abs(target) > 0
+        if np.any(big):
+            inv["max_energy_budget_rel_error"] = max(inv["max_energy_budget_rel_error"],
+                                                     float((err[big] / np.abs(target[big])).max()))
+    else:
+        inv["cells_not_exact"] += int(np.count_nonzero(dT != imp))
 
 
 def _report_input_shift(T0, water, inside, led, area) -> None:

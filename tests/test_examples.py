@@ -175,3 +175,35 @@ def test_mismatched_soil_parameters_are_reported_not_acted_on(demo, tmp_path):
     plain = api.preview(demo / "demo-cold-highland.yaml", demo / "demo-restart.nc")
     assert "realised_change_opposite_to_imposed" not in plain["flags"]
     assert sum(plain["input_phase_disequilibrium"]["cells_per_layer"]) == 0
+
+
+SHIPPED = sorted(p.name for p in (Path(__file__).resolve().parents[1] / "recipes").glob("demo-*.yaml"))
+
+
+@pytest.mark.parametrize("name", SHIPPED)
+def test_every_shipped_recipe_keeps_the_physics_promises_on_the_demo(demo, name):
+    """The demo's soil water is consistent with the shipped recipes' soil parameters, so no cell
+    is off the freezing curve (nothing for the equilibrium rule to re-balance), and the measured
+    invariants hold: water conserved, no change against the imposed one, energy mode within
+    the imposed change and its enthalpy budget, temperature mode exact."""
+    import warnings
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")        # no disequilibrium or departure warning either
+        led = api.preview(demo / name, demo / "demo-restart.nc")
+    phys = led["physics"]
+    if phys["mode"] == "none":
+        return
+    assert sum(led["input_phase_disequilibrium"]["cells_per_layer"]) == 0
+    inv = phys.get("invariants")
+    if inv is None:                          # a donor blend imposes no change to measure against
+        assert "donor" in name
+        return
+    assert inv["cells_checked"] > 0
+    assert abs(inv["water_change_relative"]) < 1e-12
+    assert inv["cells_change_opposite_to_imposed"] == 0
+    if phys["mode"] == "energy":
+        assert inv["cells_change_beyond_imposed"] == 0
+        assert inv["max_energy_budget_rel_error"] < 1e-6
+    else:
+        assert inv["cells_change_not_equal_to_imposed"] == 0
