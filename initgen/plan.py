@@ -741,11 +741,10 @@ def apply_block(plan: Plan, store, hkey: dict, widx: tuple, led, *, write: bool)
                 T_before = T
                 T = _physics(T, T + dT, water, sel, phys, led, area, nh, mode=phys["mode"], dT=dT)
                 _flag_departures(led, T - T_before, np.where(sel, dT, 0.0), sel)
-        lo, hi = phys["soil_temperature_min_K"], phys["soil_temperature_max_K"]
-        low, high = inside & (T < lo), inside & (T > hi)
-        led.clamp("soil_temperature_below_min", np.count_nonzero(low))
-        led.clamp("soil_temperature_above_max", np.count_nonzero(high))
-        T = np.clip(T, lo, hi, where=inside, out=T)
+        T[inside], n_low, n_high = soil.clamp_soil_temperature(
+            T[inside], phys["soil_temperature_min_K"], phys["soil_temperature_max_K"])
+        led.clamp("soil_temperature_below_min", n_low)
+        led.clamp("soil_temperature_above_max", n_high)
         T = np.where(inside, _temp_stored(role, T, layered), T)
         changed = inside & (T != T0)
         led.stats(role.variables[0] if len(role.variables) == 1 else "+".join(role.variables), "soil_temperature",
@@ -809,9 +808,9 @@ def _surface_temperature(plan, store, hkey, widx, target, weights, inside_h, led
         else:
             T = np.where(sel, T + ww * b.surface_factor * _bcast_h(_anomaly(plan, b, widx), 2), T)
     if target == "snow_temperature":
-        over = inside & (T > T_FREEZE)
-        led.clamp("snow_temperature_above_freezing", np.count_nonzero(over & (T != T0)))
-        T = np.where(over, np.maximum(np.minimum(T, T_FREEZE), np.minimum(T0, T_FREEZE)), T)
+        moved = inside & (T != T0)          # snow the recipe changed; other values stay as read
+        T[moved], n = soil.clamp_snow_temperature(T[moved])
+        led.clamp("snow_temperature_above_freezing", n)
     else:
         snow = snow_mass
         if snow is None and model.role("snow_mass") is not None:

@@ -56,12 +56,12 @@ Missing values and invalid inputs
     NaN).
 Suggested order for a caller
     1. convert units (:func:`temperature_to_kelvin`, :func:`water_to_volumetric`);
-    2. on the input, :func:`clamp_negative_water` and :func:`clamp_pore_space` (counted: they
-       change water), and :func:`disequilibrium` (reported only);
+    2. on the input, :func:`disequilibrium` and :func:`equilibrium_shift` (reported only);
     3. :func:`apply_energy_mode` or :func:`apply_temperature_mode` with the recipe's phase
        rule (water conserved exactly);
     4. on the output, :func:`clamp_soil_temperature` and :func:`clamp_snow_temperature`
-       (counted: they change energy; the phase is not re-equilibrated after them);
+       (counted: they change energy; the phase is not re-equilibrated after them); the
+       pipeline (``plan.apply_block``) calls exactly these;
     5. convert back (:func:`kelvin_to_units`, :func:`volumetric_to_water`).
     Every clamp returns ``(values, count)`` for the ledger.
 
@@ -131,8 +131,6 @@ __all__ = [
     "clamp",
     "clamp_soil_temperature",
     "clamp_snow_temperature",
-    "clamp_negative_water",
-    "clamp_pore_space",
     "BLOCK_CELLS",
 ]
 
@@ -990,7 +988,7 @@ def solve_enthalpy(H_target, total_water, dz, porosity, psi_sat_m, b, c_solid=No
     cs = _f64(CV_SOLID_DEFAULT if c_solid is None else c_solid)
     _validate_params(dz, phi, b, "solve_enthalpy", psi)
     if np.any(W < 0):
-        raise InputError("solve_enthalpy: total_water has negative values; apply clamp_negative_water first")
+        raise InputError("solve_enthalpy: total_water has negative values; fix negative water in the input first")
     args = [H, W, dz, phi, psi, b, cs]
     if T_guess is not None:
         args.append(_f64(T_guess))
@@ -1196,9 +1194,9 @@ def _mode_inputs(T, liq, ice, dT, dz, porosity, psi_sat_m, b, c_solid):
 _CHECKS = (  # (argument index, test of validity, what is wrong, what to do)
     (0, lambda v: v > 0, "soil temperature <= 0 K", "check the temperature units"),
     (1, lambda v: (v >= 0) & (v < np.inf), "negative or missing liquid water",
-     "apply clamp_negative_water first, or check the fill value"),
+     "fix negative water in the input, or check the fill value"),
     (2, lambda v: (v >= 0) & (v < np.inf), "negative or missing ice",
-     "apply clamp_negative_water first, or check the fill value"),
+     "fix negative water in the input, or check the fill value"),
     (4, lambda v: (v > 0) & (v < np.inf), "layer thickness dz not finite and > 0 m",
      "check the layer geometry"),
     (5, lambda v: (v > 0) & (v <= 1), "porosity outside (0, 1] m3 m-3",
@@ -1615,9 +1613,11 @@ def clamp_soil_temperature(T, t_min=180.0, t_max=340.0):
     Returns
     -------
     tuple
-        ``(T K, count of clamped cells)``.
+        ``(T K, count clamped up to t_min, count clamped down to t_max)``.
     """
-    return clamp(T, t_min, t_max)
+    v, n_low = clamp(T, t_min, None)
+    v, n_high = clamp(v, None, t_max)
+    return v, n_low, n_high
 
 
 def clamp_snow_temperature(T, t_max=T_FREEZE):
@@ -1629,48 +1629,3 @@ def clamp_snow_temperature(T, t_max=T_FREEZE):
         ``(T K, count of clamped cells)``.
     """
     return clamp(T, None, t_max)
-
-
-def clamp_negative_water(theta):
-    """Set negative water contents to zero (adds water; the count goes to the ledger).
-
-    Returns
-    -------
-    tuple
-        ``(theta m3 m-3, count of clamped cells)``.
-    """
-    return clamp(theta, 0.0, None)
-
-
-def clamp_pore_space(liq, ice, porosity):
-    """Enforce liq + ice <= porosity (water-equivalent contents) by removing the excess.
-
-    The excess is removed **from ice first**, then from liquid. Below freezing in
-    equilibrium the liquid is at the supercooled limit (<= porosity), so removing ice keeps
-    the cell in phase equilibrium; above freezing there is no ice and liquid is reduced.
-    This rule removes water: it is a clamp, counted, and with :func:`clamp_negative_water`
-    one of the two places where the soil physics does not conserve water (the caller records
-    the changed mass in the ledger).
-
-    Parameters
-    ----------
-    liq, ice : array_like
-        Liquid and ice (liquid-equivalent) contents, m3 m-3 (>= 0).
-    porosity : array_like
-        m3 m-3.
-
-    Returns
-    -------
-    tuple
-        ``((liq, ice), count of clamped cells)``.
-    """
-    liq, ice, phi = _f64(liq), _f64(ice), _f64(porosity)
-    excess = liq + ice - phi
-    over = excess > 0
-    n = int(np.count_nonzero(over))
-    if not n:
-        return (liq.copy(), ice.copy()), 0
-    from_ice = np.minimum(ice, np.maximum(excess, 0.0))
-    ice2 = np.where(over, ice - from_ice, ice)
-    liq2 = np.where(over, np.minimum(liq, phi - ice2), liq)
-    return (liq2, ice2), n

@@ -575,30 +575,17 @@ def test_disequilibrium_flags():
 
 
 def test_clamp_soil_temperature_counts():
-    T, n = soil.clamp_soil_temperature([170.0, 250.0, 350.0, np.nan])
-    assert n == 2
-    np.testing.assert_array_equal(T[:3], [180.0, 250.0, 340.0])
-    assert np.isnan(T[3])
-    T, n = soil.clamp_soil_temperature([170.0], t_min=100.0)
-    assert n == 0 and T[0] == 170.0
+    T, n_low, n_high = soil.clamp_soil_temperature([170.0, 250.0, 350.0, 360.0, np.nan])
+    assert (n_low, n_high) == (1, 2)
+    np.testing.assert_array_equal(T[:4], [180.0, 250.0, 340.0, 340.0])
+    assert np.isnan(T[4])
+    T, n_low, n_high = soil.clamp_soil_temperature([170.0], t_min=100.0)
+    assert n_low == n_high == 0 and T[0] == 170.0
 
 
 def test_clamp_snow_temperature():
     T, n = soil.clamp_snow_temperature([260.0, 273.15, 275.0])
     assert n == 1 and T.tolist() == [260.0, 273.15, 273.15]
-
-
-def test_clamp_negative_water():
-    w, n = soil.clamp_negative_water([-0.01, 0.0, 0.2])
-    assert n == 1 and w.tolist() == [0.0, 0.0, 0.2]
-
-
-def test_clamp_pore_space_removes_ice_first():
-    (liq, ice), n = soil.clamp_pore_space([0.30, 0.38, 0.45, 0.2], [0.20, 0.05, 0.10, 0.1], 0.4)
-    assert n == 3
-    np.testing.assert_allclose(liq, [0.30, 0.38, 0.40, 0.2])   # liquid kept while ice remains
-    np.testing.assert_allclose(ice, [0.10, 0.02, 0.0, 0.1], atol=1e-15)
-    assert np.all(liq + ice <= 0.4 + 1e-15)
 
 
 def test_clamp_generic():
