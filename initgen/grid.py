@@ -36,11 +36,12 @@ CF_ROLES = {
     "snow_temperature": ("temperature_in_surface_snow",),
     "snow_mass": ("surface_snow_amount",),
     "snow_depth": ("surface_snow_thickness",),
+    "snow_cover_fraction": ("surface_snow_area_fraction",),
     "cell_area": ("cell_area",),
 }
 _LENGTH_UNITS = ("m", "meter", "meters", "metre", "metres", "cm", "centimeter", "centimeters", "mm")
 
-LAYERED_ROLES = ("soil_temperature", "soil_liquid", "soil_ice", "snow_temperature",
+LAYERED_ROLES = ("soil_temperature", "soil_liquid", "soil_ice", "snow_temperature", "snow_layer_mass",
                  "porosity", "psi_sat", "clapp_b", "sand", "clay")
 
 
@@ -371,11 +372,13 @@ def _bind(store, role, spec, hdims, layout_data, where) -> Role:
         if layered_role and len(names) == 1:
             given = layout_data.get("layer_dimension") if layout_data else None
             ldim = _layer_dim_of(info, hdims, given, store, where)
+            if given and ldim is None and role.startswith("snow_"):
+                ldim = _layer_dim_of(info, hdims, None, store, where)   # snow layers on an axis of their own
             if given and ldim is None and role == "soil_temperature":
                 raise InputError(f"{where}: layer_dimension '{given}' is not a dimension of '{n}' {info.dims}; "
                                  f"name its layer axis, one of {tuple(d for d in info.dims if d not in hdims)}")
             if ldim and nsnow:
-                sel = slice(0, nsnow) if role == "snow_temperature" else slice(nsnow, None)
+                sel = slice(0, nsnow) if role.startswith("snow_") else slice(nsnow, None)
         views.append(View(info, hdims, ldim, sel))
     layered = layered_role and (len(views) > 1 or views[0].layer_dim is not None)
     for v in views[1:]:
@@ -476,7 +479,8 @@ def open_model(store: Store, layout=None, needed: tuple = ()) -> ModelFile:
         _var(store, area_name, "cell_area", where)
     grid = build_grid(store, lon_name, lat_name, area_name, where)
     bound = {}
-    all_roles = list(CF_ROLES) + ["porosity", "psi_sat", "clapp_b", "sand", "clay"]
+    all_roles = list(CF_ROLES) + ["porosity", "psi_sat", "clapp_b", "sand", "clay", "snow_layer_mass",
+                                  "snow_layer_count"]
     for role in all_roles:
         spec = roles_spec.get(role)
         if spec is None and data is None:

@@ -80,6 +80,7 @@ class Ledger:
         self.input_shift = {}     # per layer: cells and kg the equilibrium rule would move in the input
         self.soil_sources = None  # where the soil parameters came from (set by the plan's run)
         self.invariants = Counter()   # the physics' promises, measured on the cells it changed
+        self.notes = {}               # how initgen read something it had to infer, in words
         self.nlayers = {}
 
     def stats(self, name: str, role: str, units: str, nlayers: int, layered: bool) -> _Stats:
@@ -109,6 +110,10 @@ class Ledger:
         if cur.shape != per_layer.shape:
             cur = np.zeros_like(per_layer, dtype=float)
         self.phase[key] = cur + per_layer
+
+    def note(self, key: str, text: str) -> None:
+        """Say how something was inferred (the first wording per key is kept)."""
+        self.notes.setdefault(key, text)
 
     def add_input_shift(self, cells: np.ndarray, freeze_kg: np.ndarray, melt_kg: np.ndarray) -> None:
         """Accumulate, per layer, the input's cells out of phase equilibrium and the kg (area
@@ -153,6 +158,8 @@ class Ledger:
             rows = rec["stats"].rows(depths if rec["role"] in ("soil_temperature", "soil_liquid", "soil_ice") else None)
             out["variables"][name] = {"role": rec["role"], "units": rec["units"],
                                       "layers" if rec["layered"] else "field": rows if rec["layered"] else rows[0]}
+        if self.notes:
+            out["notes"] = dict(sorted(self.notes.items()))
         inv = self.invariants
         if inv.get("cells_checked"):
             mode = self.plan.physics["mode"]

@@ -757,14 +757,26 @@ def apply_block(plan: Plan, store, hkey: dict, widx: tuple, led, *, write: bool)
 
     # --- skin temperature, snow temperature, snow mass ---------------------------------------
     snow_mass_now = None
+    snow = None   # (m0, m, inside): snow mass before and after the recipe's snow_mass change
     if "snow_mass" in targets:
-        snow_mass_now = _snow_mass(plan, store, hkey, weights, inside_h, led, area, write)
+        snow = _snow_mass_change(plan, store, hkey, weights, inside_h, led)
+        snow_mass_now = snow[1]
     if "skin_temperature" in targets:
         _surface_temperature(plan, store, hkey, widx, "skin_temperature", weights, inside_h, led, area, write,
                              snow_mass=snow_mass_now, follow=top_change)
+    melt = None
     if "snow_temperature" in targets:
-        _surface_temperature(plan, store, hkey, widx, "snow_temperature", weights, inside_h, led, area, write,
-                             snow_mass=snow_mass_now)
+        melt = _surface_temperature(plan, store, hkey, widx, "snow_temperature", weights, inside_h, led, area,
+                                    write, snow_mass=snow_mass_now)
+    if melt is not None and snow is None:
+        m0 = model.role("snow_mass").read(store, hkey)
+        snow = (m0, m0.copy(), np.broadcast_to(inside_h[None], m0.shape) & np.isfinite(m0))
+    if snow is not None:
+        m0, m, inside_s = snow
+        if melt is not None:
+            m = np.where(inside_s, np.maximum(m - melt.sum(axis=1), 0.0), m)
+            _snow_layer_mass_write(plan, store, hkey, melt, led, area, write)
+        _snow_mass_write(plan, store, hkey, m0, m, inside_s, led, area, write)
 
 
 def _anomaly(plan: Plan, b: BlockPlan, hidx) -> np.ndarray:
@@ -785,10 +797,12 @@ def _surface_temperature(plan, store, hkey, widx, target, weights, inside_h, led
     T0 = T0 if layered else T0[:, None]
     inside = np.broadcast_to(_bcast_h(inside_h, 2), T0.shape) & np.isfinite(T0)
     _check_no_undeclared_gaps(role, T0, np.broadcast_to(_bcast_h(inside_h, 2), T0.shape), store)
-    if target == "snow_temperature" and model.role("snow_mass") is not None:
-        # snow layers of a snow-free cell hold no snow: their temperature is a placeholder
-        snow_now = snow_mass if snow_mass is not None else model.role("snow_mass").read(store, hkey)
-        inside = inside & np.broadcast_to((snow_now > 0)[:, None], T0.shape)
+    layer_mass = None
+    if target == "snow_temperature":
+        # only snow layers that hold snow change: the others' temperatures are placeholders
+        active, layer_mass = _active_snow_layers(plan, store, hkey, T0.shape, snow_mass, led)
+        if active is not None:
+            inside = inside & active
     T = T0.copy()
     mine = [b for b in plan.blocks if target in b.targets]
     if follow is not None and follow.shape[0] == T.shape[0] and all(
@@ -807,8 +821,11 @@ def _surface_temperature(plan, store, hkey, widx, target, weights, inside_h, led
             T = np.where(sel, sources.donor_blend(T, D, np.broadcast_to(ww, T.shape)), T)
         else:
             T = np.where(sel, T + ww * b.surface_factor * _bcast_h(_anomaly(plan, b, widx), 2), T)
+    melt = None
     if target == "snow_temperature":
         moved = inside & (T != T0)          # snow the recipe changed; other values stay as read
+        if plan.physics["mode"] == "energy" and np.any(moved & (T > T_FREEZE)):
+            T, melt = _melt_snow(T, moved, layer_mass, led, area)
         T[moved], n = soil.clamp_snow_temperature(T[moved])
         led.clamp("snow_temperature_above_freezing", n)
     else:
@@ -818,18 +835,108 @@ def _surface_temperature(plan, store, hkey, widx, target, weights, inside_h, led
         if snow is not None:
             covered = np.broadcast_to((snow > 0)[:, None], T.shape)
             over = inside & covered & (T > T_FREEZE) & (T != T0)
+            # the snow-covered part of the cell stays at or below 0 C; with a snow cover fraction f
+            # from the file only that part is capped: T <= f T_f + (1 - f) T
+            frac_role = model.role("snow_cover_fraction")
+            f = 1.0
+            if frac_role is not None:
+                f = frac_role.read(store, hkey)
+                f = np.clip(np.where(np.isfinite(f), f / (100.0 if frac_role.units.strip() in ("%", "percent")
+                                                            else 1.0), 1.0), 0.0, 1.0)[:, None]
+            cap = f * T_FREEZE + (1.0 - f) * T
+            capped = np.maximum(cap, np.minimum(T0, T))
+            over = over & (capped != T)
             led.clamp("skin_temperature_above_freezing_under_snow", np.count_nonzero(over))
-            T = np.where(over, np.maximum(T_FREEZE, np.minimum(T0, T)), T)
+            T = np.where(over, capped, T)
     T = np.where(inside, _temp_stored(role, T, layered), T)
     changed = inside & (T != T0)
     led.stats(role.variables[0], target, "K", T.shape[1], layered).add(T - T0, inside, area)
     _temp_write(role, store, hkey, T if layered else T[:, 0], changed if layered else changed[:, 0], write)
+    return melt
+
+
+def _active_snow_layers(plan, store, hkey, shape, snow_mass, led):
+    """Snow layers holding snow, (E, Ls, *h) bool, and each layer's snow mass (kg m-2) where the
+    file gives it. From the file's layer masses (> 0), or its snow-layer count (the layout says
+    whether the first or the last layers are the active ones), or, with neither, every layer of
+    a cell whose snow mass is > 0 (said in the ledger)."""
+    model = plan.model
+    nl = shape[1]
+    lm_role = model.role("snow_layer_mass")
+    if lm_role is not None:
+        lm = lm_role.read(store, hkey)
+        lm = lm if lm_role.layered else lm[:, None]
+        if lm.shape != shape:
+            raise InputError(f"{store.describe()}: variable '{lm_role.variables[0]}' (snow_layer_mass) has "
+                             f"{lm.shape[1]} layer(s) but the snow temperature has {nl}; name matching variables "
+                             "in the layout")
+        led.note("snow_layers_active", f"where the layer mass in '{lm_role.variables[0]}' is > 0")
+        return np.isfinite(lm) & (lm > 0), np.where(np.isfinite(lm), lm, 0.0)
+    snow_now = snow_mass
+    if snow_now is None and model.role("snow_mass") is not None:
+        snow_now = model.role("snow_mass").read(store, hkey)
+    has_snow = None if snow_now is None else np.broadcast_to((np.isfinite(snow_now) & (snow_now > 0))[:, None], shape)
+    cnt_role = model.role("snow_layer_count")
+    if cnt_role is not None:
+        layout = _layout_of(model)
+        which = layout.data.get("snow_layer_count_active") if layout is not None else None
+        if which not in ("first", "last"):
+            raise InputError(f"layout: roles.snow_layer_count names '{cnt_role.variables[0]}' but the layout does not "
+                             "say which snow layers it counts; set snow_layer_count_active: first or last (along "
+                             "the snow layer axis as stored)")
+        n = cnt_role.read(store, hkey)
+        n = np.where(np.isfinite(n), n, 0.0)[:, None]
+        idx = np.arange(nl).reshape((1, nl) + (1,) * (len(shape) - 2))
+        active = (idx < n) if which == "first" else (idx >= nl - n)
+        led.note("snow_layers_active", f"the {which} n layers, n from '{cnt_role.variables[0]}'")
+        active = active if has_snow is None else active & has_snow
+        return active, _split_snow_mass(snow_now, active, led)
+    if has_snow is None:
+        led.note("snow_layers_active", "every layer (the file gives no snow mass, layer count or layer mass)")
+        return None, None
+    led.note("snow_layers_active", "every layer of a cell whose snow mass is > 0 (the file gives no snow layer "
+                                   "count or layer mass)")
+    return has_snow, _split_snow_mass(snow_now, has_snow, led)
+
+
+def _split_snow_mass(snow_now, active, led):
+    """Layer masses when the file has only the total: split equally between a cell's active
+    layers. A guess, and said so in the ledger; it matters only where snow melts (energy mode)."""
+    if snow_now is None:
+        return None
+    n = np.maximum(active.sum(axis=1, keepdims=True), 1)
+    led.note("snow_layer_mass", "not in the file: where snow melts, each active layer is taken to hold an equal "
+                                "share of the snow mass (a guess; name roles.snow_layer_mass for the model's own)")
+    return np.where(active, np.where(np.isfinite(snow_now), snow_now, 0.0)[:, None] / n, 0.0)
+
+
+def _melt_snow(T, moved, layer_mass, led, area):
+    """Energy mode: snow warmed past 273.15 K melts instead of warming further.
+
+    The energy above 0 C, m c_i (T - T_f) per layer (m the layer's snow mass, c_i the specific
+    heat of ice), melts m c_i (T - T_f) / L_f kg m-2 of snow (at most the layer's mass) and the
+    layer stays at T_f. Without layer masses in the file the change is refused: the energy cannot
+    be accounted for.
+    """
+    over = moved & (T > T_FREEZE)
+    if layer_mass is None:
+        raise InputError("physics mode energy melts snow warmed past 273.15 K, which needs each snow layer's mass; "
+                         "name roles.snow_layer_mass in the layout, or use physics mode temperature (which caps snow "
+                         "at 273.15 K and counts the clamp)")
+    excess = np.where(over, T - T_FREEZE, 0.0)
+    melt = np.minimum(layer_mass, layer_mass * constants.CP_ICE * excess / constants.LATENT_HEAT_FUSION)
+    melt = np.where(over, melt, 0.0)
+    a = _bcast_h(area, 2)
+    led.add_phase("snow_melted_kg", (melt * a).sum(axis=tuple(i for i in range(melt.ndim) if i != 1)))
+    led.flag("snow_layers_melting", np.count_nonzero(melt > 0))
+    return np.where(over, T_FREEZE, T), melt
 
 
 FRESH_SNOW_DENSITY = 100.0  # kg m-3, used only when snow appears where there was none (common practice)
 
 
-def _snow_mass(plan, store, hkey, weights, inside_h, led, area, write):
+def _snow_mass_change(plan, store, hkey, weights, inside_h, led):
+    """The recipe's snow_mass change: (mass before, after, cells inside the region)."""
     model = plan.model
     role = model.role("snow_mass")
     m0 = role.read(store, hkey)
@@ -848,7 +955,29 @@ def _snow_mass(plan, store, hkey, weights, inside_h, led, area, write):
             m = np.where(inside, m * (1.0 + ww * b.snow_mass_change * plan.member_scale), m)
     neg = inside & (m < 0)
     led.clamp("snow_mass_negative", np.count_nonzero(neg))
-    m = np.where(neg, 0.0, m)
+    return m0, np.where(neg, 0.0, m), inside
+
+
+def _snow_layer_mass_write(plan, store, hkey, melt, led, area, write):
+    """Take melted snow off the file's snow layer masses (values as stored)."""
+    role = plan.model.role("snow_layer_mass")
+    if role is None:
+        return
+    lm0 = role.read(store, hkey)
+    lm0 = lm0 if role.layered else lm0[:, None]
+    moved = melt > 0
+    lm = np.where(moved, role.stored(np.maximum(lm0 - melt, 0.0)), lm0)
+    changed = moved & (lm != lm0)
+    led.stats(role.variables[0], "snow_layer_mass", role.units or "kg m-2", lm.shape[1], role.layered).add(
+        lm - lm0, np.isfinite(lm0) & (lm0 > 0), area)
+    if write:
+        role.write(store, hkey, lm if role.layered else lm[:, 0], changed if role.layered else changed[:, 0])
+
+
+def _snow_mass_write(plan, store, hkey, m0, m, inside, led, area, write):
+    """Write the new snow mass (values as stored) and scale the snow depth with it."""
+    model = plan.model
+    role = model.role("snow_mass")
     m = np.where(inside, role.stored(m), m)
     changed = inside & (m != m0)
     led.stats(role.variables[0], "snow_mass", role.units or "kg m-2", 1, False).add(m - m0, inside, area)
@@ -866,7 +995,6 @@ def _snow_mass(plan, store, hkey, weights, inside_h, led, area, write):
         led.stats(depth_role.variables[0], "snow_depth", depth_role.units or "m", 1, False).add(d - d0, inside, area)
         if write:
             depth_role.write(store, hkey, d, dchanged)
-    return m
 
 
 # ---------------------------------------------------------------------------------------------

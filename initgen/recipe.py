@@ -226,9 +226,9 @@ MEMBERS = Obj(
 # Layout schema
 # ---------------------------------------------------------------------------------------------
 
-LAYERED_ROLES = ("soil_temperature", "soil_liquid", "soil_ice", "snow_temperature")
+LAYERED_ROLES = ("soil_temperature", "soil_liquid", "soil_ice", "snow_temperature", "snow_layer_mass")
 PLAIN_ROLES = ("longitude", "latitude", "land_fraction", "land_mask", "surface_altitude",
-               "skin_temperature", "snow_mass", "snow_depth", "cell_area",
+               "skin_temperature", "snow_mass", "snow_depth", "snow_layer_count", "snow_cover_fraction", "cell_area",
                "porosity", "psi_sat", "clapp_b", "sand", "clay")
 DEPTH_ROLES = ("layer_node_depth", "layer_interface_depth", "layer_thickness")
 
@@ -258,6 +258,9 @@ LAYOUT = Obj(
         "layer_dimension": Str(default=None, doc="name of the layer dimension (found automatically if omitted)"),
         "snow_layers": Num(integer=True, minimum=0, maximum=50, default=0, unit="1",
                            doc="number of snow layers stacked above the soil on a combined layer axis"),
+        "snow_layer_count_active": Str(choices=("first", "last"), default=None,
+                                       doc="with roles.snow_layer_count: whether the counted (active) snow layers "
+                                           "are the first or the last along the snow layer axis as stored"),
         "units": Obj(default=None, doc="units to assume for variables without a units attribute: role -> units",
                      fields={r: Str(default=None) for r in LAYERED_ROLES + PLAIN_ROLES}),
     },
