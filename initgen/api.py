@@ -127,6 +127,7 @@ def apply(recipe, input, output, layout=None, *, member: str | None = None, forc
     try:
         model = _model(store, lay, rec)
         plan = ensemble.configure(plan_mod.build_plan(rec, model, allow_outside=allow_outside_paths), mem)
+        _refuse_unstorable_first(plan, store)
     finally:
         store.close()
 
@@ -136,6 +137,28 @@ def apply(recipe, input, output, layout=None, *, member: str | None = None, forc
     return prov.write_perturbed(recipe=rec, layout=lay, input_path=input, output_path=output, patch=patch,
                                 force=force, allow_outside=allow_outside_paths,
                                 member=None if mem is None else mem.record(), repack=repack, files=plan.files)
+
+
+def _refuse_unstorable_first(plan, store) -> None:
+    """A target stored as integers (packed or not) or with valid limits may not hold the change:
+    run the plan once read-only on the input so that a refusal comes before the copy is made.
+    (With a donor the run would close the donor's file; the refusal then comes while patching
+    the temporary copy, which is removed: no output either way.)"""
+    from .restart import storable_range
+
+    if any(b.donor is not None for b in plan.blocks) or \
+            plan.recipe.data.get("limits", {}).get("packed_out_of_range") == "clip":
+        return
+    roles = [plan.model.role(t) for t in plan.targets] + [plan.model.role(r) for r in
+                                                          ("soil_liquid", "soil_ice", "soil_water_total",
+                                                           "soil_frozen_fraction", "soil_unfrozen_fraction",
+                                                           "snow_depth")]
+    if any(storable_range(v.info.attrs, v.info.dtype) is not None for r in roles if r is not None for v in r.views):
+        import warnings
+
+        with warnings.catch_warnings():  # the run that writes warns again
+            warnings.simplefilter("ignore")
+            plan_mod.run(plan, store, write=False)
 
 
 def _member(rec: Document, member: str | None):

@@ -590,6 +590,8 @@ def run(plan: Plan, store, *, write: bool, progress=None) -> dict:
     """Apply the plan to ``store`` (writing only when ``write``) and return the ledger."""
     led = ledger_mod.Ledger(plan)
     all_blocks = [b for s in slabs(plan) for b in blocks_of(plan, s)]
+    limits = plan.model.limits
+    limits.reset(clip=(plan.recipe.data.get("limits") or {}).get("packed_out_of_range") == "clip")
     for k, (hkey, widx) in enumerate(all_blocks):
         apply_block(plan, store, hkey, widx, led, write=write)
         if progress:
@@ -598,7 +600,10 @@ def run(plan: Plan, store, *, write: bool, progress=None) -> dict:
         for b in plan.blocks:
             if b.donor:
                 b.donor.store.close()
+    _storable_or_refuse(plan, led)
     out = led.finish()
+    if plan.model.water is not None and plan.physics["mode"] != "none" and "soil_temperature" in plan.targets:
+        out["water"] = plan.model.water.record()
     out["data_blocks_read"] = len(all_blocks)
     odd = sum(out["flags"].get(k, 0) for k in ("realised_change_opposite_to_imposed",
                                                 "realised_change_larger_than_imposed",
@@ -612,6 +617,26 @@ def run(plan: Plan, store, *, write: bool, progress=None) -> dict:
                       "its own; check that physics matches your model (or give its parameters in the layout)",
                       InputWarning, stacklevel=2)
     return out
+
+
+def _storable_or_refuse(plan: Plan, led) -> None:
+    """Values a variable cannot hold (grid.StoreLimits, noted by Role.stored): refused, naming the
+    variable, its storable range and the cell count; or, when the recipe allows clipping, counted
+    as clamps by rule. Preview and apply run the same code, so they refuse and count alike."""
+    limits = plan.model.limits
+    if limits.clip:
+        for name, n in sorted(limits.counts.items()):
+            led.clamp(f"{name}_outside_packed_range", n)
+        return
+    if limits.counts:
+        parts = []
+        for name, n in sorted(limits.counts.items()):
+            lo, hi, units, how = limits.ranges[name]
+            parts.append(f"variable '{name}' ({how}) holds only {lo:.6g}..{hi:.6g} {units}".rstrip()
+                         + f" and the change puts {n} cell(s) outside that range")
+        raise InputError(f"{plan.model.store.describe()}: " + "; ".join(parts) + "; nothing was written: repack the "
+                         "variable with a wider range, or set recipe key limits.packed_out_of_range: clip to clip "
+                         "(the ledger then counts the clipped cells as clamps)")
 
 
 __all__ = ["Plan", "BlockPlan", "build_plan", "run", "slabs", "blocks_of", "needed_roles", "apply_block"]
@@ -964,25 +989,103 @@ def _hydraulics(plan: Plan, store, hkey, shape, model=None):
     return out + (None if c_solid is None else np.broadcast_to(np.asarray(c_solid, float), shape),)
 
 
+def _water_spec(plan: Plan, model: ModelFile):
+    """The water convention of ``model`` (the input, or a donor read with the input's layout)."""
+    from . import water as water_mod
+
+    if model.water is not None:
+        return model.water
+    lay = _layout_of(plan.model)
+    return water_mod.resolve(model.roles, lay.data if lay is not None else None, model.store.describe(), True)
+
+
+def _water_values(spec, rname: str, raw: np.ndarray, dz, por, name: str) -> np.ndarray:
+    """One water variable as stored -> m3 m-3 as stored (a phase fraction -> fraction of 1)."""
+    from .water import FRACTION_ROLES, FRACTION_UNITS
+
+    if rname in FRACTION_ROLES:
+        return np.asarray(raw, float) * FRACTION_UNITS[spec.units[rname].strip().lower()]
+    return soil.water_to_volumetric(raw, spec.units[rname], dz, porosity=por, name=name)
+
+
+def _water_file_values(spec, liq: np.ndarray, ice: np.ndarray) -> dict:
+    """The physics' liquid and ice (m3 m-3, ice liquid-equivalent) -> the values of the file's own
+    water variables that can move (m3 m-3 as stored, or fractions of 1), by role. A total in kg m-2
+    or liquid equivalent is conserved by the physics and so never rewritten."""
+    conv, reading = spec.convention, spec.reading
+    out = {}
+    if conv == "liquid_and_ice":
+        out["soil_liquid"] = liq
+        out["soil_ice"] = soil.water_equivalent_to_ice_volume(ice, reading)
+        return out
+    if conv == "total_and_liquid":
+        out["soil_liquid"] = liq
+    elif conv in ("total_and_frozen_fraction", "total_and_unfrozen_fraction"):
+        f = soil.frozen_fraction(liq, ice)
+        out[spec.roles[1]] = f if conv == "total_and_frozen_fraction" else 1.0 - f
+    if reading == "true_ice_volume":  # the stored volume of a total changes as water freezes or melts
+        out["soil_water_total"] = soil.total_from_phases(liq, ice, reading)
+    return out
+
+
 def _read_water(plan: Plan, store, hkey, shape, donor: ModelFile | None = None) -> dict:
+    """Soil liquid and ice (m3 m-3, ice as liquid-water equivalent) from the file's own water
+    convention (water.py), with the layer geometry and soil parameters the physics needs."""
     model = donor or plan.model
+    src = model.store if donor else store
     nh = len(model.grid.shape)
     layers = plan.model.layers
     if layers is None:
         raise InputError(f"{plan.model.store.describe()}: a physics mode needs soil layer thicknesses; name "
                          "roles.layer_node_depth (or interfaces/thickness) in the layout")
     dz = np.broadcast_to(_layer_col(np.asarray(layers.thickness_m), nh), shape)
-    por, psi, b, c_solid = _hydraulics(plan, model.store if donor else store, hkey, shape, model=model)
+    por, psi, b, c_solid = _hydraulics(plan, src, hkey, shape, model=model)
     out = {"dz": dz, "porosity": por, "psi": psi, "b": b, "c_solid": c_solid}
-    for key, rname in (("liq", "soil_liquid"), ("ice", "soil_ice")):
-        role = model.require(rname, "physics modes change water and ice")
-        raw = role.read(model.store if donor else store, hkey)
-        raw = raw if role.layered else raw[:, None]
-        out[key] = soil.water_to_volumetric(raw, role.units or "kg m-2", dz, porosity=por, name=role.variables[0])
-        out[key + "0"] = out[key].copy()
-        out[key + "_raw"] = raw
-        out[key + "_units"] = role.units or "kg m-2"
-        out[key + "_name"] = f"{(model.store if donor else store).describe()}: variable '{role.variables[0]}'"
+    spec = _water_spec(plan, model)
+    where = src.describe()
+    raw, vol, names = {}, {}, {}
+    for rname in spec.roles:
+        role = model.role(rname)
+        r = role.read(src, hkey)
+        raw[rname] = r if role.layered else r[:, None]
+        names[rname] = "+".join(role.variables)
+        vol[rname] = _water_values(spec, rname, raw[rname], dz, por, role.variables[0])
+    conv, reading = spec.convention, spec.reading
+    units = spec.units
+    if conv == "liquid_and_ice":
+        liq, ice = vol["soil_liquid"], soil.ice_volume_to_water_equivalent(vol["soil_ice"], reading)
+        out["liq_name"], out["ice_name"] = (f"{where}: variable '{names[r]}'" for r in ("soil_liquid", "soil_ice"))
+        out["liq_units"], out["ice_units"] = units["soil_liquid"], units["soil_ice"]
+    elif conv == "total_only":
+        # the file holds no split: diagnose it from the temperature (the equilibrium phase rule)
+        troles = model.require("soil_temperature", "a total-only water convention splits water by temperature")
+        T = _temp_read(troles, src, hkey)
+        T = T if troles.layered else T[:, None]
+        W = vol["soil_water_total"]
+        ok = np.isfinite(T) & np.isfinite(W)
+        liq, ice = soil.equilibrate_phase(np.where(ok, T, T_FREEZE + 1.0), np.where(ok, W, 0.0), 0.0, por, psi, b)
+        bad = ok & ~(np.isfinite(liq) & np.isfinite(ice))  # soil parameters missing: no split known
+        liq, ice = np.where(ok & ~bad, liq, W), np.where(ok & ~bad, ice, np.where(bad, np.nan, 0.0))
+        out["liq_name"] = f"{where}: liquid diagnosed from total '{names['soil_water_total']}'"
+        out["ice_name"] = f"{where}: ice diagnosed from total '{names['soil_water_total']}'"
+        out["liq_units"] = out["ice_units"] = units["soil_water_total"]
+    else:
+        other = spec.roles[1]
+        kind = {"soil_liquid": "liquid", "soil_frozen_fraction": "frozen_fraction",
+                "soil_unfrozen_fraction": "unfrozen_fraction"}[other]
+        liq, ice = soil.phases_from_total(vol["soil_water_total"], vol[other], kind, reading)
+        tot = names["soil_water_total"]
+        if kind == "liquid":
+            out["liq_name"] = f"{where}: variable '{names[other]}'"
+            out["ice_name"] = f"{where}: ice = total - liquid ('{tot}' - '{names[other]}')"
+        else:
+            out["liq_name"] = f"{where}: liquid from '{tot}' and '{names[other]}'"
+            out["ice_name"] = f"{where}: ice from '{tot}' and '{names[other]}'"
+        out["liq_units"] = units[other] if kind == "liquid" else units["soil_water_total"]
+        out["ice_units"] = units["soil_water_total"]
+    out["liq"], out["ice"] = np.asarray(liq, float), np.asarray(ice, float)
+    out["liq0"], out["ice0"] = out["liq"].copy(), out["ice"].copy()
+    out["spec"], out["raw"] = spec, raw
     return out
 
 
@@ -1068,15 +1171,26 @@ def _flag_departures(led, realised: np.ndarray, imposed: np.ndarray, sel: np.nda
 
 
 def _write_water(plan, store, hkey, water, inside, led, area, write):
+    """Write the physics' liquid and ice back in the file's own convention: only the variables
+    that can move (in total_and_liquid the liquid moves and the total stays), only where the
+    state moved, rounded as the file stores them."""
     model = plan.model
-    for key, rname in (("liq", "soil_liquid"), ("ice", "soil_ice")):
+    spec = water["spec"]
+    new_vals = _water_file_values(spec, water["liq"], water["ice"])
+    old_vals = _water_file_values(spec, water["liq0"], water["ice0"])
+    for rname, vals in new_vals.items():
         role = model.role(rname)
-        new = soil.volumetric_to_water(water[key], water[key + "_units"], water["dz"], porosity=water["porosity"])
-        old = water[key + "_raw"]  # as read, in the file's units
-        moved = inside & (water[key] != water[key + "0"])
+        old = water["raw"][rname]  # as read, in the file's units
+        moved = inside & (vals != old_vals[rname]) & np.isfinite(vals)
+        if rname in ("soil_frozen_fraction", "soil_unfrozen_fraction"):
+            from .water import FRACTION_UNITS
+
+            new = vals / FRACTION_UNITS[spec.units[rname].strip().lower()]
+        else:
+            new = soil.volumetric_to_water(vals, spec.units[rname], water["dz"], porosity=water["porosity"])
         new = np.where(moved, role.stored(new if role.layered else new[:, 0]).reshape(new.shape), old)
-        changed = inside & (new != old)
+        changed = inside & (new != old) & ~(np.isnan(new) & np.isnan(old))
         led.stats(role.variables[0] if len(role.variables) == 1 else "+".join(role.variables), rname,
-                  water[key + "_units"], new.shape[1], role.layered).add(np.where(changed, new - old, 0.0), inside, area)
+                  spec.units[rname], new.shape[1], role.layered).add(np.where(changed, new - old, 0.0), inside, area)
         if write:
             role.write(store, hkey, new if role.layered else new[:, 0], changed if role.layered else changed[:, 0])

@@ -77,6 +77,7 @@ from initgen.constants import (
     CV_WATER,
     GRAVITY,
     LATENT_HEAT_FUSION,
+    RHO_ICE,
     RHO_WATER,
     T_FREEZE,
 )
@@ -92,6 +93,13 @@ __all__ = [
     "kelvin_to_units",
     "water_to_volumetric",
     "volumetric_to_water",
+    "ICE_READINGS",
+    "water_units_are_mass",
+    "ice_volume_to_water_equivalent",
+    "water_equivalent_to_ice_volume",
+    "phases_from_total",
+    "total_from_phases",
+    "frozen_fraction",
     "hydraulics_from_texture",
     "cosby_1984",
     "soil_solid_heat_capacity",
@@ -334,6 +342,136 @@ def volumetric_to_water(vol, units, thickness_m, porosity=None, name="soil water
     if kind == "saturation":
         return v / _check_porosity(porosity, name)
     return v.copy()
+
+
+# --- water conventions: ice as stored, totals and fractions -----------------------------------
+#
+# A model may keep soil water as liquid + ice, as a total + the liquid, as a total + the frozen
+# (or unfrozen) fraction, or as a total only. These pure functions turn each into the physics'
+# liquid and ice contents (m3 m-3, ice as liquid-water equivalent) and back.
+
+#: How a *volumetric* ice content (m3 m-3 or fraction of saturation) is to be read: as the
+#: volume the ice's mass would fill as liquid water (``liquid_equivalent``, the physics'
+#: convention) or as the true volume of the ice (``true_ice_volume``, density RHO_ICE). Mass units
+#: (kg m-2) are unambiguous and need neither.
+ICE_READINGS = ("liquid_equivalent", "true_ice_volume")
+
+
+def water_units_are_mass(units, name="soil water"):
+    """True for mass units (kg m-2 and spellings), False for m3 m-3 or fraction of saturation.
+
+    Raises
+    ------
+    InputError
+        For units that are not a water amount (see :func:`water_to_volumetric`).
+    """
+    return _water_kind(units, name) == "mass"
+
+
+def _ice_factor(reading):
+    if reading == "liquid_equivalent":
+        return 1.0
+    if reading == "true_ice_volume":
+        return RHO_ICE / RHO_WATER
+    raise InputError(f"unknown ice reading {reading!r}; use one of {', '.join(ICE_READINGS)}")
+
+
+def ice_volume_to_water_equivalent(theta_ice, reading):
+    """A volumetric ice content as stored -> its liquid-water equivalent, m3 m-3.
+
+    ``theta_we = theta_ice * RHO_ICE / RHO_WATER`` for a true ice volume (``reading =
+    'true_ice_volume'``): the mass of the ice per unit soil volume divided by the density of liquid
+    water; unchanged for ``'liquid_equivalent'``.
+
+    Parameters
+    ----------
+    theta_ice : array_like
+        Ice content as stored, m3 m-3.
+    reading : {'liquid_equivalent', 'true_ice_volume'}
+        What the stored volume is (see :data:`ICE_READINGS`).
+
+    Returns
+    -------
+    numpy.ndarray
+        Liquid-water-equivalent ice content, m3 m-3.
+
+    References
+    ----------
+    Density of ice at 0 C, 917 kg m-3, and of liquid water, 1000 kg m-3: the constants set of
+    :mod:`initgen.constants` (RHO_ICE, RHO_WATER), which names its source.
+    """
+    return _f64(theta_ice) * _ice_factor(reading)
+
+
+def water_equivalent_to_ice_volume(theta_we, reading):
+    """Inverse of :func:`ice_volume_to_water_equivalent`: ``theta_ice = theta_we * RHO_WATER / RHO_ICE``
+    for ``'true_ice_volume'``, unchanged for ``'liquid_equivalent'``.
+
+    References
+    ----------
+    As :func:`ice_volume_to_water_equivalent`.
+    """
+    return _f64(theta_we) / _ice_factor(reading)
+
+
+def phases_from_total(total, other, kind, reading="liquid_equivalent"):
+    """Split a total soil water content into liquid and ice, m3 m-3 (ice as liquid equivalent).
+
+    Parameters
+    ----------
+    total : array_like
+        Total water content, m3 m-3, as stored: with ``reading = 'true_ice_volume'`` it is the
+        liquid volume plus the true ice volume, else liquid plus liquid-equivalent ice (a total
+        read from kg m-2 is always the latter).
+    other : array_like
+        ``kind = 'liquid'``: the liquid content, m3 m-3 (ice = total - liquid);
+        ``'frozen_fraction'``: the ice's fraction of the water mass, 1;
+        ``'unfrozen_fraction'``: the liquid's fraction of the water mass, 1.
+    kind : {'liquid', 'frozen_fraction', 'unfrozen_fraction'}
+    reading : {'liquid_equivalent', 'true_ice_volume'}
+
+    Returns
+    -------
+    (liquid, ice) : tuple of numpy.ndarray
+        m3 m-3; ice as liquid-water equivalent. Water mass per unit volume is
+        ``RHO_WATER * (liquid + ice)``.
+
+    Notes
+    -----
+    With a frozen mass fraction ``f`` and a true-volume total ``V``, the water mass ``W``
+    (as liquid-equivalent volume) solves ``V = (1 - f) W + f W RHO_WATER / RHO_ICE``.
+    """
+    t = _f64(total)
+    o = _f64(other)
+    k = _ice_factor(reading)
+    if kind == "liquid":
+        return o.copy(), (t - o) * k
+    if kind in ("frozen_fraction", "unfrozen_fraction"):
+        f = o if kind == "frozen_fraction" else 1.0 - o
+        with np.errstate(divide="ignore", invalid="ignore"):
+            w = t / ((1.0 - f) + f / k)
+        return (1.0 - f) * w, f * w
+    raise InputError(f"unknown split {kind!r}; use liquid, frozen_fraction or unfrozen_fraction")
+
+
+def total_from_phases(liq, ice_we, reading="liquid_equivalent"):
+    """Total water content as a file keeps it, m3 m-3: ``liq + ice`` with the ice as stored
+    (its true volume for ``reading = 'true_ice_volume'``). Inverse of :func:`phases_from_total`.
+
+    References
+    ----------
+    As :func:`ice_volume_to_water_equivalent`.
+    """
+    return _f64(liq) + water_equivalent_to_ice_volume(ice_we, reading)
+
+
+def frozen_fraction(liq, ice_we):
+    """Ice's fraction of the water mass, ``ice / (liq + ice)`` (both liquid-equivalent), 1;
+    NaN where the layer holds no water."""
+    liq, ice = _f64(liq), _f64(ice_we)
+    w = liq + ice
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return np.where(w > 0, ice / np.where(w > 0, w, 1.0), np.nan)
 
 
 # =============================================================================================
