@@ -56,6 +56,8 @@ class CheckResult:
             size = " x ".join(f"{n} {d}" for n, d in zip(g.shape, g.dims))
             lines.append(f"grid: {g.kind}, {size} ({g.extent()}); roles from {self.model.source}")
             lines.append("roles: " + ", ".join(f"{k}={'+'.join(r.variables)}" for k, r in sorted(self.model.roles.items())))
+            if self.model.water is not None:
+                lines.append(self.model.water.describe())
             if self.model.layers is not None:
                 lines.append("soil layer nodes (m): " + ", ".join(f"{z:.3g}" for z in self.model.layers.node_m))
         if self.plan is not None:
