@@ -252,6 +252,12 @@ def ledger_text(ledger: dict) -> str:
     phys = ledger.get("physics", {})
     extra = [f"{k} {v:.4g}" for k, v in phys.items() if k.endswith("_total_J") or k.endswith("_total_kg")]
     lines.append(f"physics: mode {phys.get('mode')}" + (("; " + ", ".join(extra)) if extra else ""))
+    water = ledger.get("water")
+    if water:
+        lines.append(f"soil water: {water['convention']} ({water['convention_from']}); volumetric ice "
+                     f"{water['volumetric_ice'].replace('_', ' ')} ({water['volumetric_ice_from']})"
+                     + ("; liquid/ice split diagnosed from the soil temperature" if water["phase_split_diagnosed"]
+                        else ""))
     if ledger.get("cells_not_in_phase_equilibrium_before"):
         lines.append(f"note: {ledger['cells_not_in_phase_equilibrium_before']} region layer-cells were not in phase "
                      "equilibrium before the change (left as they were outside the region)")

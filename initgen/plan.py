@@ -478,7 +478,7 @@ def _check_units(plan: Plan, model: ModelFile) -> None:
             warnings.warn(f"{model.store.describe()}: variable '{role.variables[0]}' ({target}) has no units "
                           "attribute; assuming K (give it units, or set units in the layout)", InputWarning, stacklevel=2)
         if target in plan.targets and role is not None:
-            soil.temperature_to_kelvin(np.zeros(1), role.units or "K", name=role.variables[0])
+            soil.temperature_to_kelvin(np.zeros(1), role.units or "K", name=role.variables[0], key=f"units.{target}")
     if plan.physics["mode"] != "none" and "soil_temperature" in plan.targets:
         for rname in ("soil_liquid", "soil_ice"):
             role = model.role(rname)
@@ -659,7 +659,7 @@ def _layer_col(vec: np.ndarray, nh: int) -> np.ndarray:
 
 def _temp_read(role, store, hkey):
     vals = role.read(store, hkey)
-    return soil.temperature_to_kelvin(vals, role.units or "K", name=role.variables[0])
+    return soil.temperature_to_kelvin(vals, role.units or "K", name=role.variables[0], key=f"units.{role.name}")
 
 
 def _temp_stored(role, kelvin: np.ndarray, layered: bool) -> np.ndarray:
@@ -893,25 +893,26 @@ def _suction_metres(values: np.ndarray, role, model: ModelFile) -> np.ndarray:
     """Saturated matric potential from a file as a suction magnitude in metres of water.
 
     Lengths (m, cm, mm, also written 'mm H2O' or 'm of water') are converted with their unit;
-    pressures (Pa, hPa, kPa, MPa) with psi = p / (rho_w g). Missing or unknown units are refused:
-    a suction read in the wrong unit moves the freezing curve by orders of magnitude.
+    pressures (Pa, hPa, kPa, MPa) with psi = p / (rho_w g); both parsed by initgen.units
+    (cf-units). Missing or unknown units are refused: a suction read in the wrong unit moves the
+    freezing curve by orders of magnitude.
     """
-    from .layers import units_to_metres
+    from . import units as units_mod
 
     raw = role.units.strip().lower()
     unit = raw.replace("h2o", "").replace("of water", "").replace("water", "").strip()
-    pressure = {"pa": 1.0, "hpa": 1e2, "kpa": 1e3, "mpa": 1e6}
     where = f"{model.store.describe()}: variable '{role.variables[0]}' (saturated matric potential)"
-    if unit in pressure:
-        return np.abs(values) * pressure[unit] * _SUCTION_PER_PASCAL
     if not unit:
-        raise InputError(f"{where} has no units attribute; give its units (m, mm, kPa ...) in the file or in the "
-                         "layout's units section")
-    try:
-        return np.abs(values) * units_to_metres(unit, name=role.variables[0])
-    except InputError:
-        raise InputError(f"{where} has units '{role.units}'; initgen reads lengths of water (m, cm, mm) or "
-                         "pressures (Pa, kPa, MPa)") from None
+        raise InputError(f"{where} has no units attribute; give its units (m, mm, kPa ...) in the file or with "
+                         "layout key units.psi_sat")
+    pa = units_mod.pascal_per(unit)
+    if pa is not None:
+        return np.abs(values) * pa * _SUCTION_PER_PASCAL
+    m = units_mod.metres_per(unit)
+    if m is not None:
+        return np.abs(values) * m
+    raise InputError(f"{where} has units '{role.units}'; initgen reads lengths of water (m, cm, mm) or "
+                     "pressures (Pa, kPa, MPa); fix the attribute or set layout key units.psi_sat")
 
 
 def _check_range(values: np.ndarray, lo: float, hi: float, model: ModelFile, role_name: str, what: str = "",
@@ -1001,10 +1002,10 @@ def _water_spec(plan: Plan, model: ModelFile):
 
 def _water_values(spec, rname: str, raw: np.ndarray, dz, por, name: str) -> np.ndarray:
     """One water variable as stored -> m3 m-3 as stored (a phase fraction -> fraction of 1)."""
-    from .water import FRACTION_ROLES, FRACTION_UNITS
+    from .water import FRACTION_ROLES, fraction_factor
 
     if rname in FRACTION_ROLES:
-        return np.asarray(raw, float) * FRACTION_UNITS[spec.units[rname].strip().lower()]
+        return np.asarray(raw, float) * fraction_factor(spec.units[rname])
     return soil.water_to_volumetric(raw, spec.units[rname], dz, porosity=por, name=name)
 
 
@@ -1183,9 +1184,9 @@ def _write_water(plan, store, hkey, water, inside, led, area, write):
         old = water["raw"][rname]  # as read, in the file's units
         moved = inside & (vals != old_vals[rname]) & np.isfinite(vals)
         if rname in ("soil_frozen_fraction", "soil_unfrozen_fraction"):
-            from .water import FRACTION_UNITS
+            from .water import fraction_factor
 
-            new = vals / FRACTION_UNITS[spec.units[rname].strip().lower()]
+            new = vals / fraction_factor(spec.units[rname])
         else:
             new = soil.volumetric_to_water(vals, spec.units[rname], water["dz"], porosity=water["porosity"])
         new = np.where(moved, role.stored(new if role.layered else new[:, 0]).reshape(new.shape), old)

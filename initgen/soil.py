@@ -137,18 +137,18 @@ def _f64(x):
 # Unit conversion
 # =============================================================================================
 
-_KELVIN = {"k", "kelvin", "kelvins", "degk", "degreek", "degreesk"}
-_CELSIUS = {"c", "°c", "degc", "degreec", "degreesc", "celsius", "degreecelsius",
-            "degreescelsius", "degc", "deg°c"}
+def _temperature_units(units, name, key):
+    from initgen.units import temperature_scale_offset
+
+    so = temperature_scale_offset(units)
+    if so is None:
+        where = f"layout key {key}" if key else "layout"
+        what = "no units" if units is None or not str(units).strip() else f"unknown temperature units {units!r}"
+        raise InputError(f"variable '{name}': {what}; set its units to 'K' or 'degC' (file attribute or {where})")
+    return so
 
 
-def _norm_temperature_units(units):
-    if units is None:
-        return None
-    return str(units).strip().lower().replace(" ", "").replace("_", "")
-
-
-def temperature_to_kelvin(values, units, name="temperature"):
+def temperature_to_kelvin(values, units, name="temperature", key=None):
     """Convert temperatures to kelvin.
 
     Parameters
@@ -156,13 +156,14 @@ def temperature_to_kelvin(values, units, name="temperature"):
     values : array_like
         Temperatures in ``units``.
     units : str
-        A CF/UDUNITS spelling of kelvin (``K``, ``kelvin``, ``degK``, ``deg_K``, ``degree_K``,
-        ``degrees_K``) or of degrees Celsius (``degC``, ``deg_C``, ``degree_C``,
-        ``degrees_C``, ``degree_Celsius``, ``degrees_Celsius``, ``Celsius``, ``°C``, ``C``).
-        Matching ignores case, spaces and underscores. ``C`` is coulomb in UDUNITS; for a
+        Any UDUNITS temperature unit, parsed by :mod:`initgen.units` (cf-units): ``K``,
+        ``kelvin``, ``degK``, ``degrees_K``; ``degC``, ``deg_C``, ``degree_Celsius``,
+        ``Celsius``, ``°C``, ``C``; ``degF`` .... ``C`` is coulomb in UDUNITS; for a
         temperature it can only mean Celsius, so it is read as such.
     name : str
         Variable name, used in error messages.
+    key : str, optional
+        The layout key that sets the variable's units (``units.<role>``), named in errors.
 
     Returns
     -------
@@ -172,23 +173,21 @@ def temperature_to_kelvin(values, units, name="temperature"):
     Raises
     ------
     InputError
-        If ``units`` is missing or not a known temperature unit.
+        If ``units`` is missing or not a temperature unit.
+
+    References
+    ----------
+    UDUNITS-2 unit database (Unidata), through cf-units: K = degC + 273.15.
     """
-    key = _norm_temperature_units(units)
+    scale, offset = _temperature_units(units, name, key)
     v = _f64(values)
-    if key in _KELVIN:
+    if scale == 1.0 and offset == 0.0:
         return v.copy()
-    if key in _CELSIUS:
-        return v + T_FREEZE
-    raise InputError(
-        f"variable '{name}': unknown temperature units {units!r}; "
-        "set its units to 'K' or 'degC' (file attribute or layout)"
-    )
+    return v * scale + offset if scale != 1.0 else v + offset
 
 
-def kelvin_to_units(values, units, name="temperature"):
-    """Convert kelvin to ``units`` (kelvin or degrees Celsius), the inverse of
-    :func:`temperature_to_kelvin`.
+def kelvin_to_units(values, units, name="temperature", key=None):
+    """Convert kelvin to ``units``, the inverse of :func:`temperature_to_kelvin`.
 
     Parameters
     ----------
@@ -198,6 +197,8 @@ def kelvin_to_units(values, units, name="temperature"):
         Target units, any spelling accepted by :func:`temperature_to_kelvin`.
     name : str
         Variable name, used in error messages.
+    key : str, optional
+        The layout key that sets the variable's units, named in errors.
 
     Returns
     -------
@@ -207,18 +208,13 @@ def kelvin_to_units(values, units, name="temperature"):
     Raises
     ------
     InputError
-        If ``units`` is not a known temperature unit.
+        If ``units`` is not a temperature unit.
     """
-    key = _norm_temperature_units(units)
+    scale, offset = _temperature_units(units, name, key)
     v = _f64(values)
-    if key in _KELVIN:
+    if scale == 1.0 and offset == 0.0:
         return v.copy()
-    if key in _CELSIUS:
-        return v - T_FREEZE
-    raise InputError(
-        f"variable '{name}': unknown temperature units {units!r}; "
-        "set its units to 'K' or 'degC' (file attribute or layout)"
-    )
+    return (v - offset) / scale if scale != 1.0 else v - offset
 
 
 #: Dedicated units string for water content given as a fraction of saturation (of porosity):
@@ -226,31 +222,27 @@ def kelvin_to_units(values, units, name="temperature"):
 #: described with this string in the layout, because ``1`` is read as m3 m-3.
 SATURATION_FRACTION = "saturation_fraction"
 
-_MASS = {"kgm-2", "kg/m2", "mm"}
-_VOLUME = {"m3m-3", "m3/m3", "1", "fraction"}
 _SATURATION = {"saturationfraction", "fractionofsaturation"}
 
 
-def _norm_water_units(units):
-    if units is None:
-        return None
-    u = str(units).strip().lower()
-    u = u.replace(" ", "").replace("*", "").replace("^", "").replace(".", "")
-    return u.replace("_", "")
+def _water_units(units, name):
+    """('mass', kg m-2 per unit) | ('volume', m3 m-3 per unit) | ('saturation', 1)."""
+    from initgen.units import water_amount
+
+    key = str(units).strip().lower().replace(" ", "").replace("_", "") if units is not None else ""
+    if key in _SATURATION:
+        return "saturation", 1.0
+    got = water_amount(units)
+    if got is None:
+        raise InputError(
+            f"variable '{name}': unknown water units {units!r}; use 'kg m-2' (or kg/m2, mm), "
+            f"'m3 m-3' (or 1, m3/m3, fraction, %) or '{SATURATION_FRACTION}' in the layout"
+        )
+    return got
 
 
 def _water_kind(units, name):
-    key = _norm_water_units(units)
-    if key in _MASS:
-        return "mass"
-    if key in _VOLUME:
-        return "volume"
-    if key in _SATURATION:
-        return "saturation"
-    raise InputError(
-        f"variable '{name}': unknown water units {units!r}; use 'kg m-2' (or kg/m2, mm), "
-        f"'m3 m-3' (or 1, m3/m3, fraction) or '{SATURATION_FRACTION}' in the layout"
-    )
+    return _water_units(units, name)[0]
 
 
 def _check_thickness(thickness_m, name):
@@ -303,13 +295,13 @@ def water_to_volumetric(values, units, thickness_m, porosity=None, name="soil wa
     InputError
         For unknown units, a non-positive thickness or a missing/invalid porosity.
     """
-    kind = _water_kind(units, name)
+    kind, f = _water_units(units, name)
     v = _f64(values)
     if kind == "mass":
-        return v / (RHO_WATER * _check_thickness(thickness_m, name))
+        return (v if f == 1.0 else v * f) / (RHO_WATER * _check_thickness(thickness_m, name))
     if kind == "saturation":
         return v * _check_porosity(porosity, name)
-    return v.copy()
+    return v.copy() if f == 1.0 else v * f
 
 
 def volumetric_to_water(vol, units, thickness_m, porosity=None, name="soil water"):
@@ -335,13 +327,14 @@ def volumetric_to_water(vol, units, thickness_m, porosity=None, name="soil water
         Water amount in ``units``: kg m-2 = theta * RHO_WATER * thickness_m; m3 m-3; or
         theta / porosity.
     """
-    kind = _water_kind(units, name)
+    kind, f = _water_units(units, name)
     v = _f64(vol)
     if kind == "mass":
-        return v * (RHO_WATER * _check_thickness(thickness_m, name))
+        m = v * (RHO_WATER * _check_thickness(thickness_m, name))
+        return m if f == 1.0 else m / f
     if kind == "saturation":
         return v / _check_porosity(porosity, name)
-    return v.copy()
+    return v.copy() if f == 1.0 else v / f
 
 
 # --- water conventions: ice as stored, totals and fractions -----------------------------------

@@ -44,7 +44,15 @@ CONVENTIONS = {
 WATER_ROLES = ("soil_liquid", "soil_ice", "soil_water_total", "soil_frozen_fraction", "soil_unfrozen_fraction")
 FRACTION_ROLES = ("soil_frozen_fraction", "soil_unfrozen_fraction")
 #: units a phase fraction may carry, with the factor to a fraction of 1
-FRACTION_UNITS = {"1": 1.0, "": 1.0, "fraction": 1.0, "kg kg-1": 1.0, "kg/kg": 1.0, "%": 0.01, "percent": 0.01}
+_MASS_RATIOS = {"kg kg-1": 1.0, "kg/kg": 1.0, "kg kg**-1": 1.0, "kg kg^-1": 1.0, "g g-1": 1.0, "g/g": 1.0}
+
+
+def fraction_factor(units: str) -> float | None:
+    """Fraction of 1 per unit of a phase fraction (1, %, a mass ratio kg kg-1), or None."""
+    from .units import fraction_per
+
+    key = str(units or "").strip().lower()
+    return _MASS_RATIOS[key] if key in _MASS_RATIOS else fraction_per(units)
 
 
 @dataclass
@@ -91,15 +99,17 @@ class WaterSpec:
 def _units_of(role, rname: str, where: str) -> str:
     u = role.units
     if rname in FRACTION_ROLES:
-        key = u.strip().lower()
-        if key not in FRACTION_UNITS:
+        if fraction_factor(u) is None:
             raise InputError(f"{where}: variable '{role.variables[0]}' ({rname}) has units '{u}'; a phase fraction "
                              "is in 1 or % (set it with layout key units." + rname + ")")
         return u or "1"
     if not u:
         raise InputError(f"{where}: variable '{role.variables[0]}' ({rname}) has no units attribute; give it one, or "
                          f"set layout key units.{rname} (kg m-2, m3 m-3 or {soil.SATURATION_FRACTION})")
-    soil.water_units_are_mass(u, role.variables[0])  # refuses units that are not a water amount
+    try:
+        soil.water_units_are_mass(u, role.variables[0])  # refuses units that are not a water amount
+    except InputError as exc:
+        raise InputError(f"{where}: {exc} (or set layout key units.{rname} if the file has no units)") from None
     return u
 
 
