@@ -251,6 +251,9 @@ WATER = Obj(
                               "soil_water_total, the liquid/ice split diagnosed from the soil temperature (the "
                               "equilibrium phase rule). Default: told by the roles the layout (or CF) names. The file "
                               "keeps its convention: in total_and_liquid the total stays and the liquid moves"),
+        "units": Obj(default=None, doc="units of the water variables that override their units attributes (for "
+                                       "a file that writes '1' for a fraction of saturation, say): role -> units",
+                     fields={r: Str(default=None) for r in ("soil_liquid", "soil_ice") + WATER_ROLES}),
         "volumetric_ice": Str(choices=("liquid_equivalent", "true_ice_volume"), default=None,
                               doc="how an ice content (or a total that includes ice) given in m3 m-3 or "
                                   "saturation_fraction is stored: liquid_equivalent (the ice's mass / 1000 kg m-3) or "

@@ -443,7 +443,8 @@ def phases_from_total(total, other, kind, reading="liquid_equivalent"):
         f = o if kind == "frozen_fraction" else 1.0 - o
         with np.errstate(divide="ignore", invalid="ignore"):
             w = t / ((1.0 - f) + f / k)
-        return (1.0 - f) * w, f * w
+        dry = t == 0.0  # a layer without water: no split, whatever the fraction holds (often a fill value)
+        return np.where(dry, 0.0, (1.0 - f) * w), np.where(dry, 0.0, f * w)
     raise InputError(f"unknown split {kind!r}; use liquid, frozen_fraction or unfrozen_fraction")
 
 

@@ -66,6 +66,8 @@ class WaterSpec:
     ice_role: str | None  # the role whose values include ice (None for fractions-only reading)
     ice_reading: str  # 'liquid_equivalent' | 'true_ice_volume' | 'mass' (kg m-2: no reading needed)
     ice_reading_source: str  # 'layout key water.volumetric_ice', 'assumed (...)', 'kg m-2 is a mass'
+    overridden: tuple = ()  # roles whose units the layout's water.units set over the file's attribute
+    kept: tuple = ()  # other water variables the file holds, which initgen leaves as they are
 
     @property
     def phase_split_diagnosed(self) -> bool:
@@ -79,13 +81,16 @@ class WaterSpec:
         return "liquid_equivalent" if self.ice_reading == "mass" else self.ice_reading
 
     def describe(self) -> str:
-        parts = ", ".join(f"{r} in '{self.units[r]}'" for r in self.roles)
+        parts = ", ".join(f"{r} in '{self.units[r]}'" + (" (layout key water.units)" if r in self.overridden else "")
+                          for r in self.roles)
         if self.ice_reading == "mass":
             ice = "ice given as a mass (kg m-2), no reading needed"
         else:
             ice = f"volumetric ice read as {self.ice_reading.replace('_', ' ')} ({self.ice_reading_source})"
         extra = "; liquid/ice split diagnosed from the soil temperature (equilibrium phase rule)" \
             if self.phase_split_diagnosed else ""
+        if self.kept:
+            extra += f"; {', '.join(self.kept)} left as they are (water mass is conserved)"
         return f"soil water: {self.convention} ({self.source}): {parts}; {ice}{extra}"
 
     def record(self) -> dict:
@@ -93,11 +98,12 @@ class WaterSpec:
         return {"convention": self.convention, "convention_from": self.source,
                 "units": dict(self.units), "volumetric_ice": self.ice_reading,
                 "volumetric_ice_from": self.ice_reading_source,
-                "phase_split_diagnosed": self.phase_split_diagnosed}
+                "phase_split_diagnosed": self.phase_split_diagnosed,
+                "units_from_layout": list(self.overridden), "kept_as_they_are": list(self.kept)}
 
 
-def _units_of(role, rname: str, where: str) -> str:
-    u = role.units
+def _units_of(role, rname: str, where: str, override: str | None = None) -> str:
+    u = override or role.units
     if rname in FRACTION_ROLES:
         if fraction_factor(u) is None:
             raise InputError(f"{where}: variable '{role.variables[0]}' ({rname}) has units '{u}'; a phase fraction "
@@ -147,7 +153,13 @@ def _resolve(roles: dict, layout_data: dict | None, where: str, required: bool) 
                              "soil_water_total with soil_liquid, soil_frozen_fraction or soil_unfrozen_fraction, or "
                              "soil_water_total alone; name them under roles in the layout (and water.convention)")
     need = CONVENTIONS[conv]
-    units = {r: _units_of(roles[r], r, where) for r in need}
+    overrides = {r: u for r, u in (section.get("units") or {}).items() if u}
+    stray = [r for r in overrides if r not in need]
+    if stray:
+        raise InputError(f"{where}: layout key water.units.{stray[0]} sets units for a role the convention {conv} "
+                         f"does not read ({', '.join(need)}); remove it")
+    units = {r: _units_of(roles[r], r, where, overrides.get(r)) for r in need}
+    kept = tuple(f"{r} '{'+'.join(roles[r].variables)}'" for r in WATER_ROLES if r in roles and r not in need)
     ice_role = "soil_ice" if conv == "liquid_and_ice" else "soil_water_total"
     declared = section.get("volumetric_ice")
     if soil.water_units_are_mass(units[ice_role]):
@@ -164,4 +176,4 @@ def _resolve(roles: dict, layout_data: dict | None, where: str, required: bool) 
         raise InputError(f"{where}: layout key water.volumetric_ice is true_ice_volume with water.convention "
                          "total_only; a true-volume total cannot be split without knowing the split; give the "
                          "total in kg m-2 or as liquid equivalent, or name the liquid or a phase fraction too")
-    return WaterSpec(conv, source, need, units, ice_role, reading, rsource)
+    return WaterSpec(conv, source, need, units, ice_role, reading, rsource, tuple(overrides), kept)

@@ -1197,3 +1197,10 @@ def test_packed_variable_cannot_hold_the_change(work, capsys):
         argv = [cmd, rec, "--input", f] + (["--output", work / "o.nc"] if cmd == "apply" else [])
         refused(capsys, argv, "p.nc", "'soil_temp'", "int16", "holds only", "cell(s) outside",
                 "limits.packed_out_of_range: clip", folder=work)
+
+
+def test_water_units_override_for_a_role_the_convention_does_not_read(work, capsys):
+    f, lay, rec = _water_case(work)
+    lay.write_text(lay.read_text() + "  units: {soil_ice: m3 m-3}\n")
+    refused(capsys, ["apply", rec, "--input", f, "--output", work / "o.nc", "--layout", lay],
+            "water.units.soil_ice", "total_and_liquid", "remove it", folder=work)

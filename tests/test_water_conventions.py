@@ -306,3 +306,44 @@ def test_packed_clipping_when_allowed_is_counted_as_clamps(tmp_path):
     out = raw(tmp_path / "o.nc", "soil_temp")[0]
     assert (out[over] == 32767).all()  # clipped to the top of the type
     assert (out[~over & (T0 + 10 < _packed_top(f) - 1)] < 32767).all()
+
+
+def test_layout_water_units_override_a_files_misleading_attribute(tmp_path, reference):
+    """A fraction of saturation written with units '1' would read as m3 m-3 (wrong by the
+    porosity, 0.451 for loam); layout key water.units says what the numbers are."""
+    f = fm.water_file(tmp_path / "in.nc", "total_and_liquid", "saturation_fraction")
+    for name in ("water_total", "water_liquid"):
+        with netCDF4.Dataset(f, "a") as ds:
+            ds[name].units = "1"
+    lay = fm.water_layout(tmp_path / "l.yaml", "total_and_liquid", "m3 m-3")
+    lay.write_text(lay.read_text() + "  units: {soil_water_total: saturation_fraction, soil_liquid: saturation_fraction}\n")
+    chk = api.check(recipe(tmp_path, -3), layout=lay, input=f)
+    assert "soil_water_total in 'saturation_fraction' (layout key water.units)" in chk.summary()
+    o = tmp_path / "o.nc"
+    rec = api.apply(recipe(tmp_path, -3), f, o, layout=lay)
+    liq, ice = decode(o, "total_and_liquid", "saturation_fraction")
+    np.testing.assert_allclose(ice, reference[-3][0][1], rtol=1e-9, atol=1e-7)
+    assert sorted(rec["ledger"]["water"]["units_from_layout"]) == ["soil_liquid", "soil_water_total"]
+
+
+def test_a_total_beside_liquid_and_ice_is_named_as_kept(tmp_path):
+    f = fm.water_file(tmp_path / "in.nc", "liquid_and_ice", "kg m-2")
+    T, liq, ice = fm.frozen_state()
+    with netCDF4.Dataset(f, "a") as ds:
+        v = ds.createVariable("water_total", "f8", ("time", "soil_layer", "lat", "lon"))
+        v.units = "kg m-2"
+        v[:] = ((liq + ice) * 1000.0 * fm.WATER_DZ[:, None, None])[None]
+    lay = fm.water_layout(tmp_path / "l.yaml", "liquid_and_ice", "kg m-2")
+    lay.write_text(lay.read_text().replace("  soil_ice: water_ice\n", "  soil_ice: water_ice\n  soil_water_total: water_total\n"))
+    chk = api.check(recipe(tmp_path, -3), layout=lay, input=f)
+    assert "soil_water_total 'water_total' left as they are" in chk.summary()
+    o = tmp_path / "o.nc"
+    api.apply(recipe(tmp_path, -3), f, o, layout=lay)
+    assert np.array_equal(raw(o, "water_total"), raw(f, "water_total"))
+    liq1, ice1 = decode(o, "liquid_and_ice", "kg m-2")
+    np.testing.assert_allclose(liq1 + ice1, raw(f, "water_total")[0], rtol=1e-12)  # still the total
+
+
+def test_dry_layer_with_a_filled_fraction_holds_no_water():
+    liq, ice = soil.phases_from_total(np.array([0.0, 0.3]), np.array([np.nan, 0.5]), "frozen_fraction")
+    assert liq.tolist() == [0.0, 0.15] and ice.tolist() == [0.0, 0.15]
