@@ -1011,8 +1011,9 @@ def _water_values(spec, rname: str, raw: np.ndarray, dz, por, name: str) -> np.n
 
 def _water_file_values(spec, liq: np.ndarray, ice: np.ndarray) -> dict:
     """The physics' liquid and ice (m3 m-3, ice liquid-equivalent) -> the values of the file's own
-    water variables that can move (m3 m-3 as stored, or fractions of 1), by role. A total in kg m-2
-    or liquid equivalent is conserved by the physics and so never rewritten."""
+    water variables (m3 m-3 as stored, or fractions of 1), by role. The physics conserves water
+    mass, so a total moves only where a donor blend changes it, or where it holds the true ice
+    volume (the same mass fills another volume once melted or frozen): see _write_water."""
     conv, reading = spec.convention, spec.reading
     out = {}
     if conv == "liquid_and_ice":
@@ -1024,9 +1025,11 @@ def _water_file_values(spec, liq: np.ndarray, ice: np.ndarray) -> dict:
     elif conv in ("total_and_frozen_fraction", "total_and_unfrozen_fraction"):
         f = soil.frozen_fraction(liq, ice)
         out[spec.roles[1]] = f if conv == "total_and_frozen_fraction" else 1.0 - f
-    if reading == "true_ice_volume":  # the stored volume of a total changes as water freezes or melts
-        out["soil_water_total"] = soil.total_from_phases(liq, ice, reading)
+    out["soil_water_total"] = soil.total_from_phases(liq, ice, reading)
     return out
+
+
+TOTAL_ROUNDING = 1e-12  # m3 m-3 (relative to 1 + total): a total that moved less is round-off, kept as stored
 
 
 def _read_water(plan: Plan, store, hkey, shape, donor: ModelFile | None = None) -> dict:
@@ -1183,6 +1186,8 @@ def _write_water(plan, store, hkey, water, inside, led, area, write):
         role = model.role(rname)
         old = water["raw"][rname]  # as read, in the file's units
         moved = inside & (vals != old_vals[rname]) & np.isfinite(vals)
+        if rname == "soil_water_total":  # conserved by the physics up to round-off: the total stays
+            moved &= np.abs(vals - old_vals[rname]) > TOTAL_ROUNDING * (1.0 + np.abs(old_vals[rname]))
         if rname in ("soil_frozen_fraction", "soil_unfrozen_fraction"):
             from .water import fraction_factor
 

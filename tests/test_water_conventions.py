@@ -144,7 +144,8 @@ def test_each_convention_gives_the_liquid_and_ice_files_change(tmp_path, referen
         # the file keeps its convention: a total in kg m-2 or liquid equivalent is never rewritten
         if convention != "liquid_and_ice" and (units == "kg m-2" or reading == "liquid_equivalent"):
             assert np.array_equal(read(o, "water_total", per_layer), read(f, "water_total", per_layer))
-            assert not any("water_total" in name for name in rec["ledger"]["variables"])
+            totals = [v for n, v in rec["ledger"]["variables"].items() if "water_total" in n]
+            assert totals and all(row["cells_changed"] == 0 for v in totals for row in v["layers"])
         if convention == "total_and_liquid" and dT == -3:
             assert not np.array_equal(read(o, "water_liquid", per_layer), read(f, "water_liquid", per_layer))
 
@@ -347,3 +348,36 @@ def test_a_total_beside_liquid_and_ice_is_named_as_kept(tmp_path):
 def test_dry_layer_with_a_filled_fraction_holds_no_water():
     liq, ice = soil.phases_from_total(np.array([0.0, 0.3]), np.array([np.nan, 0.5]), "frozen_fraction")
     assert liq.tolist() == [0.0, 0.15] and ice.tolist() == [0.0, 0.15]
+
+
+@pytest.mark.parametrize("convention", ["total_and_liquid", "total_and_frozen_fraction", "total_only"])
+def test_donor_blend_moves_the_total_in_total_conventions(tmp_path, convention):
+    """A donor transplants water: where the weight is 1 the file's total becomes the donor's
+    (blend new = (1 - w) old + w donor), in every convention that keeps a total."""
+    f = fm.water_file(tmp_path / "a.nc", convention, "kg m-2", seed=0)
+    d = fm.water_file(tmp_path / "donor.nc", convention, "kg m-2", seed=5)
+    lay = fm.water_layout(tmp_path / "l.yaml", convention, "kg m-2")
+    r = tmp_path / "d.yaml"
+    r.write_text(RECIPE.replace("anomaly: {constant_K: DT}", "anomaly: {donor: {file: donor.nc}}").replace(
+        "    profile: {kind: exponential, efolding_m: 0.5}\n", ""))
+    o = tmp_path / "o.nc"
+    api.apply(r, f, o, layout=lay)
+    box = (np.abs(fm.WATER_LON) < 25)[None, None, :] & (np.abs(fm.WATER_LAT) < 15)[None, :, None]
+    box = np.broadcast_to(box, raw(f, "water_total")[0].shape)
+    np.testing.assert_allclose(raw(o, "water_total")[0][box], raw(d, "water_total")[0][box], rtol=1e-12)
+    assert np.array_equal(raw(o, "water_total")[0][~box], raw(f, "water_total")[0][~box])
+
+
+@pytest.mark.parametrize("convention", ["total_and_liquid", "total_and_unfrozen_fraction"])
+def test_float32_total_stays_bit_for_bit_and_water_is_conserved_to_its_precision(tmp_path, convention):
+    """Restarts often store float32: the total is not rewritten, and liquid + ice read back from
+    the output equals the input's to float32 precision (2**-23 relative, IEEE 754)."""
+    f = fm.water_file(tmp_path / "in.nc", convention, "kg m-2", dtype="f4")
+    lay = fm.water_layout(tmp_path / "l.yaml", convention, "kg m-2")
+    o = tmp_path / "o.nc"
+    api.apply(recipe(tmp_path, -3), f, o, layout=lay)
+    assert np.array_equal(raw(o, "water_total"), raw(f, "water_total"))
+    l0, i0 = decode(f, convention, "kg m-2")
+    l1, i1 = decode(o, convention, "kg m-2")
+    assert not np.allclose(i1, i0)  # water froze
+    np.testing.assert_allclose(l1 + i1, l0 + i0, rtol=2.0 ** -22)
