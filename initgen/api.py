@@ -58,6 +58,17 @@ class CheckResult:
             lines.append("roles: " + ", ".join(f"{k}={'+'.join(r.variables)}" for k, r in sorted(self.model.roles.items())))
             if self.model.water is not None:
                 lines.append(self.model.water.describe())
+            if self.plan is not None:
+                from .restart import storable_range
+
+                for target in self.plan.targets:
+                    role = self.model.role(target)
+                    for v in (role.views if role is not None else []):
+                        rng = storable_range(v.info.attrs, v.info.dtype)
+                        if rng is not None:
+                            lines.append(f"{v.info.name}: stored as {np.dtype(v.info.dtype)}, holds {rng[0]:.6g}.."
+                                         f"{rng[1]:.6g} {v.info.units}; a change beyond is refused (recipe key "
+                                         "limits.packed_out_of_range)")
             if self.model.layers is not None:
                 lines.append("soil layer nodes (m): " + ", ".join(f"{z:.3g}" for z in self.model.layers.node_m))
         if self.plan is not None:

@@ -476,7 +476,7 @@ def _check_units(plan: Plan, model: ModelFile) -> None:
         role = model.role(target)
         if target in plan.targets and role is not None and not role.units:
             warnings.warn(f"{model.store.describe()}: variable '{role.variables[0]}' ({target}) has no units "
-                          "attribute; assuming K (give it units, or set units in the layout)", InputWarning, stacklevel=2)
+                          f"attribute; assuming K (give it units, or set layout key units.{target})", InputWarning, stacklevel=2)
         if target in plan.targets and role is not None:
             soil.temperature_to_kelvin(np.zeros(1), role.units or "K", name=role.variables[0], key=f"units.{target}")
     if plan.physics["mode"] != "none" and "soil_temperature" in plan.targets:
