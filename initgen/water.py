@@ -102,6 +102,15 @@ class WaterSpec:
                 "units_from_layout": list(self.overridden), "kept_as_they_are": list(self.kept)}
 
 
+#: CF standard names whose definition makes a volumetric ice content a true ice volume ("the volume
+#: of X divided by the volume of Y"; CF standard name table, version-68 update, checked)
+TRUE_VOLUME_NAMES = ("volume_fraction_of_frozen_water_in_soil",)
+
+
+def _standard_name(role) -> str:
+    return str(role.views[0].info.attrs.get("standard_name", "")).strip()
+
+
 def _units_of(role, rname: str, where: str, override: str | None = None) -> str:
     u = override or role.units
     if rname in FRACTION_ROLES:
@@ -170,6 +179,10 @@ def _resolve(roles: dict, layout_data: dict | None, where: str, required: bool) 
         reading, rsource = "mass", "kg m-2 is a mass"
     elif declared:
         reading, rsource = declared, "layout key water.volumetric_ice"
+    elif _standard_name(roles[ice_role]) in TRUE_VOLUME_NAMES:
+        # the CF definition of a volume fraction: the volume of the ice divided by the volume of the soil
+        reading = "true_ice_volume"
+        rsource = f"CF standard_name {_standard_name(roles[ice_role])} of '{roles[ice_role].variables[0]}'"
     else:
         reading, rsource = "liquid_equivalent", "assumed: layout key water.volumetric_ice not given"
     if conv == "total_only" and reading == "true_ice_volume":

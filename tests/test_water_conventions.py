@@ -381,3 +381,42 @@ def test_float32_total_stays_bit_for_bit_and_water_is_conserved_to_its_precision
     l1, i1 = decode(o, convention, "kg m-2")
     assert not np.allclose(i1, i0)  # water froze
     np.testing.assert_allclose(l1 + i1, l0 + i0, rtol=2.0 ** -22)
+
+
+def test_cf_volume_fraction_of_frozen_water_is_read_as_true_ice_volume(tmp_path, reference):
+    """CF defines volume_fraction_of_frozen_water_in_soil as the volume of the ice divided by the
+    volume of the soil (CF standard name table, version-68 update): a true ice volume."""
+    f = fm.water_file(tmp_path / "in.nc", "liquid_and_ice", "m3 m-3", ice_reading="true_ice_volume", cf_names=True)
+    with netCDF4.Dataset(f, "a") as ds:
+        ds["water_liquid"].standard_name = "volume_fraction_of_liquid_water_in_soil"
+        ds["water_ice"].standard_name = "volume_fraction_of_frozen_water_in_soil"
+    chk = api.check(recipe(tmp_path, -3), input=f)
+    assert chk.model.water.ice_reading == "true_ice_volume"
+    assert "CF standard_name volume_fraction_of_frozen_water_in_soil" in chk.summary()
+    o = tmp_path / "o.nc"
+    api.apply(recipe(tmp_path, -3), f, o)
+    liq, ice = decode(o, "liquid_and_ice", "m3 m-3", "true_ice_volume")
+    np.testing.assert_allclose(ice, reference[-3][0][1], rtol=1e-9, atol=1e-7)
+
+
+try:
+    from hypothesis import given, settings, strategies as st
+except ImportError:  # pragma: no cover
+    given = None
+
+if given is not None:
+    _frac = st.floats(0.0, 1.0, allow_nan=False)
+    _vol = st.floats(0.0, 0.6, allow_nan=False)
+
+    @settings(max_examples=200, deadline=None)
+    @given(liq=_vol, ice=_vol, reading=st.sampled_from(soil.ICE_READINGS),
+           kind=st.sampled_from(["liquid", "frozen_fraction", "unfrozen_fraction"]))
+    def test_every_split_round_trips(liq, ice, reading, kind):
+        """Encoding a state in a convention and reading it back gives the state (water mass kept)."""
+        total = soil.total_from_phases(liq, ice, reading)
+        f = soil.frozen_fraction(liq, ice)
+        other = {"liquid": liq, "frozen_fraction": f, "unfrozen_fraction": 1.0 - f}[kind]
+        if liq + ice == 0.0:
+            other = 0.0
+        l2, i2 = soil.phases_from_total(total, other, kind, reading)
+        assert float(l2) == pytest.approx(liq, abs=1e-12) and float(i2) == pytest.approx(ice, abs=1e-12)
