@@ -213,9 +213,9 @@ def test_volumetric_ice_reading_is_reported_when_assumed(tmp_path):
     assert led["water"]["volumetric_ice_from"].startswith("assumed")
 
 
-def test_true_ice_volume_reading_costs_the_density_ratio(tmp_path):
-    """Read as true volume, the same stored ice holds 917/1000 of the mass: 8.3 % less than the
-    liquid-equivalent reading (ratio of the densities of ice and water)."""
+def test_the_two_ice_readings_are_different_experiments(tmp_path):
+    """Read as true volume, the same stored ice holds 917/1000 of the mass (8.3 % less; the
+    conversion itself is tested below): the declared reading reaches the physics."""
     f = fm.water_file(tmp_path / "in.nc", "liquid_and_ice", "m3 m-3")
     a = fm.water_layout(tmp_path / "a.yaml", "liquid_and_ice", "m3 m-3", ice_reading="liquid_equivalent")
     b = fm.water_layout(tmp_path / "b.yaml", "liquid_and_ice", "m3 m-3", ice_reading="true_ice_volume")
@@ -420,3 +420,21 @@ if given is not None:
             other = 0.0
         l2, i2 = soil.phases_from_total(total, other, kind, reading)
         assert float(l2) == pytest.approx(liq, abs=1e-12) and float(i2) == pytest.approx(ice, abs=1e-12)
+
+
+def test_float_variable_with_valid_max_refuses_a_change_that_would_read_back_as_missing(tmp_path):
+    """NetCDF User Guide, attribute conventions: values outside valid_range/valid_max are to be
+    treated as missing, so writing one would silently turn a warmed cell into a gap."""
+    f = fm.water_file(tmp_path / "in.nc", "total_only", "kg m-2")
+    with netCDF4.Dataset(f, "a") as ds:
+        ds["soil_temp"].valid_max = np.float32(274.0)
+    r = tmp_path / "r.yaml"
+    r.write_text(PACKED)  # +10 K
+    T0 = raw(f, "soil_temp")[0]
+    box = (np.abs(fm.WATER_LON) < 25)[None, None, :] & (np.abs(fm.WATER_LAT) < 15)[None, :, None]
+    n = int((np.broadcast_to(box, T0.shape) & (T0 + 10.0 > 274.0)).sum())
+    with pytest.raises(InputError, match=f"'soil_temp'.*{n} cell"):
+        api.preview(r, f, layout=fm.water_layout(tmp_path / "l.yaml", "total_only"))
+    r.write_text(PACKED + "limits: {packed_out_of_range: clip}\n")
+    led = api.preview(r, f, layout=tmp_path / "l.yaml")
+    assert led["clamps"]["soil_temp_outside_packed_range"] == n
