@@ -295,8 +295,9 @@ RECIPE = Obj(
         "members": MEMBERS,
         "limits": Obj(default={}, doc="what to do where a change cannot be stored as asked", fields={
             "packed_out_of_range": Str(choices=("refuse", "clip"), default="refuse",
-                                       doc="a change that a packed integer variable (scale_factor/add_offset) cannot "
-                                           "hold: refuse (exit 2, nothing written) or clip to the storable range "
+                                       doc="a change that a variable stored as integers (packed with scale_factor/"
+                                           "add_offset or not) or with valid_range/valid_min/valid_max cannot hold: "
+                                           "refuse (exit 2, nothing written) or clip to the storable range "
                                            "(counted in the ledger's clamps as <variable>_outside_packed_range)"),
         }),
         "layout": replace(LAYOUT, default=None, doc="an inline layout (used when no --layout is given)"),
