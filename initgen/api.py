@@ -66,6 +66,19 @@ class CheckResult:
             size = " x ".join(f"{n} {d}" for n, d in zip(g.shape, g.dims))
             lines.append(f"grid: {g.kind}, {size} ({g.extent()}); roles from {self.model.source}")
             lines.append("roles: " + ", ".join(f"{k}={'+'.join(r.variables)}" for k, r in sorted(self.model.roles.items())))
+            if self.model.water is not None:
+                lines.append(self.model.water.describe())
+            if self.plan is not None:
+                from .restart import storable_range
+
+                for target in self.plan.targets:
+                    role = self.model.role(target)
+                    for v in (role.views if role is not None else []):
+                        rng = storable_range(v.info.attrs, v.info.dtype)
+                        if rng is not None:
+                            lines.append(f"{v.info.name}: stored as {np.dtype(v.info.dtype)}, holds {rng[0]:.6g}.."
+                                         f"{rng[1]:.6g} {v.info.units}; a change beyond is refused (recipe key "
+                                         "limits.packed_out_of_range)")
             if self.model.layers is not None:
                 lines.append("soil layer nodes (m): " + ", ".join(f"{z:.3g}" for z in self.model.layers.node_m))
         if self.plan is not None:
@@ -137,6 +150,7 @@ def apply(recipe, input, output, layout=None, *, member: str | None = None, forc
     try:
         model = _model(store, lay, rec)
         plan = ensemble.configure(plan_mod.build_plan(rec, model, allow_outside=allow_outside_paths), mem)
+        _refuse_unstorable_first(plan, store)
     finally:
         store.close()
 
@@ -146,6 +160,28 @@ def apply(recipe, input, output, layout=None, *, member: str | None = None, forc
     return prov.write_perturbed(recipe=rec, layout=lay, input_path=input, output_path=output, patch=patch,
                                 force=force, allow_outside=allow_outside_paths,
                                 member=None if mem is None else mem.record(), repack=repack, files=plan.files)
+
+
+def _refuse_unstorable_first(plan, store) -> None:
+    """A target stored as integers (packed or not) or with valid limits may not hold the change:
+    run the plan once read-only on the input so that a refusal comes before the copy is made.
+    (With a donor the run would close the donor's file; the refusal then comes while patching
+    the temporary copy, which is removed: no output either way.)"""
+    from .restart import storable_range
+
+    if any(b.donor is not None for b in plan.blocks) or \
+            plan.recipe.data.get("limits", {}).get("packed_out_of_range") == "clip":
+        return
+    roles = [plan.model.role(t) for t in plan.targets] + [plan.model.role(r) for r in
+                                                          ("soil_liquid", "soil_ice", "soil_water_total",
+                                                           "soil_frozen_fraction", "soil_unfrozen_fraction",
+                                                           "snow_depth")]
+    if any(storable_range(v.info.attrs, v.info.dtype) is not None for r in roles if r is not None for v in r.views):
+        import warnings
+
+        with warnings.catch_warnings():  # the run that writes warns again
+            warnings.simplefilter("ignore")
+            plan_mod.run(plan, store, write=False)
 
 
 def _member(rec: Document, member: str | None):
@@ -238,6 +274,12 @@ def ledger_text(ledger: dict) -> str:
     extra = [f"{k} {v:.4g}" for k, v in phys.items() if k.endswith("_total_J") or k.endswith("_total_kg")]
     rule = f", phase rule {phys['phase_rule']}" if phys.get("phase_rule") else ""
     lines.append(f"physics: mode {phys.get('mode')}{rule}" + (("; " + ", ".join(extra)) if extra else ""))
+    water = ledger.get("water")
+    if water:
+        lines.append(f"soil water: {water['convention']} ({water['convention_from']}); volumetric ice "
+                     f"{water['volumetric_ice'].replace('_', ' ')} ({water['volumetric_ice_from']})"
+                     + ("; liquid/ice split diagnosed from the soil temperature" if water["phase_split_diagnosed"]
+                        else ""))
     inv = phys.get("invariants")
     if inv:
         bad = [k for k in ("cells_change_opposite_to_imposed", "cells_change_beyond_imposed",

@@ -38,11 +38,18 @@ CF_ROLES = {
     "snow_depth": ("surface_snow_thickness",),
     "snow_cover_fraction": ("surface_snow_area_fraction",),
     "cell_area": ("cell_area",),
+    # soil water kept as a total (water in all phases) with a phase fraction; names checked against
+    # the CF standard name table as the CMIP7 data request copies it (2025) and the CF editor's
+    # version-68 update; the table has no frozen mass fraction of soil moisture (layout only)
+    "soil_water_total": ("mass_content_of_water_in_soil_layer",),
+    "soil_unfrozen_fraction": ("mass_fraction_of_unfrozen_water_in_soil_moisture",),
+    "soil_frozen_fraction": (),
 }
 _LENGTH_UNITS = ("m", "meter", "meters", "metre", "metres", "cm", "centimeter", "centimeters", "mm")
 
 LAYERED_ROLES = ("soil_temperature", "soil_liquid", "soil_ice", "snow_temperature", "snow_layer_mass",
-                 "porosity", "psi_sat", "clapp_b", "sand", "clay")
+                 "porosity", "psi_sat", "clapp_b", "sand", "clay",
+                 "soil_water_total", "soil_frozen_fraction", "soil_unfrozen_fraction")
 
 
 class Grid:
@@ -166,6 +173,34 @@ class View:
 
 
 @dataclass
+class StoreLimits:
+    """Values a change would put outside what a variable can store (an integer type, packed with
+    scale_factor/add_offset or not, or a valid_range), counted per variable during one run.
+
+    :meth:`Role.stored` notes them here (and clips, which is what storing them would do);
+    ``plan.run`` then refuses the run, or with recipe key ``limits.packed_out_of_range: clip``
+    counts them as clamps. One object is shared by every role of a model file.
+    """
+
+    clip: bool = False
+    counts: dict = field(default_factory=dict)  # variable -> cells outside its storable range
+    ranges: dict = field(default_factory=dict)  # variable -> (lowest, highest, units, how stored)
+
+    def reset(self, clip: bool) -> None:
+        self.clip, self.counts, self.ranges = clip, {}, {}
+
+    def note(self, info: VarInfo, n: int, rng: tuple) -> None:
+        self.counts[info.name] = self.counts.get(info.name, 0) + n
+        how = str(np.dtype(info.dtype))
+        packing = [f"{k} {np.asarray(info.attrs[k]).item():g}" for k in ("scale_factor", "add_offset") if k in info.attrs]
+        if packing:
+            how += " with " + ", ".join(packing)
+        if any(k in info.attrs for k in ("valid_range", "valid_min", "valid_max")):
+            how += " and valid limits"
+        self.ranges[info.name] = (rng[0], rng[1], info.units, how)
+
+
+@dataclass
 class Role:
     """A role bound to one variable (with or without a layer axis) or a list of 2-D variables."""
 
@@ -173,6 +208,7 @@ class Role:
     views: list
     layered: bool
     fallback_units: str = ""  # the layout's units for this role, used when the file has none
+    limits: StoreLimits | None = None  # where stored() notes values the variable cannot hold
 
     @property
     def variables(self) -> list:
@@ -202,12 +238,21 @@ class Role:
     def stored(self, values: np.ndarray) -> np.ndarray:
         """``values`` (canonical order, the variable's units) as they will read back once written:
         rounded to the variable's type and packing. The ledger measures changes on these, so its
-        counts are those of the file."""
-        from .restart import pack, unpack
+        counts are those of the file. Values the variable cannot hold (outside an integer type's
+        range or a valid_range) are clipped to it and noted in ``self.limits`` for the run to
+        refuse or count."""
+        from .restart import pack, pack_overflow, storable_range, unpack
 
         def one(info, vals):
             ok = np.isfinite(vals)
-            q = unpack(pack(np.where(ok, vals, 0.0), info.attrs, info.dtype), info.attrs)
+            v = np.where(ok, vals, 0.0)
+            over = ok & pack_overflow(v, info.attrs, info.dtype)
+            if np.any(over):
+                rng = storable_range(info.attrs, info.dtype)
+                if self.limits is not None:
+                    self.limits.note(info, int(np.count_nonzero(over)), rng)
+                v = np.clip(v, rng[0], rng[1])
+            q = unpack(pack(v, info.attrs, info.dtype), info.attrs)
             return np.where(ok, q, vals)
 
         if len(self.views) == 1:
@@ -251,6 +296,19 @@ class ModelFile:
     layer_dim: str | None
     source: str  # 'layout <name>' or 'CF attributes'
     notes: list = field(default_factory=list)
+    water: object | None = None  # water.WaterSpec: how the file keeps soil water (None: it holds none)
+    limits: StoreLimits = field(default_factory=StoreLimits)  # shared with every role (Role.stored)
+
+    @property
+    def water_convention(self) -> str | None:
+        """The file's soil-water convention (``liquid_and_ice``, ``total_and_liquid``, ...), or None."""
+        return self.water.convention if self.water is not None else None
+
+    @property
+    def phase_split_diagnosed(self) -> bool:
+        """True when the file keeps only total water, so the liquid/ice split is diagnosed from the
+        temperature (the equilibrium phase rule is then the only one the file can express)."""
+        return self.water is not None and self.water.phase_split_diagnosed
 
     def role(self, name: str) -> Role | None:
         return self.roles.get(name)
@@ -488,7 +546,11 @@ def open_model(store: Store, layout=None, needed: tuple = ()) -> ModelFile:
         if spec is None or role == "cell_area":
             continue
         bound[role] = _bind(store, role, spec, grid.dims, data, where)
-    missing = [r for r in needed if r not in bound]
+    from . import water as water_mod
+
+    # the physics' liquid and ice may come from any water convention (water.py): checked there
+    water_needed = any(r in needed for r in ("soil_liquid", "soil_ice"))
+    missing = [r for r in needed if r not in bound and not (water_needed and r in water_mod.WATER_ROLES)]
     if missing:
         how = "the layout" if data else "CF standard_name attributes"
         raise InputError(f"{store.describe()}: could not find role(s) {', '.join(missing)} by {how}; "
@@ -496,4 +558,9 @@ def open_model(store: Store, layout=None, needed: tuple = ()) -> ModelFile:
     soil = bound.get("soil_temperature")
     layer_geom = _depth_layers(store, data, soil, where)
     ldim = soil.views[0].layer_dim if soil is not None and soil.layered else None
-    return ModelFile(store, grid, bound, layer_geom, ldim, f"layout {layout.name}" if layout else "CF attributes")
+    model = ModelFile(store, grid, bound, layer_geom, ldim, f"layout {layout.name}" if layout else "CF attributes")
+    for r in bound.values():
+        r.limits = model.limits
+    model.water = water_mod.resolve(bound, data, f"{store.describe()} ({where})" if data else store.describe(),
+                                    required=water_needed)
+    return model

@@ -476,9 +476,9 @@ def _check_units(plan: Plan, model: ModelFile) -> None:
         role = model.role(target)
         if target in plan.targets and role is not None and not role.units:
             warnings.warn(f"{model.store.describe()}: variable '{role.variables[0]}' ({target}) has no units "
-                          "attribute; assuming K (give it units, or set units in the layout)", InputWarning, stacklevel=2)
+                          f"attribute; assuming K (give it units, or set layout key units.{target})", InputWarning, stacklevel=2)
         if target in plan.targets and role is not None:
-            soil.temperature_to_kelvin(np.zeros(1), role.units or "K", name=role.variables[0])
+            soil.temperature_to_kelvin(np.zeros(1), role.units or "K", name=role.variables[0], key=f"units.{target}")
     if plan.physics["mode"] != "none" and "soil_temperature" in plan.targets:
         for rname in ("soil_liquid", "soil_ice"):
             role = model.role(rname)
@@ -592,6 +592,8 @@ def run(plan: Plan, store, *, write: bool, progress=None) -> dict:
     if plan.physics["mode"] != "none":
         led.soil_sources = soil_parameter_sources(plan.physics, plan.model)
     all_blocks = [b for s in slabs(plan) for b in blocks_of(plan, s)]
+    limits = plan.model.limits
+    limits.reset(clip=(plan.recipe.data.get("limits") or {}).get("packed_out_of_range") == "clip")
     for k, (hkey, widx) in enumerate(all_blocks):
         apply_block(plan, store, hkey, widx, led, write=write)
         if progress:
@@ -600,7 +602,10 @@ def run(plan: Plan, store, *, write: bool, progress=None) -> dict:
         for b in plan.blocks:
             if b.donor:
                 b.donor.store.close()
+    _storable_or_refuse(plan, led)
     out = led.finish()
+    if plan.model.water is not None and plan.physics["mode"] != "none" and "soil_temperature" in plan.targets:
+        out["water"] = plan.model.water.record()
     out["data_blocks_read"] = len(all_blocks)
     odd = sum(out["flags"].get(k, 0) for k in ("realised_change_opposite_to_imposed",
                                                 "realised_change_larger_than_imposed",
@@ -627,6 +632,26 @@ def run(plan: Plan, store, *, write: bool, progress=None) -> dict:
     return out
 
 
+def _storable_or_refuse(plan: Plan, led) -> None:
+    """Values a variable cannot hold (grid.StoreLimits, noted by Role.stored): refused, naming the
+    variable, its storable range and the cell count; or, when the recipe allows clipping, counted
+    as clamps by rule. Preview and apply run the same code, so they refuse and count alike."""
+    limits = plan.model.limits
+    if limits.clip:
+        for name, n in sorted(limits.counts.items()):
+            led.clamp(f"{name}_outside_packed_range", n)
+        return
+    if limits.counts:
+        parts = []
+        for name, n in sorted(limits.counts.items()):
+            lo, hi, units, how = limits.ranges[name]
+            parts.append(f"variable '{name}' ({how}) holds only {lo:.6g}..{hi:.6g} {units}".rstrip()
+                         + f" and the change puts {n} cell(s) outside that range")
+        raise InputError(f"{plan.model.store.describe()}: " + "; ".join(parts) + "; nothing was written: repack the "
+                         "variable with a wider range, or set recipe key limits.packed_out_of_range: clip to clip "
+                         "(the ledger then counts the clipped cells as clamps)")
+
+
 __all__ = ["Plan", "BlockPlan", "build_plan", "run", "slabs", "blocks_of", "needed_roles", "apply_block"]
 
 
@@ -647,7 +672,7 @@ def _layer_col(vec: np.ndarray, nh: int) -> np.ndarray:
 
 def _temp_read(role, store, hkey):
     vals = role.read(store, hkey)
-    return soil.temperature_to_kelvin(vals, role.units or "K", name=role.variables[0])
+    return soil.temperature_to_kelvin(vals, role.units or "K", name=role.variables[0], key=f"units.{role.name}")
 
 
 def _temp_stored(role, kelvin: np.ndarray, layered: bool) -> np.ndarray:
@@ -1009,25 +1034,26 @@ def _suction_metres(values: np.ndarray, role, model: ModelFile) -> np.ndarray:
     """Saturated matric potential from a file as a suction magnitude in metres of water.
 
     Lengths (m, cm, mm, also written 'mm H2O' or 'm of water') are converted with their unit;
-    pressures (Pa, hPa, kPa, MPa) with psi = p / (rho_w g). Missing or unknown units are refused:
-    a suction read in the wrong unit moves the freezing curve by orders of magnitude.
+    pressures (Pa, hPa, kPa, MPa) with psi = p / (rho_w g); both parsed by initgen.units
+    (cf-units). Missing or unknown units are refused: a suction read in the wrong unit moves the
+    freezing curve by orders of magnitude.
     """
-    from .layers import units_to_metres
+    from . import units as units_mod
 
     raw = role.units.strip().lower()
     unit = raw.replace("h2o", "").replace("of water", "").replace("water", "").strip()
-    pressure = {"pa": 1.0, "hpa": 1e2, "kpa": 1e3, "mpa": 1e6}
     where = f"{model.store.describe()}: variable '{role.variables[0]}' (saturated matric potential)"
-    if unit in pressure:
-        return np.abs(values) * pressure[unit] * _SUCTION_PER_PASCAL
     if not unit:
-        raise InputError(f"{where} has no units attribute; give its units (m, mm, kPa ...) in the file or in the "
-                         "layout's units section")
-    try:
-        return np.abs(values) * units_to_metres(unit, name=role.variables[0])
-    except InputError:
-        raise InputError(f"{where} has units '{role.units}'; initgen reads lengths of water (m, cm, mm) or "
-                         "pressures (Pa, kPa, MPa)") from None
+        raise InputError(f"{where} has no units attribute; give its units (m, mm, kPa ...) in the file or with "
+                         "layout key units.psi_sat")
+    pa = units_mod.pascal_per(unit)
+    if pa is not None:
+        return np.abs(values) * pa * _SUCTION_PER_PASCAL
+    m = units_mod.metres_per(unit)
+    if m is not None:
+        return np.abs(values) * m
+    raise InputError(f"{where} has units '{role.units}'; initgen reads lengths of water (m, cm, mm) or "
+                     "pressures (Pa, kPa, MPa); fix the attribute or set layout key units.psi_sat")
 
 
 def _check_range(values: np.ndarray, lo: float, hi: float, model: ModelFile, role_name: str, what: str = "",
@@ -1140,25 +1166,106 @@ def soil_parameter_sources(physics: dict, model: ModelFile) -> dict:
     return out
 
 
+def _water_spec(plan: Plan, model: ModelFile):
+    """The water convention of ``model`` (the input, or a donor read with the input's layout)."""
+    from . import water as water_mod
+
+    if model.water is not None:
+        return model.water
+    lay = _layout_of(plan.model)
+    return water_mod.resolve(model.roles, lay.data if lay is not None else None, model.store.describe(), True)
+
+
+def _water_values(spec, rname: str, raw: np.ndarray, dz, por, name: str) -> np.ndarray:
+    """One water variable as stored -> m3 m-3 as stored (a phase fraction -> fraction of 1)."""
+    from .water import FRACTION_ROLES, fraction_factor
+
+    if rname in FRACTION_ROLES:
+        return np.asarray(raw, float) * fraction_factor(spec.units[rname])
+    return soil.water_to_volumetric(raw, spec.units[rname], dz, porosity=por, name=name)
+
+
+def _water_file_values(spec, liq: np.ndarray, ice: np.ndarray) -> dict:
+    """The physics' liquid and ice (m3 m-3, ice liquid-equivalent) -> the values of the file's own
+    water variables (m3 m-3 as stored, or fractions of 1), by role. The physics conserves water
+    mass, so a total moves only where a donor blend changes it, or where it holds the true ice
+    volume (the same mass fills another volume once melted or frozen): see _write_water."""
+    conv, reading = spec.convention, spec.reading
+    out = {}
+    if conv == "liquid_and_ice":
+        out["soil_liquid"] = liq
+        out["soil_ice"] = soil.water_equivalent_to_ice_volume(ice, reading)
+        return out
+    if conv == "total_and_liquid":
+        out["soil_liquid"] = liq
+    elif conv in ("total_and_frozen_fraction", "total_and_unfrozen_fraction"):
+        f = soil.frozen_fraction(liq, ice)
+        out[spec.roles[1]] = f if conv == "total_and_frozen_fraction" else 1.0 - f
+    out["soil_water_total"] = soil.total_from_phases(liq, ice, reading)
+    return out
+
+
+TOTAL_ROUNDING = 1e-12  # m3 m-3 (relative to 1 + total): a total that moved less is round-off, kept as stored
+
+
 def _read_water(plan: Plan, store, hkey, shape, donor: ModelFile | None = None) -> dict:
+    """Soil liquid and ice (m3 m-3, ice as liquid-water equivalent) from the file's own water
+    convention (water.py), with the layer geometry and soil parameters the physics needs."""
     model = donor or plan.model
+    src = model.store if donor else store
     nh = len(model.grid.shape)
     layers = plan.model.layers
     if layers is None:
         raise InputError(f"{plan.model.store.describe()}: a physics mode needs soil layer thicknesses; name "
                          "roles.layer_node_depth (or interfaces/thickness) in the layout")
     dz = np.broadcast_to(_layer_col(np.asarray(layers.thickness_m), nh), shape)
-    por, psi, b, c_solid = _hydraulics(plan, model.store if donor else store, hkey, shape, model=model)
+    por, psi, b, c_solid = _hydraulics(plan, src, hkey, shape, model=model)
     out = {"dz": dz, "porosity": por, "psi": psi, "b": b, "c_solid": c_solid}
-    for key, rname in (("liq", "soil_liquid"), ("ice", "soil_ice")):
-        role = model.require(rname, "physics modes change water and ice")
-        raw = role.read(model.store if donor else store, hkey)
-        raw = raw if role.layered else raw[:, None]
-        out[key] = soil.water_to_volumetric(raw, role.units or "kg m-2", dz, porosity=por, name=role.variables[0])
-        out[key + "0"] = out[key].copy()
-        out[key + "_raw"] = raw
-        out[key + "_units"] = role.units or "kg m-2"
-        out[key + "_name"] = f"{(model.store if donor else store).describe()}: variable '{role.variables[0]}'"
+    spec = _water_spec(plan, model)
+    where = src.describe()
+    raw, vol, names = {}, {}, {}
+    for rname in spec.roles:
+        role = model.role(rname)
+        r = role.read(src, hkey)
+        raw[rname] = r if role.layered else r[:, None]
+        names[rname] = "+".join(role.variables)
+        vol[rname] = _water_values(spec, rname, raw[rname], dz, por, role.variables[0])
+    conv, reading = spec.convention, spec.reading
+    units = spec.units
+    if conv == "liquid_and_ice":
+        liq, ice = vol["soil_liquid"], soil.ice_volume_to_water_equivalent(vol["soil_ice"], reading)
+        out["liq_name"], out["ice_name"] = (f"{where}: variable '{names[r]}'" for r in ("soil_liquid", "soil_ice"))
+        out["liq_units"], out["ice_units"] = units["soil_liquid"], units["soil_ice"]
+    elif conv == "total_only":
+        # the file holds no split: diagnose it from the temperature (the equilibrium phase rule)
+        troles = model.require("soil_temperature", "a total-only water convention splits water by temperature")
+        T = _temp_read(troles, src, hkey)
+        T = T if troles.layered else T[:, None]
+        W = vol["soil_water_total"]
+        ok = np.isfinite(T) & np.isfinite(W)
+        liq, ice = soil.equilibrate_phase(np.where(ok, T, T_FREEZE + 1.0), np.where(ok, W, 0.0), 0.0, por, psi, b)
+        bad = ok & ~(np.isfinite(liq) & np.isfinite(ice))  # soil parameters missing: no split known
+        liq, ice = np.where(ok & ~bad, liq, W), np.where(ok & ~bad, ice, np.where(bad, np.nan, 0.0))
+        out["liq_name"] = f"{where}: liquid diagnosed from total '{names['soil_water_total']}'"
+        out["ice_name"] = f"{where}: ice diagnosed from total '{names['soil_water_total']}'"
+        out["liq_units"] = out["ice_units"] = units["soil_water_total"]
+    else:
+        other = spec.roles[1]
+        kind = {"soil_liquid": "liquid", "soil_frozen_fraction": "frozen_fraction",
+                "soil_unfrozen_fraction": "unfrozen_fraction"}[other]
+        liq, ice = soil.phases_from_total(vol["soil_water_total"], vol[other], kind, reading)
+        tot = names["soil_water_total"]
+        if kind == "liquid":
+            out["liq_name"] = f"{where}: variable '{names[other]}'"
+            out["ice_name"] = f"{where}: ice = total - liquid ('{tot}' - '{names[other]}')"
+        else:
+            out["liq_name"] = f"{where}: liquid from '{tot}' and '{names[other]}'"
+            out["ice_name"] = f"{where}: ice from '{tot}' and '{names[other]}'"
+        out["liq_units"] = units[other] if kind == "liquid" else units["soil_water_total"]
+        out["ice_units"] = units["soil_water_total"]
+    out["liq"], out["ice"] = np.asarray(liq, float), np.asarray(ice, float)
+    out["liq0"], out["ice0"] = out["liq"].copy(), out["ice"].copy()
+    out["spec"], out["raw"] = spec, raw
     return out
 
 
@@ -1302,15 +1409,28 @@ def _flag_departures(led, realised: np.ndarray, imposed: np.ndarray, sel: np.nda
 
 
 def _write_water(plan, store, hkey, water, inside, led, area, write):
+    """Write the physics' liquid and ice back in the file's own convention: only the variables
+    that can move (in total_and_liquid the liquid moves and the total stays), only where the
+    state moved, rounded as the file stores them."""
     model = plan.model
-    for key, rname in (("liq", "soil_liquid"), ("ice", "soil_ice")):
+    spec = water["spec"]
+    new_vals = _water_file_values(spec, water["liq"], water["ice"])
+    old_vals = _water_file_values(spec, water["liq0"], water["ice0"])
+    for rname, vals in new_vals.items():
         role = model.role(rname)
-        new = soil.volumetric_to_water(water[key], water[key + "_units"], water["dz"], porosity=water["porosity"])
-        old = water[key + "_raw"]  # as read, in the file's units
-        moved = inside & (water[key] != water[key + "0"])
+        old = water["raw"][rname]  # as read, in the file's units
+        moved = inside & (vals != old_vals[rname]) & np.isfinite(vals)
+        if rname == "soil_water_total":  # conserved by the physics up to round-off: the total stays
+            moved &= np.abs(vals - old_vals[rname]) > TOTAL_ROUNDING * (1.0 + np.abs(old_vals[rname]))
+        if rname in ("soil_frozen_fraction", "soil_unfrozen_fraction"):
+            from .water import fraction_factor
+
+            new = vals / fraction_factor(spec.units[rname])
+        else:
+            new = soil.volumetric_to_water(vals, spec.units[rname], water["dz"], porosity=water["porosity"])
         new = np.where(moved, role.stored(new if role.layered else new[:, 0]).reshape(new.shape), old)
-        changed = inside & (new != old)
+        changed = inside & (new != old) & ~(np.isnan(new) & np.isnan(old))
         led.stats(role.variables[0] if len(role.variables) == 1 else "+".join(role.variables), rname,
-                  water[key + "_units"], new.shape[1], role.layered).add(np.where(changed, new - old, 0.0), inside, area)
+                  spec.units[rname], new.shape[1], role.layered).add(np.where(changed, new - old, 0.0), inside, area)
         if write:
             role.write(store, hkey, new if role.layered else new[:, 0], changed if role.layered else changed[:, 0])

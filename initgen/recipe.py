@@ -227,6 +227,8 @@ MEMBERS = Obj(
 # ---------------------------------------------------------------------------------------------
 
 LAYERED_ROLES = ("soil_temperature", "soil_liquid", "soil_ice", "snow_temperature", "snow_layer_mass")
+# soil water kept as a total with the liquid or a phase fraction (see WATER below)
+WATER_ROLES = ("soil_water_total", "soil_frozen_fraction", "soil_unfrozen_fraction")
 PLAIN_ROLES = ("longitude", "latitude", "land_fraction", "land_mask", "surface_altitude",
                "skin_temperature", "snow_mass", "snow_depth", "snow_layer_count", "snow_cover_fraction", "cell_area",
                "porosity", "psi_sat", "clapp_b", "sand", "clay")
@@ -245,13 +247,39 @@ _DEPTH = AnyOf(
     doc="a variable in the file, or values given here",
 )
 
+WATER_CONVENTIONS = ("liquid_and_ice", "total_and_liquid", "total_and_frozen_fraction",
+                     "total_and_unfrozen_fraction", "total_only")
+
+WATER = Obj(
+    default=None,
+    doc="how the file keeps soil water; every amount in kg m-2, m3 m-3 or saturation_fraction (times the porosity)",
+    fields={
+        "convention": Str(choices=WATER_CONVENTIONS, default=None,
+                          doc="liquid_and_ice: roles soil_liquid and soil_ice; total_and_liquid: soil_water_total and "
+                              "soil_liquid (ice = total - liquid); total_and_frozen_fraction / "
+                              "total_and_unfrozen_fraction: soil_water_total and soil_frozen_fraction / "
+                              "soil_unfrozen_fraction (ice's or liquid's fraction of the water mass, 1); total_only: "
+                              "soil_water_total, the liquid/ice split diagnosed from the soil temperature (the "
+                              "equilibrium phase rule). Default: told by the roles the layout (or CF) names. The file "
+                              "keeps its convention: in total_and_liquid the total stays and the liquid moves"),
+        "units": Obj(default=None, doc="units of the water variables that override their units attributes (for "
+                                       "a file that writes '1' for a fraction of saturation, say): role -> units",
+                     fields={r: Str(default=None) for r in ("soil_liquid", "soil_ice") + WATER_ROLES}),
+        "volumetric_ice": Str(choices=("liquid_equivalent", "true_ice_volume"), default=None,
+                              doc="how an ice content (or a total that includes ice) given in m3 m-3 or "
+                                  "saturation_fraction is stored: liquid_equivalent (the ice's mass / 1000 kg m-3) or "
+                                  "true_ice_volume (its mass / 917 kg m-3). Not needed for kg m-2; when not given, "
+                                  "liquid_equivalent is assumed and check and the ledger say so"),
+    },
+)
+
 LAYOUT = Obj(
     doc="where one model keeps each quantity",
     fields={
         "initgen_layout": Num(integer=True, minimum=1, maximum=LAYOUT_VERSION, doc="layout format version"),
         "name": Str(default=None, doc="a name for this layout (model or file kind)"),
         "roles": Obj(doc="role -> variable name(s)", fields={
-            **{r: replace(_LAYERED) for r in LAYERED_ROLES},
+            **{r: replace(_LAYERED) for r in LAYERED_ROLES + WATER_ROLES},
             **{r: Str(default=None, doc=f"variable holding {r.replace('_', ' ')}") for r in PLAIN_ROLES},
             **{r: replace(_DEPTH) for r in DEPTH_ROLES},
         }),
@@ -262,7 +290,8 @@ LAYOUT = Obj(
                                        doc="with roles.snow_layer_count: whether the counted (active) snow layers "
                                            "are the first or the last along the snow layer axis as stored"),
         "units": Obj(default=None, doc="units to assume for variables without a units attribute: role -> units",
-                     fields={r: Str(default=None) for r in LAYERED_ROLES + PLAIN_ROLES}),
+                     fields={r: Str(default=None) for r in LAYERED_ROLES + WATER_ROLES + PLAIN_ROLES}),
+        "water": WATER,
     },
 )
 
@@ -278,6 +307,13 @@ RECIPE = Obj(
                               doc="perturbation blocks, applied in order (each adds its change to the result of the previous)"),
         "physics": replace(PHYSICS, default={}),
         "members": MEMBERS,
+        "limits": Obj(default={}, doc="what to do where a change cannot be stored as asked", fields={
+            "packed_out_of_range": Str(choices=("refuse", "clip"), default="refuse",
+                                       doc="a change that a variable stored as integers (packed with scale_factor/"
+                                           "add_offset or not) or with valid_range/valid_min/valid_max cannot hold: "
+                                           "refuse (exit 2, nothing written) or clip to the storable range "
+                                           "(counted in the ledger's clamps as <variable>_outside_packed_range)"),
+        }),
         "layout": replace(LAYOUT, default=None, doc="an inline layout (used when no --layout is given)"),
     },
 )

@@ -114,15 +114,76 @@ def pack(values: np.ndarray, attrs: dict, dtype: np.dtype) -> np.ndarray:
         vals = vals / float(np.asarray(scale).item())
     dtype = np.dtype(dtype)
     if dtype.kind in "iu":
-        info = np.iinfo(dtype)
-        lo, hi = info.min, info.max
-        fills = [int(f) for f in _fill_values(attrs, dtype)]
-        if fills and fills[0] == lo:
-            lo += 1
-        if fills and fills[0] == hi:
-            hi -= 1
+        lo, hi = _int_limits(attrs, dtype)
         return np.clip(np.rint(vals), lo, hi).astype(dtype)
     return vals.astype(dtype)
+
+
+def _int_limits(attrs: dict, dtype: np.dtype) -> tuple[int, int]:
+    """The raw integers :func:`pack` may write for ``dtype`` (the type's range, never its fill value)."""
+    info = np.iinfo(dtype)
+    lo, hi = int(info.min), int(info.max)
+    fills = [int(f) for f in _fill_values(attrs, dtype)]
+    if fills and fills[0] == lo:
+        lo += 1
+    if fills and fills[0] == hi:
+        hi -= 1
+    return lo, hi
+
+
+def _valid_limits(attrs: dict) -> tuple[float, float]:
+    """valid_range / valid_min / valid_max in raw (packed) units: beyond them a value reads back as missing."""
+    lo, hi = -np.inf, np.inf
+    if "valid_range" in attrs:
+        lo, hi = (float(v) for v in np.asarray(attrs["valid_range"]).tolist()[:2])
+    else:
+        if "valid_min" in attrs:
+            lo = float(np.asarray(attrs["valid_min"]).item())
+        if "valid_max" in attrs:
+            hi = float(np.asarray(attrs["valid_max"]).item())
+    return lo, hi
+
+
+def storable_range(attrs: dict, dtype: np.dtype) -> tuple[float, float] | None:
+    """The physical values a variable can hold and read back, (lowest, highest): an integer type's
+    range (packed with scale_factor/add_offset or not, never its fill value) within any
+    valid_range/valid_min/valid_max; None for a floating-point variable without valid limits."""
+    dtype = np.dtype(dtype)
+    vlo, vhi = _valid_limits(attrs)
+    if dtype.kind not in "iu":
+        if not (np.isfinite(vlo) or np.isfinite(vhi)):
+            return None
+        lo, hi = vlo, vhi
+    else:
+        lo, hi = _int_limits(attrs, dtype)
+        lo, hi = max(lo, vlo), min(hi, vhi)
+    scale = float(np.asarray(attrs.get("scale_factor", 1.0)).item())
+    offset = float(np.asarray(attrs.get("add_offset", 0.0)).item())
+    a, b = lo * scale + offset, hi * scale + offset
+    return (min(a, b), max(a, b))
+
+
+def pack_overflow(values: np.ndarray, attrs: dict, dtype: np.dtype) -> np.ndarray:
+    """Where finite ``values`` fall outside what :func:`pack` can store in ``dtype`` (it would clip
+    them): a boolean mask, all False for floating-point variables."""
+    vals = np.asarray(values, dtype=np.float64)
+    dtype = np.dtype(dtype)
+    vlo, vhi = _valid_limits(attrs)
+    if dtype.kind not in "iu" and not (np.isfinite(vlo) or np.isfinite(vhi)):
+        return np.zeros(vals.shape, bool)
+    offset = attrs.get("add_offset")
+    scale = attrs.get("scale_factor")
+    raw = vals - float(np.asarray(offset).item()) if offset is not None else vals
+    if scale is not None:
+        raw = raw / float(np.asarray(scale).item())
+    with np.errstate(invalid="ignore"):
+        if dtype.kind in "iu":
+            lo, hi = _int_limits(attrs, dtype)
+            raw = np.rint(raw)
+            lo, hi = max(lo, vlo), min(hi, vhi)
+        else:
+            lo, hi = vlo, vhi
+        return np.isfinite(raw) & ((raw < lo) | (raw > hi))
 
 
 class Store:

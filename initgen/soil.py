@@ -94,6 +94,7 @@ from initgen.constants import (
     CV_WATER,
     GRAVITY,
     LATENT_HEAT_FUSION,
+    RHO_ICE,
     RHO_WATER,
     T_FREEZE,
 )
@@ -109,6 +110,13 @@ __all__ = [
     "kelvin_to_units",
     "water_to_volumetric",
     "volumetric_to_water",
+    "ICE_READINGS",
+    "water_units_are_mass",
+    "ice_volume_to_water_equivalent",
+    "water_equivalent_to_ice_volume",
+    "phases_from_total",
+    "total_from_phases",
+    "frozen_fraction",
     "hydraulics_from_texture",
     "cosby_1984",
     "soil_solid_heat_capacity",
@@ -151,18 +159,18 @@ def _f64(x):
 # Unit conversion
 # =============================================================================================
 
-_KELVIN = {"k", "kelvin", "kelvins", "degk", "degreek", "degreesk"}
-_CELSIUS = {"c", "°c", "degc", "degreec", "degreesc", "celsius", "degreecelsius",
-            "degreescelsius", "degc", "deg°c"}
+def _temperature_units(units, name, key):
+    from initgen.units import temperature_scale_offset
+
+    so = temperature_scale_offset(units)
+    if so is None:
+        where = f"layout key {key}" if key else "layout"
+        what = "no units" if units is None or not str(units).strip() else f"unknown temperature units {units!r}"
+        raise InputError(f"variable '{name}': {what}; set its units to 'K' or 'degC' (file attribute or {where})")
+    return so
 
 
-def _norm_temperature_units(units):
-    if units is None:
-        return None
-    return str(units).strip().lower().replace(" ", "").replace("_", "")
-
-
-def temperature_to_kelvin(values, units, name="temperature"):
+def temperature_to_kelvin(values, units, name="temperature", key=None):
     """Convert temperatures to kelvin.
 
     Parameters
@@ -170,13 +178,14 @@ def temperature_to_kelvin(values, units, name="temperature"):
     values : array_like
         Temperatures in ``units``.
     units : str
-        A CF/UDUNITS spelling of kelvin (``K``, ``kelvin``, ``degK``, ``deg_K``, ``degree_K``,
-        ``degrees_K``) or of degrees Celsius (``degC``, ``deg_C``, ``degree_C``,
-        ``degrees_C``, ``degree_Celsius``, ``degrees_Celsius``, ``Celsius``, ``°C``, ``C``).
-        Matching ignores case, spaces and underscores. ``C`` is coulomb in UDUNITS; for a
+        Any UDUNITS temperature unit, parsed by :mod:`initgen.units` (cf-units): ``K``,
+        ``kelvin``, ``degK``, ``degrees_K``; ``degC``, ``deg_C``, ``degree_Celsius``,
+        ``Celsius``, ``°C``, ``C``; ``degF`` .... ``C`` is coulomb in UDUNITS; for a
         temperature it can only mean Celsius, so it is read as such.
     name : str
         Variable name, used in error messages.
+    key : str, optional
+        The layout key that sets the variable's units (``units.<role>``), named in errors.
 
     Returns
     -------
@@ -186,23 +195,21 @@ def temperature_to_kelvin(values, units, name="temperature"):
     Raises
     ------
     InputError
-        If ``units`` is missing or not a known temperature unit.
+        If ``units`` is missing or not a temperature unit.
+
+    References
+    ----------
+    UDUNITS-2 unit database (Unidata), through cf-units: K = degC + 273.15.
     """
-    key = _norm_temperature_units(units)
+    scale, offset = _temperature_units(units, name, key)
     v = _f64(values)
-    if key in _KELVIN:
+    if scale == 1.0 and offset == 0.0:
         return v.copy()
-    if key in _CELSIUS:
-        return v + T_FREEZE
-    raise InputError(
-        f"variable '{name}': unknown temperature units {units!r}; "
-        "set its units to 'K' or 'degC' (file attribute or layout)"
-    )
+    return v * scale + offset if scale != 1.0 else v + offset
 
 
-def kelvin_to_units(values, units, name="temperature"):
-    """Convert kelvin to ``units`` (kelvin or degrees Celsius), the inverse of
-    :func:`temperature_to_kelvin`.
+def kelvin_to_units(values, units, name="temperature", key=None):
+    """Convert kelvin to ``units``, the inverse of :func:`temperature_to_kelvin`.
 
     Parameters
     ----------
@@ -212,6 +219,8 @@ def kelvin_to_units(values, units, name="temperature"):
         Target units, any spelling accepted by :func:`temperature_to_kelvin`.
     name : str
         Variable name, used in error messages.
+    key : str, optional
+        The layout key that sets the variable's units, named in errors.
 
     Returns
     -------
@@ -221,18 +230,13 @@ def kelvin_to_units(values, units, name="temperature"):
     Raises
     ------
     InputError
-        If ``units`` is not a known temperature unit.
+        If ``units`` is not a temperature unit.
     """
-    key = _norm_temperature_units(units)
+    scale, offset = _temperature_units(units, name, key)
     v = _f64(values)
-    if key in _KELVIN:
+    if scale == 1.0 and offset == 0.0:
         return v.copy()
-    if key in _CELSIUS:
-        return v - T_FREEZE
-    raise InputError(
-        f"variable '{name}': unknown temperature units {units!r}; "
-        "set its units to 'K' or 'degC' (file attribute or layout)"
-    )
+    return (v - offset) / scale if scale != 1.0 else v - offset
 
 
 #: Dedicated units string for water content given as a fraction of saturation (of porosity):
@@ -240,31 +244,27 @@ def kelvin_to_units(values, units, name="temperature"):
 #: described with this string in the layout, because ``1`` is read as m3 m-3.
 SATURATION_FRACTION = "saturation_fraction"
 
-_MASS = {"kgm-2", "kg/m2", "mm"}
-_VOLUME = {"m3m-3", "m3/m3", "1", "fraction"}
 _SATURATION = {"saturationfraction", "fractionofsaturation"}
 
 
-def _norm_water_units(units):
-    if units is None:
-        return None
-    u = str(units).strip().lower()
-    u = u.replace(" ", "").replace("*", "").replace("^", "").replace(".", "")
-    return u.replace("_", "")
+def _water_units(units, name):
+    """('mass', kg m-2 per unit) | ('volume', m3 m-3 per unit) | ('saturation', 1)."""
+    from initgen.units import water_amount
+
+    key = str(units).strip().lower().replace(" ", "").replace("_", "") if units is not None else ""
+    if key in _SATURATION:
+        return "saturation", 1.0
+    got = water_amount(units)
+    if got is None:
+        raise InputError(
+            f"variable '{name}': unknown water units {units!r}; use 'kg m-2' (or kg/m2, mm), "
+            f"'m3 m-3' (or 1, m3/m3, fraction, %) or '{SATURATION_FRACTION}' in the layout"
+        )
+    return got
 
 
 def _water_kind(units, name):
-    key = _norm_water_units(units)
-    if key in _MASS:
-        return "mass"
-    if key in _VOLUME:
-        return "volume"
-    if key in _SATURATION:
-        return "saturation"
-    raise InputError(
-        f"variable '{name}': unknown water units {units!r}; use 'kg m-2' (or kg/m2, mm), "
-        f"'m3 m-3' (or 1, m3/m3, fraction) or '{SATURATION_FRACTION}' in the layout"
-    )
+    return _water_units(units, name)[0]
 
 
 def _check_thickness(thickness_m, name):
@@ -317,13 +317,13 @@ def water_to_volumetric(values, units, thickness_m, porosity=None, name="soil wa
     InputError
         For unknown units, a non-positive thickness or a missing/invalid porosity.
     """
-    kind = _water_kind(units, name)
+    kind, f = _water_units(units, name)
     v = _f64(values)
     if kind == "mass":
-        return v / (RHO_WATER * _check_thickness(thickness_m, name))
+        return (v if f == 1.0 else v * f) / (RHO_WATER * _check_thickness(thickness_m, name))
     if kind == "saturation":
         return v * _check_porosity(porosity, name)
-    return v.copy()
+    return v.copy() if f == 1.0 else v * f
 
 
 def volumetric_to_water(vol, units, thickness_m, porosity=None, name="soil water"):
@@ -349,13 +349,145 @@ def volumetric_to_water(vol, units, thickness_m, porosity=None, name="soil water
         Water amount in ``units``: kg m-2 = theta * RHO_WATER * thickness_m; m3 m-3; or
         theta / porosity.
     """
-    kind = _water_kind(units, name)
+    kind, f = _water_units(units, name)
     v = _f64(vol)
     if kind == "mass":
-        return v * (RHO_WATER * _check_thickness(thickness_m, name))
+        m = v * (RHO_WATER * _check_thickness(thickness_m, name))
+        return m if f == 1.0 else m / f
     if kind == "saturation":
         return v / _check_porosity(porosity, name)
-    return v.copy()
+    return v.copy() if f == 1.0 else v / f
+
+
+# --- water conventions: ice as stored, totals and fractions -----------------------------------
+#
+# A model may keep soil water as liquid + ice, as a total + the liquid, as a total + the frozen
+# (or unfrozen) fraction, or as a total only. These pure functions turn each into the physics'
+# liquid and ice contents (m3 m-3, ice as liquid-water equivalent) and back.
+
+#: How a *volumetric* ice content (m3 m-3 or fraction of saturation) is to be read: as the
+#: volume the ice's mass would fill as liquid water (``liquid_equivalent``, the physics'
+#: convention) or as the true volume of the ice (``true_ice_volume``, density RHO_ICE). Mass units
+#: (kg m-2) are unambiguous and need neither.
+ICE_READINGS = ("liquid_equivalent", "true_ice_volume")
+
+
+def water_units_are_mass(units, name="soil water"):
+    """True for mass units (kg m-2 and spellings), False for m3 m-3 or fraction of saturation.
+
+    Raises
+    ------
+    InputError
+        For units that are not a water amount (see :func:`water_to_volumetric`).
+    """
+    return _water_kind(units, name) == "mass"
+
+
+def _ice_factor(reading):
+    if reading == "liquid_equivalent":
+        return 1.0
+    if reading == "true_ice_volume":
+        return RHO_ICE / RHO_WATER
+    raise InputError(f"unknown ice reading {reading!r}; use one of {', '.join(ICE_READINGS)}")
+
+
+def ice_volume_to_water_equivalent(theta_ice, reading):
+    """A volumetric ice content as stored -> its liquid-water equivalent, m3 m-3.
+
+    ``theta_we = theta_ice * RHO_ICE / RHO_WATER`` for a true ice volume (``reading =
+    'true_ice_volume'``): the mass of the ice per unit soil volume divided by the density of liquid
+    water; unchanged for ``'liquid_equivalent'``.
+
+    Parameters
+    ----------
+    theta_ice : array_like
+        Ice content as stored, m3 m-3.
+    reading : {'liquid_equivalent', 'true_ice_volume'}
+        What the stored volume is (see :data:`ICE_READINGS`).
+
+    Returns
+    -------
+    numpy.ndarray
+        Liquid-water-equivalent ice content, m3 m-3.
+
+    References
+    ----------
+    Density of ice at 0 C, 917 kg m-3, and of liquid water, 1000 kg m-3: the constants set of
+    :mod:`initgen.constants` (RHO_ICE, RHO_WATER), which names its source.
+    """
+    return _f64(theta_ice) * _ice_factor(reading)
+
+
+def water_equivalent_to_ice_volume(theta_we, reading):
+    """Inverse of :func:`ice_volume_to_water_equivalent`: ``theta_ice = theta_we * RHO_WATER / RHO_ICE``
+    for ``'true_ice_volume'``, unchanged for ``'liquid_equivalent'``.
+
+    References
+    ----------
+    As :func:`ice_volume_to_water_equivalent`.
+    """
+    return _f64(theta_we) / _ice_factor(reading)
+
+
+def phases_from_total(total, other, kind, reading="liquid_equivalent"):
+    """Split a total soil water content into liquid and ice, m3 m-3 (ice as liquid equivalent).
+
+    Parameters
+    ----------
+    total : array_like
+        Total water content, m3 m-3, as stored: with ``reading = 'true_ice_volume'`` it is the
+        liquid volume plus the true ice volume, else liquid plus liquid-equivalent ice (a total
+        read from kg m-2 is always the latter).
+    other : array_like
+        ``kind = 'liquid'``: the liquid content, m3 m-3 (ice = total - liquid);
+        ``'frozen_fraction'``: the ice's fraction of the water mass, 1;
+        ``'unfrozen_fraction'``: the liquid's fraction of the water mass, 1.
+    kind : {'liquid', 'frozen_fraction', 'unfrozen_fraction'}
+    reading : {'liquid_equivalent', 'true_ice_volume'}
+
+    Returns
+    -------
+    (liquid, ice) : tuple of numpy.ndarray
+        m3 m-3; ice as liquid-water equivalent. Water mass per unit volume is
+        ``RHO_WATER * (liquid + ice)``.
+
+    Notes
+    -----
+    With a frozen mass fraction ``f`` and a true-volume total ``V``, the water mass ``W``
+    (as liquid-equivalent volume) solves ``V = (1 - f) W + f W RHO_WATER / RHO_ICE``.
+    """
+    t = _f64(total)
+    o = _f64(other)
+    k = _ice_factor(reading)
+    if kind == "liquid":
+        return o.copy(), (t - o) * k
+    if kind in ("frozen_fraction", "unfrozen_fraction"):
+        f = o if kind == "frozen_fraction" else 1.0 - o
+        with np.errstate(divide="ignore", invalid="ignore"):
+            w = t / ((1.0 - f) + f / k)
+        dry = t == 0.0  # a layer without water: no split, whatever the fraction holds (often a fill value)
+        return np.where(dry, 0.0, (1.0 - f) * w), np.where(dry, 0.0, f * w)
+    raise InputError(f"unknown split {kind!r}; use liquid, frozen_fraction or unfrozen_fraction")
+
+
+def total_from_phases(liq, ice_we, reading="liquid_equivalent"):
+    """Total water content as a file keeps it, m3 m-3: ``liq + ice`` with the ice as stored
+    (its true volume for ``reading = 'true_ice_volume'``). Inverse of :func:`phases_from_total`.
+
+    References
+    ----------
+    As :func:`ice_volume_to_water_equivalent`.
+    """
+    return _f64(liq) + water_equivalent_to_ice_volume(ice_we, reading)
+
+
+def frozen_fraction(liq, ice_we):
+    """Ice's fraction of the water mass, ``ice / (liq + ice)`` (both liquid-equivalent), 1;
+    NaN where the layer holds no water."""
+    liq, ice = _f64(liq), _f64(ice_we)
+    w = liq + ice
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return np.where(w > 0, ice / np.where(w > 0, w, 1.0), np.nan)
 
 
 # =============================================================================================

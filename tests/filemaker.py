@@ -132,3 +132,185 @@ def read_raw(path, name):
         v = ds.variables[name]
         v.set_auto_maskandscale(False)
         return np.array(v[:])
+
+
+# =============================================================================================
+# Water conventions and packed temperatures (files shaped like the models' own restarts)
+# =============================================================================================
+# One frozen soil state, encoded in each water convention the layouts support, so that tests can
+# check that every convention gives the same physical change as the liquid + ice file.
+
+WATER_INTERFACES = np.array([0.0, 0.1, 0.3, 0.7, 1.5])  # m, four soil layers
+WATER_NODES = 0.5 * (WATER_INTERFACES[:-1] + WATER_INTERFACES[1:])
+WATER_DZ = np.diff(WATER_INTERFACES)
+WATER_LON = np.arange(-30.0, 31.0, 10.0)
+WATER_LAT = np.arange(-20.0, 21.0, 10.0)
+LOAM = dict(porosity=0.451, psi_sat_m=0.478, b=5.39)  # Clapp and Hornberger (1978), Table 2, loam
+
+
+def frozen_state(seed=0):
+    """Soil temperature (K), liquid and ice (m3 m-3, liquid equivalent) of a partly frozen soil in
+    phase equilibrium for loam: liquid = min(total, supercooled limit) below 273.15 K (the
+    freezing curve of initgen.soil, Niu and Yang 2006). Shape (layer, lat, lon)."""
+    from initgen import soil
+
+    rng = np.random.default_rng(seed)
+    shape = (WATER_NODES.size, WATER_LAT.size, WATER_LON.size)
+    T = (270.0 + 0.8 * np.arange(WATER_NODES.size)[:, None, None] + rng.uniform(-1.5, 1.5, shape))
+    T = T.astype("f4").astype(float)  # as the file stores it, so the split is in equilibrium as read
+    W = rng.uniform(0.20, 0.40, shape)
+    lmax = soil.supercooled_liquid_max(T, LOAM["porosity"], LOAM["psi_sat_m"], LOAM["b"])
+    liq = np.where(T > 273.15, W, np.minimum(W, lmax))
+    return T, liq, W - liq
+
+
+WATER_VARS = {  # convention -> file variables (role -> name)
+    "liquid_and_ice": {"soil_liquid": "water_liquid", "soil_ice": "water_ice"},
+    "total_and_liquid": {"soil_water_total": "water_total", "soil_liquid": "water_liquid"},
+    "total_and_frozen_fraction": {"soil_water_total": "water_total", "soil_frozen_fraction": "frozen_frac"},
+    "total_and_unfrozen_fraction": {"soil_water_total": "water_total", "soil_unfrozen_fraction": "unfrozen_frac"},
+    "total_only": {"soil_water_total": "water_total"},
+}
+
+
+def _encode_water(convention, units, liq, ice, ice_reading):
+    """role -> values of the file's own variables (units: 'kg m-2', 'm3 m-3' or 'saturation_fraction')."""
+    dz = WATER_DZ[:, None, None]
+    k = 0.917 if ice_reading == "true_ice_volume" else 1.0  # true ice volume = mass / 917 kg m-3
+
+    def amount(liq_part, ice_part=0.0):
+        if units == "kg m-2":
+            return (liq_part + ice_part) * 1000.0 * dz
+        stored = liq_part + ice_part / k  # volume as the file keeps it
+        return stored / LOAM["porosity"] if units == "saturation_fraction" else stored
+
+    W = liq + ice
+    with np.errstate(invalid="ignore", divide="ignore"):
+        frac = np.where(W > 0, ice / W, 0.0)
+    out = {}
+    if convention == "liquid_and_ice":
+        out["soil_liquid"] = amount(liq)
+        out["soil_ice"] = amount(0.0, ice)
+    else:
+        out["soil_water_total"] = amount(liq, ice)
+        if convention == "total_and_liquid":
+            out["soil_liquid"] = amount(liq)
+        elif convention == "total_and_frozen_fraction":
+            out["soil_frozen_fraction"] = frac
+        elif convention == "total_and_unfrozen_fraction":
+            out["soil_unfrozen_fraction"] = 1.0 - frac
+    return out
+
+
+def water_file(path: Path, convention="liquid_and_ice", units="kg m-2", *, ice_reading="liquid_equivalent",
+               per_layer=False, dtype="f8", seed=0, units_attr=True, cf_names=False):
+    """A small regular-grid restart holding :func:`frozen_state` in ``convention``.
+
+    ``per_layer`` writes each layer as its own 2-D variable (``<name>_1`` ... top first); water
+    units are written as attributes unless ``units_attr`` is False (or units are
+    'saturation_fraction', which is no UDUNITS unit: the layout's units section gives it).
+    Fractions are in '1'. A time axis of length 1 leads, as in restarts. ``cf_names`` adds CF
+    standard names where the CF table has one (soil temperature, total water, liquid, ice,
+    unfrozen fraction), for runs without a layout.
+    """
+    cf = {"soil_water_total": "mass_content_of_water_in_soil_layer",
+          "soil_liquid": "liquid_water_content_of_soil_layer", "soil_ice": "frozen_water_content_of_soil_layer",
+          "soil_unfrozen_fraction": "mass_fraction_of_unfrozen_water_in_soil_moisture"}
+    T, liq, ice = frozen_state(seed)
+    fields = _encode_water(convention, units, liq, ice, ice_reading)
+    nl = WATER_NODES.size
+    with netCDF4.Dataset(path, "w") as ds:
+        ds.createDimension("time", 1)
+        ds.createDimension("soil_layer", nl)
+        ds.createDimension("lat", WATER_LAT.size)
+        ds.createDimension("lon", WATER_LON.size)
+        ds.createDimension("nv", 2)
+        v = ds.createVariable("lon", "f8", ("lon",))
+        v.units, v.standard_name = "degrees_east", "longitude"
+        v[:] = WATER_LON
+        v = ds.createVariable("lat", "f8", ("lat",))
+        v.units, v.standard_name = "degrees_north", "latitude"
+        v[:] = WATER_LAT
+        v = ds.createVariable("soil_layer", "f8", ("soil_layer",))
+        v.units, v.positive, v.standard_name, v.bounds = "m", "down", "depth", "soil_layer_bnds"
+        v[:] = WATER_NODES
+        ds.createVariable("soil_layer_bnds", "f8", ("soil_layer", "nv"))[:] = np.stack(
+            [WATER_INTERFACES[:-1], WATER_INTERFACES[1:]], axis=1)
+        v = ds.createVariable("soil_temp", "f4", ("time", "soil_layer", "lat", "lon"))
+        v.units = "K"
+        if cf_names:
+            v.standard_name = "soil_temperature"
+        v[:] = T[None]
+        for role, name in WATER_VARS[convention].items():
+            vals = fields[role]
+            frac = role.endswith("fraction")
+            u = "1" if frac else units
+            if per_layer:
+                for k in range(nl):
+                    v = ds.createVariable(f"{name}_{k + 1}", dtype, ("time", "lat", "lon"))
+                    if units_attr and (frac or units != "saturation_fraction"):
+                        v.units = u
+                    v[:] = vals[k][None]
+            else:
+                v = ds.createVariable(name, dtype, ("time", "soil_layer", "lat", "lon"))
+                if units_attr and (frac or units != "saturation_fraction"):
+                    v.units = u
+                if cf_names and role in cf:
+                    v.standard_name = cf[role]
+                v[:] = vals[None]
+    return path
+
+
+def water_layout(path: Path, convention, units="kg m-2", *, ice_reading=None, per_layer=False):
+    """The layout for :func:`water_file` (a YAML file; convention and units written out)."""
+    nl = WATER_NODES.size
+    lines = ["initgen_layout: 1", f"name: {convention.replace('_', '-')}", "roles:", "  longitude: lon",
+             "  latitude: lat", "  soil_temperature: soil_temp",
+             f"  layer_interface_depth: {{values: {WATER_INTERFACES.tolist()}, units: m}}"]
+    for role, name in WATER_VARS[convention].items():
+        spec = [f"{name}_{k + 1}" for k in range(nl)] if per_layer else name
+        lines.append(f"  {role}: {spec}".replace("'", ""))
+    lines.append("layer_dimension: soil_layer")
+    lines.append("water:")
+    lines.append(f"  convention: {convention}")
+    if ice_reading:
+        lines.append(f"  volumetric_ice: {ice_reading}")
+    if units == "saturation_fraction":
+        lines.append("units:")
+        for role in WATER_VARS[convention]:
+            if not role.endswith("fraction"):
+                lines.append(f"  {role}: saturation_fraction")
+    path.write_text("\n".join(lines) + "\n")
+    return path
+
+
+def packed_temperature_file(path: Path, headroom_K=5.9):
+    """A restart whose int16 soil temperature is packed so tightly (scale_factor/add_offset
+    chosen from the data's own range, as packing tools do) that its warmest value can rise by
+    only about ``headroom_K`` before reaching the type's limit."""
+    T, _, _ = frozen_state(1)
+    hi = float(T.max()) + headroom_K
+    lo = float(T.min()) - 1.0
+    # raw -32766..32767 spans lo..hi (-32767 is the fill value)
+    scale = (hi - lo) / (32767 - (-32766))
+    offset = lo - (-32766) * scale
+    with netCDF4.Dataset(path, "w") as ds:
+        ds.createDimension("time", 1)
+        ds.createDimension("soil_layer", WATER_NODES.size)
+        ds.createDimension("lat", WATER_LAT.size)
+        ds.createDimension("lon", WATER_LON.size)
+        v = ds.createVariable("lon", "f8", ("lon",))
+        v.units, v.standard_name = "degrees_east", "longitude"
+        v[:] = WATER_LON
+        v = ds.createVariable("lat", "f8", ("lat",))
+        v.units, v.standard_name = "degrees_north", "latitude"
+        v[:] = WATER_LAT
+        v = ds.createVariable("soil_layer", "f8", ("soil_layer",))
+        v.units, v.positive, v.standard_name = "m", "down", "depth"
+        v[:] = WATER_NODES
+        v = ds.createVariable("soil_temp", "i2", ("time", "soil_layer", "lat", "lon"), fill_value=np.int16(-32767))
+        v.scale_factor, v.add_offset = np.float64(scale), np.float64(offset)
+        v.units, v.standard_name = "K", "soil_temperature"
+        v.set_auto_maskandscale(True)
+        v[:] = T[None]
+    return path

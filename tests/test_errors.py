@@ -1145,3 +1145,79 @@ def test_real_process_corrupt_file_prints_no_library_diagnostics(work):
     lines = proc.stderr.splitlines()
     assert len(lines) == 1 and lines[0].startswith("initgen: error: ") and "cut.nc" in lines[0], lines
     assert listing(work) == before
+
+
+# =============================================================================================
+# Water conventions, ice as stored and packed variables (files from filemaker's water block)
+# =============================================================================================
+
+WATER_RECIPE = RECIPE.replace("lon: [20, 80], lat: [10, 50]", "lon: [-25, 25], lat: [-15, 15]").replace(
+    "taper_km: 200", "taper_km: 0") + "physics: {mode: energy, texture: loam}\n"
+
+
+def _water_case(work, convention="total_and_liquid", units="kg m-2", **kw):
+    from filemaker import water_file, water_layout
+
+    f = water_file(work / "w.nc", convention, units, **{k: v for k, v in kw.items() if k != "ice_reading_key"})
+    lay = water_layout(work / "w.yaml", convention, units, ice_reading=kw.get("ice_reading_key"))
+    return f, lay, recipe(work, WATER_RECIPE)
+
+
+def test_water_convention_whose_roles_the_layout_does_not_name(work, capsys):
+    f, lay, rec = _water_case(work)
+    lay.write_text(lay.read_text().replace("convention: total_and_liquid", "convention: total_and_frozen_fraction"))
+    refused(capsys, ["apply", rec, "--input", f, "--output", work / "o.nc", "--layout", lay],
+            "water.convention", "total_and_frozen_fraction", "soil_frozen_fraction", folder=work)
+
+
+def test_water_convention_unknown(work, capsys):
+    f, lay, rec = _water_case(work)
+    lay.write_text(lay.read_text().replace("convention: total_and_liquid", "convention: liquid_plus_slush"))
+    refused(capsys, ["apply", rec, "--input", f, "--output", work / "o.nc", "--layout", lay],
+            "water.convention", "liquid_plus_slush", folder=work)
+
+
+def test_volumetric_ice_reading_declared_for_ice_in_kg_m2(work, capsys):
+    """kg m-2 is a mass: a declared volume reading contradicts the units."""
+    f, lay, rec = _water_case(work, "liquid_and_ice", "kg m-2", ice_reading_key="true_ice_volume")
+    refused(capsys, ["apply", rec, "--input", f, "--output", work / "o.nc", "--layout", lay],
+            "water.volumetric_ice", "'water_ice'", "kg m-2", "remove the key", folder=work)
+
+
+def test_true_ice_volume_total_without_any_split(work, capsys):
+    f, lay, rec = _water_case(work, "total_only", "m3 m-3", ice_reading_key="true_ice_volume")
+    refused(capsys, ["apply", rec, "--input", f, "--output", work / "o.nc", "--layout", lay],
+            "water.volumetric_ice", "total_only", folder=work)
+
+
+def test_soil_water_without_units_names_the_layout_key(work, capsys):
+    f, lay, rec = _water_case(work, units_attr=False)
+    refused(capsys, ["apply", rec, "--input", f, "--output", work / "o.nc", "--layout", lay],
+            "w.nc", "'water_total'", "no units attribute", "units.soil_water_total", folder=work)
+
+
+def test_phase_fraction_in_odd_units(work, capsys):
+    f, lay, rec = _water_case(work, "total_and_frozen_fraction")
+    with netCDF4.Dataset(f, "a") as ds:
+        ds["frozen_frac"].units = "kg m-2"
+    refused(capsys, ["apply", rec, "--input", f, "--output", work / "o.nc", "--layout", lay],
+            "'frozen_frac'", "soil_frozen_fraction", "units.soil_frozen_fraction", folder=work)
+
+
+def test_packed_variable_cannot_hold_the_change(work, capsys):
+    from filemaker import packed_temperature_file
+
+    f = packed_temperature_file(work / "p.nc", headroom_K=5.9)
+    rec = recipe(work, WATER_RECIPE.replace("constant_K: -2", "constant_K: 10").replace(
+        "physics: {mode: energy, texture: loam}\n", ""))
+    for cmd in ("apply", "preview"):
+        argv = [cmd, rec, "--input", f] + (["--output", work / "o.nc"] if cmd == "apply" else [])
+        refused(capsys, argv, "p.nc", "'soil_temp'", "int16", "holds only", "cell(s) outside",
+                "limits.packed_out_of_range: clip", folder=work)
+
+
+def test_water_units_override_for_a_role_the_convention_does_not_read(work, capsys):
+    f, lay, rec = _water_case(work)
+    lay.write_text(lay.read_text() + "  units: {soil_ice: m3 m-3}\n")
+    refused(capsys, ["apply", rec, "--input", f, "--output", work / "o.nc", "--layout", lay],
+            "water.units.soil_ice", "total_and_liquid", "remove it", folder=work)
