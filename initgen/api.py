@@ -227,6 +227,10 @@ def ledger_text(ledger: dict) -> str:
     phys = ledger.get("physics", {})
     extra = [f"{k} {v:.4g}" for k, v in phys.items() if k.endswith("_total_J") or k.endswith("_total_kg")]
     lines.append(f"physics: mode {phys.get('mode')}" + (("; " + ", ".join(extra)) if extra else ""))
+    if "persistence" in ledger:
+        from .persistence import line
+
+        lines.append(line(ledger["persistence"]))
     if ledger.get("cells_not_in_phase_equilibrium_before"):
         lines.append(f"note: {ledger['cells_not_in_phase_equilibrium_before']} region layer-cells were not in phase "
                      "equilibrium before the change (left as they were outside the region)")

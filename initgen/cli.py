@@ -266,6 +266,10 @@ def _dispatch(args) -> int:
                 raise InputError("--report: the recipe has members; name one with --member NAME for a report")
             rows = api.preview_members(recipe, args.input, args.layout, allow_outside_paths=args.allow_outside_paths)
             print(members_table(rows))
+            from .persistence import line as _persistence_line
+
+            for m, led in rows:  # persistence.py: one line per member
+                print(f"{m.name}: {_persistence_line(led.get('persistence'))}")
             if args.json:
                 from .restart import write_atomic_text
 
