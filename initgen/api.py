@@ -200,6 +200,14 @@ def weights(recipe, input, layout=None, *, allow_outside_paths: bool = False):
         store.close()
 
 
+def collate(records, out_dir, labels=None, threshold: float = 0.25) -> dict:
+    """Collate provenance records (files, folders, manifests) into ``out_dir``: collation.csv,
+    collation.json and collation.html; returns the collation (``ok`` False when any record differs)."""
+    from . import collate as collate_mod
+
+    return collate_mod.collate(records, out_dir, labels=labels, threshold=threshold)
+
+
 def ledger_text(ledger: dict) -> str:
     """A compact plain-text table of a ledger (what the terminal shows)."""
     lines = []
@@ -237,4 +245,5 @@ def ledger_text(ledger: dict) -> str:
     return "\n".join(lines)
 
 
-__all__ = ["check", "preview", "preview_members", "apply", "apply_ensemble", "perturb", "weights", "ledger_text"]
+__all__ = ["check", "preview", "preview_members", "apply", "apply_ensemble", "perturb", "weights", "ledger_text",
+           "collate"]
