@@ -324,17 +324,21 @@ def conduct(T0, dz, C, k, times_s, *, top="fixed", steps_per_interval=None, max_
             for i in range(1, L):
                 inv[:, i] = 1.0 / (diag[:, i] - lower[:, i] * cp[:, i - 1])
                 cp[:, i] = upper[:, i] * inv[:, i]
-            lo_t, cp_t, inv_t = lower.T.copy(), cp.T.copy(), inv.T.copy()
-            x = (T * cap).T.copy()  # (L, N): rows contiguous
-            capt = cap.T
-            for _ in range(m):
+            # rows contiguous (L, N); a_i = lower_i / pivot_i, so d'_i = d_i / pivot_i - a_i d'_{i-1}
+            a_t, cp_t, inv_t = (lower * inv).T.copy(), cp.T.copy(), inv.T.copy()
+            x = (T * cap).T.copy()
+            capt = cap.T.copy()
+            buf = np.empty(n)
+            for step in range(m):
                 x[0] *= inv_t[0]
                 for i in range(1, L):
-                    x[i] -= lo_t[i] * x[i - 1]
+                    np.multiply(a_t[i], x[i - 1], out=buf)
                     x[i] *= inv_t[i]
+                    x[i] -= buf
                 for i in range(L - 2, -1, -1):
-                    x[i] -= cp_t[i] * x[i + 1]
-                if _ != m - 1:
+                    np.multiply(cp_t[i], x[i + 1], out=buf)
+                    x[i] -= buf
+                if step != m - 1:
                     x *= capt
             T = x.T.copy()
         out[j] = T
