@@ -67,6 +67,12 @@ class CheckResult:
                                  + ", ".join(f"{f:.3g}" for f in b.factors) + f"; at the surface {b.surface_factor:.3g}")
                 n = int((b.weight > 0).sum())
                 lines.append(f"perturbation '{b.name}': {n} cell(s) with weight > 0, {int((b.weight >= 1).sum())} at full weight")
+            from .persistence import settings  # where the persistence estimate's soil properties come from
+
+            ps = settings(self.plan)
+            lines.append("persistence estimate: " + (f"not estimated: {ps['reason']}" if ps["reason"] else
+                                                     f"heat capacity from {ps['heat_capacity_source']}; conductivity "
+                                                     f"from {ps['conductivity_source']}"))
         return "\n".join(lines)
 
 
