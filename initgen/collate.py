@@ -366,7 +366,9 @@ def to_html(col: dict) -> str:
         vals = _row_values(r)
         vals[4] = (vals[4] or "")[:12] + "..."
         vals[6] = None if vals[6] is None else f"{vals[6]:,.0f}"
-        vals[8:12] = [None if v is None else f"{v:.3f}" for v in vals[8:12]]
+        vals[8:12] = [None if v is None else f"{v:.3f}" + ("" if b["coverage"] > 0.999 else
+                                                          f" ({b['coverage'] * 100:.0f} % of the band)")
+                      for v, b in zip(vals[8:12], r["bands"])]
         vals[12] = None if vals[12] is None else f"{vals[12] / 1e6:.3g}"
         vals[13] = None if vals[13] is None else f"{vals[13]:.3g}"
         cls = ' class="bad"' if r["issues"] else (' class="flag"' if r["band_flags"] else "")

@@ -95,6 +95,7 @@ class Accumulator:
         self.change = np.zeros((nh, nlayers))
         self.area = 0.0
         self.columns = 0
+        self.skipped = 0  # perturbed columns left out: a layer without a valid value or soil property
         self.k_sum = np.zeros(nlayers)
         self.c_sum = np.zeros(nlayers)
 
@@ -127,6 +128,7 @@ class Accumulator:
                 "remaining_fraction": [r(v / self.abs_heat0) for v in self.heat_left],
                 "remaining_change_per_layer_K": [[r(v / self.area) for v in row] for row in self.change],
                 "columns": int(self.columns),
+                "columns_left_out": int(self.skipped),
                 "conductivity_source": cfg.get("conductivity_source"),
                 "heat_capacity_source": cfg.get("heat_capacity_source"),
                 "mean_conductivity_per_layer_W_m_K": [r(v / self.area) for v in self.k_sum],
@@ -154,10 +156,12 @@ def add_block(plan, led, T0, T, water, inside, area, store=None, hkey=None) -> N
         return np.moveaxis(a, 1, -1).reshape(-1, nl)
 
     dT = cols(np.where(inside, T - T0, 0.0))
-    ok = cols(inside).all(axis=1) & np.isfinite(dT).all(axis=1) & np.any(dT != 0, axis=1)
+    changed = np.any(dT != 0, axis=1)
     a = np.broadcast_to(area.reshape((1,) + area.shape), (T.shape[0],) + area.shape).reshape(-1)
-    ok &= a > 0
+    changed &= a > 0
+    ok = changed & cols(inside).all(axis=1) & np.isfinite(dT).all(axis=1)
     if not np.any(ok):
+        acc.skipped += int(changed.sum())
         return
     if cfg["C"] is not None:
         C = np.full(dT.shape, float(cfg["C"]))
@@ -178,6 +182,7 @@ def add_block(plan, led, T0, T, water, inside, area, store=None, hkey=None) -> N
             quartz, coarse = cfg["quartz"], cfg["coarse"]
         k = cols(conduction.johansen_conductivity(water["liq"], water["ice"], water["porosity"], quartz, coarse))
     good = ok & np.isfinite(C).all(axis=1) & np.isfinite(k).all(axis=1) & (C > 0).all(axis=1) & (k > 0).all(axis=1)
+    acc.skipped += int(changed.sum() - good.sum())
     acc.add(dT[good], dz, C[good], k[good], a[good])
 
 

@@ -142,3 +142,19 @@ def test_ensemble_manifest_and_folder(two_models, tmp_path, capsys):
     assert rc == 0 and sorted(r["member"] for r in col["submissions"]) == ["cold-x1.0", "warm-x1.0"]
     warm, cold = sorted(col["submissions"], key=lambda r: r["member"], reverse=True)
     assert warm["bands"][0]["mean"] > 0 > cold["bands"][0]["mean"]
+
+
+def test_record_without_layer_geometry_differs(two_models, tmp_path, capsys):
+    """A record made before initgen recorded layer tops and bottoms cannot be banded: exit 3."""
+    src = two_models / "model-b"
+    old = tmp_path / "old"
+    shutil.copytree(src, old)
+    rec_path = old / "restart.cold.nc.provenance.json"
+    rec = json.loads(rec_path.read_text())
+    del rec["ledger"]["layers"]
+    rec_path.write_text(json.dumps(rec))
+    rc, cap = _run(["collate", two_models / "model-a" / "demo-restart.cold-highland.nc.provenance.json", rec_path,
+                    "--out", tmp_path / "col"], capsys)
+    assert rc == 3 and "no layer geometry" in cap.out
+    col = json.loads((tmp_path / "col" / "collation.json").read_text())
+    assert all(b["mean"] is None for b in col["submissions"][1]["bands"])
