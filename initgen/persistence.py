@@ -194,8 +194,11 @@ def line(persist: dict | None) -> str:
     if persist.get("remaining_fraction") is None:
         return f"persistence: not estimated: {persist.get('not_estimated', 'unknown reason')}"
     parts = ", ".join(f"{f * 100:.0f} % after {h:g} d" for h, f in zip(hz, persist["remaining_fraction"]))
+    skipped = persist.get("columns_left_out") or 0
+    note = (f" ({skipped} perturbed column(s) left out: a layer without a valid value or soil property)"
+            if skipped else "")
     return (f"persistence (idealised conduction bound, surface anomaly held at 0, latent heat left out): "
-            f"heat anomaly left {parts}")
+            f"heat anomaly left {parts}{note}")
 
 
 __all__ = ["settings", "Accumulator", "add_block", "line", "ASSUMPTIONS", "STEPS_PER_INTERVAL", "MAX_STEP_DAYS"]
