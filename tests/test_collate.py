@@ -158,3 +158,22 @@ def test_record_without_layer_geometry_differs(two_models, tmp_path, capsys):
     assert rc == 3 and "no layer geometry" in cap.out
     col = json.loads((tmp_path / "col" / "collation.json").read_text())
     assert all(b["mean"] is None for b in col["submissions"][1]["bands"])
+
+
+def test_more_refusals_exit_2_nothing_written(two_models, tmp_path, capsys):
+    """Bad options and arguments: one line, exit 2, no file written or changed (error catalogue)."""
+    a = two_models / "model-a" / "demo-restart.cold-highland.nc.provenance.json"
+    (tmp_path / "empty").mkdir()
+    (tmp_path / "afile").write_text("x")
+    (tmp_path / "manifest.json").write_text("{}")
+    cases = [
+        (["--threshold", "-1"], "--threshold"),
+        (["--out", tmp_path / "afile"], "is not a folder"),
+        ([tmp_path / "empty"], "holds no provenance record"),
+        ([tmp_path / "manifest.json"], "not an initgen ensemble manifest"),
+        (["--label", f"x={a}", "--label", f"x={two_models / 'model-b' / 'restart.cold.nc.provenance.json'}"],
+         "used twice"),
+    ]
+    for extra, phrase in cases:
+        out = [] if "--out" in extra else ["--out", tmp_path / "col"]
+        refused(capsys, ["collate", a, *extra, *out], phrase, folder=tmp_path)
