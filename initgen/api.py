@@ -90,6 +90,12 @@ class CheckResult:
                                  + ", ".join(f"{f:.3g}" for f in b.factors) + f"; at the surface {b.surface_factor:.3g}")
                 n = int((b.weight > 0).sum())
                 lines.append(f"perturbation '{b.name}': {n} cell(s) with weight > 0, {int((b.weight >= 1).sum())} at full weight")
+            from .persistence import settings  # where the persistence estimate's soil properties come from
+
+            ps = settings(self.plan)
+            lines.append("persistence estimate: " + (f"not estimated: {ps['reason']}" if ps["reason"] else
+                                                     f"heat capacity from {ps['heat_capacity_source']}; conductivity "
+                                                     f"from {ps['conductivity_source']}"))
         return "\n".join(lines)
 
 
@@ -246,6 +252,14 @@ def weights(recipe, input, layout=None, *, allow_outside_paths: bool = False):
         store.close()
 
 
+def collate(records, out_dir, labels=None, threshold: float = 0.25) -> dict:
+    """Collate provenance records (files, folders, manifests) into ``out_dir``: collation.csv,
+    collation.json and collation.html; returns the collation (``ok`` False when any record differs)."""
+    from . import collate as collate_mod
+
+    return collate_mod.collate(records, out_dir, labels=labels, threshold=threshold)
+
+
 def ledger_text(ledger: dict) -> str:
     """A compact plain-text table of a ledger (what the terminal shows)."""
     lines = []
@@ -274,6 +288,10 @@ def ledger_text(ledger: dict) -> str:
     extra = [f"{k} {v:.4g}" for k, v in phys.items() if k.endswith("_total_J") or k.endswith("_total_kg")]
     rule = f", phase rule {phys['phase_rule']}" if phys.get("phase_rule") else ""
     lines.append(f"physics: mode {phys.get('mode')}{rule}" + (("; " + ", ".join(extra)) if extra else ""))
+    if "persistence" in ledger:
+        from .persistence import line
+
+        lines.append(line(ledger["persistence"]))
     water = ledger.get("water")
     if water:
         lines.append(f"soil water: {water['convention']} ({water['convention_from']}); volumetric ice "
@@ -303,4 +321,5 @@ def ledger_text(ledger: dict) -> str:
     return "\n".join(lines)
 
 
-__all__ = ["check", "preview", "preview_members", "apply", "apply_ensemble", "perturb", "weights", "ledger_text"]
+__all__ = ["check", "preview", "preview_members", "apply", "apply_ensemble", "perturb", "weights", "ledger_text",
+           "collate"]

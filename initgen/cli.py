@@ -89,6 +89,14 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--input", "-i", help="the original input file (default: the path in the record)")
     p.add_argument("--output", "-o", help="the file to check (default: the path in the record)")
 
+    p = sub.add_parser("collate", help="compare several groups' provenance records side by side (CSV, JSON, HTML)")
+    p.add_argument("records", nargs="+", metavar="RECORD_OR_FOLDER",
+                   help="provenance records (.provenance.json), ensemble manifest.json files or folders of them")
+    p.add_argument("--out", required=True, help="folder for collation.csv, collation.json and collation.html")
+    p.add_argument("--label", action="append", default=[], metavar="NAME=RECORD", help="name a submission")
+    p.add_argument("--threshold", type=float, default=0.25,
+                   help="flag band means further than this fraction from the median (default 0.25)")
+
     p = sub.add_parser("schema", help="print the JSON Schema of the recipe (or of the layout)")
     p.add_argument("--layout", action="store_true", help="print the layout schema instead")
 
@@ -266,6 +274,10 @@ def _dispatch(args) -> int:
                 raise InputError("--report: the recipe has members; name one with --member NAME for a report")
             rows = api.preview_members(recipe, args.input, args.layout, allow_outside_paths=args.allow_outside_paths)
             print(members_table(rows))
+            from .persistence import line as _persistence_line
+
+            for m, led in rows:  # persistence.py: one line per member
+                print(f"{m.name}: {_persistence_line(led.get('persistence'))}")
             if args.json:
                 from .restart import write_atomic_text
 
@@ -318,6 +330,14 @@ def _dispatch(args) -> int:
         result = report.verify(args.provenance, input=args.input, output=args.output)
         print(result["message"])
         return 0 if result["ok"] else 3
+    if args.command == "collate":
+        from .collate import problems_text
+
+        col = api.collate(args.records, args.out, labels=args.label, threshold=args.threshold)
+        print(f"collated {len(col['submissions'])} record(s): " + ", ".join(col["written"]))
+        for line in problems_text(col):
+            print(f"differs: {line}")
+        return 0 if col["ok"] else 3
     if args.command == "schema":
         from .recipe import LAYOUT, RECIPE
 

@@ -82,6 +82,7 @@ class Ledger:
         self.invariants = Counter()   # the physics' promises, measured on the cells it changed
         self.notes = {}               # how initgen read something it had to infer, in words
         self.nlayers = {}
+        self.persistence = None  # persistence.Accumulator, set by the first soil block
 
     def stats(self, name: str, role: str, units: str, nlayers: int, layered: bool) -> _Stats:
         if name not in self.vars:
@@ -154,6 +155,11 @@ class Ledger:
                                "noise": self.plan.noise is not None},
             "cells_not_in_phase_equilibrium_before": int(self.disequilibrium),
         }
+        if model.layers is not None:  # layer geometry, so a record can be collated without the model file
+            out["layers"] = {"top_m": [_num(v) for v in model.layers.top_m],
+                             "bottom_m": [_num(v) for v in model.layers.bottom_m]}
+        if self.persistence is not None:  # persistence.py: idealised conduction bound of the anomaly
+            out["persistence"] = self.persistence.finish()
         for name, rec in self.vars.items():
             rows = rec["stats"].rows(depths if rec["role"] in ("soil_temperature", "soil_liquid", "soil_ice") else None)
             out["variables"][name] = {"role": rec["role"], "units": rec["units"],

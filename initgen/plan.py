@@ -21,7 +21,7 @@ from pathlib import Path
 import numpy as np
 
 from . import ledger as ledger_mod
-from . import constants, geodesy, profiles, regions, soil, sources
+from . import constants, geodesy, persistence, profiles, regions, soil, sources
 from .errors import InputError, InputWarning
 from .grid import ModelFile
 from .layers import Layers
@@ -779,6 +779,8 @@ def apply_block(plan: Plan, store, hkey: dict, widx: tuple, led, *, write: bool)
             _write_water(plan, store, hkey, water, inside, led, area, write)
             # with a physics mode the skin follows the top layer's realised change (latent heat included)
             top_change = np.where(np.isfinite(T[:, 0]) & np.isfinite(T0[:, 0]), T[:, 0] - T0[:, 0], 0.0)
+        # how long the change lasts under pure conduction (persistence.py; reads T0, T and water only)
+        persistence.add_block(plan, led, T0, T, water, inside, area, store, hkey)
 
     # --- skin temperature, snow temperature, snow mass ---------------------------------------
     snow_mass_now = None

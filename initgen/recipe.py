@@ -183,6 +183,22 @@ PHYSICS = Obj(
     },
 )
 
+# Report-only: how long the anomaly lasts (persistence.py). It changes no byte of any output, so
+# it is left out of the canonical hash (canonical_hash): two groups that chose different horizons
+# or a conductivity constant for their estimate still ran the same experiment.
+PERSISTENCE = Obj(
+    doc="report only (not in the recipe hash): the idealised conduction estimate of how long the anomaly lasts",
+    fields={
+        "horizons_days": List(item=Num(exclusive_minimum=0.0, maximum=3650.0, unit="days"), min_items=1,
+                              max_items=12, default=[7, 15, 30, 60],
+                              doc="horizons at which the remaining heat fraction is reported, increasing"),
+        "conductivity_W_m_K": Num(exclusive_minimum=0.0, maximum=10.0, default=None, unit="W m-1 K-1",
+                                  doc="thermal conductivity for the estimate (default: Johansen 1975 from the state)"),
+        "heat_capacity_J_m3_K": Num(minimum=1.0e5, maximum=5.0e6, default=None, unit="J m-3 K-1",
+                                    doc="volumetric heat capacity for the estimate (default: from the state)"),
+    },
+)
+
 # Ensemble members: an explicit list or a generated set (see expand_members for the names)
 MEMBER_TEMPLATE_FIELDS = ("member", "input_stem", "input_name")
 
@@ -306,6 +322,7 @@ RECIPE = Obj(
         "perturbations": List(item=BLOCK, min_items=1, unique_key="name",
                               doc="perturbation blocks, applied in order (each adds its change to the result of the previous)"),
         "physics": replace(PHYSICS, default={}),
+        "persistence": replace(PERSISTENCE, default={}),
         "members": MEMBERS,
         "limits": Obj(default={}, doc="what to do where a change cannot be stored as asked", fields={
             "packed_out_of_range": Str(choices=("refuse", "clip"), default="refuse",
@@ -355,6 +372,7 @@ def canonical_hash(data: dict) -> str:
 
     Key order, comments, whitespace and explicitly written defaults do not change it.
     """
+    data = {k: v for k, v in data.items() if k != "persistence"}  # report-only (see PERSISTENCE)
     text = json.dumps(data, sort_keys=True, separators=(",", ":"), ensure_ascii=True)
     return hashlib.sha256(text.encode()).hexdigest()
 
@@ -484,6 +502,9 @@ _PROFILE_NEEDS = {
 
 def _check_semantics(data: dict, source: str) -> None:
     """Cross-key checks the per-key schema cannot express."""
+    hz = (data.get("persistence") or {}).get("horizons_days") or []
+    if any(b <= a for a, b in zip(hz, hz[1:])):
+        raise InputError(f"{source}: recipe key persistence.horizons_days: must increase, got {list(hz)}")
     for i, block in enumerate(data["perturbations"]):
         prof = block["profile"]
         for key in _PROFILE_NEEDS[prof["kind"]]:

@@ -1188,6 +1188,10 @@ def _preview_markdown(rec, lay, input, grid, ledger, figures, captions, donors, 
     if ledger.get("cells_not_in_phase_equilibrium_before"):
         L += ["", f"Note: {ledger['cells_not_in_phase_equilibrium_before']} region layer-cells were not in phase "
                   "equilibrium before the change."]
+    if "persistence" in ledger:  # persistence.py: one line
+        from .persistence import line
+
+        L += ["", line(ledger["persistence"]) + "."]
     L += ["", "## Figures", ""]
     captions = dict(captions)
     captions.update({"weights.png": "Horizontal weight w(x) with the region outline.",

@@ -314,3 +314,68 @@ def packed_temperature_file(path: Path, headroom_K=5.9):
         v.set_auto_maskandscale(True)
         v[:] = T[None]
     return path
+
+
+# =============================================================================================
+# Collation fixtures (issue 17): a second invented model of the demo's region, on another grid
+# (unstructured columns) with another layer structure (6 layers reaching 1 m), CF names only.
+# =============================================================================================
+
+SECOND_INTERFACES = np.array([0.0, 0.02, 0.08, 0.2, 0.4, 0.7, 1.0])
+
+
+def second_model(path: Path, *, step: int = 2):
+    """The demo's invented continent sampled every ``step`` cells as a list of land columns."""
+    from initgen import demo, soil
+
+    f = demo.demo_fields()
+    LON, LAT = np.meshgrid(f["lon"], f["lat"])
+    pick = f["landfrac"] > 0
+    sub = np.zeros_like(pick)
+    sub[::step, ::step] = True
+    pick &= sub
+    lon, lat = LON[pick], LAT[pick]
+    lon = np.where(lon > 180.0, lon - 360.0, lon)  # the -180..180 convention, unlike the demo
+    elev, landfrac = f["elev"][pick], f["landfrac"][pick]
+    t_surf = 290.0 - 0.0055 * elev - 0.35 * (lat - 40.0)
+    t_deep = 285.0 - 0.003 * elev - 0.2 * (lat - 40.0)
+    top, bot = SECOND_INTERFACES[:-1], SECOND_INTERFACES[1:]
+    node = 0.5 * (top + bot)
+    tsoil = t_deep[:, None] + (t_surf - t_deep)[:, None] * np.exp(-node[None] / 0.6)
+    dz = (bot - top)[None]
+    total = 0.30
+    liq = np.minimum(total, soil.supercooled_liquid_max(tsoil, **dict(porosity=0.451, psi_sat_m=0.478, b=5.39)))
+    n, nl = lon.size, node.size
+    ds = netCDF4.Dataset(path, "w")
+    ds.title = "second invented model for the collation tests"
+    ds.createDimension("column", n)
+    ds.createDimension("depth", nl)
+    ds.createDimension("nv", 2)
+    for name, vals, units, std in (("clon", lon, "degrees_east", "longitude"), ("clat", lat, "degrees_north", "latitude")):
+        v = ds.createVariable(name, "f8", ("column",))
+        v.units, v.standard_name = units, std
+        v[:] = vals
+    v = ds.createVariable("depth", "f8", ("depth",))
+    v.units, v.positive, v.bounds = "m", "down", "depth_bnds"
+    v[:] = node
+    v = ds.createVariable("depth_bnds", "f8", ("depth", "nv"))
+    v.units = "m"
+    v[:] = np.stack([top, bot], axis=1)
+    for name, vals, units, std in (("frac", landfrac, "1", "land_area_fraction"),
+                                   ("zs", elev, "m", "surface_altitude"),
+                                   # cells of 0.5 step degrees on a sphere of 6371 km (invented columns)
+                                   ("area", (6.371e6 * np.deg2rad(0.5 * step)) ** 2 * np.cos(np.deg2rad(lat)), "m2",
+                                    "cell_area"),
+                                   ("t_skin", np.minimum(t_surf, 280.0), "K", "surface_temperature"),
+                                   ("t_snow", np.minimum(t_surf - 1.0, 272.0), "K", "temperature_in_surface_snow")):
+        v = ds.createVariable(name, "f4", ("column",))
+        v.units, v.standard_name = units, std
+        v[:] = vals
+    for name, vals, units, std in (("t_soil", tsoil, "K", "soil_temperature"),
+                                   ("w_liq", liq * dz * 1000.0, "kg m-2", "liquid_water_content_of_soil_layer"),
+                                   ("w_ice", (total - liq) * dz * 1000.0, "kg m-2", "frozen_water_content_of_soil_layer")):
+        v = ds.createVariable(name, "f4", ("column", "depth"))
+        v.units, v.standard_name = units, std
+        v[:] = vals
+    ds.close()
+    return path
