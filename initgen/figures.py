@@ -304,8 +304,8 @@ def profile_figure(panels: list, title: str) -> bytes | None:
 # ---------------------------------------------------------------------------------------------
 
 
-def histogram_figure(panels: list, title: str, area_units: str = "km2") -> bytes | None:
-    """Small multiples: per panel (layer) the land area (``area_units``) per bin of the change.
+def histogram_figure(panels: list, title: str, area_units: str = "km2", area_what: str = "land area") -> bytes | None:
+    """Small multiples: per panel (layer) the area (``area_what`` in ``area_units``) per bin of the change.
 
     ``panels``: (title, bin edges, area per bin, units of the change).
     """
@@ -326,7 +326,7 @@ def histogram_figure(panels: list, title: str, area_units: str = "km2") -> bytes
         ax.tick_params(labelsize=small - 1)
         if e[0] <= 0.0 <= e[-1]:
             ax.axvline(0.0, color="0.4", lw=0.8)
-    fig.supylabel(f"land area ({area_units})", fontsize=FONT["label"])
+    fig.supylabel(f"{area_what} ({area_units})", fontsize=FONT["label"])
     fig.suptitle(title, fontsize=FONT["title"])
     return png_bytes(fig)
 

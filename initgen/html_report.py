@@ -273,7 +273,7 @@ def compare_page(result: dict, sha_a: str, sha_b: str, figures: list, version: s
     if figures:
         B.append("<h2>Figures</h2>")
         for png, caption in figures:
-            B.append(figure(png, caption))
+            B.append(figure(png, caption) if png is not None else f"<p>{esc(caption)}</p>")
     return page(title, B)
 
 

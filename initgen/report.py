@@ -481,7 +481,7 @@ def compare_text(result: dict) -> str:
         for d in result["differences"]:
             lines.append(f"  - {d}")
     if changed:
-        head = f"{'variable':<22} {'changed':>9} {'of':>9} {'max|change|':>11} {'area_mean':>10} {'units':<7} " \
+        head = f"{'variable':<22} {'changed':>9} {'of':>9} {'max|change|':>11} {'mean_changed':>12} {'units':<7} " \
                f"{'lon':<15} lat"
         lines.append(head)
         for name, v in changed.items():
@@ -496,18 +496,20 @@ def compare_text(result: dict) -> str:
             lon = f"{box['lon'][0]:.2f}..{box['lon'][1]:.2f}" if box else "-"
             lat = f"{box['lat'][0]:.2f}..{box['lat'][1]:.2f}" if box else "-"
             lines.append(f"{label:<22} {v['cells_changed']:>9} {v['cells']:>9} {_fmt(v['max_abs_change']):>11} "
-                         f"{_fmt(v['area_weighted_mean_change']):>10} {(v.get('units') or '-'):<7} {lon:<15} {lat}")
+                         f"{_fmt(v['area_weighted_mean_change']):>12} {(v.get('units') or '-'):<7} {lon:<15} {lat}")
             for row in v.get("layers") or []:
                 if row["cells_changed"]:
                     lines.append(f"  {v['layer_dim']}[{row['layer']}]".ljust(22) +
                                  f" {row['cells_changed']:>9} {row['cells']:>9} {_fmt(row['max_abs_change']):>11} "
-                                 f"{_fmt(row['area_weighted_mean_change']):>10}")
+                                 f"{_fmt(row['area_weighted_mean_change']):>12}")
             for s in v.get("structure") or []:
                 lines.append(f"  {s}")
         if any(v.get("allowed") for v in changed.values()):
-            lines.append("(* allowed to differ; area_mean: area-weighted mean change over the changed cells)")
+            lines.append("(* allowed to differ; mean_changed: mean over changed cells, the area-weighted mean change over the "
+                         "cells whose value changed)")
         else:
-            lines.append("(area_mean: area-weighted mean change over the changed cells)")
+            lines.append("(mean_changed: mean over changed cells, the area-weighted mean change over the cells whose value "
+                         "changed)")
     other = [s for s in result["structure"] if not s.startswith("variable '")]
     if other:
         lines.append("file-level: " + "; ".join(other))
@@ -535,6 +537,117 @@ def compare_markdown(result: dict) -> str:
     verdict = "OK" if result["ok"] else "DIFFERENT"
     return (f"# initgen compare: {verdict}\n\n```text\n{compare_text(result)}\n```\n\n"
             f"Allowed to differ: {', '.join(result['allow']) or 'nothing'} (and the global history attribute).\n")
+
+
+def _compare_fields(result: dict, layout) -> tuple:
+    """(grid, land, land_what, fields): per changed variable the change b - a of its first changed layer.
+
+    ``fields``: name -> (change on the grid, NaN where a value became missing; changed cells;
+    label). Read from the two files one horizontal field at a time; (None, ...) without a grid.
+    """
+    from .grid import open_model
+    from .recipe import load_layout
+
+    sa = NetCDFStore(result["a"])
+    try:
+        sb = NetCDFStore(result["b"])
+    except BaseException:
+        sa.close()
+        raise
+    fields: dict = {}
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            try:
+                model = open_model(sa, load_layout(layout) if _is_layout_path(layout) else layout)
+            except InputError:
+                return None, None, None, fields
+            grid = model.grid
+            land, land_what = _land_for_map(model, sa)
+        for name, v in result["variables"].items():
+            if v.get("status") != "differs" or not v.get("cells_changed") or v.get("weights") is None:
+                continue
+            info = sa.variables[name]
+            dims = list(info.dims)
+            if not all(d in dims for d in grid.dims) or info.shape != tuple(sb.variables[name].shape):
+                continue
+            layer = next((r["layer"] for r in v.get("layers") or [] if r["cells_changed"]), 0)
+            key = tuple(slice(None) if d in grid.dims else
+                        slice(layer, layer + 1) if d == v.get("layer_dim") else slice(0, 1) for d in dims)
+            ra, rb = np.asarray(sa.read_raw(name, key)), np.asarray(sb.read_raw(name, key))
+            fa, fb = unpack(ra, info.attrs), unpack(rb, sb.variables[name].attrs)
+            order = [p for p in range(len(dims)) if dims[p] not in grid.dims] + [dims.index(d) for d in grid.dims]
+            ra, rb, fa, fb = (np.transpose(x, order).reshape(grid.shape) for x in (ra, rb, fa, fb))
+            same = (ra == rb) | (np.isnan(fa) & np.isnan(fb)) if ra.dtype.kind in "fc" else (ra == rb)
+            changed = ~same
+            label = name + (f" {v['layer_dim']}[{layer}]" if v.get("layer_dim") else "")
+            fields[name] = (np.where(changed, fb - fa, 0.0), changed, label, v.get("units") or "")
+    finally:
+        sa.close()
+        sb.close()
+    return grid, land, land_what, fields
+
+
+def compare_report(result: dict, folder, layout=None) -> Path:
+    """Write ``folder/compare.md`` and ``folder/report.html`` for a :func:`compare` result.
+
+    Parameters
+    ----------
+    result : dict
+        What :func:`compare` returned (its numbers are the page's numbers).
+    folder : str or path-like
+        Folder for the report (created if needed).
+    layout : str, path-like or Document, optional
+        The layout used to find the grid (else CF attributes).
+
+    Returns
+    -------
+    pathlib.Path
+        The path of ``report.html``.
+
+    Notes
+    -----
+    The page names both files with their sha256, the verdict, per variable and layer the cells
+    changed, the largest change and the mean over changed cells, and, where the files have a
+    grid, per changed variable a map of the change b - a of its first changed layer on file
+    a's own coastline and a histogram of that change weighted by cell area.
+    """
+    from . import __version__
+    from .figures import histogram_figure
+    from .html_report import compare_page
+
+    folder = Path(folder)
+    if folder.exists() and not folder.is_dir():
+        raise InputError(f"--report {folder}: exists and is not a folder; give a folder for the report")
+    grid, land, land_what, fields = _compare_fields(result, layout)
+    figs = []
+    for name, (d, changed, label, units) in fields.items():
+        coast = f" Grey: sea (no land); thin line: coastline ({land_what} 0.5, from file a)." if land is not None \
+            else ""
+        png = _map_figure(grid, np.where(changed, d, 0.0), changed.astype(float), [],
+                          f"Change b - a of {label}", f"change ({units})", cmap="RdBu_r", land=land,
+                          land_what=land_what or "")
+        figs.append((png, f"Change b - a of {label} on the grid of a, on a scale centred on zero." + coast))
+        ok = changed & np.isfinite(d)
+        if np.any(ok):
+            div, unit = _area_units(grid)
+            v, a = d[ok], np.broadcast_to(grid.area, d.shape)[ok] / div
+            lo, hi = float(v.min()), float(v.max())
+            if hi - lo <= 1e-9 * max(1.0, abs(hi)):
+                figs.append((None, f"{label}: every one of the {v.size} changed cells changed by {lo:.4g} {units}."))
+                continue
+            e = np.linspace(lo, hi, 41)
+            png = histogram_figure([(label, e, np.histogram(v, bins=e, weights=a)[0], units)],
+                                   f"Change b - a of {label} over the changed cells, weighted by cell area",
+                                   area_units=unit.split(",")[0], area_what="cell area")
+            figs.append((png, f"Histogram of the change b - a of {label} over the changed cells, weighted by cell "
+                              f"area ({unit})."))
+    page = compare_page(result, sha256_file(result["a"]), sha256_file(result["b"]), figs, __version__)
+    folder.mkdir(parents=True, exist_ok=True)
+    write_atomic_text(folder / "compare.md", compare_markdown(result))
+    path = folder / "report.html"
+    write_atomic_text(path, page)
+    return path
 
 
 # =============================================================================================
