@@ -1208,7 +1208,7 @@ def preview_report(recipe, input, layout, out_dir, ledger=None, allow_outside_pa
         figures[fname] = _map_figure(grid, np.where(w > 0, field, 0.0), w, geoms,
                                      f"Change of {short_label(name)}{top} ({var['role']}): {who}",
                                      f"change ({var.get('units', '')})", cmap="RdBu_r", **mk)
-        captions[fname] = (f"Change of {name}{top} ({var['role']}) as apply would write it (after physics and "
+        captions[fname] = (f"Change of {short_label(name)}{top} ({var['role']}) as apply would write it (after physics and "
                            "limits), on a scale centred on zero." + coast)
     from .figures import histogram_figure, profile_figure
 
