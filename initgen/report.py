@@ -876,12 +876,11 @@ def _land_for_map(model, store) -> tuple:
     return None, None
 
 
-def _taper_edge(plan, rec) -> np.ndarray | None:
+def _taper_edge(plan, rec, geoms: list) -> np.ndarray | None:
     """1 where any block's taper weight (the plan's own function on the plan's window) is above 0."""
     from . import regions
     from .plan import MIN_WEIGHT
 
-    geoms = _region_geoms(rec, True)
     edge = None
     for (name, geom), blk in zip(geoms, rec.data["perturbations"]):
         reg = blk["region"]
@@ -1175,7 +1174,7 @@ def preview_report(recipe, input, layout, out_dir, ledger=None, allow_outside_pa
     finally:
         store.close()
     geoms = _region_geoms(rec, allow_outside_paths)
-    edge = _taper_edge(plan, rec)
+    edge = _taper_edge(plan, rec, geoms)
     surf = np.zeros(grid.shape)
     donors = []
     for b in plan.blocks:
@@ -1443,8 +1442,15 @@ def write_mask(recipe, input, layout, output, png=None, force=False, allow_outsi
 
     data = None
     if png is not None:  # draw first: a failure leaves no mask file behind
-        data = _map_figure(grid, w, w, _region_geoms(rec, allow_outside_paths),
-                           f"Region weight: recipe '{rec.name}'", "weight (1)", vmin=0.0, vmax=1.0)
+        store = NetCDFStore(input)
+        try:
+            land, land_what = _land_for_map(api._model(store, lay, rec), store)
+        finally:
+            store.close()
+        geoms = _region_geoms(rec, allow_outside_paths)
+        data = _map_figure(grid, w, w, geoms,
+                           f"Region weight w(x): recipe {rec.name}", "weight (1)", vmin=0.0, vmax=1.0, land=land,
+                           land_what=land_what or "", taper_edge=_taper_edge(plan, rec, geoms))
     create_netcdf(output, build, fmt="NETCDF4", force=force)
     if data is not None:
         write_atomic_bytes(png, data)
