@@ -102,17 +102,20 @@ def build_parser() -> argparse.ArgumentParser:
 
 
 def _files_after_allow(parser, args) -> None:
-    """``compare --allow V1 V2 A B``: the two files were taken as variables; the last two are the files."""
+    """``compare --allow V1 V2 A B``: argparse read the files as variables; the last names, if files, are A and B."""
     if args.command != "compare":
         return
     files = [f for f in (args.a, args.b) if f is not None]
     need = 2 - len(files)
-    if need and len(args.allow) >= need:
-        files += args.allow[len(args.allow) - need:]
-        del args.allow[len(args.allow) - need:]
-        need = 0
-    if need:
-        parser.exit(2, "initgen: error: compare needs two files, A and B (see 'initgen compare --help')\n")
+    if not need:
+        return
+    tail = args.allow[len(args.allow) - need:] if len(args.allow) >= need else []
+    missing = [t for t in tail if not os.path.isfile(t)]
+    if not tail or missing:
+        why = f" ('{missing[-1]}' after --allow is not a file)" if missing else ""
+        parser.exit(2, f"initgen: error: compare needs two files, A and B{why} (see 'initgen compare --help')\n")
+    files += tail
+    del args.allow[len(args.allow) - need:]
     args.a, args.b = files
 
 

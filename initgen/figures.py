@@ -210,12 +210,12 @@ def map_figure(grid, field, w, geoms, title: str, label: str, *, land=None, land
     centre = frame_centre(grid, w)
     field = np.asarray(field, float)
     handles = []
+    sea = None
     if land is not None:
         sea = ~(np.nan_to_num(np.asarray(land, float), nan=0.0) > 0)
         if np.any(sea):
             draw_field(ax, grid, np.where(sea, 1.0, np.nan), centre, cmap=ListedColormap([SEA_GREY]),
                        vmin=0.0, vmax=1.0)
-            handles.append(Line2D([], [], ls="", marker="s", ms=10, color=SEA_GREY, label="sea (no land)"))
         field = np.where(sea, np.nan, field)
     if diverging:
         amax = float(np.nanmax(np.abs(field))) if np.any(np.isfinite(field)) else 0.0
@@ -234,13 +234,18 @@ def map_figure(grid, field, w, geoms, title: str, label: str, *, land=None, land
                                                linestyles="--"):
         handles.append(Line2D([], [], color="darkorange", lw=1.8, ls="--", label="taper outer edge"))
     zoom(ax, grid, w, centre)
+    if sea is not None and np.any(sea):  # name the grey only where the frame shows some
+        (x0, x1), (y0, y1) = ax.get_xlim(), ax.get_ylim()
+        sx, sy = to_frame(grid.lon[sea], centre), grid.lat[sea]
+        if np.any((sx >= x0) & (sx <= x1) & (sy >= y0) & (sy <= y1)):
+            handles.insert(0, Line2D([], [], ls="", marker="s", ms=10, color=SEA_GREY, label="sea (no land)"))
     ax.set_xlabel("longitude (degrees east)", fontsize=FONT["label"])
     ax.set_ylabel("latitude (degrees north)", fontsize=FONT["label"])
     ax.tick_params(labelsize=FONT["tick"])
     ax.set_title(title, fontsize=FONT["title"])
     own, _ = ax.get_legend_handles_labels()
     if own or handles:
-        ax.legend(handles=own + handles, loc="lower left", fontsize=FONT["legend"], framealpha=0.9)
+        ax.legend(handles=own + handles, loc="best", fontsize=FONT["legend"], framealpha=0.9)
     return png_bytes(fig)
 
 

@@ -142,14 +142,18 @@ def _ledger_tables(ledger: dict) -> list[str]:
         parts = name.split("+")
         out.append(f"<h3>{esc(short_label(name))} ({esc(var['role'])}, change in {esc(var['units'])})</h3>")
         rows = var.get("layers") or [var.get("field")]
+        per_layer = len(parts) == len(rows) and len(parts) > 1  # one variable per layer: name each in the table
         body = []
         for r in rows:
             depth = r.get("node_depth_m")
-            full = parts[r["layer"]] if len(parts) == len(rows) and len(parts) > 1 else name
-            body.append([r["layer"], full, num(depth, ".3f"), r.get("cells_in_region", "-"), r["cells_changed"],
-                         num(r["area_weighted_mean"]), num(r["min"]), num(r["max"])])
-        out.append(table(["layer", "variable", "node depth (m)", "cells in region", "cells changed",
-                          "mean over region", "min", "max"], body, {0, 2, 3, 4, 5, 6, 7}))
+            body.append([r["layer"]] + ([parts[r["layer"]]] if per_layer else [])
+                        + [num(depth, ".3f"), r.get("cells_in_region", "-"), r["cells_changed"],
+                           num(r["area_weighted_mean"]), num(r["min"]), num(r["max"])])
+        k = 1 if per_layer else 0
+        out.append(table(["layer"] + (["variable"] if per_layer else []) + ["node depth (m)", "cells in region",
+                                                                           "cells changed", "mean over region",
+                                                                           "min", "max"],
+                         body, {0} | {i + k for i in range(1, 7)}))
     out.append(f'<p class="note">{esc(MEAN_REGION)}; min and max over the same cells.</p>')
     return out
 

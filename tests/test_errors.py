@@ -1128,3 +1128,19 @@ def test_real_process_corrupt_file_prints_no_library_diagnostics(work):
     lines = proc.stderr.splitlines()
     assert len(lines) == 1 and lines[0].startswith("initgen: error: ") and "cut.nc" in lines[0], lines
     assert listing(work) == before
+
+
+# =============================================================================================
+# Reports and CLI habits (issue 18)
+# =============================================================================================
+
+
+def test_compare_with_one_file_after_allow(work, capsys):
+    """``--allow`` may come before the files, but two files are still needed."""
+    refused(capsys, ["compare", "--allow", "tsoil", work / "in.nc"], "compare needs two files", folder=work)
+
+
+def test_compare_report_folder_is_a_file(work, capsys):
+    (work / "rep").write_text("not a folder")
+    refused(capsys, ["compare", work / "in.nc", work / "in.nc", "--report", work / "rep"], "rep",
+            "is not a folder", folder=work)
