@@ -925,13 +925,14 @@ class _ChangeCapture:
     smallest and largest change of a changed cell, and the change of the top layer on the grid.
     """
 
-    def __init__(self, inner, model, ledger: dict, area_full: np.ndarray, bins: int = 40):
+    def __init__(self, inner, model, ledger: dict, plan, bins: int = 240):
         self.inner = inner
         self.bytes_written = 0
         self.hist: dict = {}
-        self.maps: dict = {}
+        self.maps: dict = {}  # ledger name -> top layer's change on the plan's window
         self.grid = model.grid
-        self.area_full = area_full
+        self.window = plan.window
+        self.area = plan.area  # land area on the window, as the ledger weighs
         self._where: dict = {}  # variable -> (ledger name, layer axis or None, view index)
         for role in model.roles.values():
             label = role.variables[0] if len(role.variables) == 1 else "+".join(role.variables)
@@ -980,7 +981,9 @@ class _ChangeCapture:
         old = self.inner.read(name, key)
         d = np.where(changed, np.asarray(values, float) - old, np.nan)
         hpos = [dims.index(g) for g in self.grid.dims]
-        hsel = tuple(key[p] for p in hpos)
+        # file indices of the block -> positions in the plan's window (changes lie inside it)
+        hsel = np.ix_(*[np.searchsorted(self.window[a], np.arange(info.shape[p])[key[p]])
+                        for a, p in enumerate(hpos)])
         rest = [p for p in range(len(dims)) if p not in hpos and p != axis]
         order = ([axis] if axis is not None else []) + rest + hpos
         d = np.transpose(d, order)
@@ -990,7 +993,7 @@ class _ChangeCapture:
             layers = [view if view is not None else 0]
         else:
             layers = list(range(info.shape[axis])[key[axis]])
-        area = np.broadcast_to(self.area_full[hsel], d.shape[1:])
+        area = np.broadcast_to(self.area[hsel], d.shape[1:])
         for layer, arr in zip(layers, d):
             if layer >= len(h["edges"]) or h["edges"][layer] is None:
                 continue
@@ -1005,7 +1008,7 @@ class _ChangeCapture:
             h["lo"][layer] = min(h["lo"][layer], float(v.min()))
             h["hi"][layer] = max(h["hi"][layer], float(v.max()))
             if layer == 0:  # the top layer's change on the grid (first index of any other axis)
-                m = self.maps.setdefault(label, np.zeros(self.grid.shape))
+                m = self.maps.setdefault(label, np.zeros(self.area.shape))
                 top = arr[0]
                 sub = m[hsel]
                 m[hsel] = np.where(np.isfinite(top), top, sub)
@@ -1042,8 +1045,27 @@ def _histogram_panels(capture: "_ChangeCapture", ledger: dict, roles: tuple, gri
                 sentences.append(f"{title}: every one of the {h['cells'][i]} changed cells changed by {lo:.4g} "
                                  f"{h['units']} ({h['area_sum'][i] / div:,.4g} {unit.split(',')[0]}).")
                 continue
+            e, a = _coarsen(e, a)
             panels.append((title, e, a / div, h["units"]))
     return panels, sentences
+
+
+def _coarsen(edges: np.ndarray, area: np.ndarray, most: int = 40) -> tuple[np.ndarray, np.ndarray]:
+    """The fine bins cut to the range that holds changes, merged into at most ``most`` bins.
+
+    The capture bins the ledger's min..max over the region's cells, which includes the cells
+    that did not change; the changed cells may fill only part of it.
+    """
+    nz = np.flatnonzero(area > 0)
+    if nz.size == 0:
+        return edges, area
+    e, a = edges[nz[0]:nz[-1] + 2], area[nz[0]:nz[-1] + 1]
+    k = -(-a.size // most)  # bins merged into one
+    pad = (-a.size) % k
+    a = np.concatenate([a, np.zeros(pad)]).reshape(-1, k).sum(axis=1)
+    step = e[1] - e[0]
+    e = e[0] + step * k * np.arange(a.size + 1)
+    return e, a
 
 
 def _profile_panels(ledger: dict, model, imposed) -> list:
@@ -1168,7 +1190,7 @@ def preview_report(recipe, input, layout, out_dir, ledger=None, allow_outside_pa
             plan = configure(plan, mem)
         grid = model.grid
         w = plan.full(np.max([b.weight for b in plan.blocks], axis=0))
-        capture = _ChangeCapture(store, model, ledger, plan.full(plan.area))
+        capture = _ChangeCapture(store, model, ledger, plan)
         plan_mod.run(plan, capture, write=True)
         land, land_what = _land_for_map(model, store)
     finally:
@@ -1194,14 +1216,16 @@ def preview_report(recipe, input, layout, out_dir, ledger=None, allow_outside_pa
                                          vmin=0.0, vmax=1.0, **mk)
     captions["weights.png"] = ("Horizontal weight w(x) (taper x elevation band x land weight) with the region "
                                "outline (black) and the outer edge of the taper (orange, dashed)." + coast)
-    figures["surface_anomaly.png"] = _map_figure(
-        grid, np.where(w > 0, surf, 0.0), w, geoms, f"Imposed surface anomaly: {who}", "K", cmap="RdBu_r", **mk)
-    captions["surface_anomaly.png"] = ("Imposed surface anomaly: anomaly x weight x surface factor, summed over the "
-                                       "blocks (from the plan), on a scale centred on zero." + coast)
+    if len(donors) < len(plan.blocks):  # a donor blend imposes no anomaly field
+        figures["surface_anomaly.png"] = _map_figure(
+            grid, np.where(w > 0, surf, 0.0), w, geoms, f"Imposed surface anomaly: {who}", "K", cmap="RdBu_r", **mk)
+        captions["surface_anomaly.png"] = ("Imposed surface anomaly: anomaly x weight x surface factor, summed over "
+                                           "the blocks (from the plan), on a scale centred on zero." + coast)
     for name, var in ledger.get("variables", {}).items():
         field = capture.maps.get(name)
         if field is None:
             continue
+        field = plan.full(field)
         fname = f"change_{short_label(name).replace('..', '-').replace('+', '_').replace(' ', '')}.png"
         top = " top layer" if var.get("layers") else ""
         figures[fname] = _map_figure(grid, np.where(w > 0, field, 0.0), w, geoms,
@@ -1211,14 +1235,16 @@ def preview_report(recipe, input, layout, out_dir, ledger=None, allow_outside_pa
                            "limits), on a scale centred on zero." + coast)
     from .figures import histogram_figure, profile_figure
 
-    prof = profile_figure(_profile_panels(ledger, model, _imposed_profile(plan)),
-                          f"Mean change over the region against depth: {who}")
+    imposed = _imposed_profile(plan)
+    prof = profile_figure(_profile_panels(ledger, model, imposed), f"Mean change over the region against depth: {who}")
     if prof is not None:
         figures["profile.png"] = prof
-        captions["profile.png"] = ("Mean change over the region per layer (ledger), drawn over each layer's extent "
-                                   "down to the deepest layer's bottom, beside the imposed target f(z) x A (the "
-                                   "plan's layer factors times the region's area-weighted mean of w(x) A(x)). "
-                                   "Where the two differ, physics (phase change) or limits took their share.")
+        captions["profile.png"] = (
+            "Mean change over the region per layer (ledger), drawn over each layer's extent down to the deepest "
+            "layer's bottom, " + ("beside the imposed target f(z) x A (the plan's layer factors times the region's "
+                                  "area-weighted mean of w(x) A(x)). Where the two differ, physics (phase change) or "
+                                  "limits took their share." if imposed is not None else
+                                  "with no imposed target: the blocks blend toward a donor file."))
     sentences = []
     div_unit = _area_units(grid)[1]
     for fname, roles, what in (("histogram_soil.png", ("soil_temperature",), "soil temperature"),

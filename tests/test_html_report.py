@@ -215,7 +215,7 @@ def test_histograms_weigh_by_the_ledgers_area_and_profile_target_is_the_plans(tm
         try:
             model = api._model(store, None, rec)
             plan = plan_mod.build_plan(rec, model)
-            cap = report._ChangeCapture(store, model, led, plan.full(plan.area))
+            cap = report._ChangeCapture(store, model, led, plan)
             plan_mod.run(plan, cap, write=True)
         finally:
             store.close()
