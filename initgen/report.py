@@ -543,7 +543,8 @@ def _compare_fields(result: dict, layout) -> tuple:
     """(grid, land, land_what, fields): per changed variable the change b - a of its first changed layer.
 
     ``fields``: name -> (change on the grid, NaN where a value became missing; changed cells;
-    label). Read from the two files one horizontal field at a time; (None, ...) without a grid.
+    label; units; the layer's cells changed as the compare result counts them). Read from the two
+    files one horizontal field at a time; (None, ...) without a grid.
     """
     from .grid import open_model
     from .recipe import load_layout
@@ -571,7 +572,8 @@ def _compare_fields(result: dict, layout) -> tuple:
             dims = list(info.dims)
             if not all(d in dims for d in grid.dims) or info.shape != tuple(sb.variables[name].shape):
                 continue
-            layer = next((r["layer"] for r in v.get("layers") or [] if r["cells_changed"]), 0)
+            row = next((r for r in v.get("layers") or [] if r["cells_changed"]), v)
+            layer = row.get("layer", 0)
             key = tuple(slice(None) if d in grid.dims else
                         slice(layer, layer + 1) if d == v.get("layer_dim") else slice(0, 1) for d in dims)
             ra, rb = np.asarray(sa.read_raw(name, key)), np.asarray(sb.read_raw(name, key))
@@ -581,7 +583,7 @@ def _compare_fields(result: dict, layout) -> tuple:
             same = (ra == rb) | (np.isnan(fa) & np.isnan(fb)) if ra.dtype.kind in "fc" else (ra == rb)
             changed = ~same
             label = name + (f" {v['layer_dim']}[{layer}]" if v.get("layer_dim") else "")
-            fields[name] = (np.where(changed, fb - fa, 0.0), changed, label, v.get("units") or "")
+            fields[name] = (np.where(changed, fb - fa, 0.0), changed, label, v.get("units") or "", row["cells_changed"])
     finally:
         sa.close()
         sb.close()
@@ -621,7 +623,7 @@ def compare_report(result: dict, folder, layout=None) -> Path:
         raise InputError(f"--report {folder}: exists and is not a folder; give a folder for the report")
     grid, land, land_what, fields = _compare_fields(result, layout)
     figs = []
-    for name, (d, changed, label, units) in fields.items():
+    for name, (d, changed, label, units, n_changed) in fields.items():
         coast = f" Grey: sea (no land); thin line: coastline ({land_what} 0.5, from file a)." if land is not None \
             else ""
         png = _map_figure(grid, np.where(changed, d, 0.0), changed.astype(float), [],
@@ -634,7 +636,7 @@ def compare_report(result: dict, folder, layout=None) -> Path:
             v, a = d[ok], np.broadcast_to(grid.area, d.shape)[ok] / div
             lo, hi = float(v.min()), float(v.max())
             if hi - lo <= 1e-9 * max(1.0, abs(hi)):
-                figs.append((None, f"{label}: every one of the {v.size} changed cells changed by {lo:.4g} {units}."))
+                figs.append((None, f"{label}: every one of the {n_changed} changed cells changed by {lo:.4g} {units}."))
                 continue
             e = np.linspace(lo, hi, 41)
             png = histogram_figure([(label, e, np.histogram(v, bins=e, weights=a)[0], units)],
@@ -1042,7 +1044,8 @@ def _histogram_panels(capture: "_ChangeCapture", ledger: dict, roles: tuple, gri
                 (f" ({depth:.3g} m)" if depth is not None else "")
             lo, hi = h["lo"][i], h["hi"][i]
             if hi - lo <= 1e-9 * max(1.0, abs(hi)):
-                sentences.append(f"{title}: every one of the {h['cells'][i]} changed cells changed by {lo:.4g} "
+                sentences.append(f"{title}: every one of the {rows[i]['cells_changed']} changed cells (ledger) "
+                                 f"changed by {lo:.4g} "
                                  f"{h['units']} ({h['area_sum'][i] / div:,.4g} {unit.split(',')[0]}).")
                 continue
             e, a = _coarsen(e, a)

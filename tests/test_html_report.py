@@ -188,7 +188,7 @@ def test_histogram_area_is_the_spherical_zone_and_single_value_is_a_sentence(tmp
     sentences = [s for s in plain.split("tsoil layer ")[1:] if "every one of the" in s]
     assert len(sentences) == 5
     for s in sentences:
-        assert "every one of the 24 changed cells changed by -2 K" in s
+        assert "every one of the 24 changed cells (ledger) changed by -2 K" in s
         area = float(s.split("K (")[1].split(" km2")[0].replace(",", ""))
         assert area == pytest.approx(zone_km2, rel=1e-3)  # printed with 4 significant digits
     assert not (tmp_path / "rep" / "histogram_soil.png").exists()
@@ -323,6 +323,18 @@ def test_compare_page_names_both_hashes_and_embeds_map_and_histogram(tmp_path, k
     row = result["variables"]["tsoil"]["layers"][0]
     assert f"{row['area_weighted_mean_change']:.4g}" in page.plain
     assert (tmp_path / "c" / "compare.md").exists()
+
+
+def test_compare_page_gives_a_single_valued_change_as_a_sentence(tmp_path):
+    src = regular(tmp_path / "in.nc")
+    out = tmp_path / "out.nc"
+    api.apply(recipe(tmp_path), src, out)  # hard edge, uniform -2 K, no physics: one value of change
+    result = report.compare(src, out, allow=["tsoil"])
+    path = report.compare_report(result, tmp_path / "c")
+    page = Page(path.read_text())
+    assert len(page.images()) == 1  # the map; the histogram is a sentence
+    n = result["variables"]["tsoil"]["layers"][0]["cells_changed"]
+    assert n == 24 and f"tsoil lev[0]: every one of the {n} changed cells changed by -2 K." in page.plain
 
 
 def test_one_definition_per_statistic_where_every_region_cell_changed(tmp_path):
