@@ -1262,7 +1262,8 @@ def preview_report(recipe, input, layout, out_dir, ledger=None, allow_outside_pa
             captions[fname] = (f"Histogram per layer of the change of {what} over the cells apply would change "
                                f"(after physics and limits), weighted by land area ({div_unit}).")
 
-    md = _preview_markdown(rec, lay, input, grid, ledger, figures, captions, donors, member, sentences)
+    input_sha = sha256_file(input)
+    md = _preview_markdown(rec, lay, input, grid, ledger, figures, captions, donors, member, sentences, input_sha)
     blocks = []
     for b, blk in zip(ledger.get("blocks", []), rec.data["perturbations"]):
         an = b.get("anomaly_K") or {}
@@ -1272,7 +1273,7 @@ def preview_report(recipe, input, layout, out_dir, ledger=None, allow_outside_pa
                        f"{_fmt(an.get('min'))}..{_fmt(an.get('max'))}" if an else "donor",
                        _fmt(b.get("surface_factor")),
                        ", ".join(f"{f:.3g}" for f in factors) if factors else "-"])
-    page = preview_page(rec=rec, lay=lay, input=input, input_sha256=sha256_file(input), grid=grid, ledger=ledger,
+    page = preview_page(rec=rec, lay=lay, input=input, input_sha256=input_sha, grid=grid, ledger=ledger,
                         member=None if mem is None else mem.record(), blocks=blocks,
                         figures=[(png, captions.get(f, f)) for f, png in figures.items()], sentences=sentences,
                         caution=CAUTION + " This preview shows what initgen apply would write with the same recipe, "
@@ -1287,7 +1288,10 @@ def preview_report(recipe, input, layout, out_dir, ledger=None, allow_outside_pa
     return path
 
 
-def _preview_markdown(rec, lay, input, grid, ledger, figures, captions, donors, member=None, sentences=()) -> str:
+def _preview_markdown(rec, lay, input, grid, ledger, figures, captions, donors, member=None, sentences=(),
+                      input_sha256=None) -> str:
+    from .html_report import CLAMP_TEXT, FLAG_TEXT
+
     from . import __version__
 
     L = [f"# initgen preview: {rec.name}" + (f", member {member}" if member else ""), ""]
@@ -1296,7 +1300,9 @@ def _preview_markdown(rec, lay, input, grid, ledger, figures, captions, donors, 
     L += ["## What", "",
           f"- recipe: `{rec.name}`, canonical sha256 `{rec.sha256}`" + (f" ({rec.path})" if rec.path else ""),
           "- layout: " + (f"`{lay.name}`, sha256 `{lay.sha256}`" if lay is not None else "none (roles from CF attributes)"),
-          f"- input: {Path(input).resolve()} ({Path(input).stat().st_size:,} bytes)",
+          f"- input: {Path(input).resolve()} ({Path(input).stat().st_size:,} bytes)"
+          + (f", sha256 `{input_sha256}`" if input_sha256 else ""),
+          f"- member: {member}" if member else "- member: none (the recipe as written)",
           f"- grid: {grid.kind} {' x '.join(map(str, grid.shape))} on dims ({', '.join(grid.dims)}), "
           f"{grid.extent()}; cell area {grid.area_source}",
           f"- initgen {__version__}; this is a dry run: no netCDF file was written", ""]
@@ -1315,9 +1321,16 @@ def _preview_markdown(rec, lay, input, grid, ledger, figures, captions, donors, 
     L += _ledger_markdown(ledger)
     L += ["## Clamps", ""]
     if ledger.get("clamps"):
-        L += _md_table(["rule", "cells"], [[k, v] for k, v in ledger["clamps"].items()])
+        L += _md_table(["rule", "cells", "what it means"],
+                       [[k, v, CLAMP_TEXT.get(k, "-")] for k, v in ledger["clamps"].items()])
     else:
         L.append("No value was clamped.")
+    L += ["", "## Flags", ""]
+    if ledger.get("flags"):
+        L += _md_table(["rule", "cells", "what it means"],
+                       [[k, v, FLAG_TEXT.get(k, "-")] for k, v in ledger["flags"].items()])
+    else:
+        L.append("No cell was flagged.")
     L += ["", "## Physics: energy and phase change", ""]
     phys = ledger.get("physics", {})
     L.append(f"Mode: `{phys.get('mode')}`.")
@@ -1341,6 +1354,14 @@ def _preview_markdown(rec, lay, input, grid, ledger, figures, captions, donors, 
     if ledger.get("cells_not_in_phase_equilibrium_before"):
         L += ["", f"Note: {ledger['cells_not_in_phase_equilibrium_before']} region layer-cells were not in phase "
                   "equilibrium before the change."]
+    L += ["", "## Persistence estimate", ""]
+    est = ledger.get("persistence")
+    if est is None:
+        L.append("PERSISTENCE ESTIMATE: not in this ledger (no `persistence` key).")
+    elif isinstance(est, dict):
+        L += _md_table(["quantity", "value"], [[k, v] for k, v in est.items()])
+    else:
+        L.append(str(est))
     L += ["", "## Figures", ""]
     for fname in figures:
         L += [f"![{captions.get(fname, fname)}]({fname})", "", captions.get(fname, ""), ""]

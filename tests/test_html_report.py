@@ -260,7 +260,7 @@ def test_persistence_is_shown_when_the_ledger_has_it(tmp_path):
 
 
 def test_clamps_and_flags_are_explained_in_a_sentence():
-    from initgen.html_report import CLAMP_TEXT, FLAG_TEXT, preview_page  # noqa: F401
+    from initgen.html_report import CLAMP_TEXT, FLAG_TEXT
 
     src = Path(__file__).resolve().parents[1] / "initgen"
     code = "\n".join(p.read_text() for p in src.glob("*.py"))
