@@ -165,18 +165,53 @@ def outline(ax, geoms: list, centre: float) -> None:
                 first = False
 
 
-def zoom(ax, grid, w: np.ndarray, centre: float) -> None:
-    """Limit the axes to the region's cells with a margin (within the grid's extent)."""
+def frame_bounds(grid, w: np.ndarray, centre: float) -> tuple[float, float, float, float]:
+    """(x0, x1, y0, y1) of the map frame: the region's cells with a margin, within the grid's extent."""
+    gx = to_frame(grid.lon, centre)
+    gy = grid.lat
     inside = w > 0
     if not np.any(inside):
-        return
+        return float(gx.min()), float(gx.max()), float(gy.min()), float(gy.max())
     x = to_frame(grid.lon[inside], centre)
     y = grid.lat[inside]
-    gx = to_frame(grid.lon, centre)
     mx = max(2.0, 0.25 * float(x.max() - x.min()))
     my = max(2.0, 0.25 * float(y.max() - y.min()))
-    ax.set_xlim(max(float(gx.min()), float(x.min()) - mx), min(float(gx.max()), float(x.max()) + mx))
-    ax.set_ylim(max(float(grid.lat.min()), float(y.min()) - my), min(float(grid.lat.max()), float(y.max()) + my))
+    return (max(float(gx.min()), float(x.min()) - mx), min(float(gx.max()), float(x.max()) + mx),
+            max(float(gy.min()), float(y.min()) - my), min(float(gy.max()), float(y.max()) + my))
+
+
+class _View:
+    """The part of a grid a map frame shows (what :func:`draw_field` and :func:`contour_half` need)."""
+
+    def __init__(self, kind, lon, lat, lon1d=None, lat1d=None):
+        self.kind, self.lon, self.lat, self.lon1d, self.lat1d = kind, lon, lat, lon1d, lat1d
+        self.size = int(np.size(lon))
+
+
+def crop(grid, centre: float, bounds: tuple, arrays: list) -> tuple:
+    """The grid and the arrays (grid-shaped, or None) cut to the frame plus one cell, so that a large
+    grid is drawn only where the map looks (the cut is for drawing only; every value is the file's)."""
+    x0, x1, y0, y1 = bounds
+    if grid.kind == "regular":
+        x = to_frame(grid.lon1d, centre)
+        dx = float(np.max(np.abs(np.diff(np.sort(x))))) if x.size > 1 else 1.0
+        dy = float(np.max(np.abs(np.diff(np.sort(grid.lat1d))))) if grid.lat1d.size > 1 else 1.0
+        ix = np.flatnonzero((x >= x0 - dx) & (x <= x1 + dx))
+        iy = np.flatnonzero((grid.lat1d >= y0 - dy) & (grid.lat1d <= y1 + dy))
+        lon, lat = np.meshgrid(grid.lon1d[ix], grid.lat1d[iy])
+        view = _View("regular", lon, lat, grid.lon1d[ix], grid.lat1d[iy])
+        return view, [None if a is None else np.asarray(a)[np.ix_(iy, ix)] for a in arrays]
+    x = to_frame(grid.lon, centre)
+    near = (x >= x0 - 1.0) & (x <= x1 + 1.0) & (grid.lat >= y0 - 1.0) & (grid.lat <= y1 + 1.0)
+    if grid.kind == "curvilinear":
+        if not np.any(near):
+            return grid, arrays
+        rows, cols = np.flatnonzero(near.any(axis=1)), np.flatnonzero(near.any(axis=0))
+        sel = (slice(max(rows[0] - 1, 0), rows[-1] + 2), slice(max(cols[0] - 1, 0), cols[-1] + 2))
+    else:
+        sel = near
+    view = _View(grid.kind, grid.lon[sel], grid.lat[sel])
+    return view, [None if a is None else np.asarray(a)[sel] for a in arrays]
 
 
 def map_figure(grid, field, w, geoms, title: str, label: str, *, land=None, land_what: str = "land fraction",
@@ -186,6 +221,7 @@ def map_figure(grid, field, w, geoms, title: str, label: str, *, land=None, land
     Parameters
     ----------
     grid : initgen.grid.Grid
+        The model grid; the map is drawn from the part its frame shows (:func:`crop`).
     field : numpy.ndarray
         Values in the grid's horizontal shape (NaN: nothing to show).
     w : numpy.ndarray
@@ -206,9 +242,10 @@ def map_figure(grid, field, w, geoms, title: str, label: str, *, land=None, land
 
     fig, axes = figure()
     ax = axes[0, 0]
-    fig.subplots_adjust(left=0.08, right=0.99, bottom=0.1, top=0.91)
+    fig.subplots_adjust(left=0.08, right=0.99, bottom=0.17, top=0.93)
     centre = frame_centre(grid, w)
-    field = np.asarray(field, float)
+    bounds = frame_bounds(grid, w, centre)
+    grid, (field, land, taper_edge) = crop(grid, centre, bounds, [np.asarray(field, float), land, taper_edge])
     handles = []
     sea = None
     if land is not None:
@@ -233,7 +270,8 @@ def map_figure(grid, field, w, geoms, title: str, label: str, *, land=None, land
     if taper_edge is not None and contour_half(ax, grid, taper_edge, centre, colors="darkorange", linewidths=1.8,
                                                linestyles="--"):
         handles.append(Line2D([], [], color="darkorange", lw=1.8, ls="--", label="taper outer edge"))
-    zoom(ax, grid, w, centre)
+    ax.set_xlim(bounds[0], bounds[1])
+    ax.set_ylim(bounds[2], bounds[3])
     if sea is not None and np.any(sea):  # name the grey only where the frame shows some
         (x0, x1), (y0, y1) = ax.get_xlim(), ax.get_ylim()
         sx, sy = to_frame(grid.lon[sea], centre), grid.lat[sea]
@@ -245,7 +283,9 @@ def map_figure(grid, field, w, geoms, title: str, label: str, *, land=None, land
     ax.set_title(title, fontsize=FONT["title"])
     own, _ = ax.get_legend_handles_labels()
     if own or handles:
-        ax.legend(handles=own + handles, loc="best", fontsize=FONT["legend"], framealpha=0.9)
+        items = own + handles  # below the map, so that it never hides a cell
+        ax.legend(handles=items, loc="upper center", bbox_to_anchor=(0.5, -0.11), ncol=min(len(items), 4),
+                  fontsize=FONT["legend"], frameon=False)
     return png_bytes(fig)
 
 
