@@ -240,6 +240,13 @@ def map_figure(grid, field, w, geoms, title: str, label: str, *, land=None, land
     from matplotlib.colors import ListedColormap
     from matplotlib.lines import Line2D
 
+    from matplotlib.ticker import FuncFormatter
+
+    east = float(np.nanmin(grid.lon)) >= 0.0  # longitudes 0..360 in the file, else -180..180
+
+    def wrap(x):
+        return round(x % 360.0, 6) if east else round((x + 180.0) % 360.0 - 180.0, 6)
+
     fig, axes = figure()
     ax = axes[0, 0]
     fig.subplots_adjust(left=0.08, right=0.99, bottom=0.17, top=0.93)
@@ -272,6 +279,7 @@ def map_figure(grid, field, w, geoms, title: str, label: str, *, land=None, land
         handles.append(Line2D([], [], color="darkorange", lw=1.8, ls="--", label="taper outer edge"))
     ax.set_xlim(bounds[0], bounds[1])
     ax.set_ylim(bounds[2], bounds[3])
+    ax.xaxis.set_major_formatter(FuncFormatter(lambda x, _pos: f"{wrap(x):g}"))  # the file's own convention
     if sea is not None and np.any(sea):  # name the grey only where the frame shows some
         (x0, x1), (y0, y1) = ax.get_xlim(), ax.get_ylim()
         sx, sy = to_frame(grid.lon[sea], centre), grid.lat[sea]

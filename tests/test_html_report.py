@@ -406,3 +406,23 @@ def test_figure_and_html_modules_do_not_import_matplotlib():
     code = "import sys, initgen.figures, initgen.html_report, initgen.report; print('matplotlib' in sys.modules)"
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True).stdout
     assert out.strip() == "False"
+
+
+def test_maps_across_the_dateline_are_drawn_in_one_piece(tmp_path):
+    """A region across 180 degrees on a -180..180 grid: one frame, tick labels in the file's convention."""
+    src = regular(tmp_path / "in.nc", lon0=-180.0, nlon=72, nlat=36)
+    report.preview_report(recipe(tmp_path, w=160, e=220, s=20, n=60, taper=400), src, None, tmp_path / "rep")
+    page = Page((tmp_path / "rep" / "report.html").read_text())
+    assert all(png_size(d) == FIG_PIXELS for d in page.images())
+    from initgen.figures import frame_centre, to_frame
+    from initgen.grid import open_model
+    from initgen.restart import NetCDFStore
+
+    store = NetCDFStore(src)
+    try:
+        grid = open_model(store, None).grid
+    finally:
+        store.close()
+    w = ((grid.lon >= 160) | (grid.lon <= -140)) & (grid.lat > 20) & (grid.lat < 60)
+    x = to_frame(grid.lon[w], frame_centre(grid, w.astype(float)))
+    assert x.max() - x.min() <= 60.0 + 1e-9  # contiguous in the frame (160..220), not split at the seam (300)
