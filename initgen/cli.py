@@ -77,7 +77,8 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--png", help="also draw a map of the weights to this PNG file")
     p.add_argument("--force", action="store_true", help="replace existing outputs")
 
-    p = sub.add_parser("compare", help="structural and value diff of two netCDF files")
+    p = sub.add_parser("compare", help="structural and value diff of two netCDF files",
+                       usage="initgen compare A B [--allow VAR ...] [--layout LAYOUT] [--json FILE] [--report DIR]")
     p.add_argument("a", nargs="?", help="first file (e.g. the original)")
     p.add_argument("b", nargs="?", help="second file (e.g. the perturbed copy)")
     p.add_argument("--allow", nargs="*", default=[], action="extend", metavar="VAR",

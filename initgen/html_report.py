@@ -196,7 +196,7 @@ def preview_page(*, rec, lay, input, input_sha256: str, grid, ledger: dict, memb
             ["recipe sha256 (canonical)", rec.sha256],
             ["input", str(Path(input).resolve())],
             ["input sha256", input_sha256],
-            ["member", "-" if not member else
+            ["member", "none (the recipe as written)" if not member else
              f"{member['name']}: scale {member['scale']:g}, sign {member['sign']:+d}, offset {member['offset_K']:g} K"
              + (f", noise sigma {member['noise']['sigma_K']:g} K over {member['noise']['length_km']:g} km, "
                 f"seed {member['seed']}" if member.get("noise") else "")],
