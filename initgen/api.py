@@ -268,16 +268,16 @@ def ledger_text(ledger: dict) -> str:
                  f"({reg['cells_full_weight']} at full weight), {reg.get('area_is', 'area')} "
                  f"{reg['area_m2'] / 1e6:,.0f} km2; means and totals below are over this area")
     for name, var in ledger["variables"].items():
-        lines.append(f"{name} ({var['role']}, change in {var['units']}; area_mean over the region's valid cells):")
+        lines.append(f"{name} ({var['role']}, change in {var['units']}; mean_region: mean over region, area-weighted over the region's valid cells, unchanged ones as 0):")
         rows = var.get("layers") or [var.get("field")]
-        lines.append(f"  {'layer':>5} {'depth_m':>8} {'changed':>8} {'area_mean':>10} {'min':>9} {'max':>9}")
+        lines.append(f"  {'layer':>5} {'depth_m':>8} {'changed':>8} {'mean_region':>11} {'min':>9} {'max':>9}")
         for r in rows:
             depth = r.get("node_depth_m")
             dtext = f"{depth:8.3f}" if depth is not None else f"{'-':>8}"
             fmt = (lambda v: f"{v:9.4g}" if v is not None else f"{'-':>9}")
             am = r["area_weighted_mean"]
             lines.append(f"  {r['layer']:>5} {dtext} {r['cells_changed']:>8} "
-                         f"{(f'{am:10.4g}' if am is not None else '-'.rjust(10))} {fmt(r['min'])} {fmt(r['max'])}")
+                         f"{(f'{am:11.4g}' if am is not None else '-'.rjust(11))} {fmt(r['min'])} {fmt(r['max'])}")
     if ledger.get("clamps"):
         lines.append("clamps: " + ", ".join(f"{k} {v}" for k, v in ledger["clamps"].items()))
     else:

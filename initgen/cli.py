@@ -66,7 +66,8 @@ def build_parser() -> argparse.ArgumentParser:
     p = sub.add_parser("preview", help="dry run: show what apply would change; writes no netCDF file")
     _common(p)
     p.add_argument("--json", help="write the ledger as JSON to this file")
-    p.add_argument("--report", help="write a Markdown report with figures into this folder")
+    p.add_argument("--report", help="write report.html (one self-contained page with the figures) and a Markdown "
+                   "report with PNG figures into this folder")
     p.add_argument("--member", metavar="NAME",
                    help="preview only this member (for a recipe with members: default all, one row each)")
 
@@ -76,13 +77,15 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--png", help="also draw a map of the weights to this PNG file")
     p.add_argument("--force", action="store_true", help="replace existing outputs")
 
-    p = sub.add_parser("compare", help="structural and value diff of two netCDF files")
-    p.add_argument("a", help="first file (e.g. the original)")
-    p.add_argument("b", help="second file (e.g. the perturbed copy)")
-    p.add_argument("--allow", nargs="*", default=[], metavar="VAR", help="variables allowed to differ")
+    p = sub.add_parser("compare", help="structural and value diff of two netCDF files",
+                       usage="initgen compare A B [--allow VAR ...] [--layout LAYOUT] [--json FILE] [--report DIR]")
+    p.add_argument("a", nargs="?", help="first file (e.g. the original)")
+    p.add_argument("b", nargs="?", help="second file (e.g. the perturbed copy)")
+    p.add_argument("--allow", nargs="*", default=[], action="extend", metavar="VAR",
+                   help="variables allowed to differ (before or after the two files)")
     p.add_argument("--layout", "-l", help="layout YAML (for cell areas and the layer axis)")
     p.add_argument("--json", help="write the differences as JSON to this file")
-    p.add_argument("--report", help="write a Markdown report into this folder")
+    p.add_argument("--report", help="write report.html (one self-contained page) and compare.md into this folder")
 
     p = sub.add_parser("verify", help="re-run a provenance record and check the output matches it (all but the history line)")
     p.add_argument("provenance", help="the .provenance.json written by apply")
@@ -102,7 +105,27 @@ def build_parser() -> argparse.ArgumentParser:
 
     p = sub.add_parser("demo", help="run the built-in demo (an invented highland) into a folder")
     p.add_argument("--out", required=True, help="folder to write the demo into (created if needed)")
+    for p in sub.choices.values():  # '--debug' is also accepted after the command
+        p.add_argument("--debug", action="store_true", default=argparse.SUPPRESS, help=argparse.SUPPRESS)
     return ap
+
+
+def _files_after_allow(parser, args) -> None:
+    """``compare --allow V1 V2 A B``: argparse read the files as variables; the last names, if files, are A and B."""
+    if args.command != "compare":
+        return
+    files = [f for f in (args.a, args.b) if f is not None]
+    need = 2 - len(files)
+    if not need:
+        return
+    tail = args.allow[len(args.allow) - need:] if len(args.allow) >= need else []
+    missing = [t for t in tail if not os.path.isfile(t)]
+    if not tail or missing:
+        why = f" ('{missing[-1]}' after --allow is not a file)" if missing else ""
+        parser.exit(2, f"initgen: error: compare needs two files, A and B{why} (see 'initgen compare --help')\n")
+    files += tail
+    del args.allow[len(args.allow) - need:]
+    args.a, args.b = files
 
 
 def _warn_line(message, category, filename, lineno, file=None, line=None):
@@ -160,6 +183,7 @@ def main(argv=None) -> int:
     warnings.formatwarning = _warn_line
     parser = build_parser()
     args = parser.parse_args(argv)
+    _files_after_allow(parser, args)
     if args.command is None:
         parser.print_help()
         return 2
@@ -298,7 +322,7 @@ def _dispatch(args) -> int:
 
             path = report.preview_report(args.recipe, args.input, args.layout, Path(args.report), ledger=led,
                                          allow_outside_paths=args.allow_outside_paths, member=args.member)
-            print(f"wrote {path}")
+            print(f"wrote {path.parent / 'report.html'} and {path}")
         return 0
     if args.command == "mask":
         from . import report
@@ -317,12 +341,8 @@ def _dispatch(args) -> int:
         if args.json:
             write_atomic_text(Path(args.json), json.dumps(result, indent=2) + "\n")
         if args.report:
-            folder = Path(args.report)
-            if folder.exists() and not folder.is_dir():
-                raise InputError(f"--report {folder}: exists and is not a folder; give a folder for the report")
-            folder.mkdir(parents=True, exist_ok=True)
-            write_atomic_text(folder / "compare.md", report.compare_markdown(result))
-            print(f"wrote {folder / 'compare.md'}")
+            path = report.compare_report(result, Path(args.report), layout=args.layout)
+            print(f"wrote {path} and {path.parent / 'compare.md'}")
         return 0 if result["ok"] else 3
     if args.command == "verify":
         from . import report

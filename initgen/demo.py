@@ -220,7 +220,7 @@ def run_demo(out: Path) -> str:
         from . import report
 
         rep = report.preview_report(recipe, src, None, out / "preview", ledger=led)
-        text += f"\npreview report: {rep}"
+        text += f"\npreview report: {rep.parent / 'report.html'} (one page to open offline; Markdown: {rep.name})"
     except ImportError:
         pass
     write_atomic_text(out / "summary.txt", text + "\n")

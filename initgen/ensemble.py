@@ -647,13 +647,17 @@ def _fmt(v, spec):
 
 
 def members_table(rows) -> str:
-    """One line per member: name, scale x sign, offset, mean top-layer change, frozen kg, latent J."""
-    lines = [f"{'member':<20} {'scale':>7} {'offset_K':>8} {'top_dT_K':>9} {'frozen_kg':>10} {'latent_J':>10}"]
+    """One line per member: name, scale, sign, offset, top-layer mean change over region, frozen, melted, clamps."""
+    lines = [f"{'member':<20} {'scale':>6} {'sign':>4} {'offset_K':>8} {'top_dT_K':>9} {'frozen_kg':>10} "
+             f"{'melted_kg':>10} {'latent_J':>10} {'clamped':>7}"]
     for m, led in rows:
         s = ledger_summary(led)
-        lines.append(f"{m.name:<20} {m.factor:>7.3g} {m.offset_K:>8.3g} "
+        lines.append(f"{m.name:<20} {m.scale:>6.3g} {m.sign:>+4d} {m.offset_K:>8.3g} "
                      f"{_fmt(s['top_soil_temperature_change_area_mean_K'], '9.4g')} "
-                     f"{_fmt(s['frozen_kg'], '10.4g')} {_fmt(s['latent_J'], '10.4g')}")
+                     f"{_fmt(s['frozen_kg'], '10.4g')} {_fmt(s['melted_kg'], '10.4g')} {_fmt(s['latent_J'], '10.4g')} "
+                     f"{s['clamped_cells']:>7d}")
+    lines.append("(top_dT_K: mean over region of the top soil layer's change, area-weighted as in the ledger; "
+                 "frozen, melted and latent: region totals; clamped: cells a limit changed)")
     return "\n".join(lines)
 
 

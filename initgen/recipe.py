@@ -64,7 +64,9 @@ REGION = Obj(
         "taper_km": Num(minimum=0.0, maximum=5000.0, unit="km", default=0.0,
                         doc="width of the raised-cosine taper in great-circle distance; 0 is a hard edge"),
         "taper_placement": Str(choices=("outside", "inside", "centred"), default="outside",
-                               doc="where the taper lies relative to the region boundary"),
+                               aliases={"centered": "centred"},
+                               doc="where the taper lies relative to the region boundary ('centered' is read as "
+                                   "'centred')"),
         "elevation": Obj(default=None, doc="keep only cells above an elevation, with a smooth ramp",
                          fields={
                              "min_m": Num(minimum=-500.0, maximum=9000.0, unit="m",

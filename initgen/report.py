@@ -18,7 +18,6 @@ interactive session is left as it is.
 
 from __future__ import annotations
 
-import io
 import json
 import math
 import tempfile
@@ -35,10 +34,7 @@ from .restart import (NetCDFStore, check_output_path, create_netcdf, sha256_file
 #: Largest number of elements of one variable read at once by :func:`compare` (per file).
 BLOCK_ELEMENTS = 2_000_000
 
-#: Size of every PNG figure in inches and its resolution: every figure is 800 x 500 pixels.
-FIG_SIZE_IN = (8.0, 5.0)
-FIG_DPI = 100
-FIG_PIXELS = (int(FIG_SIZE_IN[0] * FIG_DPI), int(FIG_SIZE_IN[1] * FIG_DPI))  # (width, height)
+from .figures import FIG_DPI, FIG_PIXELS, FIG_SIZE_IN  # noqa: F401  (every figure's size, re-exported)
 
 #: The global attribute that every initgen run changes; always allowed to differ.
 HISTORY = "history"
@@ -485,7 +481,7 @@ def compare_text(result: dict) -> str:
         for d in result["differences"]:
             lines.append(f"  - {d}")
     if changed:
-        head = f"{'variable':<22} {'changed':>9} {'of':>9} {'max|change|':>11} {'area_mean':>10} {'units':<7} " \
+        head = f"{'variable':<22} {'changed':>9} {'of':>9} {'max|change|':>11} {'mean_changed':>12} {'units':<7} " \
                f"{'lon':<15} lat"
         lines.append(head)
         for name, v in changed.items():
@@ -500,18 +496,20 @@ def compare_text(result: dict) -> str:
             lon = f"{box['lon'][0]:.2f}..{box['lon'][1]:.2f}" if box else "-"
             lat = f"{box['lat'][0]:.2f}..{box['lat'][1]:.2f}" if box else "-"
             lines.append(f"{label:<22} {v['cells_changed']:>9} {v['cells']:>9} {_fmt(v['max_abs_change']):>11} "
-                         f"{_fmt(v['area_weighted_mean_change']):>10} {(v.get('units') or '-'):<7} {lon:<15} {lat}")
+                         f"{_fmt(v['area_weighted_mean_change']):>12} {(v.get('units') or '-'):<7} {lon:<15} {lat}")
             for row in v.get("layers") or []:
                 if row["cells_changed"]:
                     lines.append(f"  {v['layer_dim']}[{row['layer']}]".ljust(22) +
                                  f" {row['cells_changed']:>9} {row['cells']:>9} {_fmt(row['max_abs_change']):>11} "
-                                 f"{_fmt(row['area_weighted_mean_change']):>10}")
+                                 f"{_fmt(row['area_weighted_mean_change']):>12}")
             for s in v.get("structure") or []:
                 lines.append(f"  {s}")
         if any(v.get("allowed") for v in changed.values()):
-            lines.append("(* allowed to differ; area_mean: area-weighted mean change over the changed cells)")
+            lines.append("(* allowed to differ; mean_changed: mean over changed cells, the area-weighted mean change over the "
+                         "cells whose value changed)")
         else:
-            lines.append("(area_mean: area-weighted mean change over the changed cells)")
+            lines.append("(mean_changed: mean over changed cells, the area-weighted mean change over the cells whose value "
+                         "changed)")
     other = [s for s in result["structure"] if not s.startswith("variable '")]
     if other:
         lines.append("file-level: " + "; ".join(other))
@@ -539,6 +537,119 @@ def compare_markdown(result: dict) -> str:
     verdict = "OK" if result["ok"] else "DIFFERENT"
     return (f"# initgen compare: {verdict}\n\n```text\n{compare_text(result)}\n```\n\n"
             f"Allowed to differ: {', '.join(result['allow']) or 'nothing'} (and the global history attribute).\n")
+
+
+def _compare_fields(result: dict, layout) -> tuple:
+    """(grid, land, land_what, fields): per changed variable the change b - a of its first changed layer.
+
+    ``fields``: name -> (change on the grid, NaN where a value became missing; changed cells;
+    label; units; the layer's cells changed as the compare result counts them). Read from the two
+    files one horizontal field at a time; (None, ...) without a grid.
+    """
+    from .grid import open_model
+    from .recipe import load_layout
+
+    sa = NetCDFStore(result["a"])
+    try:
+        sb = NetCDFStore(result["b"])
+    except BaseException:
+        sa.close()
+        raise
+    fields: dict = {}
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            try:
+                model = open_model(sa, load_layout(layout) if _is_layout_path(layout) else layout)
+            except InputError:
+                return None, None, None, fields
+            grid = model.grid
+            land, land_what = _land_for_map(model, sa)
+        for name, v in result["variables"].items():
+            if v.get("status") != "differs" or not v.get("cells_changed") or v.get("weights") is None:
+                continue
+            info = sa.variables[name]
+            dims = list(info.dims)
+            if not all(d in dims for d in grid.dims) or info.shape != tuple(sb.variables[name].shape):
+                continue
+            row = next((r for r in v.get("layers") or [] if r["cells_changed"]), v)
+            layer = row.get("layer", 0)
+            key = tuple(slice(None) if d in grid.dims else
+                        slice(layer, layer + 1) if d == v.get("layer_dim") else slice(0, 1) for d in dims)
+            ra, rb = np.asarray(sa.read_raw(name, key)), np.asarray(sb.read_raw(name, key))
+            fa, fb = unpack(ra, info.attrs), unpack(rb, sb.variables[name].attrs)
+            order = [p for p in range(len(dims)) if dims[p] not in grid.dims] + [dims.index(d) for d in grid.dims]
+            ra, rb, fa, fb = (np.transpose(x, order).reshape(grid.shape) for x in (ra, rb, fa, fb))
+            same = (ra == rb) | (np.isnan(fa) & np.isnan(fb)) if ra.dtype.kind in "fc" else (ra == rb)
+            changed = ~same
+            label = name + (f" {v['layer_dim']}[{layer}]" if v.get("layer_dim") else "")
+            fields[name] = (np.where(changed, fb - fa, 0.0), changed, label, v.get("units") or "", row["cells_changed"])
+    finally:
+        sa.close()
+        sb.close()
+    return grid, land, land_what, fields
+
+
+def compare_report(result: dict, folder, layout=None) -> Path:
+    """Write ``folder/compare.md`` and ``folder/report.html`` for a :func:`compare` result.
+
+    Parameters
+    ----------
+    result : dict
+        What :func:`compare` returned (its numbers are the page's numbers).
+    folder : str or path-like
+        Folder for the report (created if needed).
+    layout : str, path-like or Document, optional
+        The layout used to find the grid (else CF attributes).
+
+    Returns
+    -------
+    pathlib.Path
+        The path of ``report.html``.
+
+    Notes
+    -----
+    The page names both files with their sha256, the verdict, per variable and layer the cells
+    changed, the largest change and the mean over changed cells, and, where the files have a
+    grid, per changed variable a map of the change b - a of its first changed layer on file
+    a's own coastline and a histogram of that change weighted by cell area.
+    """
+    from . import __version__
+    from .figures import histogram_figure
+    from .html_report import compare_page
+
+    folder = Path(folder)
+    if folder.exists() and not folder.is_dir():
+        raise InputError(f"--report {folder}: exists and is not a folder; give a folder for the report")
+    grid, land, land_what, fields = _compare_fields(result, layout)
+    figs = []
+    for name, (d, changed, label, units, n_changed) in fields.items():
+        coast = f" Grey: sea (no land); thin line: coastline ({land_what} 0.5, from file a)." if land is not None \
+            else ""
+        png = _map_figure(grid, np.where(changed, d, 0.0), changed.astype(float), [],
+                          f"Change b - a of {label}", f"change ({units})", cmap="RdBu_r", land=land,
+                          land_what=land_what or "")
+        figs.append((png, f"Change b - a of {label} on the grid of a, on a scale centred on zero." + coast))
+        ok = changed & np.isfinite(d)
+        if np.any(ok):
+            div, unit = _area_units(grid)
+            v, a = d[ok], np.broadcast_to(grid.area, d.shape)[ok] / div
+            lo, hi = float(v.min()), float(v.max())
+            if hi - lo <= 1e-9 * max(1.0, abs(hi)):
+                figs.append((None, f"{label}: every one of the {n_changed} changed cells changed by {lo:.4g} {units}."))
+                continue
+            e = np.linspace(lo, hi, 41)
+            png = histogram_figure([(label, e, np.histogram(v, bins=e, weights=a)[0], units)],
+                                   f"Change b - a of {label} over the changed cells, weighted by cell area",
+                                   area_units=unit.split(",")[0], area_what="cell area")
+            figs.append((png, f"Histogram of the change b - a of {label} over the changed cells, weighted by cell "
+                              f"area ({unit})."))
+    page = compare_page(result, sha256_file(result["a"]), sha256_file(result["b"]), figs, __version__)
+    folder.mkdir(parents=True, exist_ok=True)
+    write_atomic_text(folder / "compare.md", compare_markdown(result))
+    path = folder / "report.html"
+    write_atomic_text(path, page)
+    return path
 
 
 # =============================================================================================
@@ -718,131 +829,17 @@ def verify(provenance_path, input=None, output=None) -> dict:
 
 
 # =============================================================================================
-# Figures (matplotlib, Agg backend selected when drawing)
+# Figures (drawn by initgen.figures; this part gathers what they show from the plan and ledger)
 # =============================================================================================
 
 
-def _figure(nrows: int = 1, ncols: int = 1):
-    """A new figure drawn by matplotlib's Agg backend, and its axes (always a 2-D array).
+def _map_figure(grid, field, w, geoms, title: str, label: str, *, cmap=None, vmin=None, vmax=None, land=None,
+                land_what="land fraction", taper_edge=None) -> bytes:
+    """A map (see :func:`initgen.figures.map_figure`); ``cmap='RdBu_r'`` asks for the diverging scale."""
+    from .figures import map_figure
 
-    The figure is built with matplotlib's object interface on an Agg canvas, so drawing never
-    touches pyplot's global state: the backend of an interactive session (a notebook, say) is
-    left as it is, and no figure stays registered after the PNG is made.
-    """
-    from matplotlib.backends.backend_agg import FigureCanvasAgg
-    from matplotlib.figure import Figure
-
-    fig = Figure(figsize=FIG_SIZE_IN, dpi=FIG_DPI)
-    FigureCanvasAgg(fig)
-    axes = fig.subplots(nrows, ncols, squeeze=False)
-    return fig, axes
-
-
-def _png_bytes(fig) -> bytes:
-    buf = io.BytesIO()
-    fig.savefig(buf, format="png", dpi=FIG_DPI)
-    return buf.getvalue()
-
-
-def _frame_centre(grid, w: np.ndarray) -> float:
-    """Centre longitude of the plotting frame: the circular mean of the region, in the grid's convention."""
-    lon = grid.lon[w > 0] if np.any(w > 0) else grid.lon.ravel()
-    r = np.deg2rad(lon)
-    c = float(np.rad2deg(np.arctan2(np.sin(r).mean(), np.cos(r).mean())))
-    lo, hi = float(np.min(grid.lon)), float(np.max(grid.lon))
-    for k in (0, 1, -1, 2):  # keep the grid's own longitudes where they already surround the region
-        if lo <= c + 360.0 * k <= hi:
-            return c + 360.0 * k
-    return c
-
-
-def _to_frame(lon, centre: float):
-    return centre + np.mod(np.asarray(lon, float) - centre + 180.0, 360.0) - 180.0
-
-
-def _draw_field(ax, grid, field: np.ndarray, centre: float, **kw):
-    """pcolormesh for regular and curvilinear grids, scatter for points grids; returns the artist."""
-    if grid.kind == "regular":
-        x = _to_frame(grid.lon1d, centre)
-        ix, iy = np.argsort(x), np.argsort(grid.lat1d)
-        return ax.pcolormesh(x[ix], grid.lat1d[iy], field[np.ix_(iy, ix)], shading="nearest", **kw)
-    x = _to_frame(grid.lon, centre)
-    if grid.kind == "curvilinear":
-        f = np.ma.masked_invalid(np.asarray(field, float))
-        seam = np.zeros(x.shape, bool)  # hide cells that straddle the frame's seam
-        jx = np.abs(np.diff(x, axis=1)) > 180.0
-        jy = np.abs(np.diff(x, axis=0)) > 180.0
-        seam[:, 1:] |= jx
-        seam[:, :-1] |= jx
-        seam[1:, :] |= jy
-        seam[:-1, :] |= jy
-        f = np.ma.masked_where(seam, f)
-        return ax.pcolormesh(x, grid.lat, f, shading="nearest", **kw)
-    size = max(2.0, min(40.0, 20000.0 / max(grid.size, 1)))
-    return ax.scatter(x, grid.lat, c=field, s=size, marker="s", linewidths=0, **kw)
-
-
-def _outline(ax, geoms: list, centre: float) -> None:
-    """Draw the region outline(s) (shapely geometries in degrees) in the plotting frame.
-
-    Parts that the region module split at the 180 degree meridian are moved into the frame and
-    joined again, so the outline has no seam.
-    """
-    import shapely
-    from shapely import affinity
-
-    styles = ["-", "--", ":", "-."]
-    for i, (name, geom) in enumerate(geoms):
-        if geom is None:
-            continue
-        parts = []
-        for poly in getattr(geom, "geoms", [geom]):
-            k = round((poly.centroid.x - centre) / 360.0)
-            parts.append(affinity.translate(poly, xoff=-360.0 * k))
-        merged = shapely.unary_union(parts)
-        first = True
-        for poly in getattr(merged, "geoms", [merged]):
-            if not hasattr(poly, "exterior"):
-                continue
-            for ring in [poly.exterior, *poly.interiors]:
-                xs, ys = np.asarray(ring.coords).T
-                ax.plot(xs, ys, color="k", lw=1.2, ls=styles[i % len(styles)],
-                        label=f"outline: {name}" if first else None)
-                first = False
-
-
-def _zoom(ax, grid, w: np.ndarray, centre: float) -> None:
-    """Limit the axes to the region's cells with a margin (within the grid's extent)."""
-    inside = w > 0
-    if not np.any(inside):
-        return
-    x = _to_frame(grid.lon[inside], centre)
-    y = grid.lat[inside]
-    gx = _to_frame(grid.lon, centre)
-    mx = max(2.0, 0.25 * float(x.max() - x.min()))
-    my = max(2.0, 0.25 * float(y.max() - y.min()))
-    ax.set_xlim(max(float(gx.min()), float(x.min()) - mx), min(float(gx.max()), float(x.max()) + mx))
-    ax.set_ylim(max(float(grid.lat.min()), float(y.min()) - my), min(float(grid.lat.max()), float(y.max()) + my))
-
-
-def _map_figure(grid, field, w, geoms, title: str, label: str, *, cmap="viridis", vmin=None, vmax=None) -> bytes:
-    fig, axes = _figure()
-    ax = axes[0, 0]
-    fig.subplots_adjust(left=0.09, right=0.98, bottom=0.11, top=0.93)
-    try:
-        centre = _frame_centre(grid, w)
-        art = _draw_field(ax, grid, field, centre, cmap=cmap, vmin=vmin, vmax=vmax)
-        fig.colorbar(art, ax=ax, label=label)
-        _outline(ax, geoms, centre)
-        _zoom(ax, grid, w, centre)
-        ax.set_xlabel("longitude (degrees east)")
-        ax.set_ylabel("latitude (degrees north)")
-        ax.set_title(title, fontsize=10)
-        if any(g is not None for _, g in geoms):
-            ax.legend(loc="lower left", fontsize=8)
-        return _png_bytes(fig)
-    finally:
-        fig.clear()  # free the drawing at once
+    return map_figure(grid, field, w, geoms, title, label, land=land, land_what=land_what, taper_edge=taper_edge,
+                      diverging=cmap == "RdBu_r", vmin=vmin, vmax=vmax)
 
 
 def _region_geoms(rec, allow_outside: bool) -> list:
@@ -859,22 +856,85 @@ def _region_geoms(rec, allow_outside: bool) -> list:
     return out
 
 
-# =============================================================================================
-# preview report
-# =============================================================================================
+def _land_for_map(model, store) -> tuple:
+    """(land 0..1 on the whole grid, what it is) read from the file, for sea shading and the coastline.
+
+    The land fraction, else the land mask (at the layout's threshold 0.5), else where the top
+    soil temperature holds a valid value; (None, None) when the file has none of them.
+    """
+    from . import plan as plan_mod
+    from .regions import land_weight
+
+    full = model.grid.full_window()
+    if model.role("land_fraction") is not None:
+        return land_weight(fraction=plan_mod.land_fraction(model, full)), "land fraction"
+    if model.role("land_mask") is not None:
+        return land_weight(mask=plan_mod.read_window(model, model.role("land_mask"), full)), "land mask"
+    soil = model.role("soil_temperature")
+    if soil is not None:
+        hkey = {d: slice(0, n) for d, n in zip(model.grid.dims, model.grid.shape)}
+        t = np.asarray(soil.read(store, hkey), float).reshape((-1,) + tuple(model.grid.shape))[0]
+        return np.isfinite(t).astype(float), "valid soil temperature"
+    return None, None
+
+
+def _taper_edge(plan, rec, geoms: list) -> np.ndarray | None:
+    """1 where any block's taper weight (the plan's own function on the plan's window) is above 0."""
+    from . import regions
+    from .plan import MIN_WEIGHT
+
+    edge = None
+    for (name, geom), blk in zip(geoms, rec.data["perturbations"]):
+        reg = blk["region"]
+        if geom is None or reg["taper_km"] <= 0:
+            continue
+        t = regions.taper_weight(plan.lon, plan.lat, geom, reg["taper_km"], placement=reg["taper_placement"]) \
+            >= MIN_WEIGHT
+        edge = t if edge is None else edge | t
+    return None if edge is None else plan.full(edge.astype(float))
+
+
+def _imposed_profile(plan) -> np.ndarray | None:
+    """The imposed soil-temperature change per layer, f(z) x A, as a mean over the region's land area.
+
+    Taken from the plan: per block the layer factors f(z) times the area-weighted mean of
+    w(x) A(x) (the member's anomaly: scaled, offset, with noise) over the region, summed over
+    the blocks that target soil temperature (donor blends have no anomaly and are left out).
+    """
+    a = plan.area[plan.region]
+    total = float(a.sum())
+    out = None
+    if total <= 0:
+        return None
+    for b in plan.blocks:
+        if b.anomaly is None or b.factors is None or "soil_temperature" not in b.targets:
+            continue
+        eff = b.anomaly * plan.member_scale + plan.member_offset_K
+        if plan.noise is not None:
+            eff = eff + plan.noise
+        wa = float(np.sum(np.where(b.weight > 0, b.weight * eff, 0.0)[plan.region] * a)) / total
+        prof = np.asarray(b.factors, float) * wa
+        out = prof if out is None else out + prof
+    return out
 
 
 class _ChangeCapture:
-    """A read-only store wrapper that turns ``write_changed`` into per-layer histograms of the change.
+    """A read-only store wrapper that turns ``write_changed`` into what the report draws.
 
     Running the plan with ``write=True`` against this wrapper computes exactly what ``apply``
-    would write (physics, limits and all) while writing nothing.
+    would write (physics, limits and all) while writing nothing. Per ledger variable and layer
+    it keeps a histogram of the change weighted by land area (the area the ledger uses), the
+    smallest and largest change of a changed cell, and the change of the top layer on the grid.
     """
 
-    def __init__(self, inner, model, ledger: dict, bins: int = 40):
+    def __init__(self, inner, model, ledger: dict, plan, bins: int = 240):
         self.inner = inner
         self.bytes_written = 0
         self.hist: dict = {}
+        self.maps: dict = {}  # ledger name -> top layer's change on the plan's window
+        self.grid = model.grid
+        self.window = plan.window
+        self.area = plan.area  # land area on the window, as the ledger weighs
         self._where: dict = {}  # variable -> (ledger name, layer axis or None, view index)
         for role in model.roles.values():
             label = role.variables[0] if len(role.variables) == 1 else "+".join(role.variables)
@@ -892,8 +952,10 @@ class _ChangeCapture:
                 if hi - lo < 1e-9:
                     lo, hi = lo - 0.5, hi + 0.5
                 edges.append(np.linspace(lo, hi, bins + 1))
-            self.hist[name] = {"edges": edges, "counts": [None if e is None else np.zeros(bins, np.int64) for e in edges],
-                               "units": var.get("units", "")}
+            n = len(edges)
+            self.hist[name] = {"edges": edges, "area": [None if e is None else np.zeros(bins) for e in edges],
+                               "cells": np.zeros(n, np.int64), "area_sum": np.zeros(n),
+                               "lo": np.full(n, np.inf), "hi": np.full(n, -np.inf), "units": var.get("units", "")}
 
     def __getattr__(self, name):
         return getattr(self.inner, name)
@@ -915,93 +977,120 @@ class _ChangeCapture:
         h = self.hist.get(label)
         if h is None:
             return n
+        info = self.inner.variables[name]
+        dims = list(info.dims)
+        key = tuple(key) if key is not None else tuple(slice(None) for _ in dims)
         old = self.inner.read(name, key)
         d = np.where(changed, np.asarray(values, float) - old, np.nan)
+        hpos = [dims.index(g) for g in self.grid.dims]
+        # file indices of the block -> positions in the plan's window (changes lie inside it)
+        hsel = np.ix_(*[np.searchsorted(self.window[a], np.arange(info.shape[p])[key[p]])
+                        for a, p in enumerate(hpos)])
+        rest = [p for p in range(len(dims)) if p not in hpos and p != axis]
+        order = ([axis] if axis is not None else []) + rest + hpos
+        d = np.transpose(d, order)
+        hshape = d.shape[d.ndim - len(hpos):]
+        d = d.reshape(((d.shape[0],) if axis is not None else (1,)) + (-1,) + hshape)
         if axis is None:
-            parts = [(view if view is not None else 0, d)]
+            layers = [view if view is not None else 0]
         else:
-            info = self.inner.variables[name]
-            layers = range(info.shape[axis])[key[axis]] if key is not None else range(info.shape[axis])
-            moved = np.moveaxis(d, axis, 0)
-            parts = list(zip(layers, moved))
-        for layer, arr in parts:
+            layers = list(range(info.shape[axis])[key[axis]])
+        area = np.broadcast_to(self.area[hsel], d.shape[1:])
+        for layer, arr in zip(layers, d):
             if layer >= len(h["edges"]) or h["edges"][layer] is None:
                 continue
-            v = arr[np.isfinite(arr)]
-            if v.size:
-                e = h["edges"][layer]
-                h["counts"][layer] += np.histogram(np.clip(v, e[0], e[-1]), bins=e)[0]
+            ok = np.isfinite(arr)
+            v, a = arr[ok], area[ok]
+            if not v.size:
+                continue
+            e = h["edges"][layer]
+            h["area"][layer] += np.histogram(np.clip(v, e[0], e[-1]), bins=e, weights=a)[0]
+            h["cells"][layer] += v.size
+            h["area_sum"][layer] += float(a.sum())
+            h["lo"][layer] = min(h["lo"][layer], float(v.min()))
+            h["hi"][layer] = max(h["hi"][layer], float(v.max()))
+            if layer == 0:  # the top layer's change on the grid (first index of any other axis)
+                m = self.maps.setdefault(label, np.zeros(self.area.shape))
+                top = arr[0]
+                sub = m[hsel]
+                m[hsel] = np.where(np.isfinite(top), top, sub)
         return n
 
 
-def _profile_figure(ledger: dict) -> bytes | None:
-    rows = [(name, var) for name, var in ledger.get("variables", {}).items()
-            if var.get("layers") and any(r.get("node_depth_m") is not None and r.get("area_weighted_mean") is not None
-                                         for r in var["layers"])]
-    if not rows:
-        return None
-    fig, axes = _figure(1, len(rows))
-    fig.subplots_adjust(left=0.08, right=0.98, bottom=0.11, top=0.88, wspace=0.35)
-    try:
-        for ax, (name, var) in zip(axes[0], rows):
-            rr = [r for r in var["layers"] if r.get("node_depth_m") is not None and r.get("area_weighted_mean") is not None]
-            z = [r["node_depth_m"] for r in rr]
-            ax.plot([r["area_weighted_mean"] for r in rr], z, "o-", color="C0", label="area-weighted mean")
-            lo = [r["min"] for r in rr]
-            hi = [r["max"] for r in rr]
-            ax.fill_betweenx(z, lo, hi, color="C0", alpha=0.2, label="min..max")
-            ax.axvline(0.0, color="0.5", lw=0.8)
-            ax.set_ylim(max(z) * 1.35 if max(z) > 0 else 1.0, 0.0)  # depth increases downward; room for the legend
-            ax.set_xlabel(f"change ({var.get('units', '')})")
-            ax.set_ylabel("layer node depth (m)")
-            ax.set_title(f"{name} ({var.get('role', '')})", fontsize=9)
-            ax.legend(fontsize=7, loc="lower right")
-        fig.suptitle("Change against depth, per soil layer (ledger)", fontsize=10)
-        return _png_bytes(fig)
-    finally:
-        fig.clear()  # free the drawing at once
+def _area_units(grid) -> tuple[float, str]:
+    """(divisor, unit) for areas in the histograms: km2, or cells when the file has no cell areas."""
+    if str(grid.area_source).startswith("equal"):
+        return 1.0, "cells, equal weights: the file has no cell areas"
+    return 1.0e6, "km2"
 
 
-def _histogram_panels(capture: "_ChangeCapture", ledger: dict, roles: tuple) -> list:
-    """(title, edges, counts) per layer of the ledger variables whose role is in ``roles``."""
-    panels = []
+def _histogram_panels(capture: "_ChangeCapture", ledger: dict, roles: tuple, grid) -> tuple[list, list]:
+    """(panels, sentences): a panel per layer with several values of change, a sentence per single-valued one."""
+    from .figures import short_label
+
+    div, unit = _area_units(grid)
+    panels, sentences = [], []
     for name, var in ledger.get("variables", {}).items():
         if var.get("role") not in roles or name not in capture.hist:
             continue
         h = capture.hist[name]
         rows = var.get("layers") or [var.get("field")]
         layered = bool(var.get("layers"))
-        for i, (e, c) in enumerate(zip(h["edges"], h["counts"])):
-            if c is None or c.sum() == 0:
+        for i, (e, a) in enumerate(zip(h["edges"], h["area"])):
+            if a is None or h["cells"][i] == 0:
                 continue
             depth = rows[i].get("node_depth_m") if i < len(rows) and rows[i] else None
-            title = name + (f" layer {i}" if layered else "") + (f" ({depth:.3g} m)" if depth is not None else "")
-            panels.append((title, e, c, h["units"]))
-    return panels
+            title = short_label(name) + (f" layer {i + 1}" if layered else "") + \
+                (f" ({depth:.3g} m)" if depth is not None else "")
+            lo, hi = h["lo"][i], h["hi"][i]
+            if hi - lo <= 1e-9 * max(1.0, abs(hi)):
+                sentences.append(f"{title}: every one of the {rows[i]['cells_changed']} changed cells (ledger) "
+                                 f"changed by {lo:.4g} "
+                                 f"{h['units']} ({h['area_sum'][i] / div:,.4g} {unit.split(',')[0]}).")
+                continue
+            e, a = _coarsen(e, a)
+            panels.append((title, e, a / div, h["units"]))
+    return panels, sentences
 
 
-def _histogram_figure(panels: list, title: str) -> bytes | None:
-    """Small multiples: one histogram of the change per panel (layer)."""
-    if not panels:
-        return None
-    n = len(panels)
-    ncols = min(4, n)
-    nrows = math.ceil(n / ncols)
-    fig, axes = _figure(nrows, ncols)
-    fig.subplots_adjust(left=0.08, right=0.98, bottom=0.11, top=0.88, wspace=0.3, hspace=0.45)
-    try:
-        for ax in axes.ravel()[n:]:
-            ax.set_visible(False)
-        for ax, (name, e, c, units) in zip(axes.ravel(), panels):
-            ax.stairs(c, e, fill=True, color="C1", alpha=0.8)
-            ax.set_title(name, fontsize=8)
-            ax.set_xlabel(f"change ({units})", fontsize=7)
-            ax.tick_params(labelsize=7)
-        fig.supylabel("cells", fontsize=9)
-        fig.suptitle(title, fontsize=10)
-        return _png_bytes(fig)
-    finally:
-        fig.clear()  # free the drawing at once
+def _coarsen(edges: np.ndarray, area: np.ndarray, most: int = 40) -> tuple[np.ndarray, np.ndarray]:
+    """The fine bins cut to the range that holds changes, merged into at most ``most`` bins.
+
+    The capture bins the ledger's min..max over the region's cells, which includes the cells
+    that did not change; the changed cells may fill only part of it.
+    """
+    nz = np.flatnonzero(area > 0)
+    if nz.size == 0:
+        return edges, area
+    e, a = edges[nz[0]:nz[-1] + 2], area[nz[0]:nz[-1] + 1]
+    k = -(-a.size // most)  # bins merged into one
+    pad = (-a.size) % k
+    a = np.concatenate([a, np.zeros(pad)]).reshape(-1, k).sum(axis=1)
+    step = e[1] - e[0]
+    e = e[0] + step * k * np.arange(a.size + 1)
+    return e, a
+
+
+def _profile_panels(ledger: dict, model, imposed) -> list:
+    """Per layered soil variable of the ledger: layer extents, realised means and (for temperature) the target."""
+    from .figures import short_label
+
+    layers = model.layers
+    if layers is None:
+        return []
+    out = []
+    for name, var in ledger.get("variables", {}).items():
+        rows = var.get("layers")
+        if not rows or var.get("role") not in ("soil_temperature", "soil_liquid", "soil_ice") \
+                or len(rows) != len(layers.top_m):
+            continue
+        imp = imposed if var["role"] == "soil_temperature" and imposed is not None \
+            and len(imposed) == len(rows) else None
+        out.append({"label": f"{short_label(name)} ({var['role']})", "units": var.get("units", ""),
+                    "top_m": layers.top_m, "bottom_m": layers.bottom_m,
+                    "realised": [r.get("area_weighted_mean") for r in rows],
+                    "imposed": None if imp is None else list(imp)})
+    return out
 
 
 def _md_table(header: list, rows: list) -> list[str]:
@@ -1012,13 +1101,18 @@ def _md_table(header: list, rows: list) -> list[str]:
 
 def _ledger_markdown(ledger: dict) -> list[str]:
     """The ledger tables, with the numbers formatted as ``api.ledger_text`` formats them."""
+    from .figures import short_label
+    from .html_report import MEAN_REGION
+
     out = []
     reg = ledger["region"]
     out.append(f"Region: {reg['cells_weight_above_0']} cells with weight > 0 ({reg['cells_full_weight']} at full "
                f"weight), area {reg['area_m2'] / 1e6:,.0f} km2.")
     out.append("")
     for name, var in ledger["variables"].items():
-        out.append(f"**{name}** ({var['role']}, change in {var['units']})")
+        label = short_label(name)
+        out.append(f"**{label}** ({var['role']}, change in {var['units']})" + (f"; variables {name}" if label != name
+                                                                                 else ""))
         out.append("")
         rows = var.get("layers") or [var.get("field")]
         body = []
@@ -1027,14 +1121,15 @@ def _ledger_markdown(ledger: dict) -> list[str]:
             am = r["area_weighted_mean"]
             body.append([r["layer"], f"{depth:.3f}" if depth is not None else "-", r["cells_changed"],
                          f"{am:.4g}" if am is not None else "-", _fmt(r["min"]), _fmt(r["max"])])
-        out += _md_table(["layer", "depth_m", "changed", "area_mean", "min", "max"], body)
+        out += _md_table(["layer", "depth_m", "changed", "mean over region", "min", "max"], body)
         out.append("")
+    out += [MEAN_REGION + ".", ""]
     return out
 
 
 def preview_report(recipe, input, layout, out_dir, ledger=None, allow_outside_paths=False, *,
                    member: str | None = None) -> Path:
-    """Write ``out_dir/preview.md`` and its PNG figures: what ``apply`` would change, and where.
+    """Write ``out_dir/report.html``, ``out_dir/preview.md`` and its PNG figures: what ``apply`` would change.
 
     Parameters
     ----------
@@ -1057,19 +1152,27 @@ def preview_report(recipe, input, layout, out_dir, ledger=None, allow_outside_pa
     Returns
     -------
     pathlib.Path
-        The path of ``preview.md``.
+        The path of ``preview.md`` (``report.html`` is beside it).
 
     Notes
     -----
-    Figures (each :data:`FIG_PIXELS` pixels): ``weights.png`` (the horizontal weight and the
-    region outline), ``surface_anomaly.png`` (anomaly x weight x surface factor, summed over the
-    blocks), ``profile.png`` (area-weighted mean change against layer depth, from the ledger)
-    and ``histogram_soil.png`` / ``histogram_surface.png`` (per layer, the change of every cell
-    ``apply`` would change, after physics and limits: the plan is run against a read-only
-    wrapper of the input that records what would be written instead of writing it).
+    ``report.html`` is one self-contained page (figures embedded, nothing loaded from
+    elsewhere): the recipe and its sha256, the input and its sha256, the member, the ledger
+    tables, clamps and flags with what each means, a place for the persistence estimate, and
+    the figures. Figures (each :data:`FIG_PIXELS` pixels), on the model's own coastline:
+    ``weights.png`` (the horizontal weight, region outline and the taper's outer edge),
+    ``surface_anomaly.png`` (anomaly x weight x surface factor from the plan, summed over the
+    blocks), ``change_<variable>.png`` (the top layer's change as ``apply`` would write it),
+    ``profile.png`` (mean change over the region per layer from the ledger, drawn over each
+    layer's extent, beside the imposed target f(z) x A from the plan) and
+    ``histogram_soil.png`` / ``histogram_surface.png`` (per layer, the land area per bin of the
+    change of the cells ``apply`` would change: the plan is run against a read-only wrapper of
+    the input that records what would be written instead of writing it).
     """
-    from . import api
+    from . import __version__, api
     from . import plan as plan_mod
+    from .figures import short_label
+    from .html_report import preview_page
 
     out_dir = Path(out_dir)
     if out_dir.exists() and not out_dir.is_dir():
@@ -1079,21 +1182,24 @@ def preview_report(recipe, input, layout, out_dir, ledger=None, allow_outside_pa
     member_kw = {} if member is None else {"member": member}
     if ledger is None:
         ledger = api.preview(rec, input, lay, allow_outside_paths=allow_outside_paths, **member_kw)
+    mem = api._member(rec, member)
     store = NetCDFStore(input)
     try:
         model = api._model(store, lay, rec)
         plan = plan_mod.build_plan(rec, model, allow_outside=allow_outside_paths)
-        if member is not None:
+        if mem is not None:
             from .ensemble import configure
 
-            plan = configure(plan, api._member(rec, member))
+            plan = configure(plan, mem)
         grid = model.grid
         w = plan.full(np.max([b.weight for b in plan.blocks], axis=0))
-        capture = _ChangeCapture(store, model, ledger)
+        capture = _ChangeCapture(store, model, ledger, plan)
         plan_mod.run(plan, capture, write=True)
+        land, land_what = _land_for_map(model, store)
     finally:
         store.close()
     geoms = _region_geoms(rec, allow_outside_paths)
+    edge = _taper_edge(plan, rec, geoms)
     surf = np.zeros(grid.shape)
     donors = []
     for b in plan.blocks:
@@ -1104,37 +1210,88 @@ def preview_report(recipe, input, layout, out_dir, ledger=None, allow_outside_pa
         if getattr(plan, "noise", None) is not None:
             a = a + plan.noise
         surf += plan.full(a * b.weight * b.surface_factor)  # as plan.py applies it to skin and snow temperature
+    who = f"recipe {rec.name}" + (f", member {member}" if member else "")
+    coast = f" Grey: sea (no land); thin line: coastline ({land_what} 0.5, from the input)." if land is not None else ""
+    mk = dict(land=land, land_what=land_what or "", taper_edge=edge)
     figures: dict[str, bytes] = {}
-    figures["weights.png"] = _map_figure(grid, w, w, geoms, f"Horizontal weight w(x): recipe '{rec.name}'",
-                                         "weight (1)", vmin=0.0, vmax=1.0)
-    amax = float(np.nanmax(np.abs(surf))) or 1.0
-    figures["surface_anomaly.png"] = _map_figure(
-        grid, np.where(w > 0, surf, np.nan), w, geoms, "Surface anomaly: anomaly x weight x surface factor",
-        "K", cmap="RdBu_r", vmin=-amax, vmax=amax)
-    prof = _profile_figure(ledger)
+    captions: dict[str, str] = {}
+    figures["weights.png"] = _map_figure(grid, w, w, geoms, f"Region weight w(x): {who}", "weight (1)",
+                                         vmin=0.0, vmax=1.0, **mk)
+    captions["weights.png"] = ("Horizontal weight w(x) (taper x elevation band x land weight) with the region "
+                               "outline (black) and the outer edge of the taper (orange, dashed)." + coast)
+    if len(donors) < len(plan.blocks):  # a donor blend imposes no anomaly field
+        figures["surface_anomaly.png"] = _map_figure(
+            grid, np.where(w > 0, surf, 0.0), w, geoms, f"Imposed surface anomaly: {who}", "K", cmap="RdBu_r", **mk)
+        captions["surface_anomaly.png"] = ("Imposed surface anomaly: anomaly x weight x surface factor, summed over "
+                                           "the blocks (from the plan), on a scale centred on zero." + coast)
+    for name, var in ledger.get("variables", {}).items():
+        field = capture.maps.get(name)
+        if field is None:
+            continue
+        field = plan.full(field)
+        fname = f"change_{short_label(name).replace('..', '-').replace('+', '_').replace(' ', '')}.png"
+        top = " top layer" if var.get("layers") else ""
+        figures[fname] = _map_figure(grid, np.where(w > 0, field, 0.0), w, geoms,
+                                     f"Change of {short_label(name)}{top} ({var['role']}): {who}",
+                                     f"change ({var.get('units', '')})", cmap="RdBu_r", **mk)
+        captions[fname] = (f"Change of {short_label(name)}{top} ({var['role']}) as apply would write it (after physics and "
+                           "limits), on a scale centred on zero." + coast)
+    from .figures import histogram_figure, profile_figure
+
+    imposed = _imposed_profile(plan)
+    prof = profile_figure(_profile_panels(ledger, model, imposed), f"Mean change over the region against depth: {who}")
     if prof is not None:
         figures["profile.png"] = prof
-    captions = {}
+        captions["profile.png"] = (
+            "Mean change over the region per layer (ledger), drawn over each layer's extent down to the deepest "
+            "layer's bottom, " + ("beside the imposed target f(z) x A (the plan's layer factors times the region's "
+                                  "area-weighted mean of w(x) A(x)). Where the two differ, physics (phase change) or "
+                                  "limits took their share." if imposed is not None else
+                                  "with no imposed target: the blocks blend toward a donor file."))
+    sentences = []
+    div_unit = _area_units(grid)[1]
     for fname, roles, what in (("histogram_soil.png", ("soil_temperature",), "soil temperature"),
                                ("histogram_surface.png", ("skin_temperature", "snow_temperature", "snow_mass"),
                                 "skin and snow")):
-        png = _histogram_figure(_histogram_panels(capture, ledger, roles),
-                                f"Change of {what}, per layer, over the cells apply would change")
+        panels, said = _histogram_panels(capture, ledger, roles, grid)
+        sentences += said
+        png = histogram_figure(panels, f"Change of {what} per layer, weighted by land area: {who}",
+                               area_units=div_unit)
         if png is not None:
             figures[fname] = png
             captions[fname] = (f"Histogram per layer of the change of {what} over the cells apply would change "
-                               "(after physics and limits).")
+                               f"(after physics and limits), weighted by land area ({div_unit}).")
 
-    md = _preview_markdown(rec, lay, input, grid, ledger, figures, captions, donors, member)
+    input_sha = sha256_file(input)
+    md = _preview_markdown(rec, lay, input, grid, ledger, figures, captions, donors, member, sentences, input_sha)
+    blocks = []
+    for b, blk in zip(ledger.get("blocks", []), rec.data["perturbations"]):
+        an = b.get("anomaly_K") or {}
+        factors = b.get("layer_factors")
+        blocks.append([b["name"], ", ".join(b["targets"]), b["cells_weight_above_0"],
+                       f"{blk['region']['taper_km']:g} km {blk['region']['taper_placement']}",
+                       f"{_fmt(an.get('min'))}..{_fmt(an.get('max'))}" if an else "donor",
+                       _fmt(b.get("surface_factor")),
+                       ", ".join(f"{f:.3g}" for f in factors) if factors else "-"])
+    page = preview_page(rec=rec, lay=lay, input=input, input_sha256=input_sha, grid=grid, ledger=ledger,
+                        member=None if mem is None else mem.record(), blocks=blocks,
+                        figures=[(png, captions.get(f, f)) for f, png in figures.items()], sentences=sentences,
+                        caution=CAUTION + " This preview shows what initgen apply would write with the same recipe, "
+                        "layout and input; the provenance record of apply holds the same ledger.",
+                        version=__version__)
     out_dir.mkdir(parents=True, exist_ok=True)
     for fname, data in figures.items():
         write_atomic_bytes(out_dir / fname, data)
+    write_atomic_text(out_dir / "report.html", page)
     path = out_dir / "preview.md"
     write_atomic_text(path, md)
     return path
 
 
-def _preview_markdown(rec, lay, input, grid, ledger, figures, captions, donors, member=None) -> str:
+def _preview_markdown(rec, lay, input, grid, ledger, figures, captions, donors, member=None, sentences=(),
+                      input_sha256=None) -> str:
+    from .html_report import CLAMP_TEXT, FLAG_TEXT
+
     from . import __version__
 
     L = [f"# initgen preview: {rec.name}" + (f", member {member}" if member else ""), ""]
@@ -1143,7 +1300,9 @@ def _preview_markdown(rec, lay, input, grid, ledger, figures, captions, donors, 
     L += ["## What", "",
           f"- recipe: `{rec.name}`, canonical sha256 `{rec.sha256}`" + (f" ({rec.path})" if rec.path else ""),
           "- layout: " + (f"`{lay.name}`, sha256 `{lay.sha256}`" if lay is not None else "none (roles from CF attributes)"),
-          f"- input: {Path(input).resolve()} ({Path(input).stat().st_size:,} bytes)",
+          f"- input: {Path(input).resolve()} ({Path(input).stat().st_size:,} bytes)"
+          + (f", sha256 `{input_sha256}`" if input_sha256 else ""),
+          f"- member: {member}" if member else "- member: none (the recipe as written)",
           f"- grid: {grid.kind} {' x '.join(map(str, grid.shape))} on dims ({', '.join(grid.dims)}), "
           f"{grid.extent()}; cell area {grid.area_source}",
           f"- initgen {__version__}; this is a dry run: no netCDF file was written", ""]
@@ -1162,9 +1321,16 @@ def _preview_markdown(rec, lay, input, grid, ledger, figures, captions, donors, 
     L += _ledger_markdown(ledger)
     L += ["## Clamps", ""]
     if ledger.get("clamps"):
-        L += _md_table(["rule", "cells"], [[k, v] for k, v in ledger["clamps"].items()])
+        L += _md_table(["rule", "cells", "what it means"],
+                       [[k, v, CLAMP_TEXT.get(k, "-")] for k, v in ledger["clamps"].items()])
     else:
         L.append("No value was clamped.")
+    L += ["", "## Flags", ""]
+    if ledger.get("flags"):
+        L += _md_table(["rule", "cells", "what it means"],
+                       [[k, v, FLAG_TEXT.get(k, "-")] for k, v in ledger["flags"].items()])
+    else:
+        L.append("No cell was flagged.")
     L += ["", "## Physics: energy and phase change", ""]
     phys = ledger.get("physics", {})
     L.append(f"Mode: `{phys.get('mode')}`.")
@@ -1188,17 +1354,22 @@ def _preview_markdown(rec, lay, input, grid, ledger, figures, captions, donors, 
     if ledger.get("cells_not_in_phase_equilibrium_before"):
         L += ["", f"Note: {ledger['cells_not_in_phase_equilibrium_before']} region layer-cells were not in phase "
                   "equilibrium before the change."]
-    if "persistence" in ledger:  # persistence.py: one line
-        from .persistence import line
+    L += ["", "## Persistence estimate", ""]
+    est = ledger.get("persistence")
+    if est is None:
+        L.append("PERSISTENCE ESTIMATE: not in this ledger (no `persistence` key).")
+    else:
+        from .persistence import line  # persistence.py words the estimate once
 
-        L += ["", line(ledger["persistence"]) + "."]
+        L.append(line(est) + ".")
     L += ["", "## Figures", ""]
-    captions = dict(captions)
-    captions.update({"weights.png": "Horizontal weight w(x) with the region outline.",
-                "surface_anomaly.png": "Surface anomaly (anomaly x weight x surface factor, summed over blocks).",
-                     "profile.png": "Area-weighted mean change against layer node depth (band: min..max)."})
     for fname in figures:
         L += [f"![{captions.get(fname, fname)}]({fname})", "", captions.get(fname, ""), ""]
+    for s in sentences:
+        L += [f"- {s}"]
+    if sentences:
+        L.append("")
+    L += ["The same report as one page with the figures embedded: `report.html`.", ""]
     if donors:
         L += [f"Blocks blended from a donor file ({', '.join(donors)}) have no anomaly field on the surface map.", ""]
     L += ["## Caution", "", CAUTION + " This preview shows what `initgen apply` would write with the same recipe, "
@@ -1321,8 +1492,15 @@ def write_mask(recipe, input, layout, output, png=None, force=False, allow_outsi
 
     data = None
     if png is not None:  # draw first: a failure leaves no mask file behind
-        data = _map_figure(grid, w, w, _region_geoms(rec, allow_outside_paths),
-                           f"Region weight: recipe '{rec.name}'", "weight (1)", vmin=0.0, vmax=1.0)
+        store = NetCDFStore(input)
+        try:
+            land, land_what = _land_for_map(api._model(store, lay, rec), store)
+        finally:
+            store.close()
+        geoms = _region_geoms(rec, allow_outside_paths)
+        data = _map_figure(grid, w, w, geoms,
+                           f"Region weight w(x): recipe {rec.name}", "weight (1)", vmin=0.0, vmax=1.0, land=land,
+                           land_what=land_what or "", taper_edge=_taper_edge(plan, rec, geoms))
     create_netcdf(output, build, fmt="NETCDF4", force=force)
     if data is not None:
         write_atomic_bytes(png, data)

@@ -112,10 +112,12 @@ class Num(Node):
 class Str(Node):
     choices: tuple = ()
     pattern_doc: str = ""
+    aliases: dict = field(default_factory=dict)  # accepted spelling -> the choice it stands for
 
     def validate(self, value, path):
         if not isinstance(value, str) or not value.strip():
             raise InputError(f"recipe key {_where(path)}: must be a non-empty string, got {_show(value)}")
+        value = self.aliases.get(value, value)  # e.g. 'centered' is read as 'centred' (and hashes alike)
         if self.choices and value not in self.choices:
             hint = difflib.get_close_matches(value, self.choices, n=1)
             extra = f" (did you mean '{hint[0]}'?)" if hint else ""
@@ -127,7 +129,7 @@ class Str(Node):
     def json(self):
         out = {"type": "string"}
         if self.choices:
-            out["enum"] = list(self.choices)
+            out["enum"] = list(self.choices) + [a for a in self.aliases if a not in self.choices]
         return self._base(out)
 
 

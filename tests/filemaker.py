@@ -379,3 +379,21 @@ def second_model(path: Path, *, step: int = 2):
         v[:] = vals
     ds.close()
     return path
+
+
+# =============================================================================================
+# Added for the HTML report tests (issue 18): a land fraction on any grid kind
+# =============================================================================================
+
+
+def add_land_fraction(path: Path, land: np.ndarray) -> Path:
+    """Add a CF ``land_area_fraction`` variable (values ``land``, the grid's horizontal shape) to a file.
+
+    Works on the files of :func:`curvilinear` (dims y, x) and :func:`points` (dim column).
+    """
+    with netCDF4.Dataset(path, "a") as ds:
+        dims = ("y", "x") if "y" in ds.dimensions else ("column",)
+        v = ds.createVariable("landfrac", "f4", dims)
+        v.units, v.standard_name = "1", "land_area_fraction"
+        v[:] = np.asarray(land, "f4").reshape(v.shape)
+    return path

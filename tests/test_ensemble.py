@@ -214,8 +214,10 @@ def test_shipped_pairs_recipe_on_the_demo_file(pairs_local, demo):
 def test_preview_summarises_every_member(demo, capsys, tmp_path):
     assert main(["preview", str(PAIRS), "--input", str(demo), "--json", str(tmp_path / "p.json")]) == 0
     out = capsys.readouterr().out.splitlines()
-    assert out[0].split() == ["member", "scale", "offset_K", "top_dT_K", "frozen_kg", "latent_J"]
+    assert out[0].split() == ["member", "scale", "sign", "offset_K", "top_dT_K", "frozen_kg", "melted_kg",
+                              "latent_J", "clamped"]
     assert [line.split()[0] for line in out[1:5]] == ["warm-x1.0", "cold-x1.0", "warm-x0.5", "cold-x0.5"]
+    assert [line.split()[1:3] for line in out[1:5]] == [["1", "+1"], ["1", "-1"], ["0.5", "+1"], ["0.5", "-1"]]
     data = json.loads((tmp_path / "p.json").read_text())
     assert len(data["members"]) == 4 and data["members"][1]["member"]["sign"] == -1
 

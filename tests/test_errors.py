@@ -1221,3 +1221,19 @@ def test_water_units_override_for_a_role_the_convention_does_not_read(work, caps
     lay.write_text(lay.read_text() + "  units: {soil_ice: m3 m-3}\n")
     refused(capsys, ["apply", rec, "--input", f, "--output", work / "o.nc", "--layout", lay],
             "water.units.soil_ice", "total_and_liquid", "remove it", folder=work)
+
+
+# =============================================================================================
+# Reports and CLI habits (issue 18)
+# =============================================================================================
+
+
+def test_compare_with_one_file_after_allow(work, capsys):
+    """``--allow`` may come before the files, but two files are still needed."""
+    refused(capsys, ["compare", "--allow", "tsoil", work / "in.nc"], "compare needs two files", folder=work)
+
+
+def test_compare_report_folder_is_a_file(work, capsys):
+    (work / "rep").write_text("not a folder")
+    refused(capsys, ["compare", work / "in.nc", work / "in.nc", "--report", work / "rep"], "rep",
+            "is not a folder", folder=work)

@@ -322,7 +322,7 @@ def test_preview_report_figures_markdown_and_no_stray_files(demo, tmp_path):
     assert sha(src) == src_sha
     names = listing(folder / "rep")
     pngs = sorted(n for n in names if n.endswith(".png"))
-    assert names == {"preview.md", *pngs}
+    assert names == {"preview.md", "report.html", *pngs}
     assert {"weights.png", "surface_anomaly.png", "profile.png", "histogram_soil.png"} <= set(pngs)
     for n in pngs:
         img = mpimg.imread(folder / "rep" / n)
