@@ -136,6 +136,11 @@ class Ledger:
                                "noise": self.plan.noise is not None},
             "cells_not_in_phase_equilibrium_before": int(self.disequilibrium),
         }
+        if not getattr(model.grid, "has_area", True):
+            # no cell areas could be had: an area in m2 would be a count of cells; say why instead
+            out["region"]["area_m2"] = None
+            out["region"]["area_is"] = f"not known ({model.grid.area_source})"
+            out["physics"]["totals_left_out"] = f"no cell areas ({model.grid.area_source})"
         for name, rec in self.vars.items():
             rows = rec["stats"].rows(depths if rec["role"] in ("soil_temperature", "soil_liquid", "soil_ice") else None)
             out["variables"][name] = {"role": rec["role"], "units": rec["units"],
@@ -145,7 +150,8 @@ class Ledger:
             area = region_area if region_area > 0 else 1.0
             for key, per_layer in self.phase.items():
                 unit = "J" if key.endswith("_J") else "kg"
-                phys[f"{key[:-2] if unit == 'J' else key[:-3]}_region_total_{unit}"] = _num(per_layer.sum())
+                if getattr(model.grid, "has_area", True):  # no cell areas: no totals in kg or J
+                    phys[f"{key[:-2] if unit == 'J' else key[:-3]}_region_total_{unit}"] = _num(per_layer.sum())
                 phys[f"{key[:-2] if unit == 'J' else key[:-3]}_per_layer_{unit}_m2"] = [_num(v / area) for v in per_layer]
         return out
 

@@ -1015,7 +1015,8 @@ def _ledger_markdown(ledger: dict) -> list[str]:
     out = []
     reg = ledger["region"]
     out.append(f"Region: {reg['cells_weight_above_0']} cells with weight > 0 ({reg['cells_full_weight']} at full "
-               f"weight), area {reg['area_m2'] / 1e6:,.0f} km2.")
+               f"weight), " + (f"area {reg['area_m2'] / 1e6:,.0f} km2." if reg.get("area_m2") is not None
+                             else f"area {reg.get('area_is', 'not known')}."))
     out.append("")
     for name, var in ledger["variables"].items():
         out.append(f"**{name}** ({var['role']}, change in {var['units']})")
