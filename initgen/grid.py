@@ -190,7 +190,7 @@ class Role:
     def nlayers(self) -> int:
         if not self.layered:
             return 0
-        if len(self.views) > 1:
+        if len(self.views) > 1 or self.views[0].layer_dim is None:
             return len(self.views)
         v = self.views[0]
         n = v.info.shape[v.info.dims.index(v.layer_dim)]
@@ -199,7 +199,9 @@ class Role:
     def read(self, store: Store, hkey: dict) -> np.ndarray:
         if len(self.views) == 1:
             v = self.views[0]
-            return v.to_canonical(store.read(v.info.name, v.key(hkey)))
+            out = v.to_canonical(store.read(v.info.name, v.key(hkey)))
+            # one 2-D variable standing for one layer: give it its layer axis of length 1
+            return out[:, None] if self.layered and v.layer_dim is None else out
         parts = [v.to_canonical(store.read(v.info.name, v.key(hkey))) for v in self.views]
         return np.stack(parts, axis=1)
 
@@ -386,6 +388,10 @@ def _cf_role(store: Store, role: str, hdims: tuple, records: set):
         return None
     how = "CF standard_name " + ", ".join(sorted({str(store.variables[h].attrs["standard_name"]) for h in hits}))
     if len(hits) == 1:
+        info = store.variables[hits[0]]
+        flat = not [d for d in info.dims if d not in hdims and d not in records and store.dims[d] > 1]
+        if role in LAYERED_ROLES and flat and _depth_key(store, info) is not None:
+            return [hits[0]], how + " (one per-layer variable with its depth)"
         return hits[0], how
     if role in LAYERED_ROLES:
         flat = [h for h in hits if not [d for d in store.variables[h].dims
@@ -528,7 +534,7 @@ def _bind(store, role, spec, hdims, layout_data, where) -> Role:
             if ldim and nsnow:
                 sel = slice(0, nsnow) if role == "snow_temperature" else slice(nsnow, None)
         views.append(View(info, hdims, ldim, sel))
-    layered = layered_role and (len(views) > 1 or views[0].layer_dim is not None)
+    layered = layered_role and (isinstance(spec, list) or views[0].layer_dim is not None)
     for v in views[1:]:
         if v.info.dims != views[0].info.dims:
             raise InputError(f"{store.describe()}: per-layer variables of role {role} differ in dims "

@@ -180,7 +180,7 @@ def per_layer_cf_bounds(path: Path, *, nrec=1, order=(2, 0, 3, 1), interfaces=GE
     _time(ds, nrec)
     lon, lat = _lonlat_regular(ds)
     ds.createDimension("nv2", 2)
-    T = _temps((lat.size, lon.size), nlay=4)
+    T = _temps((lat.size, lon.size), nlay=len(interfaces) - 1)
     for k in order:
         top, bot = interfaces[k], interfaces[k + 1]
         d = ds.createVariable(f"depth{k}", "f4", ())
@@ -188,7 +188,7 @@ def per_layer_cf_bounds(path: Path, *, nrec=1, order=(2, 0, 3, 1), interfaces=GE
         d.bounds = f"depth{k}_bnds"
         d[...] = top + node_fraction * (bot - top)
         ds.createVariable(f"depth{k}_bnds", "f4", ("nv2",))[:] = [top, bot]
-        v = ds.createVariable(f"st_{'abcd'[k]}", "f4", ("time", "lat", "lon"), fill_value=FILL)
+        v = ds.createVariable(f"st_{'abcdefgh'[k]}", "f4", ("time", "lat", "lon"), fill_value=FILL)
         v.units, v.standard_name, v.coordinates = "K", "soil_temperature", f"depth{k}"
         v[:] = np.broadcast_to(T[k], (nrec,) + T[k].shape)
     ds.close()
@@ -199,10 +199,11 @@ def per_layer_depths_in_names(path: Path, *, interfaces_cm=(0, 10, 40, 100, 200)
     """Four 2-D soil temperatures whose depths are written only in their names
     (``soil_temperature_0_10cm``) and long_names (``soil temperature 0-10 cm``), file order
     deepest first."""
+    nlay = len(interfaces_cm) - 1
     ds = netCDF4.Dataset(path, "w")
     lon, lat = _lonlat_regular(ds)
-    T = _temps((lat.size, lon.size), nlay=4)
-    for k in reversed(range(4)):
+    T = _temps((lat.size, lon.size), nlay=nlay)
+    for k in reversed(range(nlay)):
         a, b = interfaces_cm[k], interfaces_cm[k + 1]
         v = ds.createVariable(f"soil_temperature_{a}_{b}cm", "f4", ("lat", "lon"), fill_value=FILL)
         v.units, v.standard_name = "K", "soil_temperature"
@@ -232,8 +233,9 @@ def nodes_and_thickness(path: Path, *, nodes=(0.05, 0.25, 0.7, 1.5), thickness=(
     return path
 
 
-def layered_with_records(path: Path, nrec: int):
+def layered_with_records(path: Path, nrec: int, interfaces=GEOM_INTERFACES):
     """A soil temperature (time, lev, lat, lon) with ``nrec`` records and CF layer bounds."""
+    GEOM_INTERFACES = np.asarray(interfaces, float)  # noqa: N806 (the layer interfaces of this file)
     ds = netCDF4.Dataset(path, "w")
     _time(ds, nrec)
     lon, lat = _lonlat_regular(ds)
@@ -245,7 +247,7 @@ def layered_with_records(path: Path, nrec: int):
     ds.createVariable("lev_bnds", "f4", ("lev", "nv2"))[:] = np.stack([GEOM_INTERFACES[:-1], GEOM_INTERFACES[1:]], 1)
     v = ds.createVariable("tsoil", "f4", ("time", "lev", "lat", "lon"), fill_value=FILL)
     v.units, v.standard_name = "K", "soil_temperature"
-    T = _temps((lat.size, lon.size), nlay=4)
+    T = _temps((lat.size, lon.size), nlay=GEOM_INTERFACES.size - 1)
     v[:] = np.stack([T + r for r in range(nrec)])
     ds.close()
     return path
