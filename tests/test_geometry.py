@@ -81,6 +81,20 @@ def test_per_layer_cf_depth_bounds_run_with_no_layout(tmp_path):
         np.testing.assert_allclose(d[raw(src, name) != fm.FILL], expect, atol=1e-4)
 
 
+def test_per_layer_cf_depth_bounds_layout_for_variables_without_standard_name(tmp_path):
+    src = fm.per_layer_cf_bounds(tmp_path / "in.nc")
+    with netCDF4.Dataset(src, "a") as ds:
+        for name in ("st_a", "st_b", "st_c", "st_d"):
+            ds[name].delncattr("standard_name")
+    with pytest.raises(InputError, match="could not find role.*soil_temperature"):
+        api.check(recipe(tmp_path), None, src)
+    res = api.check(recipe(tmp_path), LAYOUTS / "per-layer-cf-depth-bounds.yaml", src)
+    np.testing.assert_allclose(res.model.layers.interfaces_m, fm.GEOM_INTERFACES, atol=1e-6)
+    np.testing.assert_allclose(res.model.layers.node_m, 0.5 * (fm.GEOM_INTERFACES[1:] + fm.GEOM_INTERFACES[:-1]),
+                               atol=1e-6)
+    assert "node from CF scalar depth coordinate 'depth2' of st_c" in res.summary()
+
+
 def test_per_layer_depths_in_names_run_with_no_layout(tmp_path):
     src = fm.per_layer_depths_in_names(tmp_path / "in.nc")
     res = api.check(recipe(tmp_path), None, src)
@@ -313,3 +327,14 @@ def test_grid_file_of_another_shape_is_refused(tmp_path):
     lay = shutil.copy(LAYOUTS / "separate-grid-file.yaml", tmp_path / "layout.yaml")
     with pytest.raises(InputError, match="grid_file .*grid.nc has dimension 'x' of length 6.*length 7"):
         api.check(recipe(tmp_path), lay, restart)
+
+
+def test_every_shipped_layout_is_valid_listed_in_readme_and_tested():
+    from initgen.recipe import load_layout
+
+    readme = (ROOT / "README.md").read_text()
+    tests = "".join(p.read_text() for p in (ROOT / "tests").glob("test_*.py"))
+    for path in sorted(LAYOUTS.glob("*.yaml")):
+        load_layout(path)
+        assert f"`{path.name}`" in readme, f"{path.name} not listed in the README's layout section"
+        assert f'"{path.name}"' in tests, f"{path.name} is not exercised by any test"
