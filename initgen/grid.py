@@ -258,6 +258,7 @@ class ModelFile:
     source: str  # 'layout <name>' or 'CF attributes'
     notes: list = field(default_factory=list)
     role_sources: dict = field(default_factory=dict)  # role -> 'layout roles.X' or 'CF standard_name ...'
+    grid_file: str | None = None  # the layout's separate grid file, when there is one
 
 
     def role(self, name: str) -> Role | None:
@@ -761,4 +762,5 @@ def open_model(store: Store, layout=None, needed: tuple = ()) -> ModelFile:
     src = f"layout {layout.name}" + (" and CF attributes" if any(not v.startswith(("layout", "grid_file"))
                                                                  for v in sources.values()) else "") \
         if layout else "CF attributes"
-    return ModelFile(store, grid, bound, layer_geom, ldim, src, role_sources=sources)
+    return ModelFile(store, grid, bound, layer_geom, ldim, src, role_sources=sources,
+                     grid_file=None if gstore is None else str(gstore.path))

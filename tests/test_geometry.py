@@ -315,7 +315,9 @@ def test_separate_grid_file(tmp_path):
     assert res.model.grid.kind == "curvilinear"
     np.testing.assert_allclose(res.model.grid.area, raw(grid, "garea"))
     assert "role longitude: from grid_file" in res.summary()
-    api.apply(rec, restart, tmp_path / "out.nc", layout=lay)
+    assert "file layout.grid_file: " in res.summary()
+    record = api.apply(rec, restart, tmp_path / "out.nc", layout=lay)
+    assert "layout.grid_file" in str(record)
     d = raw(tmp_path / "out.nc", "tsoil") - raw(restart, "tsoil")
     inside = (raw(grid, "glon") >= -7) & (raw(grid, "glon") <= 7)
     assert np.all(d[:, ~inside] == 0) and np.all(d[0, inside] < -1.5)
