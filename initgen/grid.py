@@ -660,6 +660,20 @@ def _check_records(store: Store, roles: dict) -> None:
                                  "axis with layer_dimension in the layout")
 
 
+def _check_per_layer_depths(store: Store, bound: dict, soil, layer_geom) -> None:
+    """Per-layer 2-D variables of the other layered roles (water, ice, parameters) that carry
+    their own depths must describe the soil temperature's layers, in the same order."""
+    ref = ("top_bottom", np.stack([layer_geom.top_m, layer_geom.bottom_m], axis=1),
+           "the soil temperature's layers")
+    for name, role in bound.items():
+        if role is soil or name == "snow_temperature" or len(role.views) < 2:
+            continue
+        cands = _per_layer_depths(store, [v.info for v in role.views])
+        if cands:
+            layers_mod.resolve_layers([ref] + [c for c in cands if c[0] != "node"],
+                                      name=f"{store.describe()}: role {name}")
+
+
 def _grid_store(layout, where: str):
     """The separate grid file a layout names (``grid_file``), opened read-only, or None."""
     data = layout.data if layout is not None else None
@@ -758,6 +772,8 @@ def open_model(store: Store, layout=None, needed: tuple = ()) -> ModelFile:
     _check_records(store, bound)
     soil = bound.get("soil_temperature")
     layer_geom = _depth_layers(store, data, soil, where)
+    if layer_geom is not None and layer_geom.interfaces_known:
+        _check_per_layer_depths(store, bound, soil, layer_geom)
     ldim = soil.views[0].layer_dim if soil is not None and soil.layered else None
     src = f"layout {layout.name}" + (" and CF attributes" if any(not v.startswith(("layout", "grid_file"))
                                                                  for v in sources.values()) else "") \

@@ -340,3 +340,20 @@ def test_every_shipped_layout_is_valid_listed_in_readme_and_tested():
         load_layout(path)
         assert f"`{path.name}`" in readme, f"{path.name} not listed in the README's layout section"
         assert f'"{path.name}"' in tests, f"{path.name} is not exercised by any test"
+
+
+def test_per_layer_water_found_with_the_temperatures_and_checked_against_them(tmp_path):
+    src = fm.per_layer_depths_in_names(tmp_path / "in.nc")
+    with netCDF4.Dataset(src, "a") as ds:
+        for a, b in [(40, 100), (0, 10), (100, 200), (10, 40)]:
+            v = ds.createVariable(f"soil_liquid_{a}_{b}cm", "f4", ("lat", "lon"))
+            v.units, v.standard_name = "kg m-2", "mass_content_of_liquid_water_in_soil_layer"
+            v[:] = 10.0
+    res = api.check(_node_recipe(tmp_path), None, src)
+    assert res.model.role("soil_liquid").variables == ["soil_liquid_0_10cm", "soil_liquid_10_40cm",
+                                                       "soil_liquid_40_100cm", "soil_liquid_100_200cm"]
+    with netCDF4.Dataset(src, "a") as ds:
+        ds.renameVariable("soil_liquid_100_200cm", "soil_liquid_100_250cm")
+    with pytest.raises(InputError, match=r"role soil_liquid: layer 3 is 1\.\.2 m by the soil temperature's layers but "
+                                         r"1\.\.2\.5 m by the depth range in the name of soil_liquid_100_250cm"):
+        api.check(_node_recipe(tmp_path), None, src)
