@@ -674,7 +674,7 @@ def _check_per_layer_depths(store: Store, bound: dict, soil, layer_geom) -> None
                                       name=f"{store.describe()}: role {name}")
 
 
-def _grid_store(layout, where: str):
+def _grid_store(layout, where: str, store: Store):
     """The separate grid file a layout names (``grid_file``), opened read-only, or None."""
     data = layout.data if layout is not None else None
     spec = (data or {}).get("grid_file")
@@ -684,12 +684,27 @@ def _grid_store(layout, where: str):
 
     from .restart import NetCDFStore
 
-    path = Path(spec["path"])
+    text = str(spec["path"])
+    if "{tile}" in text:
+        # one grid file per tile: the tile comes from the restart's own file name
+        import re
+
+        name = Path(getattr(store, "label", None) or store.path or "").name
+        pattern = spec.get("tile_pattern") or r"tile(\d+)"
+        try:
+            m = re.search(pattern, name)
+        except re.error as exc:
+            raise InputError(f"{where}: grid_file.tile_pattern {pattern!r} is not a regular expression ({exc})") from None
+        if m is None or not m.groups():
+            raise InputError(f"{where}: grid_file.path '{text}' has {{tile}} but the input's name '{name}' does not "
+                             f"match grid_file.tile_pattern {pattern!r} (with one group for the tile)")
+        text = text.replace("{tile}", m.group(1))
+    path = Path(text)
     if not path.is_absolute():
         base = Path(layout.path).parent if getattr(layout, "path", None) else Path.cwd()
         path = base / path
     if not path.is_file():
-        raise InputError(f"{where}: grid_file.path '{spec['path']}' does not exist ({path}); give the file holding "
+        raise InputError(f"{where}: grid_file.path '{text}' does not exist ({path}); give the file holding "
                          "the grid's longitude and latitude")
     return NetCDFStore(path), spec
 
@@ -703,7 +718,7 @@ def open_model(store: Store, layout=None, needed: tuple = ()) -> ModelFile:
     data = layout.data if layout is not None else None
     where = str(layout.path) if layout is not None and layout.path else ("layout" if layout else "CF detection")
     roles_spec = dict((data or {}).get("roles") or {})
-    gstore, gspec = _grid_store(layout, where)
+    gstore, gspec = _grid_store(layout, where, store)
     sources = {}
     try:
         cstore = gstore or store

@@ -312,10 +312,10 @@ def points_dateline(path: Path, n=40):
     return path
 
 
-def separate_grid(restart: Path, grid: Path, *, ny=5, nx=7):
+def separate_grid(restart: Path, grid: Path, *, ny=5, nx=7, lon_range=(-10.0, 20.0)):
     """A restart with no coordinates at all (dims y, x, soil) and a grid file holding its 2-D
     lon/lat and cell areas (m2) under names no CF search would guess."""
-    lon = np.linspace(-10.0, 20.0, nx)
+    lon = np.linspace(lon_range[0], lon_range[1], nx)
     lat = np.linspace(40.0, 60.0, ny)
     LON, LAT = np.meshgrid(lon, lat)
     with netCDF4.Dataset(grid, "w") as ds:
@@ -333,3 +333,19 @@ def separate_grid(restart: Path, grid: Path, *, ny=5, nx=7):
         v.units = "K"
         v[:] = _temps((ny, nx), nlay=4)
     return restart, grid
+
+
+def tiles(folder: Path, ntiles=3, nx=6, ny=5, dlon=4.0):
+    """A grid split in ``ntiles`` tiles side by side in longitude: ``restart.tile<k>.nc`` and
+    ``grid.tile<k>.nc`` for k = 1..ntiles, plus ``whole.nc``/``whole-grid.nc``, the same grid in one
+    piece (tile k's columns at x = (k-1) nx ... k nx - 1)."""
+    folder = Path(folder)
+    parts = []
+    for k in range(1, ntiles + 1):
+        lon0 = -10.0 + (k - 1) * nx * dlon
+        r, g = separate_grid(folder / f"restart.tile{k}.nc", folder / f"grid.tile{k}.nc", ny=ny, nx=nx,
+                             lon_range=(lon0, lon0 + (nx - 1) * dlon))
+        parts.append((r, g))
+    separate_grid(folder / "whole.nc", folder / "whole-grid.nc", ny=ny, nx=nx * ntiles,
+                  lon_range=(-10.0, -10.0 + (nx * ntiles - 1) * dlon))
+    return parts

@@ -357,3 +357,25 @@ def test_per_layer_water_found_with_the_temperatures_and_checked_against_them(tm
     with pytest.raises(InputError, match=r"role soil_liquid: layer 3 is 1\.\.2 m by the soil temperature's layers but "
                                          r"1\.\.2\.5 m by the depth range in the name of soil_liquid_100_250cm"):
         api.check(_node_recipe(tmp_path), None, src)
+
+
+def test_tiles_one_recipe_one_region_one_record_per_tile(tmp_path):
+    parts = fm.tiles(tmp_path, ntiles=3)
+    lay = shutil.copy(LAYOUTS / "tiled-grid-files.yaml", tmp_path / "tiles.yaml")
+    whole_lay = tmp_path / "whole.yaml"
+    whole_lay.write_text(Path(LAYOUTS / "separate-grid-file.yaml").read_text()
+                         .replace("path: grid.nc", "path: whole-grid.nc"))
+    # a tapered region that straddles the tile edges
+    rec = recipe(tmp_path, boxlon="5, 30", taper=800)
+    w_whole, _, _ = api.weights(rec, tmp_path / "whole.nc", whole_lay)
+    ws = [api.weights(rec, r, lay)[0] for r, _ in parts]
+    # the tiles' weights, side by side, are the whole grid's: one region across the tiles
+    np.testing.assert_array_equal(np.concatenate(ws, axis=1), w_whole)
+    assert 0 < np.count_nonzero((w_whole > 0) & (w_whole < 1))
+    records = [api.apply(rec, r, tmp_path / f"out{k}.nc", layout=lay) for k, (r, _) in enumerate(parts)]
+    assert len(records) == 3 and all("layout.grid_file" in str(x) for x in records)
+    assert str(tmp_path / "grid.tile2.nc") in str(records[1])
+    # a restart whose name has no tile number is refused, naming the key
+    shutil.copy(parts[0][0], tmp_path / "restart.nc")
+    with pytest.raises(InputError, match="grid_file.tile_pattern"):
+        api.check(rec, lay, tmp_path / "restart.nc")
