@@ -247,6 +247,11 @@ def ledger_text(ledger: dict) -> str:
     phys = ledger.get("physics", {})
     extra = [f"{k} {v:.4g}" for k, v in phys.items() if k.endswith("_total_J") or k.endswith("_total_kg")]
     lines.append(f"physics: mode {phys.get('mode')}" + (("; " + ", ".join(extra)) if extra else ""))
+    geom = (ledger.get("grid") or {}).get("soil_layers") or []
+    said = sorted({g["source"] for g in geom if "layer middle" in g["source"] or "halfway" in g["source"]
+                   or "unknown" in g["source"]})
+    if said:
+        lines.append("soil layer geometry: " + "; ".join(said))
     if phys.get("totals_left_out"):
         lines.append(f"totals in kg and J left out: {phys['totals_left_out']}")
     if ledger.get("cells_not_in_phase_equilibrium_before"):

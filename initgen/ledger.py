@@ -113,7 +113,8 @@ class Ledger:
         region_area = float(self.plan.area[self.plan.region].sum())
         out = {
             "grid": {"kind": model.grid.kind, "shape": list(model.grid.shape), "dims": list(model.grid.dims),
-                     "cell_area": model.grid.area_source, "roles_from": model.source},
+                     "cell_area": model.grid.area_source, "roles_from": model.source,
+                     "soil_layers": _layer_geometry(model.layers)},
             "region": {
                 "cells_weight_above_0": int(self.plan.region.sum()),
                 "cells_full_weight": int(np.any([b.weight >= 1.0 for b in self.plan.blocks], axis=0).sum()),
@@ -154,6 +155,15 @@ class Ledger:
                     phys[f"{key[:-2] if unit == 'J' else key[:-3]}_region_total_{unit}"] = _num(per_layer.sum())
                 phys[f"{key[:-2] if unit == 'J' else key[:-3]}_per_layer_{unit}_m2"] = [_num(v / area) for v in per_layer]
         return out
+
+
+def _layer_geometry(layers) -> list | None:
+    """Per soil layer: top, bottom and node depth (m; None where not known) and where they came from."""
+    if layers is None:
+        return None
+    return [{"top_m": _num(t) if np.isfinite(t) else None, "bottom_m": _num(b) if np.isfinite(b) else None,
+             "node_m": _num(z), "source": src}
+            for t, b, z, src in zip(layers.top_m, layers.bottom_m, layers.node_m, layers.source)]
 
 
 def _anomaly_summary(anom: np.ndarray, weight: np.ndarray) -> dict:

@@ -379,3 +379,13 @@ def test_tiles_one_recipe_one_region_one_record_per_tile(tmp_path):
     shutil.copy(parts[0][0], tmp_path / "restart.nc")
     with pytest.raises(InputError, match="grid_file.tile_pattern"):
         api.check(rec, lay, tmp_path / "restart.nc")
+
+
+def test_ledger_records_each_layer_geometry_and_says_fallbacks(tmp_path):
+    restart, _ = fm.separate_grid(tmp_path / "restart.nc", tmp_path / "grid.nc")
+    lay = shutil.copy(LAYOUTS / "separate-grid-file.yaml", tmp_path / "layout.yaml")
+    led = api.preview(recipe(tmp_path, boxlon="-7, 7"), restart, lay)
+    geom = led["grid"]["soil_layers"]
+    assert [(g["top_m"], g["bottom_m"]) for g in geom] == [(0.0, 0.1), (0.1, 0.4), (0.4, 1.0), (1.0, 2.0)]
+    assert "node from the layer middle (no node depth given)" in geom[0]["source"]
+    assert "soil layer geometry: " in api.ledger_text(led)
