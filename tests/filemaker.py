@@ -287,8 +287,10 @@ def curvilinear_corners(path: Path, *, ny=6, nx=8, corners=True, lon0=-20.0, lat
     return path, (lon_c, lat_c)
 
 
-def points_dateline(path: Path, n=40):
-    """A list of land points across the dateline (170E..170W), no cell areas, CF layer bounds."""
+def points_dateline(path: Path, n=40, water=False):
+    """A list of land points across the dateline (170E..170W), no cell areas, CF layer bounds;
+    with ``water``, liquid and ice per layer in kg m-2 (CF standard names) and a temperature just
+    above freezing, so that a cooling freezes water."""
     lon = np.linspace(170.0, 190.0, n)
     lon = np.where(lon > 180.0, lon - 360.0, lon)
     lat = np.linspace(-5.0, 5.0, n)
@@ -307,7 +309,14 @@ def points_dateline(path: Path, n=40):
     ds.createVariable("lev_bnds", "f4", ("lev", "nv2"))[:] = np.stack([GEOM_INTERFACES[:-1], GEOM_INTERFACES[1:]], 1)
     v = ds.createVariable("tsoil", "f4", ("column", "lev"), fill_value=FILL)
     v.units, v.standard_name = "K", "soil_temperature"
-    v[:] = _temps((n,), nlay=4).T
+    v[:] = (_temps((n,), nlay=4).T if not water else np.full((n, 4), 273.4, "f4"))
+    if water:
+        dz = np.diff(GEOM_INTERFACES)
+        for name, sn, frac in (("wliq", "mass_content_of_liquid_water_in_soil_layer", 0.25),
+                               ("wice", "mass_content_of_frozen_water_in_soil_layer", 0.0)):
+            w = ds.createVariable(name, "f4", ("column", "lev"))
+            w.units, w.standard_name = "kg m-2", sn
+            w[:] = np.broadcast_to(frac * 1000.0 * dz, (n, 4))
     ds.close()
     return path
 

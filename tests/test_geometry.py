@@ -284,16 +284,28 @@ def _uniform(folder):
 
 
 def test_points_without_areas_leave_totals_out(tmp_path):
-    src = fm.points_dateline(tmp_path / "p.nc")
+    src = fm.points_dateline(tmp_path / "p.nc", water=True)
+    rec = recipe(tmp_path, boxlon="160, -160", extra="physics: {mode: energy, texture: loam}\n")
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", InputWarning)
-        led = api.preview(recipe(tmp_path, boxlon="160, -160"), src)
+        led = api.preview(rec, src)
     reg = led["region"]
     assert reg["area_m2"] is None and "not known" in reg["area_is"] and "points" in reg["area_is"]
-    assert not [k for k in led["physics"] if "_total_" in k]
+    phys = led["physics"]
+    assert phys["frozen_per_layer_kg_m2"][0] > 0  # water froze: there is something to total
+    assert not [k for k in phys if "_total_" in k] and "no cell areas" in phys["totals_left_out"]
     text = api.ledger_text(led)
-    assert "km2" not in text and "not known" in text
+    assert "km2" not in text and "not known" in text and "totals in kg and J left out" in text
     assert led["variables"]["tsoil"]["layers"][0]["cells_changed"] == 40  # all across the dateline
+    # the same points with a cell-area variable: totals are there again
+    with netCDF4.Dataset(src, "a") as ds:
+        a = ds.createVariable("carea", "f8", ("column",))
+        a.units, a.standard_name = "m2", "cell_area"
+        a[:] = 1.0e8
+    led = api.preview(rec, src)
+    assert led["region"]["area_m2"] == pytest.approx(40 * 1.0e8)
+    assert led["physics"]["frozen_region_total_kg"] == pytest.approx(
+        sum(led["physics"]["frozen_per_layer_kg_m2"]) * 40 * 1.0e8, rel=1e-9)
 
 
 def test_curvilinear_without_corners_says_why(tmp_path):
