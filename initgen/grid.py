@@ -304,8 +304,11 @@ def _record_dims(store: Store) -> set:
 
 def _scalar_depth(store: Store, info: VarInfo):
     """(node, (top, bottom), label) in metres from a CF scalar depth coordinate named in the
-    variable's ``coordinates`` attribute (its ``bounds`` give the top and bottom), or None."""
-    for cname in str(info.attrs.get("coordinates", "")).split():
+    variable's ``coordinates`` attribute, or a depth axis of length 1 (its ``bounds`` give the top
+    and bottom), or None."""
+    names = str(info.attrs.get("coordinates", "")).split()
+    names += [d for d, n in zip(info.dims, info.shape) if n == 1 and d not in names]  # size-1 depth axes
+    for cname in names:
         c = store.variables.get(cname)
         if c is None or int(np.prod(c.shape)) != 1:
             continue
@@ -536,8 +539,11 @@ def _bind(store, role, spec, hdims, layout_data, where) -> Role:
                 sel = slice(0, nsnow) if role == "snow_temperature" else slice(nsnow, None)
         views.append(View(info, hdims, ldim, sel))
     layered = layered_role and (isinstance(spec, list) or views[0].layer_dim is not None)
+    def big(info):  # axes of length 1 (a per-layer depth axis, a single record) may differ by name
+        return [(d, n) for d, n in zip(info.dims, info.shape) if n > 1]
+
     for v in views[1:]:
-        if v.info.dims != views[0].info.dims:
+        if big(v.info) != big(views[0].info):
             raise InputError(f"{store.describe()}: per-layer variables of role {role} differ in dims "
                              f"({views[0].info.name}{views[0].info.dims} vs {v.info.name}{v.info.dims})")
     fallback = ((layout_data or {}).get("units") or {}).get(role) or ""

@@ -172,7 +172,7 @@ def _time(ds, nrec):
 
 
 def per_layer_cf_bounds(path: Path, *, nrec=1, order=(2, 0, 3, 1), interfaces=GEOM_INTERFACES,
-                        node_fraction=0.5):
+                        node_fraction=0.5, as_dims=False):
     """Four 2-D soil temperatures (time, lat, lon), each with standard_name soil_temperature and a
     CF scalar depth coordinate with bounds, written to the file in the order ``order`` (not top
     first: detection must order them by depth). Nodes at ``node_fraction`` of each layer."""
@@ -183,14 +183,19 @@ def per_layer_cf_bounds(path: Path, *, nrec=1, order=(2, 0, 3, 1), interfaces=GE
     T = _temps((lat.size, lon.size), nlay=len(interfaces) - 1)
     for k in order:
         top, bot = interfaces[k], interfaces[k + 1]
-        d = ds.createVariable(f"depth{k}", "f4", ())
+        if as_dims:  # the variant with a depth axis of length 1 per variable (a coordinate variable)
+            ds.createDimension(f"depth{k}", 1)
+        d = ds.createVariable(f"depth{k}", "f4", (f"depth{k}",) if as_dims else ())
         d.units, d.positive, d.standard_name, d.axis = "m", "down", "depth", "Z"
         d.bounds = f"depth{k}_bnds"
         d[...] = top + node_fraction * (bot - top)
-        ds.createVariable(f"depth{k}_bnds", "f4", ("nv2",))[:] = [top, bot]
-        v = ds.createVariable(f"st_{'abcdefgh'[k]}", "f4", ("time", "lat", "lon"), fill_value=FILL)
-        v.units, v.standard_name, v.coordinates = "K", "soil_temperature", f"depth{k}"
-        v[:] = np.broadcast_to(T[k], (nrec,) + T[k].shape)
+        ds.createVariable(f"depth{k}_bnds", "f4", ((f"depth{k}",) if as_dims else ()) + ("nv2",))[:] = [top, bot]
+        dims = ("time",) + ((f"depth{k}",) if as_dims else ()) + ("lat", "lon")
+        v = ds.createVariable(f"st_{'abcdefgh'[k]}", "f4", dims, fill_value=FILL)
+        v.units, v.standard_name = "K", "soil_temperature"
+        if not as_dims:
+            v.coordinates = f"depth{k}"
+        v[:] = T[k].reshape((1,) * (len(dims) - 2) + T[k].shape).repeat(nrec, axis=0)
     ds.close()
     return path
 

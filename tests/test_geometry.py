@@ -63,8 +63,9 @@ def quad_mean(efold, top, bottom):
 # ------------------------------------------------------------------------------ layer geometry
 
 
-def test_per_layer_cf_depth_bounds_run_with_no_layout(tmp_path):
-    src = fm.per_layer_cf_bounds(tmp_path / "in.nc")
+@pytest.mark.parametrize("as_dims", [False, True], ids=["scalar-coordinate", "length-1-depth-axis"])
+def test_per_layer_cf_depth_bounds_run_with_no_layout(tmp_path, as_dims):
+    src = fm.per_layer_cf_bounds(tmp_path / "in.nc", as_dims=as_dims)
     rec = recipe(tmp_path)
     res = api.check(rec, None, src)
     lay = res.model.layers

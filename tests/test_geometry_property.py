@@ -37,7 +37,7 @@ perturbations:
     targets: [soil_temperature]
 """
 
-SOURCES = ("axis_cf_bounds", "per_layer_cf_bounds", "depths_in_names", "top_bottom_attributes",
+SOURCES = ("axis_cf_bounds", "per_layer_cf_bounds", "per_layer_length1_axis", "depths_in_names", "top_bottom_attributes",
            "nodes_and_thickness", "layout_interfaces", "midpoints_by_name")
 
 
@@ -67,8 +67,9 @@ def _make(source, folder: Path, icm: np.ndarray, frac: float):
     if source == "axis_cf_bounds":
         fm.layered_with_records(src, 1, interfaces=z)
         names = ["tsoil"]
-    elif source == "per_layer_cf_bounds":
-        fm.per_layer_cf_bounds(src, interfaces=z, order=tuple(reversed(range(n))), node_fraction=frac)
+    elif source in ("per_layer_cf_bounds", "per_layer_length1_axis"):
+        fm.per_layer_cf_bounds(src, interfaces=z, order=tuple(reversed(range(n))), node_fraction=frac,
+                               as_dims=source == "per_layer_length1_axis")
         names = [f"st_{'abcdefgh'[k]}" for k in range(n)]
     elif source in ("depths_in_names", "top_bottom_attributes"):
         fm.per_layer_depths_in_names(src, interfaces_cm=[int(c) for c in icm], long_names=True)
