@@ -648,22 +648,16 @@ def _soil_part(vals, role, nsnow, nsoil):
 
 def _check_records(store: Store, roles: dict) -> None:
     """Refuse a role variable with several records (a time axis longer than 1): initgen perturbs
-    one state. A record axis of length 1 is read and written like any other length-1 axis."""
+    one state. A record axis of length 1 is read and written like any other length-1 axis; other
+    extra axes (sub-grid tiles, say) keep being perturbed entry by entry, as before."""
     records = _record_dims(store)
     for role in roles.values():
         for v in role.views:
-            extra = [(d, n) for d, n in zip(v.info.dims, v.info.shape)
-                     if d not in v.hdims and d != v.layer_dim and n > 1]
-            if extra:
-                d, n = extra[0]
-                what = "records" if d in records else "entries"
-                raise InputError(f"{store.describe()}: variable '{v.info.name}' (role {role.name}) has {n} {what} "
-                                 f"along '{d}'; initgen perturbs one state at a time: write each record to a file "
-                                 f"of its own (e.g. ncks -d {d},0) and apply the recipe to each"
-                                 if d in records else
-                                 f"{store.describe()}: variable '{v.info.name}' (role {role.name}) has a second "
-                                 f"non-horizontal axis '{d}' of {n} entries besides its layer axis; name the layer "
-                                 "axis with layer_dimension in the layout")
+            for d, n in zip(v.info.dims, v.info.shape):
+                if d in records and d not in v.hdims and d != v.layer_dim and n > 1:
+                    raise InputError(f"{store.describe()}: variable '{v.info.name}' (role {role.name}) has {n} "
+                                     f"records along '{d}'; initgen perturbs one state at a time: write each record "
+                                     "to a file of its own and apply the recipe to each")
 
 
 def _check_per_layer_depths(store: Store, bound: dict, soil, layer_geom) -> None:
