@@ -397,3 +397,25 @@ def test_ledger_records_each_layer_geometry_and_says_fallbacks(tmp_path):
     assert [(g["top_m"], g["bottom_m"]) for g in geom] == [(0.0, 0.1), (0.1, 0.4), (0.4, 1.0), (1.0, 2.0)]
     assert "node from the layer middle (no node depth given)" in geom[0]["source"]
     assert "soil layer geometry: " in api.ledger_text(led)
+
+
+def test_an_extra_non_record_axis_is_perturbed_entry_by_entry(tmp_path):
+    src = fm.layered_with_records(tmp_path / "one.nc", 1)
+    path = tmp_path / "in.nc"
+    with netCDF4.Dataset(src) as a, netCDF4.Dataset(path, "w") as b:
+        for d in ("lon", "lat", "lev", "nv2"):
+            b.createDimension(d, len(a.dimensions[d]))
+        b.createDimension("subgrid", 3)
+        for name in ("lon", "lat", "lev", "lev_bnds"):
+            v = b.createVariable(name, a[name].dtype, a[name].dimensions)
+            v.setncatts({k: a[name].getncattr(k) for k in a[name].ncattrs()})
+            v[:] = a[name][:]
+        t = b.createVariable("tsoil", "f4", ("subgrid", "lev", "lat", "lon"))
+        t.units, t.standard_name = "K", "soil_temperature"
+        t[:] = np.stack([a["tsoil"][0] + s for s in range(3)])
+    lay = tmp_path / "l.yaml"
+    lay.write_text("initgen_layout: 1\nroles: {soil_temperature: tsoil}\nlayer_dimension: lev\n")
+    api.apply(recipe(tmp_path), path, tmp_path / "out.nc", layout=lay)
+    d = raw(tmp_path / "out.nc", "tsoil") - raw(path, "tsoil")
+    for s in range(3):
+        np.testing.assert_allclose(d[s, 0], -2.0 * quad_mean(0.5, 0.0, 0.1), atol=1e-4)
