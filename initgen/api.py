@@ -35,6 +35,19 @@ def _model(store, layout, recipe) -> ModelFile:
     return model
 
 
+def layer_lines(layers) -> list:
+    """One line per soil layer: top, bottom, thickness, node and where they came from."""
+    if layers is None:
+        return ["soil layers: no depths found (name roles.layer_interface_depth, layer_thickness or "
+                "layer_node_depth in a layout)"]
+    out = [f"soil layers ({layers.n}): top..bottom m, thickness m, node m; source"]
+    for i in range(layers.n):
+        t, b, z = layers.top_m[i], layers.bottom_m[i], layers.node_m[i]
+        geom = (f"{t:.4g}..{b:.4g}, {b - t:.4g}" if np.isfinite(t) else "unknown..unknown, unknown")
+        out.append(f"  layer {i}: {geom}, node {z:.4g}; {layers.source[i]}")
+    return out
+
+
 @dataclass
 class CheckResult:
     recipe: Document
@@ -65,7 +78,11 @@ class CheckResult:
             g = self.model.grid
             size = " x ".join(f"{n} {d}" for n, d in zip(g.shape, g.dims))
             lines.append(f"grid: {g.kind}, {size} ({g.extent()}); roles from {self.model.source}")
+            lines.append(f"cell area: {g.area_source}")
             lines.append("roles: " + ", ".join(f"{k}={'+'.join(r.variables)}" for k, r in sorted(self.model.roles.items())))
+            srcs = getattr(self.model, "role_sources", {}) or {}
+            for k in sorted(srcs):
+                lines.append(f"  role {k}: from {srcs[k]}")
             if self.model.water is not None:
                 lines.append(self.model.water.describe())
             if self.plan is not None:
@@ -79,8 +96,7 @@ class CheckResult:
                             lines.append(f"{v.info.name}: stored as {np.dtype(v.info.dtype)}, holds {rng[0]:.6g}.."
                                          f"{rng[1]:.6g} {v.info.units}; a change beyond is refused (recipe key "
                                          "limits.packed_out_of_range)")
-            if self.model.layers is not None:
-                lines.append("soil layer nodes (m): " + ", ".join(f"{z:.3g}" for z in self.model.layers.node_m))
+            lines.extend(layer_lines(self.model.layers))
         if self.plan is not None:
             for key, f in self.plan.files.items():
                 lines.append(f"file {key}: {f['path']} (sha256 {f['sha256']})")
@@ -264,9 +280,13 @@ def ledger_text(ledger: dict) -> str:
     """A compact plain-text table of a ledger (what the terminal shows)."""
     lines = []
     reg = ledger["region"]
-    lines.append(f"region: {reg['cells_weight_above_0']} cells with weight > 0 "
-                 f"({reg['cells_full_weight']} at full weight), {reg.get('area_is', 'area')} "
-                 f"{reg['area_m2'] / 1e6:,.0f} km2; means and totals below are over this area")
+    if reg.get("area_m2") is None:
+        lines.append(f"region: {reg['cells_weight_above_0']} cells with weight > 0 "
+                     f"({reg['cells_full_weight']} at full weight); area {reg.get('area_is', 'not known')}")
+    else:
+        lines.append(f"region: {reg['cells_weight_above_0']} cells with weight > 0 "
+                     f"({reg['cells_full_weight']} at full weight), {reg.get('area_is', 'area')} "
+                     f"{reg['area_m2'] / 1e6:,.0f} km2; means and totals below are over this area")
     for name, var in ledger["variables"].items():
         lines.append(f"{name} ({var['role']}, change in {var['units']}; mean_region: mean over region, area-weighted over the region's valid cells, unchanged ones as 0):")
         rows = var.get("layers") or [var.get("field")]
@@ -288,6 +308,13 @@ def ledger_text(ledger: dict) -> str:
     extra = [f"{k} {v:.4g}" for k, v in phys.items() if k.endswith("_total_J") or k.endswith("_total_kg")]
     rule = f", phase rule {phys['phase_rule']}" if phys.get("phase_rule") else ""
     lines.append(f"physics: mode {phys.get('mode')}{rule}" + (("; " + ", ".join(extra)) if extra else ""))
+    geom = (ledger.get("grid") or {}).get("soil_layers") or []
+    said = sorted({g["source"] for g in geom if "layer middle" in g["source"] or "halfway" in g["source"]
+                   or "unknown" in g["source"]})
+    if said:
+        lines.append("soil layer geometry: " + "; ".join(said))
+    if phys.get("totals_left_out"):
+        lines.append(f"totals in kg and J left out: {phys['totals_left_out']}")
     if "persistence" in ledger:
         from .persistence import line
 

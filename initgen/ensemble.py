@@ -185,7 +185,7 @@ def _grid_fingerprint(model, recipe: Document, layout: Document | None, allow_ou
                 a = role.read(model.store, {d0: slice(start, min(n0, start + rows))})
                 h.update(np.ascontiguousarray(a, dtype=np.float64).tobytes())
     if model.layers is not None:
-        for arr in (model.layers.node_m, model.layers.thickness_m):
+        for arr in (model.layers.node_m, model.layers.top_m, model.layers.bottom_m):  # NaN: interfaces unknown
             h.update(np.ascontiguousarray(arr, dtype=np.float64).tobytes())
     return h.hexdigest()
 

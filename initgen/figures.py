@@ -307,7 +307,8 @@ def profile_figure(panels: list, title: str) -> bytes | None:
 
     ``panels``: dicts with ``label``, ``units``, ``top_m``, ``bottom_m`` (per layer),
     ``realised`` (per layer, None where the ledger has no value) and optionally ``imposed``
-    (per layer: the target f(z) x A from the plan).
+    (per layer: the target f(z) x A from the plan) and ``node_m``. A layer whose extent the file
+    does not give (nodes only: top and bottom NaN) is drawn as a point at its node.
     """
     panels = [p for p in panels if any(v is not None for v in p["realised"])]
     if not panels:
@@ -316,24 +317,34 @@ def profile_figure(panels: list, title: str) -> bytes | None:
     fig.subplots_adjust(left=0.08, right=0.98, bottom=0.11, top=0.82, wspace=0.32)
     for ax, p in zip(axes[0], panels):
         top, bot = np.asarray(p["top_m"], float), np.asarray(p["bottom_m"], float)
+        node = np.asarray(p.get("node_m", 0.5 * (top + bot)), float)
+        known = np.isfinite(top) & np.isfinite(bot)
+
+        def draw(k, v, label, **kw):
+            if known[k]:
+                ax.plot([v, v], [top[k], bot[k]], label=label, **kw)
+            else:      # extent not given by the file: a point at the node
+                ax.plot([v], [node[k]], marker="o", ls="none", color=kw["color"], label=label)
+
         first = True
         for k, v in enumerate(p["realised"]):
             if v is None:
                 continue
-            ax.plot([v, v], [top[k], bot[k]], color="C0", lw=4, solid_capstyle="butt",
-                    label="realised (ledger, mean over region)" if first else None)
+            draw(k, v, "realised (ledger, mean over region)" if first else None, color="C0", lw=4,
+                 solid_capstyle="butt")
             first = False
         imp = p.get("imposed")
         if imp is not None:
             first = True
             for k, v in enumerate(imp):
-                ax.plot([v, v], [top[k], bot[k]], color="C1", lw=2, ls="--",
-                        label="imposed target f(z) x A (plan)" if first else None)
+                draw(k, v, "imposed target f(z) x A (plan)" if first else None, color="C1", lw=2, ls="--")
                 first = False
-        for z in np.unique(np.concatenate([top, bot])):
+        edges = np.concatenate([top[known], bot[known]])
+        for z in np.unique(edges):
             ax.axhline(z, color="0.85", lw=0.6, zorder=0)
         ax.axvline(0.0, color="0.4", lw=0.8)
-        ax.set_ylim(float(bot.max()), 0.0)  # depth increases downward, to the deepest layer's bottom
+        deepest = float(np.nanmax(np.concatenate([bot[known], node * (1.1 if not known.all() else 1.0)])))
+        ax.set_ylim(deepest, 0.0)  # depth increases downward, to the deepest layer's bottom
         vals = [v for v in list(p["realised"]) + list(imp if imp is not None else []) if v is not None]
         lo, hi = min(vals + [0.0]), max(vals + [0.0])
         pad = 0.08 * (hi - lo) or 0.5

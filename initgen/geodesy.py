@@ -256,3 +256,73 @@ def cell_area_factors(lon_1d, lat_1d):
     dlon = np.abs(np.radians(np.diff(blon)))
     dsin = np.abs(np.diff(np.sin(np.radians(blat))))
     return dsin, dlon
+
+
+def cell_areas_from_bounds_1d(lon_bounds, lat_bounds):
+    """Cell areas (in units of R^2) of a regular lon/lat grid from CF cell bounds.
+
+    Parameters
+    ----------
+    lon_bounds : array_like, shape (nlon, 2)
+        West and east edge of each column, degrees (CF ``bounds`` of the longitude).
+    lat_bounds : array_like, shape (nlat, 2)
+        South and north edge of each row, degrees.
+
+    Returns
+    -------
+    numpy.ndarray, shape (nlat, nlon)
+        ``|dlon| * |sin(lat_2) - sin(lat_1)|`` (dlon in radians; a pair across the wrap point
+        such as (175, -175) is 10 degrees wide);
+        multiply by R^2 for m^2.
+
+    References
+    ----------
+    Snyder, J. P. (1987). Map Projections - A Working Manual. U.S. Geological Survey
+    Professional Paper 1395, pp. 76-85 (the cylindrical equal-area projection, ``y = R sin(lat)``,
+    from which the area of a cell bounded by two meridians and two parallels follows).
+    """
+    blon = np.asarray(lon_bounds, dtype=np.float64)
+    blat = np.asarray(lat_bounds, dtype=np.float64)
+    w = np.abs(blon[:, 1] - blon[:, 0])
+    # a pair written across the wrap point (175, -175) is 10 degrees wide, not 350; cells wider
+    # than 180 degrees exist only as one column spanning the globe (width exactly 360)
+    w = np.where((w > 180.0) & (w < 360.0), 360.0 - w, np.minimum(w, 360.0))
+    dlon = np.radians(w)
+    dsin = np.abs(np.sin(np.radians(blat[:, 1])) - np.sin(np.radians(blat[:, 0])))
+    return dsin[:, None] * dlon[None, :]
+
+
+def spherical_polygon_area_m2(lon_corners, lat_corners, radius_km=None):
+    """Areas (m^2) of quadrilaterals with great-circle edges on a sphere (CF 2-D cell corners).
+
+    Each cell ``(lon[..., k], lat[..., k])``, k = 0..3, is split into the triangles (0, 1, 2)
+    and (0, 2, 3); the solid angle of each triangle of unit vectors a, b, c is
+    ``2 atan2(a . (b x c), 1 + a.b + b.c + c.a)`` (signed by orientation), and the cell's area is
+    ``R^2 |Omega_1 + Omega_2|``, so the corners may go either way round.
+
+    Parameters
+    ----------
+    lon_corners, lat_corners : array_like, shape (..., 4)
+        Corner longitudes and latitudes in degrees (CF ``bounds`` of 2-D coordinates).
+    radius_km : float, optional
+        Sphere radius; default :data:`EARTH_RADIUS_KM`.
+
+    Returns
+    -------
+    numpy.ndarray, shape (...)
+
+    References
+    ----------
+    Van Oosterom, A. and Strackee, J. (1983). The solid angle of a plane triangle. IEEE
+    Transactions on Biomedical Engineering, BME-30(2), 125-126, eq. (8).
+    """
+    r_m = (EARTH_RADIUS_KM if radius_km is None else float(radius_km)) * 1.0e3
+    p = lonlat_to_unit(np.asarray(lon_corners, float), np.asarray(lat_corners, float))
+
+    def omega(a, b, c):
+        num = np.sum(a * np.cross(b, c), axis=-1)
+        den = 1.0 + np.sum(a * b, axis=-1) + np.sum(b * c, axis=-1) + np.sum(c * a, axis=-1)
+        return 2.0 * np.arctan2(num, den)
+
+    a, b, c, d = (p[..., k, :] for k in range(4))
+    return r_m * r_m * np.abs(omega(a, b, c) + omega(a, c, d))

@@ -77,6 +77,11 @@ class Grid:
         self._full = None
 
     @property
+    def has_area(self) -> bool:
+        """False when no cell areas could be had (equal weights; no totals in kg or J)."""
+        return not isinstance(self.area_src, str)
+
+    @property
     def lon1d(self):
         return self.lon_src if self.kind == "regular" else None
 
@@ -222,7 +227,7 @@ class Role:
     def nlayers(self) -> int:
         if not self.layered:
             return 0
-        if len(self.views) > 1:
+        if len(self.views) > 1 or self.views[0].layer_dim is None:
             return len(self.views)
         v = self.views[0]
         n = v.info.shape[v.info.dims.index(v.layer_dim)]
@@ -231,7 +236,9 @@ class Role:
     def read(self, store: Store, hkey: dict) -> np.ndarray:
         if len(self.views) == 1:
             v = self.views[0]
-            return v.to_canonical(store.read(v.info.name, v.key(hkey)))
+            out = v.to_canonical(store.read(v.info.name, v.key(hkey)))
+            # one 2-D variable standing for one layer: give it its layer axis of length 1
+            return out[:, None] if self.layered and v.layer_dim is None else out
         parts = [v.to_canonical(store.read(v.info.name, v.key(hkey))) for v in self.views]
         return np.stack(parts, axis=1)
 
@@ -309,6 +316,8 @@ class ModelFile:
         """True when the file keeps only total water, so the liquid/ice split is diagnosed from the
         temperature (the equilibrium phase rule is then the only one the file can express)."""
         return self.water is not None and self.water.phase_split_diagnosed
+    role_sources: dict = field(default_factory=dict)  # role -> 'layout roles.X' or 'CF standard_name ...'
+    grid_file: str | None = None  # the layout's separate grid file, when there is one
 
     def role(self, name: str) -> Role | None:
         return self.roles.get(name)
@@ -326,12 +335,136 @@ class ModelFile:
 # ---------------------------------------------------------------------------------------------
 
 
-def _find_cf(store: Store, role: str) -> str | None:
+def _cf_candidates(store: Store, role: str) -> list:
+    """Every variable whose standard_name is one of the role's CF names, in file order."""
     names = CF_ROLES.get(role, ())
-    for vname, info in store.variables.items():
-        if str(info.attrs.get("standard_name", "")).strip() in names:
-            return vname
+    return [v for v, info in store.variables.items() if str(info.attrs.get("standard_name", "")).strip() in names]
+
+
+def _find_cf(store: Store, role: str) -> str | None:
+    hits = _cf_candidates(store, role)
+    return hits[0] if hits else None
+
+
+def _record_dims(store: Store) -> set:
+    """Dimensions that count records (time), not layers: a CF time coordinate or a usual name."""
+    out = set()
+    for d in store.dims:
+        info = store.variables.get(d)
+        if d.lower() in ("time", "t", "record", "records", "rec", "nrec"):
+            out.add(d)
+        elif info is not None and (str(info.attrs.get("standard_name", "")) == "time"
+                                   or str(info.attrs.get("axis", "")).upper() == "T"
+                                   or " since " in info.units.lower()):
+            out.add(d)
+    return out
+
+
+def _scalar_depth(store: Store, info: VarInfo):
+    """(node, (top, bottom), label) in metres from a CF scalar depth coordinate named in the
+    variable's ``coordinates`` attribute, or a depth axis of length 1 (its ``bounds`` give the top
+    and bottom), or None."""
+    names = str(info.attrs.get("coordinates", "")).split()
+    names += [d for d, n in zip(info.dims, info.shape) if n == 1 and d not in names]  # size-1 depth axes
+    for cname in names:
+        c = store.variables.get(cname)
+        if c is None or int(np.prod(c.shape)) != 1:
+            continue
+        if c.units.lower() not in _LENGTH_UNITS and str(c.attrs.get("standard_name", "")) != "depth":
+            continue
+        units = c.units or "m"
+        if c.units.lower() not in _LENGTH_UNITS:
+            raise InputError(f"{store.describe()}: depth coordinate '{cname}' of '{info.name}' has units "
+                             f"'{c.units}'; give it a length unit (m, cm or mm)")
+        pos = c.attrs.get("positive", "down")
+        node = float(layers_mod._to_depth_m(np.ravel(store.read(cname)), units, pos, f"{store.describe()}: {cname}")[0])
+        tb = None
+        bname = c.attrs.get("bounds")
+        if bname and bname in store.variables:
+            bv = np.sort(np.abs(layers_mod._to_depth_m(np.ravel(store.read(bname)), units, pos,
+                                                       f"{store.describe()}: {bname}")))
+            if bv.size != 2:
+                raise InputError(f"{store.describe()}: bounds '{bname}' of depth coordinate '{cname}' has {bv.size} "
+                                 "values; CF bounds of a scalar coordinate hold 2 (top and bottom)")
+            tb = (float(bv[0]), float(bv[1]), f"CF bounds '{bname}' of the scalar depth coordinate of {info.name}")
+        return node, tb, f"CF scalar depth coordinate '{cname}' of {info.name}"
     return None
+
+
+_TOP_BOTTOM_ATTRS = (("layer_top", "layer_bottom"), ("depth_top", "depth_bottom"), ("top_depth", "bottom_depth"))
+
+
+def _attr_range(store: Store, info: VarInfo):
+    """(top, bottom, label) in metres from a variable's layer top/bottom attributes, or None."""
+    for ka, kb in _TOP_BOTTOM_ATTRS:
+        if ka in info.attrs and kb in info.attrs:
+            units = info.attrs.get("depth_units") or info.attrs.get("layer_units")
+            if not units:
+                raise InputError(f"{store.describe()}: variable '{info.name}' has attributes {ka}/{kb} but no "
+                                 "depth_units attribute; add depth_units (m, cm or mm) to the file or give the "
+                                 "depths with roles.layer_interface_depth in a layout")
+            vals = layers_mod._to_depth_m([float(np.ravel(info.attrs[ka])[0]), float(np.ravel(info.attrs[kb])[0])],
+                                          str(units), "down", f"{store.describe()}: {info.name}.{ka}/{kb}")
+            return float(vals[0]), float(vals[1]), f"attributes {ka}/{kb} of {info.name}"
+    return None
+
+
+def _per_layer_depths(store: Store, infos: list) -> list:
+    """Depth candidates (for layers.resolve_layers) of a set of per-layer 2-D variables, one per
+    layer, top first. A kind of source counts only when every layer has it."""
+    out = []
+    scal = [_scalar_depth(store, i) for i in infos]
+    if all(x is not None for x in scal):
+        out.append(("node", [x[0] for x in scal], [x[2] for x in scal]))
+        if all(x[1] is not None for x in scal):
+            out.append(("top_bottom", [x[1][:2] for x in scal], [x[1][2] for x in scal]))
+    att = [_attr_range(store, i) for i in infos]
+    if all(x is not None for x in att):
+        out.append(("top_bottom", [x[:2] for x in att], [x[2] for x in att]))
+    for what in ("name", "long_name"):
+        texts = [i.name if what == "name" else i.attrs.get("long_name") for i in infos]
+        rng = [layers_mod.depth_range_in_text(t) for t in texts]
+        if all(r is not None for r in rng):
+            out.append(("top_bottom", rng, [f"the depth range in the {what} of {i.name} ('{t}')"
+                                            for i, t in zip(infos, texts)]))
+    return out
+
+
+def _depth_key(store: Store, info: VarInfo):
+    """A depth by which to order a per-layer 2-D variable among its role's candidates, or None."""
+    for cands in _per_layer_depths(store, [info]):
+        v = np.ravel(np.asarray(cands[1], float))
+        return float(v[0])
+    return None
+
+
+def _cf_role(store: Store, role: str, hdims: tuple, records: set):
+    """The CF candidates of a role: (spec, how) where spec is a name or a per-layer list, or None.
+
+    Several 2-D candidates of a layered role are one per-layer set when each has a depth (scalar
+    depth coordinate, top/bottom attributes, a range in its name or long_name); they are ordered
+    by depth. Any other case of two or more candidates is refused, naming them.
+    """
+    hits = _cf_candidates(store, role)
+    if not hits:
+        return None
+    how = "CF standard_name " + ", ".join(sorted({str(store.variables[h].attrs["standard_name"]) for h in hits}))
+    if len(hits) == 1:
+        info = store.variables[hits[0]]
+        flat = not [d for d in info.dims if d not in hdims and d not in records and store.dims[d] > 1]
+        if role in LAYERED_ROLES and flat and _depth_key(store, info) is not None:
+            return [hits[0]], how + " (one per-layer variable with its depth)"
+        return hits[0], how
+    if role in LAYERED_ROLES:
+        flat = [h for h in hits if not [d for d in store.variables[h].dims
+                                        if d not in hdims and d not in records and store.dims[d] > 1]]
+        keys = {h: _depth_key(store, store.variables[h]) for h in flat}
+        if len(flat) == len(hits) and all(k is not None for k in keys.values()):
+            ordered = sorted(hits, key=lambda h: keys[h])
+            return ordered, how + f" ({len(hits)} per-layer variables, ordered by depth)"
+    raise InputError(f"{store.describe()}: two candidates for role {role}: '{hits[0]}' and '{hits[1]}'"
+                     + (f" (and {len(hits) - 2} more)" if len(hits) > 2 else "")
+                     + f" ({how}); name the one to use under roles.{role} in a layout")
 
 
 def _var(store: Store, name: str, role: str, where: str) -> VarInfo:
@@ -382,19 +515,44 @@ def build_grid(store: Store, lon_name: str, lat_name: str, area_name: str | None
             raise InputError(f"{store.describe()}: cell area '{area_name}' has units '{info.units}'; expected m2 or km2")
         area = np.where(np.isfinite(area), area, 0.0)
         src = f"variable {area_name}"
+    elif kind == "regular" and lon_i.attrs.get("bounds") in store.variables and lat_i.attrs.get("bounds") in store.variables:
+        blon = np.asarray(store.read(lon_i.attrs["bounds"]), float)
+        blat = np.asarray(store.read(lat_i.attrs["bounds"]), float)
+        if blon.shape != (lon.size, 2) or blat.shape != (lat.size, 2):
+            raise InputError(f"{store.describe()}: CF cell bounds '{lon_i.attrs['bounds']}' {blon.shape} / "
+                             f"'{lat_i.attrs['bounds']}' {blat.shape} do not have shape (n, 2) of their coordinates")
+        r_m = geodesy.EARTH_RADIUS_KM * 1.0e3
+        area = r_m * r_m * geodesy.cell_areas_from_bounds_1d(blon, blat)
+        src = (f"computed from the CF cell bounds {lon_i.attrs['bounds']}/{lat_i.attrs['bounds']} on a sphere of "
+               f"R = {geodesy.EARTH_RADIUS_KM} km")
     elif kind == "regular":
         area = None
         src = "computed for a regular grid on a sphere of R = 6371.0 km"
+    elif kind == "curvilinear" and lon_i.attrs.get("bounds") in store.variables \
+            and lat_i.attrs.get("bounds") in store.variables:
+        blon = np.asarray(store.read(lon_i.attrs["bounds"]), float)
+        blat = np.asarray(store.read(lat_i.attrs["bounds"]), float)
+        if blon.shape != lon.shape + (4,) or blat.shape != lat.shape + (4,):
+            raise InputError(f"{store.describe()}: CF cell corners '{lon_i.attrs['bounds']}' {blon.shape} / "
+                             f"'{lat_i.attrs['bounds']}' {blat.shape} do not have the shape {lon.shape + (4,)} "
+                             "(nj, ni, 4) of 2-D cell corners")
+        area = geodesy.spherical_polygon_area_m2(blon, blat)
+        src = (f"computed from the CF cell corners {lon_i.attrs['bounds']}/{lat_i.attrs['bounds']} "
+               f"(great-circle edges) on a sphere of R = {geodesy.EARTH_RADIUS_KM} km")
     else:
-        warnings.warn(f"{store.describe()}: no cell-area variable for a {kind} grid; area-weighted means use "
-                      "equal weights (name roles.cell_area in the layout for true areas)", InputWarning, stacklevel=3)
+        why = ("a list of points has no cell area; name roles.cell_area in the layout" if kind == "points" else
+               "a curvilinear grid without a cell-area variable or CF cell corners (bounds); name roles.cell_area "
+               "in the layout or add corner bounds")
+        warnings.warn(f"{store.describe()}: no cell-area variable and no cell bounds ({why}); area-weighted means use equal weights and totals "
+                      "in kg and J are left out", InputWarning, stacklevel=3)
         area = "equal"
-        src = "equal weights (no cell-area variable)"
+        src = f"unknown: {why}; means use equal weights and totals are left out"
     return Grid(lon, lat, dims, kind, area, src)
 
 
 def _layer_dim_of(info: VarInfo, hdims: tuple, given: str | None, store: Store, where: str) -> str | None:
-    rest = [d for d in info.dims if d not in hdims]
+    records = _record_dims(store)
+    rest = [d for d in info.dims if d not in hdims and d not in records]
     if given:
         if given in hdims:
             raise InputError(f"{where}: layer_dimension '{given}' is a horizontal dimension of the grid {hdims}; "
@@ -403,6 +561,8 @@ def _layer_dim_of(info: VarInfo, hdims: tuple, given: str | None, store: Store, 
     if not rest:
         return None
     big = [d for d in rest if store.dims[d] > 1]
+    if not big and [d for d in info.dims if d in records and store.dims[d] > 1]:
+        return None
     if len(big) == 1:
         return big[0]
     if not big:
@@ -438,68 +598,96 @@ def _bind(store, role, spec, hdims, layout_data, where) -> Role:
             if ldim and nsnow:
                 sel = slice(0, nsnow) if role.startswith("snow_") else slice(nsnow, None)
         views.append(View(info, hdims, ldim, sel))
-    layered = layered_role and (len(views) > 1 or views[0].layer_dim is not None)
+    layered = layered_role and (isinstance(spec, list) or views[0].layer_dim is not None)
+    def big(info):  # axes of length 1 (a per-layer depth axis, a single record) may differ by name
+        return [(d, n) for d, n in zip(info.dims, info.shape) if n > 1]
+
     for v in views[1:]:
-        if v.info.dims != views[0].info.dims:
+        if big(v.info) != big(views[0].info):
             raise InputError(f"{store.describe()}: per-layer variables of role {role} differ in dims "
                              f"({views[0].info.name}{views[0].info.dims} vs {v.info.name}{v.info.dims})")
     fallback = ((layout_data or {}).get("units") or {}).get(role) or ""
     return Role(role, views, layered, fallback)
 
 
+def _depth_values(store: Store, spec, role: str, soil: Role | None, key: str):
+    """A layout depth role (values or a variable) as (values, units, positive)."""
+    if isinstance(spec, dict):
+        return np.asarray(spec["values"], float), spec["units"], spec["positive"]
+    info = _var(store, spec, role, key.rsplit(": roles.", 1)[0])
+    vals = store.read(spec)
+    if vals.ndim > 1:
+        # depth per column: must be the same everywhere (a per-column geometry is not supported yet)
+        hd = _hdims_of(soil)
+        order = [i for i, d in enumerate(info.dims) if d not in hd] + \
+                [i for i, d in enumerate(info.dims) if d in hd]
+        moved = np.transpose(vals, order)
+        nlay = int(np.prod([info.shape[i] for i in order if info.dims[i] not in hd]))
+        flat = moved.reshape(nlay, -1)
+        col = flat[:, 0]
+        if not np.allclose(flat, col[:, None], equal_nan=True):
+            raise InputError(f"{key}: variable '{spec}' varies between columns; initgen needs one set of "
+                             "layer depths for the whole grid (give values in the layout)")
+        vals = col
+    return vals, info.units or "m", str(info.attrs.get("positive", "down"))
+
+
 def _depth_layers(store: Store, layout_data: dict | None, soil: Role | None, where: str):
-    """Soil layer geometry from the layout's depth roles, or from the layer axis' coordinate."""
-    roles = (layout_data or {}).get("roles") or {}
-    nsnow = int((layout_data or {}).get("snow_layers") or 0)
+    """Soil layer geometry from every source the layout and the file give (layers.resolve_layers).
+
+    Sources: the layout's depth roles (node depths, interfaces, thicknesses); the layer axis'
+    coordinate (node depths) and its CF ``bounds``; for per-layer 2-D variables, their CF scalar
+    depth coordinates (and bounds), layer top/bottom attributes and depth ranges written in their
+    names or long_names. Sources that disagree are refused naming both; interfaces are never put
+    halfway between nodes unless the layout says ``interfaces: midpoints_between_nodes``.
+    """
+    data = layout_data or {}
+    roles = data.get("roles") or {}
+    nsnow = int(data.get("snow_layers") or 0)
     nsoil = soil.nlayers if soil is not None and soil.layered else None
-    ctor = {"layer_node_depth": layers_mod.Layers.from_nodes, "layer_interface_depth": layers_mod.Layers.from_interfaces,
-            "layer_thickness": layers_mod.Layers.from_thicknesses}
-    for role, make in ctor.items():
+    cands = []
+    kinds = {"layer_node_depth": "node", "layer_interface_depth": "interface", "layer_thickness": "thickness"}
+    for role, kind in kinds.items():
         spec = roles.get(role)
         if spec is None:
             continue
         key = f"{where}: roles.{role}"
-        if isinstance(spec, dict):
-            vals = np.asarray(spec["values"], float)
-            units, positive = spec["units"], spec["positive"]
-        else:
-            info = _var(store, spec, role, where)
-            vals = store.read(spec)
-            if vals.ndim > 1:
-                # depth per column: must be the same everywhere (a per-column geometry is not supported yet)
-                hd = _hdims_of(soil)
-                order = [i for i, d in enumerate(info.dims) if d not in hd] + \
-                        [i for i, d in enumerate(info.dims) if d in hd]
-                moved = np.transpose(vals, order)
-                nlay = int(np.prod([info.shape[i] for i in order if info.dims[i] not in hd]))
-                flat = moved.reshape(nlay, -1)
-                col = flat[:, 0]
-                if not np.allclose(flat, col[:, None], equal_nan=True):
-                    raise InputError(f"{key}: variable '{spec}' varies between columns; initgen needs one set of "
-                                     "layer depths for the whole grid (give values in the layout)")
-                vals = col
-            units = info.units or "m"
-            positive = str(info.attrs.get("positive", "down"))
+        vals, units, positive = _depth_values(store, spec, role, soil, key)
         vals = _soil_part(vals, role, nsnow, nsoil)
-        return make(vals, units=units, positive=positive, name=key)
-    if soil is not None and soil.layered and soil.views[0].layer_dim:
+        z = layers_mod._to_depth_m(vals, units, positive, key)
+        label = f"layout roles.{role}" + (f" (variable {spec})" if isinstance(spec, str) else " (values)")
+        cands.append((kind, z, label))
+    if soil is not None and soil.layered and soil.views[0].layer_dim and len(soil.views) == 1:
         ldim = soil.views[0].layer_dim
-        if ldim in store.variables:
-            info = store.variables[ldim]
-            if info.units.lower() in _LENGTH_UNITS or str(info.attrs.get("standard_name", "")) == "depth":
-                bounds = info.attrs.get("bounds")
-                if bounds and bounds in store.variables:
-                    b = store.read(bounds)
-                    interfaces = np.concatenate([b[:, 0], b[-1:, 1]])
-                    interfaces = _soil_part(interfaces, "layer_interface_depth", nsnow, nsoil)
-                    return layers_mod.Layers.from_interfaces(interfaces, units=info.units or "m",
-                                                      positive=str(info.attrs.get("positive", "down")),
-                                                      name=f"{store.describe()}: {bounds}")
-                vals = _soil_part(store.read(ldim), "layer_node_depth", nsnow, nsoil)
-                return layers_mod.Layers.from_nodes(vals, units=info.units or "m",
-                                             positive=str(info.attrs.get("positive", "down")),
-                                             name=f"{store.describe()}: {ldim}")
-    return None
+        info = store.variables.get(ldim)
+        if info is not None and (info.units.lower() in _LENGTH_UNITS or str(info.attrs.get("standard_name", "")) == "depth"):
+            units = info.units or "m"
+            pos = str(info.attrs.get("positive", "down"))
+            bounds = info.attrs.get("bounds")
+            if bounds and bounds in store.variables:
+                bv = np.asarray(store.read(bounds), float)
+                if bv.ndim != 2 or bv.shape[1] != 2:
+                    raise InputError(f"{store.describe()}: bounds '{bounds}' of '{ldim}' has shape {bv.shape}; CF "
+                                     "bounds of a layer axis have shape (layers, 2)")
+                name = f"{store.describe()}: {bounds}"
+                tb = np.abs(np.stack([layers_mod._to_depth_m(bv[:, 0], units, pos, name),
+                                      layers_mod._to_depth_m(bv[:, 1], units, pos, name)], axis=1))
+                tb = np.sort(tb, axis=1)
+                if nsoil is not None and nsnow and tb.shape[0] == nsoil + nsnow:
+                    tb = tb[nsnow:]
+                cands.append(("top_bottom", tb, f"CF bounds '{bounds}' of the layer axis '{ldim}'"))
+            vals = _soil_part(store.read(ldim), "layer_node_depth", nsnow, nsoil)
+            cands.append(("node", layers_mod._to_depth_m(vals, units, pos, f"{store.describe()}: {ldim}"),
+                          f"the layer axis coordinate '{ldim}'"))
+    if soil is not None and (len(soil.views) > 1 or (soil.layered and soil.views[0].layer_dim is None)):
+        cands.extend(_per_layer_depths(store, [v.info for v in soil.views]))
+    midpoints = data.get("interfaces") == "midpoints_between_nodes"
+    if not cands:
+        if midpoints:
+            raise InputError(f"{where}: interfaces: midpoints_between_nodes needs node depths, and none were found; "
+                             "name roles.layer_node_depth")
+        return None
+    return layers_mod.resolve_layers(cands, midpoints=midpoints, name=f"{store.describe()}")
 
 
 def _hdims_of(role):
@@ -518,47 +706,160 @@ def _soil_part(vals, role, nsnow, nsoil):
     return vals  # the layers module reports the size mismatch later via the plan
 
 
+def _check_records(store: Store, roles: dict) -> None:
+    """Refuse a role variable with several records (a time axis longer than 1): initgen perturbs
+    one state. A record axis of length 1 is read and written like any other length-1 axis; other
+    extra axes (sub-grid tiles, say) keep being perturbed entry by entry, as before."""
+    records = _record_dims(store)
+    for role in roles.values():
+        for v in role.views:
+            for d, n in zip(v.info.dims, v.info.shape):
+                if d in records and d not in v.hdims and d != v.layer_dim and n > 1:
+                    raise InputError(f"{store.describe()}: variable '{v.info.name}' (role {role.name}) has {n} "
+                                     f"records along '{d}'; initgen perturbs one state at a time: write each record "
+                                     "to a file of its own and apply the recipe to each")
+
+
+def _check_per_layer_depths(store: Store, bound: dict, soil, layer_geom) -> None:
+    """Per-layer 2-D variables of the other layered roles (water, ice, parameters) that carry
+    their own depths must describe the soil temperature's layers, in the same order."""
+    ref = ("top_bottom", np.stack([layer_geom.top_m, layer_geom.bottom_m], axis=1),
+           "the soil temperature's layers")
+    for name, role in bound.items():
+        if role is soil or name == "snow_temperature" or len(role.views) < 2:
+            continue
+        cands = _per_layer_depths(store, [v.info for v in role.views])
+        if cands:
+            layers_mod.resolve_layers([ref] + [c for c in cands if c[0] != "node"],
+                                      name=f"{store.describe()}: role {name}")
+
+
+def _grid_store(layout, where: str, store: Store):
+    """The separate grid file a layout names (``grid_file``), opened read-only, or None."""
+    data = layout.data if layout is not None else None
+    spec = (data or {}).get("grid_file")
+    if not spec:
+        return None, {}
+    from pathlib import Path
+
+    from .restart import NetCDFStore
+
+    text = str(spec["path"])
+    if "{tile}" in text:
+        # one grid file per tile: the tile comes from the restart's own file name
+        import re
+
+        name = Path(getattr(store, "label", None) or store.path or "").name
+        pattern = spec.get("tile_pattern") or r"tile(\d+)"
+        try:
+            m = re.search(pattern, name)
+        except re.error as exc:
+            raise InputError(f"{where}: grid_file.tile_pattern {pattern!r} is not a regular expression ({exc})") from None
+        if m is None or not m.groups():
+            raise InputError(f"{where}: grid_file.path '{text}' has {{tile}} but the input's name '{name}' does not "
+                             f"match grid_file.tile_pattern {pattern!r} (with one group for the tile)")
+        text = text.replace("{tile}", m.group(1))
+    path = Path(text)
+    if not path.is_absolute():
+        base = Path(layout.path).parent if getattr(layout, "path", None) else Path.cwd()
+        path = base / path
+    if not path.is_file():
+        raise InputError(f"{where}: grid_file.path '{text}' does not exist ({path}); give the file holding "
+                         "the grid's longitude and latitude")
+    return NetCDFStore(path), spec
+
+
 def open_model(store: Store, layout=None, needed: tuple = ()) -> ModelFile:
-    """Resolve roles, grid and soil layers of ``store`` from ``layout`` (a Document) or CF attributes."""
+    """Resolve roles, grid and soil layers of ``store`` from ``layout`` (a Document) and CF attributes.
+
+    A layout overrides the roles it names; every other role is found by CF attributes, and
+    ``role_sources`` says which came from where.
+    """
     data = layout.data if layout is not None else None
     where = str(layout.path) if layout is not None and layout.path else ("layout" if layout else "CF detection")
     roles_spec = dict((data or {}).get("roles") or {})
-    lon_name = roles_spec.get("longitude") or find_coordinate(store, "lon")
-    lat_name = roles_spec.get("latitude") or find_coordinate(store, "lat")
-    if lon_name and lon_name not in store.variables:
-        _var(store, lon_name, "longitude", where)
-    if lat_name and lat_name not in store.variables:
-        _var(store, lat_name, "latitude", where)
-    if not lon_name or not lat_name:
-        raise InputError(f"{store.describe()}: no longitude/latitude variables found; give them standard_name "
-                         "longitude/latitude or name roles.longitude and roles.latitude in a layout")
-    area_name = roles_spec.get("cell_area") or (None if data else _find_cf(store, "cell_area"))
-    if area_name:
-        _var(store, area_name, "cell_area", where)
-    grid = build_grid(store, lon_name, lat_name, area_name, where)
+    gstore, gspec = _grid_store(layout, where, store)
+    sources = {}
+    try:
+        cstore = gstore or store
+        lon_name = gspec.get("longitude") or roles_spec.get("longitude") or find_coordinate(cstore, "lon")
+        lat_name = gspec.get("latitude") or roles_spec.get("latitude") or find_coordinate(cstore, "lat")
+        if lon_name and lon_name not in cstore.variables:
+            _var(cstore, lon_name, "longitude", where)
+        if lat_name and lat_name not in cstore.variables:
+            _var(cstore, lat_name, "latitude", where)
+        if not lon_name or not lat_name:
+            raise InputError(f"{cstore.describe()}: no longitude/latitude variables found; give them standard_name "
+                             "longitude/latitude or name roles.longitude and roles.latitude in a layout")
+        if gstore is not None:
+            area_name = gspec.get("cell_area")
+            if area_name:
+                _var(gstore, area_name, "cell_area", where)
+        else:
+            area_name = roles_spec.get("cell_area")
+            if area_name:
+                _var(store, area_name, "cell_area", where)
+                sources["cell_area"] = "layout roles.cell_area"
+            else:
+                found = _cf_role(store, "cell_area", (), set())
+                area_name = found[0] if found else None
+                if found:
+                    sources["cell_area"] = found[1]
+        grid = build_grid(cstore, lon_name, lat_name, area_name, where)
+        if gstore is not None:
+            for d, n in zip(grid.dims, grid.shape):
+                if store.dims.get(d) != n:
+                    raise InputError(f"{where}: grid_file {gstore.describe()} has dimension '{d}' of length {n}, "
+                                     f"but {store.describe()} has "
+                                     + (f"length {store.dims[d]}" if d in store.dims else "no such dimension")
+                                     + "; the grid file must describe the restart's horizontal dimensions")
+            for r, n in (("longitude", lon_name), ("latitude", lat_name), ("cell_area", area_name)):
+                if n:
+                    sources[r] = f"grid_file {gstore.describe()} variable {n}"
+        else:
+            sources.setdefault("longitude", "layout roles.longitude" if roles_spec.get("longitude") else
+                               "CF attributes (find_coordinate)")
+            sources.setdefault("latitude", "layout roles.latitude" if roles_spec.get("latitude") else
+                               "CF attributes (find_coordinate)")
+    finally:
+        if gstore is not None:
+            gstore.close()
     bound = {}
+    records = _record_dims(store)
     all_roles = list(CF_ROLES) + ["porosity", "psi_sat", "clapp_b", "sand", "clay", "snow_layer_mass",
                                   "snow_layer_count"]
     for role in all_roles:
-        spec = roles_spec.get(role)
-        if spec is None and data is None:
-            spec = _find_cf(store, role)
-        if spec is None or role == "cell_area":
+        if role == "cell_area":
             continue
+        spec = roles_spec.get(role)
+        how = f"layout roles.{role}"
+        if spec is None:
+            found = _cf_role(store, role, grid.dims, records)
+            if found is None:
+                continue
+            spec, how = found
         bound[role] = _bind(store, role, spec, grid.dims, data, where)
+        sources[role] = how
     from . import water as water_mod
 
     # the physics' liquid and ice may come from any water convention (water.py): checked there
     water_needed = any(r in needed for r in ("soil_liquid", "soil_ice"))
     missing = [r for r in needed if r not in bound and not (water_needed and r in water_mod.WATER_ROLES)]
     if missing:
-        how = "the layout" if data else "CF standard_name attributes"
+        how = "the layout or CF standard_name attributes" if data else "CF standard_name attributes"
         raise InputError(f"{store.describe()}: could not find role(s) {', '.join(missing)} by {how}; "
                          f"map them under roles: in a layout (--layout)")
+    _check_records(store, bound)
     soil = bound.get("soil_temperature")
     layer_geom = _depth_layers(store, data, soil, where)
+    if layer_geom is not None and layer_geom.interfaces_known:
+        _check_per_layer_depths(store, bound, soil, layer_geom)
     ldim = soil.views[0].layer_dim if soil is not None and soil.layered else None
-    model = ModelFile(store, grid, bound, layer_geom, ldim, f"layout {layout.name}" if layout else "CF attributes")
+    src = f"layout {layout.name}" + (" and CF attributes" if any(not v.startswith(("layout", "grid_file"))
+                                                                 for v in sources.values()) else "") \
+        if layout else "CF attributes"
+    model = ModelFile(store, grid, bound, layer_geom, ldim, src, role_sources=sources,
+                      grid_file=None if gstore is None else str(gstore.path))
     for r in bound.values():
         r.limits = model.limits
     model.water = water_mod.resolve(bound, data, f"{store.describe()} ({where})" if data else store.describe(),

@@ -162,7 +162,10 @@ def _ledger_tables(ledger: dict) -> list[str]:
     out = []
     reg = ledger["region"]
     out.append(f"<p>Region: {reg['cells_weight_above_0']} cells with weight &gt; 0 ({reg['cells_full_weight']} at "
-               f"full weight), {esc(reg.get('area_is', 'area'))} {reg['area_m2'] / 1e6:,.0f} km2.</p>")
+               f"full weight), " + (f"{esc(reg.get('area_is', 'area'))} {reg['area_m2'] / 1e6:,.0f} km2.</p>"
+                                    if reg.get("area_m2") is not None else
+                                    f"area {esc(reg.get('area_is', 'not known'))}: means use equal weights and "
+                                    "totals in kg and J are left out.</p>"))
     for name, var in ledger["variables"].items():
         parts = name.split("+")
         out.append(f"<h3>{esc(short_label(name))} ({esc(var['role'])}, change in {esc(var['units'])})</h3>")

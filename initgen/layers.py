@@ -12,13 +12,14 @@ in each docstring.
 
 from __future__ import annotations
 
+import re
 from dataclasses import dataclass
 
 import numpy as np
 
 from initgen.errors import InputError
 
-__all__ = ["Layers", "split_snow_soil", "units_to_metres"]
+__all__ = ["Layers", "resolve_layers", "depth_range_in_text", "split_snow_soil", "units_to_metres"]
 
 #: Spellings accepted for the ``units`` argument, mapped to the factor that converts to metres.
 _UNIT_FACTORS = {
@@ -180,11 +181,16 @@ class Layers:
     top_m: np.ndarray
     bottom_m: np.ndarray
     node_m: np.ndarray
+    source: tuple = ()
 
     def __post_init__(self) -> None:
         arrays = {}
+        unknown = _all_nan(self.top_m) and _all_nan(self.bottom_m)
         for field in ("top_m", "bottom_m", "node_m"):
-            arr = _as_1d(getattr(self, field), f"Layers.{field}")
+            if unknown and field != "node_m":
+                arr = np.full(np.shape(self.top_m), np.nan)
+            else:
+                arr = _as_1d(getattr(self, field), f"Layers.{field}")
             arr.setflags(write=False)
             arrays[field] = arr
         top, bottom, node = arrays["top_m"], arrays["bottom_m"], arrays["node_m"]
@@ -193,14 +199,44 @@ class Layers:
                 f"Layers: top_m, bottom_m and node_m must have the same length; got "
                 f"{top.size}, {bottom.size} and {node.size}"
             )
-        _validate_geometry(top, bottom, node, "Layers")
+        if unknown:
+            _check_increasing(node, "Layers (node_m)", "node depth")
+            if node[0] < 0.0:
+                raise InputError(f"Layers: node of layer 0 is above the surface ({node[0]:g} m)")
+        else:
+            _validate_geometry(top, bottom, node, "Layers")
         for field, arr in arrays.items():
             object.__setattr__(self, field, arr)
+        src = tuple(str(x) for x in (self.source or ()))
+        if src and len(src) != node.size:
+            src = (src[0],) * node.size if len(src) == 1 else src
+        if src and len(src) != node.size:
+            raise InputError(f"Layers: {len(src)} source descriptions for {node.size} layers")
+        object.__setattr__(self, "source", src or ("given",) * node.size)
+
+    @property
+    def interfaces_known(self) -> bool:
+        """False when only node depths are known (top_m and bottom_m are then NaN)."""
+        return bool(np.all(np.isfinite(self.top_m)))
+
+    def require_interfaces(self, why: str) -> None:
+        """Raise InputError unless the layer interfaces are known; `why` says who needs them."""
+        if not self.interfaces_known:
+            raise InputError(
+                f"{why} needs the soil layer interfaces, but only node depths are known "
+                f"({self.source[0]}); give the interfaces (a CF bounds variable, "
+                "roles.layer_interface_depth or roles.layer_thickness in the layout), or, to place them "
+                "halfway between the nodes, set 'interfaces: midpoints_between_nodes' in the layout"
+            )
 
     # ------------------------------------------------------------------ properties
     @property
     def thickness_m(self) -> np.ndarray:
-        """Layer thickness ``bottom_m - top_m`` in metres, shape ``(n,)``."""
+        """Layer thickness ``bottom_m - top_m`` in metres, shape ``(n,)``.
+
+        Raises InputError when the interfaces are not known (see :meth:`require_interfaces`).
+        """
+        self.require_interfaces("the layer thickness")
         out = self.bottom_m - self.top_m
         out.setflags(write=False)
         return out
@@ -217,6 +253,7 @@ class Layers:
         Only meaningful for contiguous layers (``bottom[i] == top[i+1]``), which every
         constructor of this module produces.
         """
+        self.require_interfaces("the layer interfaces")
         out = np.concatenate([self.top_m[:1], self.bottom_m])
         out.setflags(write=False)
         return out
@@ -228,8 +265,8 @@ class Layers:
         if not isinstance(other, Layers):
             return NotImplemented
         return bool(
-            np.array_equal(self.top_m, other.top_m)
-            and np.array_equal(self.bottom_m, other.bottom_m)
+            np.array_equal(self.top_m, other.top_m, equal_nan=True)
+            and np.array_equal(self.bottom_m, other.bottom_m, equal_nan=True)
             and np.array_equal(self.node_m, other.node_m)
         )
 
@@ -293,7 +330,7 @@ class Layers:
         interior = 0.5 * (z[:-1] + z[1:])
         top = np.concatenate([[0.0], interior])
         bottom = np.concatenate([interior, [2.0 * z[-1] - top[-1]]])
-        return cls(top, bottom, z)
+        return cls(top, bottom, z, (f"interfaces halfway between the nodes of {name} (asked for by name); node from {name}",))
 
     @classmethod
     def from_interfaces(
@@ -333,7 +370,7 @@ class Layers:
                 f"{name}: the first interface (index 0, {z[0]:g} m) is above the surface; "
                 "give depths >= 0 (snow layers belong on their own axis, see split_snow_soil)"
             )
-        return cls(z[:-1], z[1:], 0.5 * (z[:-1] + z[1:]))
+        return cls(z[:-1], z[1:], 0.5 * (z[:-1] + z[1:]), (f"interfaces from {name}; node at the layer middle",))
 
     @classmethod
     def from_thicknesses(
@@ -373,7 +410,16 @@ class Layers:
                 "than 0"
             )
         interfaces = np.concatenate([[0.0], np.cumsum(t)])
-        return cls(interfaces[:-1], interfaces[1:], 0.5 * (interfaces[:-1] + interfaces[1:]))
+        return cls(interfaces[:-1], interfaces[1:], 0.5 * (interfaces[:-1] + interfaces[1:]),
+                   (f"thicknesses from {name} stacked from the surface; node at the layer middle",))
+
+
+def _all_nan(values) -> bool:
+    try:
+        arr = np.asarray(values, dtype=np.float64)
+    except (TypeError, ValueError):
+        return False
+    return arr.ndim == 1 and arr.size > 0 and bool(np.all(np.isnan(arr)))
 
 
 def _validate_geometry(top: np.ndarray, bottom: np.ndarray, node: np.ndarray, name: str) -> None:
@@ -408,6 +454,181 @@ def _validate_geometry(top: np.ndarray, bottom: np.ndarray, node: np.ndarray, na
                 f"{name}: layer {i} starts at {top[i]:g} m, above the bottom of layer {i - 1} "
                 f"({bottom[i - 1]:g} m); layers must not overlap"
             )
+
+
+#: Two depths from different sources agree when they differ by less than this (m): 1 micrometre
+#: plus 1e-6 relative, far below any layer thickness and above float32 rounding of a depth in cm.
+_AGREE_ABS_M = 1.0e-6
+_AGREE_REL = 1.0e-6
+
+_RANGE = re.compile(
+    r"(?<![\d.])(\d+(?:\.\d+)?)\s*(?:-|_|to|\u2013)\s*(\d+(?:\.\d+)?)\s*(mm|cm|m)(?![a-z])",
+    re.IGNORECASE,
+)
+
+
+def depth_range_in_text(text) -> tuple[float, float] | None:
+    """The layer depth range written in a variable name or long_name, in metres, or None.
+
+    Recognises ``<top><sep><bottom><units>`` with ``sep`` one of ``-``, ``_``, ``to`` (blanks
+    allowed) and units ``mm``, ``cm`` or ``m``: ``"tsoil_0_10cm"`` -> (0.0, 0.1),
+    ``"Soil temperature 10-40 cm"`` -> (0.1, 0.4), ``"0.28 to 1.0 m"`` -> (0.28, 1.0). A text
+    with no such range, with more than one, or with a range whose bottom is not below its top
+    gives None (the caller then has no depth from this source).
+    """
+    if not text:
+        return None
+    found = _RANGE.findall(str(text))
+    if len(found) != 1:
+        return None
+    a, b, unit = found[0]
+    f = units_to_metres(unit.lower())
+    top, bottom = float(a) * f, float(b) * f
+    if not bottom > top:
+        return None
+    return top, bottom
+
+
+def _agree(a, b) -> np.ndarray:
+    a, b = np.asarray(a, float), np.asarray(b, float)
+    return np.abs(a - b) <= _AGREE_ABS_M + _AGREE_REL * np.maximum(np.abs(a), np.abs(b))
+
+
+def _labels(label, n: int) -> list:
+    if isinstance(label, (list, tuple)):
+        return [str(x) for x in label]
+    return [str(label)] * n
+
+
+def resolve_layers(candidates, *, midpoints: bool = False, name: str = "layers") -> Layers:
+    """Layer geometry from every source that describes it, refusing sources that disagree.
+
+    Parameters
+    ----------
+    candidates : list of (kind, values, label)
+        Depth information already in metres, positive down. ``kind`` is ``'node'`` (``(n,)``
+        node depths), ``'interface'`` (``(n + 1,)`` interface depths), ``'top_bottom'``
+        (``(n, 2)`` top and bottom of each layer, e.g. from CF bounds of per-layer variables or
+        depth ranges in their names) or ``'thickness'`` (``(n,)``). ``label`` says where the values
+        came from (a string, or one string per layer) and is what messages and
+        :attr:`Layers.source` show.
+    midpoints : bool, optional
+        Only when nothing but node depths is known: place the interfaces halfway between the
+        nodes (:meth:`Layers.from_nodes`). Without it the interfaces stay unknown and whatever
+        needs them refuses (:meth:`Layers.require_interfaces`). Interfaces are never guessed.
+    name : str, optional
+        Prefix of error messages (the file or layout).
+
+    Returns
+    -------
+    Layers
+        With a per-layer ``source`` string naming where the top/bottom and the node came from.
+
+    Raises
+    ------
+    InputError
+        Sources of different layer counts, interfaces or thicknesses that disagree by more than
+        1e-6 m (+1e-6 relative), or a node outside its layer: the message names both sources.
+
+    Notes
+    -----
+    Construction (definitions, no published formula): interfaces from interface or top/bottom
+    sources; otherwise thicknesses stacked down from the surface (0 m). Nodes from node sources;
+    otherwise the layer middle, which the source string says.
+    """
+    cands = [(k, np.asarray(v, float), lab) for k, v, lab in candidates]
+    if not cands:
+        raise InputError(f"{name}: no layer depths given")
+    counts = []
+    for k, v, lab in cands:
+        where = f"{name}: {_labels(lab, 1)[0]}"
+        if k in ("node", "interface"):
+            _check_increasing(v, where, "node depth" if k == "node" else "interface depth")
+        elif k == "top_bottom":
+            if v.ndim != 2 or v.shape[1] != 2:
+                raise InputError(f"{where}: expected a (top, bottom) pair per layer, got shape {v.shape}")
+            _check_increasing(v[:, 0], where, "layer top")
+        n = v.shape[0] - 1 if k == "interface" else v.shape[0]
+        counts.append((n, lab))
+    n0, lab0 = counts[0]
+    for n, lab in counts[1:]:
+        if n != n0:
+            raise InputError(f"{name}: {_labels(lab0, 1)[0]} describes {n0} layers but {_labels(lab, 1)[0]} "
+                             f"describes {n} layers; the two depth sources disagree: fix or drop one")
+    n = n0
+    top = bottom = None
+    ilab = None
+    for k, v, lab in cands:
+        if k not in ("interface", "top_bottom"):
+            continue
+        t, b = (v[:-1], v[1:]) if k == "interface" else (v[:, 0], v[:, 1])
+        labs = _labels(lab, n)
+        if top is None:
+            top, bottom, ilab = t.copy(), b.copy(), labs
+            continue
+        bad = np.flatnonzero(~(_agree(t, top) & _agree(b, bottom)))
+        if bad.size:
+            i = int(bad[0])
+            raise InputError(f"{name}: layer {i} is {top[i]:g}..{bottom[i]:g} m by {ilab[i]} but {t[i]:g}..{b[i]:g} m "
+                             f"by {labs[i]}; the two depth sources disagree: fix or drop one")
+    for k, v, lab in cands:
+        if k != "thickness":
+            continue
+        labs = _labels(lab, n)
+        if top is None:
+            if np.any(v <= 0.0):
+                i = int(np.flatnonzero(v <= 0.0)[0])
+                raise InputError(f"{name}: thickness of layer {i} from {labs[i]} is {v[i]:g} m; every layer must "
+                                 "be thicker than 0")
+            z = np.concatenate([[0.0], np.cumsum(v)])
+            top, bottom = z[:-1], z[1:]
+            ilab = [f"thicknesses from {x} stacked from the surface" for x in labs]
+            continue
+        bad = np.flatnonzero(~_agree(bottom - top, v))
+        if bad.size:
+            i = int(bad[0])
+            raise InputError(f"{name}: layer {i} is {v[i]:g} m thick by {labs[i]} but {bottom[i] - top[i]:g} m "
+                             f"({top[i]:g}..{bottom[i]:g} m) by {ilab[i]}; the thicknesses do not sum to the "
+                             "interfaces: fix or drop one")
+    node = None
+    nlab = None
+    for k, v, lab in cands:
+        if k != "node":
+            continue
+        labs = _labels(lab, n)
+        if node is None:
+            node, nlab = v.copy(), labs
+        else:
+            bad = np.flatnonzero(~_agree(v, node))
+            if bad.size:
+                i = int(bad[0])
+                raise InputError(f"{name}: node of layer {i} is at {node[i]:g} m by {nlab[i]} but {v[i]:g} m by "
+                                 f"{labs[i]}; the two depth sources disagree: fix or drop one")
+        if top is not None:
+            tol = _AGREE_ABS_M + _AGREE_REL * np.abs(v)
+            out = np.flatnonzero((v < top - tol) | (v > bottom + tol))
+            if out.size:
+                i = int(out[0])
+                raise InputError(f"{name}: node of layer {i} at {v[i]:g} m by {labs[i]} lies outside the layer "
+                                 f"{top[i]:g}..{bottom[i]:g} m by {ilab[i]}; the two depth sources disagree: fix or "
+                                 "drop one")
+    if top is None:
+        if midpoints:
+            made = Layers.from_nodes(node, name=nlab[0])
+            return Layers(made.top_m, made.bottom_m, made.node_m,
+                          tuple(f"interfaces halfway between the nodes (layout asks midpoints_between_nodes); "
+                                f"node from {x}" for x in nlab))
+        return Layers(np.full(n, np.nan), np.full(n, np.nan), node,
+                      tuple(f"interfaces unknown (only node depths given); node from {x}" for x in nlab))
+    if node is None:
+        node = 0.5 * (top + bottom)
+        nlab = ["the layer middle (no node depth given)"] * n
+    else:
+        node = np.clip(node, top, bottom)
+    if midpoints:
+        raise InputError(f"{name}: the layout asks for interfaces halfway between the nodes, but the interfaces are "
+                         f"given ({ilab[0]}); drop 'interfaces: midpoints_between_nodes'")
+    return Layers(top, bottom, node, tuple(f"top/bottom from {a}; node from {b}" for a, b in zip(ilab, nlab)))
 
 
 def split_snow_soil(n_snow: int, n_total: int) -> tuple[slice, slice]:

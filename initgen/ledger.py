@@ -129,7 +129,8 @@ class Ledger:
         region_area = float(self.plan.area[self.plan.region].sum())
         out = {
             "grid": {"kind": model.grid.kind, "shape": list(model.grid.shape), "dims": list(model.grid.dims),
-                     "cell_area": model.grid.area_source, "roles_from": model.source},
+                     "cell_area": model.grid.area_source, "roles_from": model.source,
+                     "soil_layers": _layer_geometry(model.layers)},
             "region": {
                 "cells_weight_above_0": int(self.plan.region.sum()),
                 "cells_full_weight": int(np.any([b.weight >= 1.0 for b in self.plan.blocks], axis=0).sum()),
@@ -156,10 +157,16 @@ class Ledger:
             "cells_not_in_phase_equilibrium_before": int(self.disequilibrium),
         }
         if model.layers is not None:  # layer geometry, so a record can be collated without the model file
-            out["layers"] = {"top_m": [_num(v) for v in model.layers.top_m],
-                             "bottom_m": [_num(v) for v in model.layers.bottom_m]}
+            # (None where the file gives no interfaces: nodes only)
+            out["layers"] = {"top_m": [_num(v) if np.isfinite(v) else None for v in model.layers.top_m],
+                             "bottom_m": [_num(v) if np.isfinite(v) else None for v in model.layers.bottom_m]}
         if self.persistence is not None:  # persistence.py: idealised conduction bound of the anomaly
             out["persistence"] = self.persistence.finish()
+        if not getattr(model.grid, "has_area", True):
+            # no cell areas could be had: an area in m2 would be a count of cells; say why instead
+            out["region"]["area_m2"] = None
+            out["region"]["area_is"] = f"not known ({model.grid.area_source})"
+            out["physics"]["totals_left_out"] = f"no cell areas ({model.grid.area_source})"
         for name, rec in self.vars.items():
             rows = rec["stats"].rows(depths if rec["role"] in ("soil_temperature", "soil_liquid", "soil_ice") else None)
             out["variables"][name] = {"role": rec["role"], "units": rec["units"],
@@ -204,9 +211,19 @@ class Ledger:
             area = region_area if region_area > 0 else 1.0
             for key, per_layer in self.phase.items():
                 unit = "J" if key.endswith("_J") else "kg"
-                phys[f"{key[:-2] if unit == 'J' else key[:-3]}_region_total_{unit}"] = _num(per_layer.sum())
+                if getattr(model.grid, "has_area", True):  # no cell areas: no totals in kg or J
+                    phys[f"{key[:-2] if unit == 'J' else key[:-3]}_region_total_{unit}"] = _num(per_layer.sum())
                 phys[f"{key[:-2] if unit == 'J' else key[:-3]}_per_layer_{unit}_m2"] = [_num(v / area) for v in per_layer]
         return out
+
+
+def _layer_geometry(layers) -> list | None:
+    """Per soil layer: top, bottom and node depth (m; None where not known) and where they came from."""
+    if layers is None:
+        return None
+    return [{"top_m": _num(t) if np.isfinite(t) else None, "bottom_m": _num(b) if np.isfinite(b) else None,
+             "node_m": _num(z), "source": src}
+            for t, b, z, src in zip(layers.top_m, layers.bottom_m, layers.node_m, layers.source)]
 
 
 def _anomaly_summary(anom: np.ndarray, weight: np.ndarray) -> dict:

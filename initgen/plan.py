@@ -443,6 +443,10 @@ def build_plan(recipe: Document, model: ModelFile, *, allow_outside: bool = Fals
         region_any |= w > 0
     plan = Plan(recipe, model, blocks, dict(recipe.data["physics"]), region_any, window)
     plan.files = referenced_files(recipe, allow_outside)
+    if getattr(model, "grid_file", None):  # the layout's separate grid file: its hash goes into the provenance
+        from .restart import sha256_file
+
+        plan.files["layout.grid_file"] = {"path": model.grid_file, "sha256": sha256_file(model.grid_file)}
     check_before_writing(plan)
     return plan
 

@@ -301,6 +301,8 @@ def factor(
 
     # --- evaluate
     if isinstance(layers, Layers):
+        if evaluate == "layer_mean":
+            layers.require_interfaces("evaluate: layer_mean (the profile averaged over each layer)")
         nodes, top, bottom = layers.node_m, layers.top_m, layers.bottom_m
     else:
         if evaluate == "layer_mean":

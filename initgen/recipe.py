@@ -310,6 +310,18 @@ LAYOUT = Obj(
         "units": Obj(default=None, doc="units to assume for variables without a units attribute: role -> units",
                      fields={r: Str(default=None) for r in LAYERED_ROLES + WATER_ROLES + PLAIN_ROLES}),
         "water": WATER,
+        "interfaces": Str(choices=("as_given", "midpoints_between_nodes"), default="as_given",
+                          doc="as_given: layer interfaces only from the file or the layout (never guessed); "
+                              "midpoints_between_nodes: place them halfway between node depths when only nodes are known"),
+        "grid_file": Obj(default=None, doc="a separate file holding the grid (for files that keep it apart)", fields={
+            "path": Str(doc="the grid file, relative to the layout's folder; {tile} stands for the tile of a "
+                            "restart split in tiles, taken from the restart's file name by tile_pattern"),
+            "tile_pattern": Str(default=None, doc="regular expression with one group finding the tile in the "
+                                                  "restart's file name (default tile(\\d+))"),
+            "longitude": Str(default=None, doc="longitude variable in the grid file (found by CF attributes if omitted)"),
+            "latitude": Str(default=None, doc="latitude variable in the grid file (found by CF attributes if omitted)"),
+            "cell_area": Str(default=None, doc="cell-area variable in the grid file (m2 or km2), optional"),
+        }),
     },
 )
 

@@ -1087,7 +1087,7 @@ def _profile_panels(ledger: dict, model, imposed) -> list:
         imp = imposed if var["role"] == "soil_temperature" and imposed is not None \
             and len(imposed) == len(rows) else None
         out.append({"label": f"{short_label(name)} ({var['role']})", "units": var.get("units", ""),
-                    "top_m": layers.top_m, "bottom_m": layers.bottom_m,
+                    "top_m": layers.top_m, "bottom_m": layers.bottom_m, "node_m": layers.node_m,
                     "realised": [r.get("area_weighted_mean") for r in rows],
                     "imposed": None if imp is None else list(imp)})
     return out
@@ -1107,7 +1107,8 @@ def _ledger_markdown(ledger: dict) -> list[str]:
     out = []
     reg = ledger["region"]
     out.append(f"Region: {reg['cells_weight_above_0']} cells with weight > 0 ({reg['cells_full_weight']} at full "
-               f"weight), area {reg['area_m2'] / 1e6:,.0f} km2.")
+               f"weight), " + (f"area {reg['area_m2'] / 1e6:,.0f} km2." if reg.get("area_m2") is not None
+                             else f"area {reg.get('area_is', 'not known')}."))
     out.append("")
     for name, var in ledger["variables"].items():
         label = short_label(name)

@@ -223,10 +223,22 @@ def accepted_or_refused(fn, *args, **kw):
 # ---------------------------------------------------------------------------------------------
 
 
+def _add_layer_bounds(path):
+    """CF bounds on the layer axis: layer-mean profiles need interfaces, which initgen never guesses."""
+    import netCDF4
+
+    with netCDF4.Dataset(path, "a") as ds:
+        ds.createDimension("nv2", 2)
+        ds["lev"].bounds = "lev_bnds"
+        ds.createVariable("lev_bnds", "f4", ("lev", "nv2"))[:] = [[0, 0.1], [0.1, 0.2], [0.2, 0.5], [0.5, 1.0],
+                                                                   [1.0, 2.0]]
+
+
 @pytest.fixture(scope="module")
 def folder(tmp_path_factory):
     d = tmp_path_factory.mktemp("fuzz")
     regular(d / "in.nc")
+    _add_layer_bounds(d / "in.nc")
     (d / "shape.geojson").write_text(json.dumps(
         {"type": "Polygon", "coordinates": [[[20, 10], [80, 10], [80, 50], [20, 50], [20, 10]]]}))
     import netCDF4

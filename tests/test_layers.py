@@ -148,3 +148,57 @@ def test_split_snow_soil():
         split_snow_soil(1, -1)
     with pytest.raises(InputError, match="n_snow"):
         split_snow_soil(1.5, 3)
+
+
+# ---------------------------------------------------------------------------------------------
+# resolve_layers and depth ranges in names (issue 14): definitions, checked by hand computation
+# ---------------------------------------------------------------------------------------------
+
+from initgen.layers import depth_range_in_text, resolve_layers  # noqa: E402
+
+
+@pytest.mark.parametrize("text, expect", [
+    ("soil_temperature_0_10cm", (0.0, 0.1)),
+    ("Soil temperature 10-40 cm", (0.1, 0.4)),
+    ("tsl 0.28 to 1.0 m", (0.28, 1.0)),
+    ("t_100_289mm", (0.1, 0.289)),
+    ("tsoil", None),
+    ("layer 40_10cm", None),             # bottom above top
+    ("0-10cm and 10-40cm", None),        # two ranges: ambiguous
+    ("t2m", None),
+])
+def test_depth_range_in_text(text, expect):
+    got = depth_range_in_text(text)
+    if expect is None:
+        assert got is None
+    else:
+        np.testing.assert_allclose(got, expect, rtol=0, atol=1e-15)
+
+
+def test_resolve_nodes_and_thickness_keeps_the_thickness():
+    lay = resolve_layers([("node", [0.05, 0.25, 0.7], "nodes"), ("thickness", [0.1, 0.3, 0.6], "dz")])
+    np.testing.assert_allclose(lay.interfaces_m, [0.0, 0.1, 0.4, 1.0], atol=1e-15)
+    np.testing.assert_array_equal(lay.node_m, [0.05, 0.25, 0.7])
+    assert lay.source[1] == "top/bottom from thicknesses from dz stacked from the surface; node from nodes"
+
+
+def test_resolve_refuses_disagreeing_sources_naming_both():
+    with pytest.raises(InputError, match="node of layer 1 at 0.45 m by nodes lies outside.*by thicknesses from dz"):
+        resolve_layers([("node", [0.05, 0.45, 0.7], "nodes"), ("thickness", [0.1, 0.3, 0.6], "dz")])
+    with pytest.raises(InputError, match=r"layer 1 is 0\.3 m thick by dz but 0\.2 m .* by bnds"):
+        resolve_layers([("interface", [0, 0.1, 0.3, 1.0], "bnds"), ("thickness", [0.1, 0.3, 0.7], "dz")])
+    with pytest.raises(InputError, match="bnds describes 3 layers but names describes 2 layers"):
+        resolve_layers([("interface", [0, 0.1, 0.3, 1.0], "bnds"), ("top_bottom", [[0, .1], [.1, .3]], "names")])
+    # agreeing sources (float32 rounding of a depth) are accepted
+    lay = resolve_layers([("interface", np.float32([0, 0.1, 0.3]), "a"), ("top_bottom", [[0, .1], [.1, .3]], "b")])
+    assert lay.n == 2
+
+
+def test_resolve_never_guesses_interfaces():
+    lay = resolve_layers([("node", [0.05, 0.15], "lev")])
+    assert not lay.interfaces_known
+    with pytest.raises(InputError, match="only node depths are known.*midpoints_between_nodes"):
+        lay.thickness_m
+    asked = resolve_layers([("node", [0.05, 0.15], "lev")], midpoints=True)
+    np.testing.assert_allclose(asked.interfaces_m, [0.0, 0.1, 0.2], atol=1e-15)
+    assert "asks midpoints_between_nodes" in asked.source[0]

@@ -50,6 +50,9 @@ def gridded_file(path, fields):
         v = ds.createVariable("layer_z", "f4", ("layer",))
         v.units = "m"
         v[:] = z
+        v = ds.createVariable("layer_dz", "f4", ("layer",))  # nodes inside layers of these thicknesses
+        v.units = "m"
+        v[:] = [0.1, 0.2, 0.4, 1.0]
         for name, val, units in fields:
             v = ds.createVariable(name, "f4", ("layer", "lat", "lon"), fill_value=np.float32(-1e30))
             v.units = units
