@@ -626,12 +626,17 @@ def test_anomaly_file_covering_part_of_the_region_warns(work, capsys):
     rec = field_recipe(work)
     src = sha(work / "in.nc")
     capsys.readouterr()
-    rc, shown = run(apply_argv(work, rec, "--quiet"))
+    rc, shown = run(apply_argv(work, rec))
     err = shown + capsys.readouterr().err.splitlines()
     assert rc == 0
     assert len(err) == 1 and err[0].startswith("initgen: warning: "), err
     assert "perturbations[0].anomaly.field" in err[0] and "covers only" in err[0]
     assert (work / "out.nc").exists() and sha(work / "in.nc") == src
+    # -q: nothing on stdout, and the warning only as a count
+    rc = main([str(a) for a in apply_argv(work, rec, "--quiet", "--force")])
+    cap = capsys.readouterr()
+    assert rc == 0 and cap.out == ""
+    assert cap.err.splitlines() == ["initgen: 1 warning(s) held back by -q; run without -q to read them"]
 
 
 def test_anomaly_file_all_missing_values(work, capsys):
