@@ -490,6 +490,7 @@ class Interrupted(KeyboardInterrupt):
 
 
 STOP_NAME = ".initgen-stop"
+CONNECT_TIMEOUT_S = 30  # how long to try to reach a Dask scheduler before refusing
 _SIGNALS = tuple(s for s in (signal.SIGINT, signal.SIGTERM, getattr(signal, "SIGHUP", None)) if s is not None)
 
 
@@ -515,7 +516,7 @@ class _Book:
         self.recipe, self.layout, self.outdir, self.tasks = recipe, layout, Path(outdir), tasks
         self.started, self.workers, self.scheduler, self.progress = started, workers, scheduler, progress
         self.results: dict = dict(kept)
-        self.pending = "not run yet"
+        self.status, self.pending = "pending", "queued or being written when this manifest was written"
 
     def add(self, task: Task, result: dict) -> None:
         self.results[task.index] = result
@@ -525,7 +526,7 @@ class _Book:
                           sum(1 for r in self.results.values() if r["status"] != "ok"))
 
     def ordered(self) -> list:
-        return [self.results.get(t.index) or _result(t, "not run", code=1, message=self.pending) for t in self.tasks]
+        return [self.results.get(t.index) or _result(t, self.status, code=1, message=self.pending) for t in self.tasks]
 
     def write(self) -> dict:
         manifest = _manifest(self.recipe, self.layout, self.outdir, self.ordered(), self.started, self.workers,
@@ -538,7 +539,7 @@ class _Book:
         result came back (the signal arrived in between) is listed 'ok' too."""
         for t in self.tasks:
             r = self.results.get(t.index)
-            if r is None or r["status"] == "not run":
+            if r is None or r["status"] in ("not run", "pending"):
                 state, what = existing_output(t, self.recipe, self.layout)
                 if state == "match":
                     what["message"] = "finished as the run was interrupted; matches its record"
@@ -619,7 +620,7 @@ def run(recipe, inputs, outdir, layout=None, *, names=None, workers: int | None 
                     signal.signal(s, signal.SIG_IGN)
             for t in tasks:  # a worker stopped the hard way: its temporaries and lock (dead pids)
                 clean_stale_files(Path(t.output))
-            book.pending = "the run was interrupted before this member finished; run again with --resume"
+            book.status, book.pending = "not run", "the run was interrupted before this member finished; run again with --resume"
             book.reconcile()
             manifest = book.write()
             name = str(exc) if str(exc).startswith("SIG") else "SIGINT"
@@ -628,7 +629,7 @@ def run(recipe, inputs, outdir, layout=None, *, names=None, workers: int | None 
             if old is not None:
                 for s, h in old.items():
                     signal.signal(s, h)
-        book.pending = "not run"
+        book.status, book.pending = "not run", "not run"
         manifest = book.write()
     finally:
         if client is not None:
@@ -742,7 +743,7 @@ def _connect(address: str):
     except ImportError:
         raise InputError("--scheduler needs Dask distributed; install it with: pip install 'initgen[dask]'") from None
     try:
-        return Client(address, timeout=30, set_as_default=False)
+        return Client(address, timeout=CONNECT_TIMEOUT_S, set_as_default=False)
     except (OSError, TimeoutError, ValueError) as exc:
         raise InputError(f"--scheduler {address}: cannot connect to the Dask scheduler ({exc}); check the "
                          "address (tcp://host:port) and that the scheduler is running; nothing was written") from None
@@ -826,7 +827,9 @@ def _manifest(recipe, layout, outdir, results, started, workers, scheduler) -> d
         "ended_utc": prov.utc_now(),
         "execution": {"scheduler": scheduler} if scheduler else {"workers": workers},
         "counts": {"outputs": len(results), "ok": sum(r["status"] == "ok" for r in results),
-                   "failed": sum(r["status"] != "ok" for r in results)},
+                   "failed": sum(r["status"] == "failed" for r in results),
+                   "not_run": sum(r["status"] == "not run" for r in results),
+                   "pending": sum(r["status"] == "pending" for r in results)},
         "outputs": outputs,
     }
 
@@ -895,10 +898,15 @@ def results_table(result: EnsembleResult) -> str:
     for r in result.results:
         s = r["summary"] or {}
         tail = r["output"] if r["status"] == "ok" else r["message"]
+        if r["status"] == "ok" and r["message"].startswith("kept"):
+            tail += " (kept: written earlier, matches its record)"
         lines.append(f"{r['member']['name']:<20} {Path(r['input']).name:<24} {r['status']:<7} "
                      f"{_fmt(s.get('top_soil_temperature_change_area_mean_K'), '9.4g')}  {tail}")
     c = result.manifest["counts"]
-    lines.append(f"{c['ok']} of {c['outputs']} output(s) written, {c['failed']} failed; manifest: "
+    kept = sum(1 for r in result.results if r["status"] == "ok" and r["message"].startswith("kept"))
+    lines.append(f"{c['ok']} of {c['outputs']} output(s) written" + (f" ({kept} kept from an earlier run)" if kept
+                 else "") + f", {c['failed']} failed" + (f", {c['not_run']} not run" if c.get("not_run") else "")
+                 + "; manifest: "
                  f"{result.outdir / 'manifest.json'} and manifest.csv")
     return "\n".join(lines)
 
