@@ -592,11 +592,14 @@ def _load_document(entry: dict, kind: str, record_dir: Path, override=None, reci
                      f"pass --{kind} with its current path")
 
 
-def _document_changed(kind: str, doc, entry: dict, rec: dict) -> str:
+def _document_changed(kind: str, doc, entry: dict, rec: dict, from_record: bool = False) -> str:
     """Why a recipe or layout no longer has its recorded canonical sha256."""
     from . import __version__
 
     want = str(entry.get("sha256"))[:12]
+    if from_record:
+        return (f"the {kind} text stored in the record has canonical sha256 {doc.sha256[:12]}..., not the recorded "
+                f"{want}...: the record was edited after apply; give the {kind} file with --{kind}")
     if entry.get("text") is not None and doc.text == entry["text"]:
         then = (rec.get("versions") or {}).get("initgen")
         return (f"the {kind} {entry.get('path')} is unchanged, but this initgen ({__version__}) reads it differently "
@@ -701,14 +704,14 @@ def verify(provenance_path, input=None, output=None, recipe=None, layout=None) -
     checked.append(f"recipe {how}")
     checks["recipe_sha256"] = recipe_doc.sha256 == recipe_entry.get("sha256")
     if not checks["recipe_sha256"]:
-        failures.append(_document_changed("recipe", recipe_doc, recipe_entry, rec))
+        failures.append(_document_changed("recipe", recipe_doc, recipe_entry, rec, how.startswith("the recipe text")))
     layout_doc = None
     if layout_entry:
         layout_doc, how = _load_document(layout_entry, "layout", record_dir, layout, recipe_doc, rec)
         checked.append(f"layout {how}")
         checks["layout_sha256"] = layout_doc.sha256 == layout_entry.get("sha256")
         if not checks["layout_sha256"]:
-            failures.append(_document_changed("layout", layout_doc, layout_entry, rec))
+            failures.append(_document_changed("layout", layout_doc, layout_entry, rec, how.startswith("the layout text")))
     for key, f in (recipe_entry.get("files") or {}).items():
         # where the re-run will read it: beside the recipe in use, else where it was
         fpath = Path(f["path"])

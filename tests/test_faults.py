@@ -577,3 +577,104 @@ def test_unreachable_scheduler_creates_nothing(work, capsys, monkeypatch):
     line = _one_error_line(capsys)
     assert "--scheduler" in line and "cannot connect" in line and "nothing was written" in line
     assert names(work) == before
+
+
+# ---------------------------------------------------------------------------------------------
+# verify anywhere: a moved or copied submission folder checks its own files
+# ---------------------------------------------------------------------------------------------
+
+
+def _cli(*argv, cwd=None):
+    proc = subprocess.run([sys.executable, "-m", "initgen.cli", *map(str, argv)], capture_output=True, text=True,
+                          timeout=120, cwd=cwd)
+    return proc.returncode, proc.stdout, proc.stderr
+
+
+@pytest.fixture
+def submission(tmp_path):
+    """A submission folder: recipe, input, perturbed output and its record, made with relative paths."""
+    sub = tmp_path / "submission"
+    sub.mkdir()
+    regular(sub / "in.nc")
+    (sub / "r.yaml").write_text(RECIPE)
+    code, out, err = _cli("apply", "r.yaml", "--input", "in.nc", "--output", "out.nc", "-q", cwd=sub)
+    assert code == 0 and out == "" and err == "", err
+    return sub
+
+
+def checked_lines(stdout: str) -> dict:
+    """'  checked <what> <path> (<how>)' lines -> {what: line}."""
+    return {line.split()[1]: line for line in stdout.splitlines() if line.startswith("  checked ")}
+
+
+def test_moved_submission_folder_verifies_on_its_own_files(submission, tmp_path):
+    moved = tmp_path / "elsewhere" / "moved"
+    moved.parent.mkdir()
+    shutil.move(str(submission), str(moved))
+    code, out, err = _cli("verify", moved / "out.nc.provenance.json")
+    assert code == 0 and out.startswith("verified: "), err + out
+    lines = checked_lines(out)
+    for what in ("input", "output", "recipe"):
+        assert str(moved) in lines[what] and "beside the record" in lines[what], lines
+
+
+def test_copied_submission_is_checked_not_the_original(submission, tmp_path):
+    """The original stays where it was; the copy's altered output must be caught (checking the
+    original instead would pass)."""
+    copy = tmp_path / "copy"
+    shutil.copytree(submission, copy)
+    code, out, _ = _cli("verify", copy / "out.nc.provenance.json")
+    assert code == 0 and all(str(copy) in line for line in checked_lines(out).values()), out
+    with netCDF4.Dataset(copy / "out.nc", "r+") as ds:
+        v = ds["tsoil"]
+        v[0, 0, 9, 5] = v[0, 0, 9, 5] + 1.0
+    code, out, _ = _cli("verify", copy / "out.nc.provenance.json")
+    assert code == 3 and out.startswith("NOT verified") and str(copy / "out.nc") in out, out
+    assert "altered after apply" in out
+
+
+def test_verify_with_the_recipe_gone_uses_the_recorded_text(submission, tmp_path):
+    (submission / "r.yaml").unlink()
+    code, out, err = _cli("verify", submission / "out.nc.provenance.json")
+    assert code == 0, err + out
+    assert "the recipe text stored in the record" in checked_lines(out)["recipe"]
+    # the stored text is held to the stored hash: a record whose text was edited is not verified
+    rec_path = submission / "out.nc.provenance.json"
+    rec = json.loads(rec_path.read_text())
+    rec["recipe"]["text"] = rec["recipe"]["text"].replace("constant_K: -2", "constant_K: -3")
+    rec_path.write_text(json.dumps(rec))
+    code, out, err = _cli("verify", rec_path)
+    assert code == 3 and "NOT verified" in out and "recipe text stored in the record" in out, out
+    assert "the record was edited after apply" in out
+
+
+def test_verify_overrides_name_the_files_checked(submission, tmp_path):
+    elsewhere = tmp_path / "store"
+    elsewhere.mkdir()
+    shutil.move(str(submission / "in.nc"), str(elsewhere / "original.nc"))
+    shutil.move(str(submission / "r.yaml"), str(elsewhere / "recipe.yaml"))
+    code, out, err = _cli("verify", submission / "out.nc.provenance.json")
+    assert code == 2 and "the input file is not there" in err and "--input" in err
+    code, out, err = _cli("verify", submission / "out.nc.provenance.json", "--input", elsewhere / "original.nc",
+                          "--recipe", elsewhere / "recipe.yaml")
+    assert code == 0, err + out
+    lines = checked_lines(out)
+    assert str(elsewhere / "original.nc") in lines["input"] and "(given)" in lines["input"]
+    assert str(elsewhere / "recipe.yaml") in lines["recipe"] and "(given)" in lines["recipe"]
+
+
+# ---------------------------------------------------------------------------------------------
+# -q: nothing but errors
+# ---------------------------------------------------------------------------------------------
+
+
+@pytest.mark.parametrize("argv", [
+    ["check", "r.yaml", "--input", "in.nc", "-q"],
+    ["preview", "r.yaml", "--input", "in.nc", "--json", "l.json", "-q"],
+    ["mask", "r.yaml", "--input", "in.nc", "--output", "m.nc", "-q"],
+    ["compare", "in.nc", "in.nc", "--json", "c.json", "-q"],
+    ["apply", "r.yaml", "--input", "in.nc", "--output", "out.nc", "-q"],
+], ids=lambda a: a[0])
+def test_quiet_prints_nothing_on_success(work, argv):
+    code, out, err = _cli(*argv, cwd=work)
+    assert code == 0 and out == "" and err == "", (out, err)
