@@ -778,7 +778,7 @@ def _run_dask(client, recipe, layout, tasks, payload, force, allow_outside, comm
         stop = Path(outdir) / STOP_NAME
         try:
             stop.touch()
-            with contextlib.suppress(Exception):
+            with contextlib.suppress(Exception), client.as_current():
                 dask_wait(list(futs), timeout=60)
             for f, t in futs.items():
                 if t.index not in book.results and f.status == "finished":

@@ -191,7 +191,7 @@ def test_shipped_pairs_recipe_on_the_demo_file(pairs_local, demo):
     code, out = pairs_local
     assert code == 0
     man = json.loads((out / "manifest.json").read_text())
-    assert man["counts"] == {"outputs": 4, "ok": 4, "failed": 0}
+    assert man["counts"] == {"outputs": 4, "ok": 4, "failed": 0, "not_run": 0, "pending": 0}
     assert man["recipe"]["sha256"] == load_recipe(PAIRS).sha256
     rows = {r["member"]["name"]: r for r in man["outputs"]}
     assert list(rows) == ["warm-x1.0", "cold-x1.0", "warm-x0.5", "cold-x0.5"]

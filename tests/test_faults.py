@@ -678,3 +678,53 @@ def test_verify_overrides_name_the_files_checked(submission, tmp_path):
 def test_quiet_prints_nothing_on_success(work, argv):
     code, out, err = _cli(*argv, cwd=work)
     assert code == 0 and out == "" and err == "", (out, err)
+
+
+# On a Dask worker the hook is a preload script: the worker stalls at the first block of the nth
+# member it writes until GO exists, or until the interrupted ensemble's stop file appears.
+DASK_PRELOAD = textwrap.dedent("""\
+    import os, time
+    from pathlib import Path
+    from initgen import plan
+    folder, nth = Path(os.environ["INITGEN_TEST_FOLDER"]), int(os.environ["INITGEN_TEST_STALL_NTH"])
+    seen = []
+
+    def slow(plan_, store, *args, **kw):
+        original(plan_, store, *args, **kw)
+        member = Path(str(getattr(store, "path", ""))).parent.name
+        if kw.get("write") and member not in seen:
+            seen.append(member)
+            if len(seen) == nth:
+                (folder / "marker-dask").write_text(member)
+                stop, deadline = folder / "ens" / ".initgen-stop", time.monotonic() + 120
+                while not (folder / "GO").exists() and not stop.exists() and time.monotonic() < deadline:
+                    time.sleep(0.02)
+
+    slow.stall_hook = True
+    if not getattr(plan.apply_block, "stall_hook", False):  # a preload can run twice in one process
+        original = plan.apply_block
+        plan.apply_block = slow
+""")
+
+
+def test_interrupted_ensemble_on_dask_stops_its_tasks(work, monkeypatch):
+    distributed = pytest.importorskip("distributed")
+    (work / "preload_stall.py").write_text(DASK_PRELOAD)
+    (work / "ens.yaml").write_text(ensemble_recipe(6))
+    monkeypatch.setenv("INITGEN_TEST_FOLDER", str(work))
+    monkeypatch.setenv("INITGEN_TEST_STALL_NTH", "3")
+    with distributed.LocalCluster(n_workers=1, threads_per_worker=1, processes=True, dashboard_address=None,
+                                  preload=[str(work / "preload_stall.py")]) as cl:
+        proc = subprocess.Popen([sys.executable, "-m", "initgen.cli", "apply", str(work / "ens.yaml"), "--input",
+                                 str(work / "in.nc"), "--output", str(work / "ens"), "--scheduler",
+                                 cl.scheduler_address], stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+        wait_for(work / "marker-dask", proc, timeout=120)
+        assert len(list((work / "ens").rglob(f"*{restart.TMP_TAG}"))) == 1  # the third member, mid-write
+        proc.send_signal(signal.SIGTERM)
+        out, err = proc.communicate(timeout=120)
+        assert proc.returncode == 130, err
+        lines = err.splitlines()
+        assert len(lines) == 1 and "2 of 6 member output(s) done" in lines[0] and "--resume" in lines[0], lines
+        time.sleep(1.0)  # nothing more may appear: the queued tasks returned without writing
+        manifest, on_disk, leftovers = ensemble_state(work / "ens")
+        assert leftovers == [] and len(on_disk) == 2 and manifest["counts"]["not_run"] == 4
