@@ -199,7 +199,9 @@ def main(argv=None) -> int:
     quiet = bool(getattr(args, "quiet", False))
     # Warnings are held back until the command ends: on success they are shown (once each); on
     # bad input only the one-line error is, since the run stopped before the warning mattered.
-    with warnings.catch_warnings(record=True) as caught, _interrupts_raise(), _stdout_unless(quiet):
+    # -q -v (apply): the asked-for timings line, and nothing else, on stdout
+    hush = quiet and not getattr(args, "verbose", False)
+    with warnings.catch_warnings(record=True) as caught, _interrupts_raise(), _stdout_unless(hush):
         warnings.simplefilter("always")
         try:
             code = _dispatch(args)

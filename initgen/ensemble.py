@@ -548,6 +548,22 @@ class _Book:
                     self.results[t.index] = _result(t, "not run", code=130, message=self.pending)
 
 
+def _remove_empty_folders(book: _Book, outdir: Path) -> None:
+    """Member folders that a failed or unfinished member created and left empty."""
+    top = Path(outdir).resolve()
+    for t in book.tasks:
+        r = book.results.get(t.index)
+        if r is not None and r["status"] == "ok":
+            continue
+        folder = Path(t.output).parent
+        while folder != top and top in folder.parents:
+            try:
+                folder.rmdir()  # only when empty
+            except OSError:
+                break
+            folder = folder.parent
+
+
 def run(recipe, inputs, outdir, layout=None, *, names=None, workers: int | None = None,
         scheduler: str | None = None, force: bool = False, resume: bool = False, allow_outside_paths: bool = False,
         progress=None, share: str = "arrays", method: str | None = None) -> EnsembleResult:
@@ -622,6 +638,7 @@ def run(recipe, inputs, outdir, layout=None, *, names=None, workers: int | None 
                 clean_stale_files(Path(t.output))
             book.status, book.pending = "not run", "the run was interrupted before this member finished; run again with --resume"
             book.reconcile()
+            _remove_empty_folders(book, outdir)
             manifest = book.write()
             name = str(exc) if str(exc).startswith("SIG") else "SIGINT"
             raise Interrupted(name, manifest["counts"]["ok"], len(tasks), outdir) from None
@@ -630,6 +647,7 @@ def run(recipe, inputs, outdir, layout=None, *, names=None, workers: int | None 
                 for s, h in old.items():
                     signal.signal(s, h)
         book.status, book.pending = "not run", "not run"
+        _remove_empty_folders(book, outdir)
         manifest = book.write()
     finally:
         if client is not None:

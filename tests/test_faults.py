@@ -393,7 +393,9 @@ ENSEMBLE_RUNNER = textwrap.dedent("""\
         member = Path(str(getattr(store, "path", ""))).parent.name
         marker = folder / f"marker-{member}"
         if kw.get("write") and member in stall and not marker.exists():
-            marker.write_text(str(os.getpid()))
+            part = folder / f"part-{member}"
+            part.write_text(str(os.getpid()))
+            os.replace(part, marker)  # the test reads the pid as soon as the marker exists
             deadline = time.monotonic() + 120
             while not (folder / "GO").exists() and time.monotonic() < deadline:
                 time.sleep(0.02)
@@ -476,7 +478,7 @@ def interrupt_ensemble(work, n, k, how):
             break
         time.sleep(0.05)
     assert manifest["counts"]["ok"] == k and len(on_disk) == k
-    assert len([p for p in (work / "ens").rglob(f"*{restart.TMP_TAG}")]) == 2  # two members mid-write
+    assert len(list((work / "ens").rglob(f".in.nc.*{restart.TMP_TAG}"))) == 2  # two members mid-write
     if how == "group":
         os.killpg(proc.pid, signal.SIGINT)  # Ctrl-C in a terminal: the whole process group
     else:
@@ -501,6 +503,8 @@ def test_interrupted_ensemble_keeps_finished_members_and_stops_its_workers(work,
     manifest, on_disk, leftovers = ensemble_state(work / "ens")
     assert leftovers == [] and len(on_disk) == 2
     assert manifest["counts"] == {"outputs": 6, "ok": 2, "failed": 0, "not_run": 4, "pending": 0}
+    # no empty member folders from the members that were stopped
+    assert sorted(p.name for p in (work / "ens").iterdir() if p.is_dir()) == sorted(names_[:2])
     assert {r["member"]["name"] for r in manifest["outputs"] if r["status"] == "ok"} == set(names_[:2])
     assert all("--resume" in r["message"] for r in manifest["outputs"] if r["status"] != "ok")
     assert sha(work / "in.nc") == src
@@ -719,7 +723,7 @@ def test_interrupted_ensemble_on_dask_stops_its_tasks(work, monkeypatch):
                                  str(work / "in.nc"), "--output", str(work / "ens"), "--scheduler",
                                  cl.scheduler_address], stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
         wait_for(work / "marker-dask", proc, timeout=120)
-        assert len(list((work / "ens").rglob(f"*{restart.TMP_TAG}"))) == 1  # the third member, mid-write
+        assert len(list((work / "ens").rglob(f".in.nc.*{restart.TMP_TAG}"))) == 1  # the third member, mid-write
         proc.send_signal(signal.SIGTERM)
         out, err = proc.communicate(timeout=120)
         assert proc.returncode == 130, err
