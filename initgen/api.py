@@ -215,21 +215,24 @@ def _member(rec: Document, member: str | None):
 
 
 def apply_ensemble(recipe, inputs, output_dir, layout=None, *, members=None, workers: int | None = None,
-                   scheduler: str | None = None, force: bool = False, allow_outside_paths: bool = False,
-                   progress=None):
+                   scheduler: str | None = None, force: bool = False, resume: bool = False,
+                   allow_outside_paths: bool = False, progress=None):
     """Write every member (or those named in ``members``) for every input into ``output_dir``.
 
     Outputs are named by the recipe's ``members.output_template``; ``manifest.json`` and
     ``manifest.csv`` list them. Runs on ``workers`` local processes (default min(2, CPUs)) or on
     the Dask scheduler at ``scheduler``. Returns an ``ensemble.EnsembleResult`` (``exit_code``
     is 0 when every member was written, 2 when the failures were bad input, else 1).
+    ``resume`` finishes an interrupted or partly failed ensemble: members whose output and
+    provenance record exist and match are kept, the others are written. A signal (SIGINT,
+    SIGTERM, SIGHUP) stops it cleanly and raises ``ensemble.Interrupted`` (a KeyboardInterrupt).
     """
     from . import ensemble
 
     rec = _recipe(recipe)
     return ensemble.run(rec, [Path(i) for i in inputs], Path(output_dir), _layout(layout, rec), names=members,
-                        workers=workers, scheduler=scheduler, force=force, allow_outside_paths=allow_outside_paths,
-                        progress=progress)
+                        workers=workers, scheduler=scheduler, force=force, resume=resume,
+                        allow_outside_paths=allow_outside_paths, progress=progress)
 
 
 def preview_members(recipe, input, layout=None, *, members=None, allow_outside_paths: bool = False) -> list:

@@ -3,12 +3,20 @@
 Exit codes: 0 done; 2 bad input (recipe, layout, file, arguments) with a one-line message;
 3 ``compare`` found differences outside the allowed variables (or ``verify`` found a mismatch);
 1 an unexpected error (a bug: please report it with the traceback that ``--debug`` shows);
-130 interrupted.
+130 interrupted (SIGINT, SIGTERM or SIGHUP; what was being written is removed, finished ensemble
+members are kept and ``--resume`` continues).
+
+Output policy, the same for every command (:func:`_check_outputs`): every path a command will
+write is checked before any work starts; an existing file is refused unless ``--force``; a
+missing or unwritable folder is refused naming it (exit 2); nothing is created before the checks
+pass, and every file is written through a temporary file and a rename. ``-q`` prints nothing but
+errors, and a count of the warnings held back.
 """
 
 from __future__ import annotations
 
 import argparse
+import contextlib
 import json
 import os
 import sys
@@ -38,6 +46,15 @@ def _common(p, input_required=True, layout=True, many_inputs=False):
                    help="let the recipe name files outside its own folder")
 
 
+def _quiet(p):
+    p.add_argument("--quiet", "-q", action="store_true",
+                   help="print nothing but errors (and how many warnings were held back)")
+
+
+def _force(p):
+    p.add_argument("--force", action="store_true", help="replace existing outputs")
+
+
 def build_parser() -> argparse.ArgumentParser:
     ap = _Parser(prog="initgen", description="Perturb land-surface initial states over a region, with physics "
                  "limits and provenance.")
@@ -47,6 +64,7 @@ def build_parser() -> argparse.ArgumentParser:
 
     p = sub.add_parser("check", help="validate a recipe (and layout, and their fit to an input file); writes nothing")
     _common(p, input_required=False)
+    _quiet(p)
 
     p = sub.add_parser("apply", help="write a perturbed copy of the input and its provenance record "
                        "(with members: every member for every input, into a folder)")
@@ -58,7 +76,9 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--scheduler", metavar="ADDRESS", help="run members on this Dask distributed scheduler "
                    "(e.g. tcp://host:8786; needs initgen[dask] and a file system the workers share)")
     p.add_argument("--force", action="store_true", help="replace existing outputs")
-    p.add_argument("--quiet", "-q", action="store_true", help="print nothing but errors")
+    p.add_argument("--resume", action="store_true", help="finish an interrupted or partly failed ensemble in the "
+                   "--output folder: keep members whose output and record match, write the others")
+    _quiet(p)
     p.add_argument("--verbose", "-v", action="store_true", help="also print the time spent per stage")
     p.add_argument("--repack", action="store_true",
                    help="rewrite the output whole so compressed chunks are packed afresh (smaller, slower)")
@@ -70,12 +90,15 @@ def build_parser() -> argparse.ArgumentParser:
                    "report with PNG figures into this folder")
     p.add_argument("--member", metavar="NAME",
                    help="preview only this member (for a recipe with members: default all, one row each)")
+    _force(p)
+    _quiet(p)
 
     p = sub.add_parser("mask", help="write the horizontal weight field on the model grid (netCDF, optional PNG)")
     _common(p)
     p.add_argument("--output", "-o", required=True, help="output mask netCDF file")
     p.add_argument("--png", help="also draw a map of the weights to this PNG file")
-    p.add_argument("--force", action="store_true", help="replace existing outputs")
+    _force(p)
+    _quiet(p)
 
     p = sub.add_parser("compare", help="structural and value diff of two netCDF files",
                        usage="initgen compare A B [--allow VAR ...] [--layout LAYOUT] [--json FILE] [--report DIR]")
@@ -86,11 +109,18 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--layout", "-l", help="layout YAML (for cell areas and the layer axis)")
     p.add_argument("--json", help="write the differences as JSON to this file")
     p.add_argument("--report", help="write report.html (one self-contained page) and compare.md into this folder")
+    _force(p)
+    _quiet(p)
 
     p = sub.add_parser("verify", help="re-run a provenance record and check the output matches it (all but the history line)")
     p.add_argument("provenance", help="the .provenance.json written by apply")
-    p.add_argument("--input", "-i", help="the original input file (default: the path in the record)")
-    p.add_argument("--output", "-o", help="the file to check (default: the path in the record)")
+    p.add_argument("--input", "-i", help="the original input file (default: beside the record as recorded, "
+                   "else the recorded absolute path)")
+    p.add_argument("--output", "-o", help="the file to check (default: the file the record sits beside)")
+    p.add_argument("--recipe", help="the recipe (default: beside the record, else its recorded path, else the "
+                   "recipe text stored in the record)")
+    p.add_argument("--layout", "-l", help="the layout (default: as for --recipe)")
+    _quiet(p)
 
     p = sub.add_parser("collate", help="compare several groups' provenance records side by side (CSV, JSON, HTML)")
     p.add_argument("records", nargs="+", metavar="RECORD_OR_FOLDER",
@@ -99,12 +129,18 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--label", action="append", default=[], metavar="NAME=RECORD", help="name a submission")
     p.add_argument("--threshold", type=float, default=0.25,
                    help="flag band means further than this fraction from the median (default 0.25)")
+    _force(p)
+    _quiet(p)
 
     p = sub.add_parser("schema", help="print the JSON Schema of the recipe (or of the layout)")
     p.add_argument("--layout", action="store_true", help="print the layout schema instead")
+    _quiet(p)
 
     p = sub.add_parser("demo", help="run the built-in demo (an invented highland) into a folder")
-    p.add_argument("--out", required=True, help="folder to write the demo into (created if needed)")
+    p.add_argument("--out", required=True, help="folder to write the demo into (created if needed; an existing "
+                   "folder that is not empty is refused unless --force)")
+    _force(p)
+    _quiet(p)
     for p in sub.choices.values():  # '--debug' is also accepted after the command
         p.add_argument("--debug", action="store_true", default=argparse.SUPPRESS, help=argparse.SUPPRESS)
     return ap
@@ -147,9 +183,11 @@ def _progress_printer(quiet: bool):
     return show
 
 
-def _show_warnings(caught) -> None:
-    """Print each distinct warning once, one line each (apply validates twice: no repeats)."""
+def _show_warnings(caught, quiet: bool = False) -> None:
+    """Print each distinct warning once, one line each (apply validates twice: no repeats); with
+    ``quiet`` only their number."""
     seen = set()
+    shown = 0
     for w in caught:
         if issubclass(w.category, (DeprecationWarning, PendingDeprecationWarning, ImportWarning, ResourceWarning)):
             continue
@@ -157,10 +195,15 @@ def _show_warnings(caught) -> None:
         if (w.category, text) in seen:
             continue
         seen.add((w.category, text))
+        shown += 1
+        if quiet:
+            continue
         if issubclass(w.category, InputWarning):
             sys.stderr.write(f"initgen: warning: {text}\n")
         else:
             sys.stderr.write(warnings.formatwarning(w.message, w.category, w.filename, w.lineno))
+    if quiet and shown:
+        sys.stderr.write(f"initgen: {shown} warning(s) held back by -q; run without -q to read them\n")
 
 
 def _member_progress(quiet: bool):
@@ -187,9 +230,12 @@ def main(argv=None) -> int:
     if args.command is None:
         parser.print_help()
         return 2
+    quiet = bool(getattr(args, "quiet", False))
     # Warnings are held back until the command ends: on success they are shown (once each); on
     # bad input only the one-line error is, since the run stopped before the warning mattered.
-    with warnings.catch_warnings(record=True) as caught:
+    # -q -v (apply): the asked-for timings line, and nothing else, on stdout
+    hush = quiet and not getattr(args, "verbose", False)
+    with warnings.catch_warnings(record=True) as caught, _interrupts_raise(), _stdout_unless(hush):
         warnings.simplefilter("always")
         try:
             code = _dispatch(args)
@@ -197,21 +243,59 @@ def main(argv=None) -> int:
             msg = " ".join(str(exc).split())
             sys.stderr.write(f"initgen: error: {msg}\n")
             return 2
-        except KeyboardInterrupt:
-            sys.stderr.write("initgen: interrupted; the output being written was removed (finished ensemble "
-                             "members, if any, stay and are listed in the manifest)\n")
+        except KeyboardInterrupt as exc:
+            from .ensemble import Interrupted
+
+            if isinstance(exc, Interrupted):
+                sys.stderr.write(f"initgen: {exc.line()}\n")
+            else:
+                sys.stderr.write("initgen: interrupted; the output being written was removed and no other file "
+                                 "was written\n")
             return 130
         except BrokenPipeError:
             return 0
         except Exception as exc:  # a bug: one line unless --debug
-            _show_warnings(caught)
+            _show_warnings(caught, quiet)
             if args.debug or os.environ.get("INITGEN_DEBUG"):
                 raise
             sys.stderr.write(f"initgen: unexpected error: {exc.__class__.__name__}: {exc} "
                              "(run with --debug for the traceback and please report it)\n")
             return 1
-    _show_warnings(caught)
+    _show_warnings(caught, quiet)
     return code
+
+
+@contextlib.contextmanager
+def _interrupts_raise():
+    """SIGTERM and SIGHUP end a command as Ctrl-C does (KeyboardInterrupt -> exit 130, one line),
+    so that whatever is being written is cleaned up; the writers install their own handlers too."""
+    import signal
+    import threading
+
+    if threading.current_thread() is not threading.main_thread():
+        yield
+        return
+
+    def handler(signum, frame):
+        raise KeyboardInterrupt(signal.Signals(signum).name)
+
+    sigs = [s for s in (signal.SIGTERM, getattr(signal, "SIGHUP", None)) if s is not None]
+    old = {s: signal.signal(s, handler) for s in sigs}
+    try:
+        yield
+    finally:
+        for s, h in old.items():
+            signal.signal(s, h)
+
+
+@contextlib.contextmanager
+def _stdout_unless(quiet: bool):
+    """With -q the command's normal output goes nowhere; errors (stderr) still show."""
+    if not quiet:
+        yield
+        return
+    with open(os.devnull, "w") as sink, contextlib.redirect_stdout(sink):
+        yield
 
 
 def _same_file(a, b) -> bool:
@@ -245,10 +329,117 @@ def _guard_outputs(args) -> None:
                              "inputs, choose another name")
 
 
+# ---------------------------------------------------------------------------------------------
+# The output policy: every target checked before any work starts
+# ---------------------------------------------------------------------------------------------
+
+
+def _writable_folder(folder: Path, what: str) -> None:
+    if not folder.is_dir():
+        raise InputError(f"{what}: the folder {folder} does not exist; create it first")
+    if not os.access(folder, os.W_OK | os.X_OK):
+        raise InputError(f"{what}: the folder {folder} is not writable; choose another folder")
+
+
+def _file_target(path, option: str, force: bool) -> None:
+    """A file the command writes: its folder exists and is writable; an existing file needs --force."""
+    p = Path(path)
+    what = f"{option} {p}" if option else str(p)
+    if p.is_dir():
+        raise InputError(f"{what}: is a folder; remove it or choose another file name")
+    parent = p.parent if str(p.parent) else Path(".")
+    if parent.exists() and not parent.is_dir():
+        raise InputError(f"{what}: {parent} is not a folder; give a path inside a folder")
+    _writable_folder(parent, what)
+    if p.exists() and not force:
+        raise InputError(f"{what}: exists; pass --force to replace it")
+
+
+def _folder_target(path, option: str, force: bool, files=(), any_file: bool = False) -> None:
+    """A folder the command writes into (created if missing, inside an existing writable folder);
+    ``files`` already there (or, with ``any_file``, anything at all) need --force."""
+    p = Path(path)
+    what = f"{option} {p}"
+    if p.exists() and not p.is_dir():
+        raise InputError(f"{what}: exists and is not a folder; give a folder")
+    if not p.exists():
+        _writable_folder(p.parent if str(p.parent) else Path("."), what)
+        return
+    _writable_folder(p, what)
+    taken = sorted(p.iterdir()) if any_file else [p / f for f in files if (p / f).exists()]
+    if taken and not force:
+        raise InputError(f"{what}: already holds {taken[0].name}" + (f" and {len(taken) - 1} more" if len(taken) > 1
+                         else "") + "; pass --force to replace, or choose another folder")
+
+
+def _targets_apply(args):
+    if getattr(args, "_ensemble", False):  # the folder and its members: ensemble.check_output_folder
+        return
+    if args.resume:
+        raise InputError("--resume: finishes an ensemble written into a folder; this run writes one file "
+                         "(to replace it, pass --force)")
+    if args.member is not None:  # a bad member name is the first thing to hear about
+        from .ensemble import select
+        from .recipe import load_recipe
+
+        select(load_recipe(args.recipe), [args.member])
+    if len(args.input) == 1:  # the writer's own check: never the input, then folder and --force
+        from .restart import check_output_path
+
+        check_output_path(Path(args.input[0]), Path(args.output), args.force)
+    _file_target(args.output, "--output", args.force)
+    from .provenance import provenance_path
+
+    _file_target(provenance_path(Path(args.output)), "--output", args.force)
+
+
+def _targets_preview(args):
+    if args.json:
+        _file_target(args.json, "--json", args.force)
+    if args.report:
+        _folder_target(args.report, "--report", args.force, files=("preview.md", "report.html"))
+
+
+def _targets_mask(args):
+    _file_target(args.output, "--output", args.force)
+    if args.png:
+        _file_target(args.png, "--png", args.force)
+
+
+def _targets_compare(args):
+    if args.json:
+        _file_target(args.json, "--json", args.force)
+    if args.report:
+        _folder_target(args.report, "--report", args.force, files=("compare.md", "report.html"))
+
+
+def _targets_demo(args):
+    _folder_target(args.out, "--out", args.force, any_file=True)
+
+
+def _targets_collate(args):
+    _folder_target(args.out, "--out", args.force, files=("collation.csv", "collation.json", "collation.html"))
+
+
+# command -> the check of every path it writes (a new command that writes adds its entry here)
+OUTPUT_CHECKS = {"apply": _targets_apply, "preview": _targets_preview, "mask": _targets_mask,
+                 "compare": _targets_compare, "demo": _targets_demo, "collate": _targets_collate}
+
+
+def _check_outputs(args) -> None:
+    """The output policy (module docstring): called before a command does any work."""
+    check = OUTPUT_CHECKS.get(args.command)
+    if check is not None:
+        check(args)
+
+
 def _dispatch(args) -> int:
     from . import api
 
     _guard_outputs(args)
+    if args.command == "apply":
+        args._ensemble = bool(api.load_recipe(args.recipe).data.get("members")) and args.member is None
+    _check_outputs(args)
 
     if args.command == "check":
         res = api.check(args.recipe, args.layout, args.input, allow_outside_paths=args.allow_outside_paths)
@@ -264,7 +455,7 @@ def _dispatch(args) -> int:
                                  "folder name (or --member NAME to write one member to this file)")
 
             res = api.apply_ensemble(recipe, args.input, args.output, args.layout, workers=args.workers,
-                                     scheduler=args.scheduler, force=args.force,
+                                     scheduler=args.scheduler, force=args.force, resume=args.resume,
                                      allow_outside_paths=args.allow_outside_paths,
                                      progress=_member_progress(args.quiet))
             if not args.quiet:
@@ -347,8 +538,11 @@ def _dispatch(args) -> int:
     if args.command == "verify":
         from . import report
 
-        result = report.verify(args.provenance, input=args.input, output=args.output)
+        result = report.verify(args.provenance, input=args.input, output=args.output, recipe=args.recipe,
+                               layout=args.layout)
         print(result["message"])
+        for line in result.get("checked", []):
+            print(f"  checked {line}")
         return 0 if result["ok"] else 3
     if args.command == "collate":
         from .collate import problems_text

@@ -27,19 +27,42 @@ def provenance_path(output: Path) -> Path:
     return Path(str(output) + ".provenance.json")
 
 
+def relative_to(path, folder) -> str | None:
+    """``path`` relative to ``folder`` (both resolved), with '/' separators; None on another drive."""
+    import os
+
+    if path is None:
+        return None
+    try:
+        return Path(os.path.relpath(Path(path).resolve(), Path(folder).resolve())).as_posix()
+    except ValueError:
+        return None
+
+
 def record(*, recipe, layout, input_path: Path, input_sha256: str, output_path: Path, output_sha256: str,
            started: str, ended: str, ledger: dict, history: str, member: dict | None = None,
            allow_outside: bool = False, command_line: list | None = None, io: dict | None = None,
            files: dict | None = None) -> dict:
+    # "relative_path": from the record's folder (the output's), so a moved or copied submission
+    # folder verifies on its own files; "relative_to_recipe": a file the recipe reads, from its folder
+    here = Path(output_path).resolve().parent
+    recipe_files = {}
+    for key, f in (files or {}).items():
+        recipe_files[key] = dict(f)
+        if recipe.path is not None and f.get("path"):
+            recipe_files[key]["relative_to_recipe"] = relative_to(f["path"], Path(recipe.path).parent)
     return {
         "format": FORMAT,
         "recipe": {"name": recipe.name, "path": str(recipe.path) if recipe.path else None,
-                   "sha256": recipe.sha256, "text": recipe.text, "files": files or {}},
+                   "relative_path": relative_to(recipe.path, here), "sha256": recipe.sha256, "text": recipe.text,
+                   "files": recipe_files},
         "layout": None if layout is None else {"name": layout.name, "path": str(layout.path) if layout.path else None,
+                                               "relative_path": relative_to(layout.path, here),
                                                "sha256": layout.sha256, "text": layout.text},
-        "input": {"path": str(Path(input_path).resolve()), "size_bytes": Path(input_path).stat().st_size,
-                  "sha256": input_sha256},
-        "output": {"path": str(Path(output_path).resolve()), "sha256": output_sha256},
+        "input": {"path": str(Path(input_path).resolve()), "relative_path": relative_to(input_path, here),
+                  "size_bytes": Path(input_path).stat().st_size, "sha256": input_sha256},
+        "output": {"path": str(Path(output_path).resolve()), "relative_path": Path(output_path).name,
+                   "sha256": output_sha256},
         "member": member,
         "options": {"allow_outside_paths": allow_outside},
         "versions": versions(),

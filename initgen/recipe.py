@@ -498,6 +498,19 @@ def load_layout(source: str | os.PathLike | dict) -> Document:
     return Document(data, text, path.resolve(), "layout")
 
 
+def document_from_text(text: str, kind: str, path: str | os.PathLike | None, source: str) -> Document:
+    """Validate a recipe or layout from its text (e.g. the copy a provenance record keeps);
+    ``path`` is where it counts as living (files it names resolve beside it), ``source`` names it
+    in messages."""
+    raw = _parse_yaml(text, source)
+    if kind == "recipe":
+        data = _validate(raw, RECIPE, "recipe", source, "initgen_recipe", RECIPE_VERSION)
+        _check_semantics(data, source)
+    else:
+        data = _validate(raw, LAYOUT, "layout", source, "initgen_layout", LAYOUT_VERSION)
+    return Document(data, text, None if path is None else Path(path).resolve(), kind)
+
+
 def inline_layout(recipe: Document) -> Document | None:
     data = recipe.data.get("layout")
     if not data:

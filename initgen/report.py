@@ -657,32 +657,60 @@ def compare_report(result: dict, folder, layout=None) -> Path:
 # =============================================================================================
 
 
-def _load_document(entry: dict, kind: str, recipe_doc=None):
-    """Reload the recipe or layout named in a provenance record; check its canonical sha256."""
-    from .recipe import inline_layout, load_layout, load_recipe
+def _locate(entry: dict | None, record_dir: Path) -> tuple[Path | None, str]:
+    """A file named in a provenance record: beside the record (its relative path) first, then the
+    recorded absolute path; (None, "") when neither is there."""
+    rel = (entry or {}).get("relative_path")
+    if rel:
+        cand = record_dir / rel
+        if cand.is_file():
+            return cand, "beside the record"
+    path = (entry or {}).get("path")
+    if path and Path(path).is_file():
+        return Path(path), "at its recorded path"
+    return None, ""
 
+
+def _load_document(entry: dict, kind: str, record_dir: Path, override=None, recipe_doc=None, rec=None):
+    """The recipe or layout of a provenance record, and where it came from: the file given
+    (``override``), the file beside the record or at its recorded path, or the text the record
+    keeps (whose canonical sha256 the caller checks like a file's)."""
+    from .recipe import document_from_text, inline_layout, load_layout, load_recipe
+
+    loader = load_recipe if kind == "recipe" else load_layout
+    if override is not None:
+        return loader(override), f"{override} (given)"
     path = entry.get("path")
-    if kind == "layout" and recipe_doc is not None and path and recipe_doc.path is not None \
-            and Path(path) == Path(recipe_doc.path):
+    recipe_entry = (rec or {}).get("recipe") or {}
+    if kind == "layout" and recipe_doc is not None and path and path == recipe_entry.get("path"):
         doc = inline_layout(recipe_doc)  # the layout was written inside the recipe
         if doc is None:
             raise InputError(f"{path}: the recorded layout was inline in this recipe, which no longer has one")
-    else:
-        if not path:
-            raise InputError(f"provenance record: the {kind} was not read from a file, so it cannot be re-run "
-                             f"from its folder; save record['{kind}']['text'] as a file and apply again")
-        if not Path(path).is_file():
-            raise InputError(f"{path}: the recorded {kind} file is missing; restore it there (its text is in the "
-                             f"provenance record under {kind}.text) - files it names are relative to its folder")
-        doc = load_recipe(path) if kind == "recipe" else load_layout(path)
-    return doc
+        return doc, "inline in the recipe"
+    found, how = _locate(entry, record_dir)
+    if found is not None:
+        return loader(found), f"{found} ({how})"
+    if entry.get("text"):
+        rel = entry.get("relative_path")
+        home = record_dir / rel if rel else Path(path) if path else record_dir / f"{kind}.yaml"
+        doc = document_from_text(entry["text"], kind, home, f"provenance record ({kind}.text)")
+        return doc, f"the {kind} text stored in the record (its file {path} is gone; files it names are " \
+                    f"looked for in {home.parent})"
+    if not path:
+        raise InputError(f"provenance record: the {kind} was not read from a file and its text is not stored; "
+                         f"pass --{kind} with the {kind} file")
+    raise InputError(f"{path}: the recorded {kind} file is missing and the record holds no text of it; "
+                     f"pass --{kind} with its current path")
 
 
-def _document_changed(kind: str, doc, entry: dict, rec: dict) -> str:
+def _document_changed(kind: str, doc, entry: dict, rec: dict, from_record: bool = False) -> str:
     """Why a recipe or layout no longer has its recorded canonical sha256."""
     from . import __version__
 
     want = str(entry.get("sha256"))[:12]
+    if from_record:
+        return (f"the {kind} text stored in the record has canonical sha256 {doc.sha256[:12]}..., not the recorded "
+                f"{want}...: the record was edited after apply; give the {kind} file with --{kind}")
     if entry.get("text") is not None and doc.text == entry["text"]:
         then = (rec.get("versions") or {}).get("initgen")
         return (f"the {kind} {entry.get('path')} is unchanged, but this initgen ({__version__}) reads it differently "
@@ -692,7 +720,7 @@ def _document_changed(kind: str, doc, entry: dict, rec: dict) -> str:
             f"the recorded {want}...); restore the recorded text (provenance record, {kind}.text)")
 
 
-def verify(provenance_path, input=None, output=None) -> dict:
+def verify(provenance_path, input=None, output=None, recipe=None, layout=None) -> dict:
     """Re-run a provenance record and check the recorded output against the re-run.
 
     Parameters
@@ -700,9 +728,15 @@ def verify(provenance_path, input=None, output=None) -> dict:
     provenance_path : str or path-like
         The ``.provenance.json`` written by ``apply``.
     input : str or path-like, optional
-        The original input (default: the path in the record).
+        The original input (default: its path relative to the record, then the recorded
+        absolute path).
     output : str or path-like, optional
-        The file to check (default: the path in the record).
+        The file to check (default: the file the record sits beside, ``X`` for
+        ``X.provenance.json``, then the recorded paths).
+    recipe, layout : str or path-like, optional
+        The recipe and layout files (default: beside the record as recorded, then the recorded
+        absolute path, then the text stored in the record; the canonical sha256 is checked
+        whichever is used).
 
     Returns
     -------
@@ -715,6 +749,8 @@ def verify(provenance_path, input=None, output=None) -> dict:
     ------
     InputError
         When the record, the input, the output, the recipe or the layout file cannot be read.
+        The result's ``checked`` lists every file used and where it was found, so a moved
+        submission folder never silently checks the original files instead of its copies.
 
     Notes
     -----
@@ -730,18 +766,35 @@ def verify(provenance_path, input=None, output=None) -> dict:
     from . import api
     from . import provenance as prov
 
-    rec = prov.load(Path(provenance_path))
+    record_path = Path(provenance_path)
+    rec = prov.load(record_path)
+    record_dir = record_path.resolve().parent
     try:
-        in_path = Path(input) if input is not None else Path(rec["input"]["path"])
-        out_path = Path(output) if output is not None else Path(rec["output"]["path"])
         recipe_entry, layout_entry = rec["recipe"], rec.get("layout")
         want_in, want_out = rec["input"]["sha256"], rec["output"]["sha256"]
+        in_entry, out_entry = dict(rec["input"]), dict(rec["output"])
     except (KeyError, TypeError):
         raise InputError(f"{provenance_path}: the provenance record lacks input, output or recipe entries; "
                          "give the .provenance.json written by initgen apply") from None
-    for p, what in ((in_path, "input"), (out_path, "output")):
-        if not p.is_file():
-            raise InputError(f"{p}: the {what} file is not there; pass --{what} with its current path")
+    if record_path.name.endswith(".provenance.json"):  # a record sits beside its output
+        out_entry["relative_path"] = record_path.name[: -len(".provenance.json")]
+    checked = []
+    paths = {}
+    for what, entry, given in (("input", in_entry, input), ("output", out_entry, output)):
+        if given is not None:
+            paths[what], how = Path(given), "given"
+        else:
+            paths[what], how = _locate(entry, record_dir)
+        if paths[what] is None or not paths[what].is_file():
+            tried = [str(paths[what])] if paths[what] is not None else []
+            if given is None and entry.get("relative_path"):
+                tried.append(str(record_dir / entry["relative_path"]))
+            if given is None and entry.get("path") and entry["path"] not in tried:
+                tried.append(str(entry["path"]))
+            raise InputError(f"{' nor '.join(tried) or what}: the {what} file is not there; pass --{what} with "
+                             "its current path")
+        checked.append(f"{what} {paths[what]} ({how})")
+    in_path, out_path = paths["input"], paths["output"]
     member = rec.get("member") or None
     member_kw = {}
     if member:
@@ -758,28 +811,36 @@ def verify(provenance_path, input=None, output=None) -> dict:
     if not checks["input_sha256"]:
         failures.append(f"the input {in_path} differs from the one recorded (sha256 is not {want_in[:12]}...); "
                         "use the original input")
-    recipe_doc = _load_document(recipe_entry, "recipe")
+    recipe_doc, how = _load_document(recipe_entry, "recipe", record_dir, recipe)
+    checked.append(f"recipe {how}")
     checks["recipe_sha256"] = recipe_doc.sha256 == recipe_entry.get("sha256")
     if not checks["recipe_sha256"]:
-        failures.append(_document_changed("recipe", recipe_doc, recipe_entry, rec))
+        failures.append(_document_changed("recipe", recipe_doc, recipe_entry, rec, how.startswith("the recipe text")))
     layout_doc = None
     if layout_entry:
-        layout_doc = _load_document(layout_entry, "layout", recipe_doc)
+        layout_doc, how = _load_document(layout_entry, "layout", record_dir, layout, recipe_doc, rec)
+        checked.append(f"layout {how}")
         checks["layout_sha256"] = layout_doc.sha256 == layout_entry.get("sha256")
         if not checks["layout_sha256"]:
-            failures.append(_document_changed("layout", layout_doc, layout_entry, rec))
+            failures.append(_document_changed("layout", layout_doc, layout_entry, rec, how.startswith("the layout text")))
     for key, f in (recipe_entry.get("files") or {}).items():
-        now = sha256_file(f["path"]) if Path(f["path"]).is_file() else None
+        # where the re-run will read it: beside the recipe in use, else where it was
+        fpath = Path(f["path"])
+        rel = f.get("relative_to_recipe")
+        if rel and recipe_doc.path is not None and (recipe_doc.base_dir / rel).is_file():
+            fpath = recipe_doc.base_dir / rel
+        now = sha256_file(fpath) if fpath.is_file() else None
+        checked.append(f"file {fpath} (recipe key {key})")
         checks[f"file {key}"] = now == f["sha256"]
         if now != f["sha256"]:
-            failures.append(f"the file {f['path']} (recipe key {key}) "
+            failures.append(f"the file {fpath} (recipe key {key}) "
                             + ("is missing" if now is None else "has changed since the run")
                             + f"; the recorded sha256 is {f['sha256'][:12]}...")
     checks["output_sha256"] = sha256_file(out_path) == want_out
     if not checks["output_sha256"]:
         failures.append(f"the output {out_path} was altered after apply (its sha256 is not the recorded "
                         f"{want_out[:12]}...)")
-    result: dict = {"ok": False, "checks": checks}
+    result: dict = {"ok": False, "checks": checks, "checked": checked}
     if not failures or set(k for k, v in checks.items() if not v) <= {"output_sha256"}:
         allow_outside = bool((rec.get("options") or {}).get("allow_outside_paths", False))
         with tempfile.TemporaryDirectory(prefix="initgen-verify-") as tmp:

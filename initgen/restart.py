@@ -558,6 +558,19 @@ def output_lock(output: Path) -> Iterator[None]:
             lock.unlink()
 
 
+def clean_stale_files(output: Path) -> None:
+    """Remove the temporaries and the lock that crashed or killed initgen runs left beside ``output``
+    (their process is gone); those of live runs are left alone."""
+    output = Path(output)
+    if not output.parent.is_dir():
+        return
+    clean_stale_temporaries(output)
+    lock = _lock_path(output)
+    if lock.exists() and _lock_is_stale(lock):
+        with contextlib.suppress(OSError):
+            lock.unlink()
+
+
 def _pid_alive(pid: int) -> bool:
     try:
         os.kill(pid, 0)

@@ -191,7 +191,7 @@ def test_shipped_pairs_recipe_on_the_demo_file(pairs_local, demo):
     code, out = pairs_local
     assert code == 0
     man = json.loads((out / "manifest.json").read_text())
-    assert man["counts"] == {"outputs": 4, "ok": 4, "failed": 0}
+    assert man["counts"] == {"outputs": 4, "ok": 4, "failed": 0, "not_run": 0, "pending": 0}
     assert man["recipe"]["sha256"] == load_recipe(PAIRS).sha256
     rows = {r["member"]["name"]: r for r in man["outputs"]}
     assert list(rows) == ["warm-x1.0", "cold-x1.0", "warm-x0.5", "cold-x0.5"]
@@ -289,7 +289,8 @@ def test_several_inputs_naming_and_clashes(tmp_path, demo, capsys, monkeypatch):
     assert len(builds) == 1  # two start dates on one grid: weights, profile and anomaly computed once
     # the second time without --force: refused before anything is written
     assert main(["apply", str(rec), "--input", str(demo), "--output", str(tmp_path / "o")]) == 2
-    assert "exists; pass --force" in capsys.readouterr().err
+    err = capsys.readouterr().err
+    assert "holds an ensemble already" in err and "--resume" in err and "--force" in err
     # a template that names two inputs' outputs alike is refused, naming the key
     rec2 = recipe_file(tmp_path, {"list": [{"name": "p"}], "output_template": "{member}.nc"}, name="r2.yaml")
     with pytest.raises(InputError, match=r"members\.output_template: gives the same output"):

@@ -643,12 +643,17 @@ def test_anomaly_file_covering_part_of_the_region_warns(work, capsys):
     rec = field_recipe(work)
     src = sha(work / "in.nc")
     capsys.readouterr()
-    rc, shown = run(apply_argv(work, rec, "--quiet"))
+    rc, shown = run(apply_argv(work, rec))
     err = shown + capsys.readouterr().err.splitlines()
     assert rc == 0
     assert len(err) == 1 and err[0].startswith("initgen: warning: "), err
     assert "perturbations[0].anomaly.field" in err[0] and "covers only" in err[0]
     assert (work / "out.nc").exists() and sha(work / "in.nc") == src
+    # -q: nothing on stdout, and the warning only as a count
+    rc = main([str(a) for a in apply_argv(work, rec, "--quiet", "--force")])
+    cap = capsys.readouterr()
+    assert rc == 0 and cap.out == ""
+    assert cap.err.splitlines() == ["initgen: 1 warning(s) held back by -q; run without -q to read them"]
 
 
 def test_anomaly_file_all_missing_values(work, capsys):
@@ -1237,3 +1242,88 @@ def test_compare_report_folder_is_a_file(work, capsys):
     (work / "rep").write_text("not a folder")
     refused(capsys, ["compare", work / "in.nc", work / "in.nc", "--report", work / "rep"], "rep",
             "is not a folder", folder=work)
+
+
+# =============================================================================================
+# The output policy: every target of every command, existing, in a missing or unwritable folder
+# =============================================================================================
+
+ENSEMBLE_RECIPE = RECIPE + "members:\n  scales: [1.0]\n  signs: [1, -1]\n"
+
+
+@pytest.fixture
+def sealed(tmp_path):
+    """A folder nothing can be created in: mode 0555, and for root (whom modes do not stop) the
+    immutable attribute (chattr +i); skipped where neither holds."""
+    d = tmp_path / "sealed"
+    d.mkdir()
+    if os.geteuid() != 0:
+        d.chmod(0o555)
+    elif subprocess.run(["chattr", "+i", str(d)], capture_output=True).returncode != 0:
+        pytest.skip("cannot make an unwritable folder here (root without chattr +i)")
+    try:
+        yield d
+    finally:
+        if os.geteuid() == 0:
+            subprocess.run(["chattr", "-i", str(d)], capture_output=True)
+        d.chmod(0o755)
+
+
+# command line with {T} for the target; the target's kind: a file, or a folder written into
+TARGETS = {
+    "apply --output": (lambda w, r: ["apply", r, "--input", w / "in.nc", "--output", "{T}"], "file"),
+    "apply ensemble --output": (lambda w, r: ["apply", recipe(w, ENSEMBLE_RECIPE, "e.yaml"), "--input",
+                                              w / "in.nc", "--output", "{T}"], "ensemble"),
+    "mask --output": (lambda w, r: ["mask", r, "--input", w / "in.nc", "--output", "{T}"], "file"),
+    "mask --png": (lambda w, r: ["mask", r, "--input", w / "in.nc", "--output", w / "m.nc", "--png", "{T}"], "file"),
+    "preview --json": (lambda w, r: ["preview", r, "--input", w / "in.nc", "--json", "{T}"], "file"),
+    "preview --report": (lambda w, r: ["preview", r, "--input", w / "in.nc", "--json", w / "l.json",
+                                       "--report", "{T}"], "report"),
+    "compare --json": (lambda w, r: ["compare", w / "in.nc", w / "in.nc", "--json", "{T}"], "file"),
+    "compare --report": (lambda w, r: ["compare", w / "in.nc", w / "in.nc", "--report", "{T}"], "report"),
+    "demo --out": (lambda w, r: ["demo", "--out", "{T}"], "demo"),
+}
+
+
+def _argv(work, target, path):
+    make, _ = TARGETS[target]
+    return [str(path) if a == "{T}" else a for a in make(work, recipe(work))]
+
+
+@pytest.mark.parametrize("target", list(TARGETS))
+def test_output_target_that_exists(work, capsys, target):
+    kind = TARGETS[target][1]
+    path = work / "taken"
+    if kind == "file":
+        path.write_text("someone's file\n")
+        phrases = ("taken", "exists", "--force")
+    else:
+        path.mkdir()
+        name = {"ensemble": "manifest.json", "report": "preview.md" if "preview" in target else "compare.md",
+                "demo": "notes.txt"}[kind]
+        (path / name).write_text("someone's file\n")
+        phrases = ("taken", name if kind != "ensemble" else "holds an ensemble already", "--force")
+    argv = _argv(work, target, path)
+    refused(capsys, argv, *phrases, folder=work)
+
+
+@pytest.mark.parametrize("target", list(TARGETS))
+def test_output_target_in_a_missing_folder(work, capsys, target):
+    path = work / "missing" / "t"
+    refused(capsys, _argv(work, target, path), str(work / "missing"), "does not exist", "create it first",
+            folder=work)
+
+
+@pytest.mark.parametrize("target", list(TARGETS))
+def test_output_target_in_an_unwritable_folder(work, sealed, capsys, target):
+    path = sealed / "t"
+    refused(capsys, _argv(work, target, path), str(sealed), "not writable", "choose another folder", folder=work)
+
+
+def test_apply_output_whose_provenance_record_exists(work, capsys):
+    (work / "out.nc.provenance.json").write_text("{}\n")  # an earlier record: replaced only with --force
+    refused(capsys, apply_argv(work, recipe(work)), "out.nc.provenance.json", "exists", "--force", folder=work)
+
+
+def test_resume_for_a_single_output_file(work, capsys):
+    refused(capsys, apply_argv(work, recipe(work), "--resume"), "--resume", "ensemble", folder=work)

@@ -102,12 +102,12 @@ def test_compare_demo_allowed_variables_exit_0_else_3(demo, tmp_path, capsys):
         assert v["cells_changed"] == sum(r["cells_changed"] for r in rows)
         if v.get("layers"):
             assert [r["cells_changed"] for r in v["layers"]] == [r["cells_changed"] for r in rows]
-    assert main(args) == 3
+    assert main(args + ["--force"]) == 3  # c.json exists: replaced only with --force (output policy)
     out = capsys.readouterr().out
     assert "DIFFERENT" in out
     res = json.loads((tmp_path / "c.json").read_text())
     assert not res["ok"] and len(res["differences"]) == len(changed)
-    assert main(args + ["--allow", *changed[1:]]) == 3  # one changed variable not allowed
+    assert main(args + ["--force", "--allow", *changed[1:]]) == 3  # one changed variable not allowed
 
 
 def test_compare_finds_one_altered_value_with_count_and_box(tmp_path):
@@ -286,12 +286,18 @@ def test_verify_refuses_a_different_input(demo, tmp_path):
     assert not res["ok"] and "input" in res["message"] and "differs" in res["message"]
 
 
-def test_verify_missing_recipe_file_is_a_clear_error(demo, tmp_path):
+def test_verify_missing_recipe_file_uses_the_recorded_text_else_a_clear_error(demo, tmp_path):
     rec = json.loads(demo["prov"].read_text())
     rec["recipe"]["path"] = str(tmp_path / "gone.yaml")
+    rec["recipe"].pop("relative_path", None)
     p = tmp_path / "r.provenance.json"
     p.write_text(json.dumps(rec))
-    with pytest.raises(InputError, match="gone.yaml.*missing"):
+    res = report.verify(p)  # the record keeps the recipe's text; its canonical sha256 is checked
+    assert res["ok"] and res["checks"]["recipe_sha256"], res["message"]
+    assert any(c.startswith("recipe the recipe text stored in the record") for c in res["checked"]), res["checked"]
+    rec["recipe"]["text"] = None
+    p.write_text(json.dumps(rec))
+    with pytest.raises(InputError, match="gone.yaml.*missing.*--recipe"):
         report.verify(p)
 
 
