@@ -8,14 +8,14 @@ The public API::
     initgen.check(recipe, layout=None, input=None)      # validate, write nothing
 """
 
-__version__ = "0.1.0"
+from initgen._version import __version__
 
 __all__ = ["apply", "check", "perturb", "preview", "__version__"]
 
 
 def __getattr__(name):  # import the API on first use, so `import initgen` stays light
     if name in ("apply", "check", "perturb", "preview"):
-        from . import api
+        from initgen import api
 
         return getattr(api, name)
     raise AttributeError(f"module 'initgen' has no attribute {name!r}")

@@ -23,8 +23,8 @@ import sys
 import warnings
 from pathlib import Path
 
-from . import __version__
-from .errors import InputError, InputWarning
+from initgen._version import __version__
+from initgen.errors import InputError, InputWarning
 
 
 class _Parser(argparse.ArgumentParser):
@@ -244,7 +244,7 @@ def main(argv=None) -> int:
             sys.stderr.write(f"initgen: error: {msg}\n")
             return 2
         except KeyboardInterrupt as exc:
-            from .ensemble import Interrupted
+            from initgen.outputs.ensemble import Interrupted
 
             if isinstance(exc, Interrupted):
                 sys.stderr.write(f"initgen: {exc.line()}\n")
@@ -379,16 +379,16 @@ def _targets_apply(args):
         raise InputError("--resume: finishes an ensemble written into a folder; this run writes one file "
                          "(to replace it, pass --force)")
     if args.member is not None:  # a bad member name is the first thing to hear about
-        from .ensemble import select
-        from .recipe import load_recipe
+        from initgen.outputs.ensemble import select
+        from initgen.config.recipe import load_recipe
 
         select(load_recipe(args.recipe), [args.member])
     if len(args.input) == 1:  # the writer's own check: never the input, then folder and --force
-        from .restart import check_output_path
+        from initgen.io.restart import check_output_path
 
         check_output_path(Path(args.input[0]), Path(args.output), args.force)
     _file_target(args.output, "--output", args.force)
-    from .provenance import provenance_path
+    from initgen.outputs.provenance import provenance_path
 
     _file_target(provenance_path(Path(args.output)), "--output", args.force)
 
@@ -434,7 +434,7 @@ def _check_outputs(args) -> None:
 
 
 def _dispatch(args) -> int:
-    from . import api
+    from initgen import api
 
     _guard_outputs(args)
     if args.command == "apply":
@@ -448,7 +448,7 @@ def _dispatch(args) -> int:
     if args.command == "apply":
         recipe = api.load_recipe(args.recipe)
         if recipe.data.get("members") and args.member is None:
-            from .ensemble import results_table
+            from initgen.outputs.ensemble import results_table
 
             if Path(args.output).suffix.lower() in (".nc", ".nc4", ".cdf") and not Path(args.output).is_dir():
                 raise InputError(f"--output {args.output}: the recipe has members, so the output is a folder; give a "
@@ -483,18 +483,18 @@ def _dispatch(args) -> int:
     if args.command == "preview":
         recipe = api.load_recipe(args.recipe)
         if recipe.data.get("members") and args.member is None:
-            from .ensemble import members_table
+            from initgen.outputs.ensemble import members_table
 
             if args.report:
                 raise InputError("--report: the recipe has members; name one with --member NAME for a report")
             rows = api.preview_members(recipe, args.input, args.layout, allow_outside_paths=args.allow_outside_paths)
             print(members_table(rows))
-            from .persistence import line as _persistence_line
+            from initgen.engine.persistence import line as _persistence_line
 
             for m, led in rows:  # persistence.py: one line per member
                 print(f"{m.name}: {_persistence_line(led.get('persistence'))}")
             if args.json:
-                from .restart import write_atomic_text
+                from initgen.io.restart import write_atomic_text
 
                 data = {"members": [{"member": m.record(), "ledger": led} for m, led in rows]}
                 write_atomic_text(Path(args.json), json.dumps(data, indent=2) + "\n")
@@ -504,28 +504,28 @@ def _dispatch(args) -> int:
                           allow_outside_paths=args.allow_outside_paths)
         print(api.ledger_text(led))
         if args.json:
-            from .restart import write_atomic_text
+            from initgen.io.restart import write_atomic_text
 
             write_atomic_text(Path(args.json), json.dumps(led, indent=2) + "\n")
             print(f"wrote {args.json}")
         if args.report:
-            from . import report
+            from initgen.reports import report
 
             path = report.preview_report(args.recipe, args.input, args.layout, Path(args.report), ledger=led,
                                          allow_outside_paths=args.allow_outside_paths, member=args.member)
             print(f"wrote {path.parent / 'report.html'} and {path}")
         return 0
     if args.command == "mask":
-        from . import report
+        from initgen.reports import report
 
         report.write_mask(args.recipe, args.input, args.layout, Path(args.output), png=args.png, force=args.force,
                           allow_outside_paths=args.allow_outside_paths)
         print(f"wrote {args.output}" + (f" and {args.png}" if args.png else ""))
         return 0
     if args.command == "compare":
-        from . import report
+        from initgen.reports import report
 
-        from .restart import write_atomic_text
+        from initgen.io.restart import write_atomic_text
 
         result = report.compare(args.a, args.b, allow=args.allow, layout=args.layout)
         print(report.compare_text(result))
@@ -536,7 +536,7 @@ def _dispatch(args) -> int:
             print(f"wrote {path} and {path.parent / 'compare.md'}")
         return 0 if result["ok"] else 3
     if args.command == "verify":
-        from . import report
+        from initgen.reports import report
 
         result = report.verify(args.provenance, input=args.input, output=args.output, recipe=args.recipe,
                                layout=args.layout)
@@ -545,7 +545,7 @@ def _dispatch(args) -> int:
             print(f"  checked {line}")
         return 0 if result["ok"] else 3
     if args.command == "collate":
-        from .collate import problems_text
+        from initgen.outputs.collate import problems_text
 
         col = api.collate(args.records, args.out, labels=args.label, threshold=args.threshold)
         print(f"collated {len(col['submissions'])} record(s): " + ", ".join(col["written"]))
@@ -553,7 +553,7 @@ def _dispatch(args) -> int:
             print(f"differs: {line}")
         return 0 if col["ok"] else 3
     if args.command == "schema":
-        from .recipe import LAYOUT, RECIPE
+        from initgen.config.recipe import LAYOUT, RECIPE
 
         node = LAYOUT if args.layout else RECIPE
         schema = {"$schema": "https://json-schema.org/draft/2020-12/schema",
@@ -561,7 +561,7 @@ def _dispatch(args) -> int:
         print(json.dumps(schema, indent=2))
         return 0
     if args.command == "demo":
-        from . import demo
+        from initgen import demo
 
         print(demo.run_demo(Path(args.out)))
         return 0

@@ -12,8 +12,8 @@ from pathlib import Path
 
 import numpy as np
 
-from . import soil
-from .restart import create_netcdf
+from initgen.science import soil
+from initgen.io.restart import create_netcdf
 
 NODES = np.array([0.025, 0.075, 0.15, 0.3, 0.55, 0.9, 1.5, 2.5])
 INTERFACES = np.array([0.0, 0.05, 0.1, 0.2, 0.4, 0.7, 1.1, 1.9, 3.1])
@@ -180,10 +180,10 @@ def run_demo(out: Path) -> str:
     """
     import json
 
-    from . import api
-    from .errors import InputError
-    from .restart import write_atomic_text
-    from .shipped import shipped_file
+    from initgen import api
+    from initgen.errors import InputError
+    from initgen.io.restart import write_atomic_text
+    from initgen.io.shipped import shipped_file
 
     out = Path(out)
     if out.exists() and not out.is_dir():
@@ -195,7 +195,7 @@ def run_demo(out: Path) -> str:
     src = out / "demo-restart.nc"
     dst = out / "demo-restart.cold-highland.nc"
     # copy the shipped recipes and the outline beside the data, so every example runs there
-    from .shipped import shipped_dir
+    from initgen.io.shipped import shipped_dir
 
     for example in sorted(shipped_dir("recipes").glob("*.yaml")):
         write_atomic_text(out / example.name, example.read_text(encoding="utf-8"))
@@ -217,7 +217,7 @@ def run_demo(out: Path) -> str:
         api.ledger_text(led),
     ])
     try:
-        from . import report
+        from initgen.reports import report
 
         rep = report.preview_report(recipe, src, None, out / "preview", ledger=led)
         text += f"\npreview report: {rep.parent / 'report.html'} (one page to open offline; Markdown: {rep.name})"

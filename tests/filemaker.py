@@ -151,8 +151,8 @@ LOAM = dict(porosity=0.451, psi_sat_m=0.478, b=5.39)  # Clapp and Hornberger (19
 def frozen_state(seed=0):
     """Soil temperature (K), liquid and ice (m3 m-3, liquid equivalent) of a partly frozen soil in
     phase equilibrium for loam: liquid = min(total, supercooled limit) below 273.15 K (the
-    freezing curve of initgen.soil, Niu and Yang 2006). Shape (layer, lat, lon)."""
-    from initgen import soil
+    freezing curve of initgen.science.soil, Niu and Yang 2006). Shape (layer, lat, lon)."""
+    from initgen.science import soil
 
     rng = np.random.default_rng(seed)
     shape = (WATER_NODES.size, WATER_LAT.size, WATER_LON.size)
@@ -326,7 +326,8 @@ SECOND_INTERFACES = np.array([0.0, 0.02, 0.08, 0.2, 0.4, 0.7, 1.0])
 
 def second_model(path: Path, *, step: int = 2):
     """The demo's invented continent sampled every ``step`` cells as a list of land columns."""
-    from initgen import demo, soil
+    from initgen import demo
+    from initgen.science import soil
 
     f = demo.demo_fields()
     LON, LAT = np.meshgrid(f["lon"], f["lat"])

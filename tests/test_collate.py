@@ -11,7 +11,7 @@ import pytest
 
 from initgen import api
 from initgen.cli import main
-from initgen.collate import band_means, compare
+from initgen.outputs.collate import band_means, compare
 from initgen.demo import run_demo
 
 import filemaker

@@ -13,10 +13,11 @@ import numpy as np
 import pytest
 import scipy.linalg
 
-from initgen import api, conduction as c
+from initgen import api
+from initgen.science import conduction as c
 from initgen.demo import INTERFACES, run_demo
-from initgen.persistence import MAX_STEP_DAYS, STEPS_PER_INTERVAL
-from initgen.recipe import canonical_hash, load_recipe
+from initgen.engine.persistence import MAX_STEP_DAYS, STEPS_PER_INTERVAL
+from initgen.config.recipe import canonical_hash, load_recipe
 
 from test_errors import recipe, refused, swap, work  # noqa: F401  (the error-catalogue helpers)
 

@@ -14,7 +14,7 @@ import pathlib
 
 import pytest
 
-from initgen import constants as K
+from initgen.science import constants as K
 
 
 @pytest.mark.parametrize(

@@ -12,9 +12,10 @@ import pytest
 import xarray as xr
 
 import initgen
-from initgen import api, geodesy
+from initgen import api
+from initgen.science import geodesy
 from initgen.cli import main
-from initgen.recipe import load_recipe
+from initgen.config.recipe import load_recipe
 
 from filemaker import FILL, NODES, curvilinear, points, read_raw, regular
 
@@ -243,7 +244,7 @@ def test_region_covering_whole_grid(tmp_path):
 
 
 def test_blocks_are_bounded_and_match_single_block(tmp_path, monkeypatch):
-    from initgen import plan
+    from initgen.engine import plan
 
     src = regular(tmp_path / "in.nc", nlon=72, nlat=36, chunked=True)
     rec = box_recipe(tmp_path, kind="exponential", extra=", efolding_m: 0.4")
@@ -278,10 +279,10 @@ def test_version(capsys):
 
 def test_region_across_the_grid_seam_reads_two_slabs_not_the_globe(tmp_path, monkeypatch):
     """A box across 0 degrees on a 0..360 grid touches two runs of longitude indices."""
-    from initgen import plan as plan_mod
-    from initgen.grid import open_model
-    from initgen.recipe import load_recipe
-    from initgen.restart import NetCDFStore
+    from initgen.engine import plan as plan_mod
+    from initgen.io.grid import open_model
+    from initgen.config.recipe import load_recipe
+    from initgen.io.restart import NetCDFStore
 
     src = regular(tmp_path / "in.nc", nlon=72, nlat=36, lon0=0.0, chunked=True)
     rec = load_recipe(box_recipe(tmp_path, w=-20, e=20, s=-30, n=30))

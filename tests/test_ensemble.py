@@ -12,13 +12,15 @@ import numpy as np
 import pytest
 import yaml
 
-from initgen import api, ensemble, sources
+from initgen import api
+from initgen.outputs import ensemble
+from initgen.science import sources
 from initgen.cli import main
 from initgen.demo import write_demo_restart
 from initgen.errors import InputError
-from initgen.recipe import RECIPE, load_recipe
-from initgen.restart import sha256_file
-from initgen.shipped import shipped_file
+from initgen.config.recipe import RECIPE, load_recipe
+from initgen.io.restart import sha256_file
+from initgen.io.shipped import shipped_file
 
 PAIRS = shipped_file("recipes", "demo-warm-cold-pairs.yaml")
 

@@ -248,7 +248,7 @@ def test_yaml_key_that_is_not_a_string(work, capsys):
 
 def test_empty_optional_sections_are_the_same_as_absent(work, capsys):
     """Not an error: "physics:" with every line below commented out once crashed (KeyError)."""
-    from initgen.recipe import load_recipe
+    from initgen.config.recipe import load_recipe
 
     plain = load_recipe(recipe(work, RECIPE, "plain.yaml"))
     for extra in ("physics:\n", "physics: null\n", "physics: {}\n"):

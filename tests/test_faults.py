@@ -27,7 +27,7 @@ from pathlib import Path
 import netCDF4
 import pytest
 
-from initgen import restart
+from initgen.io import restart
 from initgen.cli import main
 
 from filemaker import regular
@@ -44,12 +44,12 @@ perturbations:
     profile: {kind: exponential, efolding_m: 0.5}
 """
 
-# The CLI, with initgen.plan.apply_block slowed down: after the first block it writes, the
+# The CLI, with initgen.engine.plan.apply_block slowed down: after the first block it writes, the
 # process touches MARKER and waits (up to 60 s) for GO to exist. SIGTERM/SIGINT interrupt the wait.
 RUNNER = textwrap.dedent("""\
     import sys, time
     from pathlib import Path
-    from initgen import plan
+    from initgen.engine import plan
     marker, go = Path(sys.argv[1]), Path(sys.argv[2])
     original = plan.apply_block
 
@@ -143,7 +143,7 @@ def test_signal_before_the_write_leaves_nothing(work):
     runner.write_text(textwrap.dedent("""\
         import sys, time
         from pathlib import Path
-        from initgen import plan
+        from initgen.engine import plan
         original = plan.build_plan
         def slow(*a, **k):
             Path(sys.argv[1]).touch()
@@ -376,7 +376,7 @@ def test_lock_of_a_live_run_stops_a_second_run(work, capsys):
 # Ensembles: interrupted by a real signal, then resumed
 # ---------------------------------------------------------------------------------------------
 
-# The CLI with initgen.plan.apply_block slowed down for the members named in argv[1] (comma
+# The CLI with initgen.engine.plan.apply_block slowed down for the members named in argv[1] (comma
 # separated): a worker writing one of them touches marker-<member> (holding its process id) after
 # its first block and waits there (up to 120 s) for GO; the others run at full speed. With two
 # workers and the stalled members right after the first k, the run is interrupted at a known
@@ -384,7 +384,7 @@ def test_lock_of_a_live_run_stops_a_second_run(work, capsys):
 ENSEMBLE_RUNNER = textwrap.dedent("""\
     import os, sys, time
     from pathlib import Path
-    from initgen import plan
+    from initgen.engine import plan
     stall, folder = set(sys.argv[1].split(",")), Path(sys.argv[2])
     original = plan.apply_block
 
@@ -459,8 +459,8 @@ def start_ensemble(work, n, stalled, *extra, group=False):
 
 def interrupt_ensemble(work, n, k, how):
     """Run an n-member ensemble, stop it by ``how`` while members k and k+1 are being written."""
-    from initgen import ensemble
-    from initgen.recipe import load_recipe
+    from initgen.outputs import ensemble
+    from initgen.config.recipe import load_recipe
 
     (work / "ens.yaml").write_text(ensemble_recipe(n))
     names_ = [m.name for m in ensemble.members(load_recipe(work / "ens.yaml"))]
@@ -535,7 +535,7 @@ def test_interrupted_20_member_ensemble_resumes_to_a_complete_manifest(work, cap
     assert sorted(r["member"]["name"] for r in kept) == sorted(names_[:7])
     assert sha(work / "in.nc") == src
     # every member, kept or new, verifies on its own
-    from initgen import report
+    from initgen.reports import report
 
     for r in manifest["outputs"][6:9]:
         assert report.verify(r["output"] + ".provenance.json")["ok"]
@@ -568,7 +568,7 @@ def test_unreachable_scheduler_creates_nothing(work, capsys, monkeypatch):
     pytest.importorskip("distributed")
     import socket
 
-    from initgen import ensemble
+    from initgen.outputs import ensemble
 
     with socket.socket() as s:  # a local port nobody listens on
         s.bind(("127.0.0.1", 0))
@@ -689,7 +689,7 @@ def test_quiet_prints_nothing_on_success(work, argv):
 DASK_PRELOAD = textwrap.dedent("""\
     import os, time
     from pathlib import Path
-    from initgen import plan
+    from initgen.engine import plan
     folder, nth = Path(os.environ["INITGEN_TEST_FOLDER"]), int(os.environ["INITGEN_TEST_STALL_NTH"])
     seen = []
 

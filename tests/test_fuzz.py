@@ -29,8 +29,8 @@ from hypothesis import strategies as st
 
 from initgen import api
 from initgen.errors import InputError
-from initgen.recipe import LAYOUT, RECIPE, load_layout, load_recipe
-from initgen.schema import walk_reference
+from initgen.config.recipe import LAYOUT, RECIPE, load_layout, load_recipe
+from initgen.config.schema import walk_reference
 
 from filemaker import regular
 

@@ -1,4 +1,4 @@
-"""Tests for initgen.geodesy: longitude wrapping, great-circle distance, cell areas."""
+"""Tests for initgen.science.geodesy: longitude wrapping, great-circle distance, cell areas."""
 
 import inspect
 
@@ -8,8 +8,8 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from pyproj import Geod
 
-from initgen import geodesy
-from initgen.geodesy import (
+from initgen.science import geodesy
+from initgen.science.geodesy import (
     EARTH_RADIUS_KM,
     cell_areas_regular,
     chord_to_km,

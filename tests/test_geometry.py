@@ -23,7 +23,8 @@ import pytest
 from scipy.integrate import quad
 
 import filemaker as fm
-from initgen import api, geodesy
+from initgen import api
+from initgen.science import geodesy
 from initgen.errors import InputError, InputWarning
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -340,7 +341,7 @@ def test_grid_file_of_another_shape_is_refused(tmp_path):
 
 
 def test_every_shipped_layout_is_valid_listed_in_readme_and_tested():
-    from initgen.recipe import load_layout
+    from initgen.config.recipe import load_layout
 
     readme = (ROOT / "README.md").read_text()
     tests = "".join(p.read_text() for p in (ROOT / "tests").glob("test_*.py"))

@@ -20,10 +20,11 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from initgen import api, report
+from initgen import api
+from initgen.reports import report
 from initgen.cli import main
-from initgen.figures import FIG_PIXELS, short_label
-from initgen.recipe import load_recipe
+from initgen.reports.figures import FIG_PIXELS, short_label
+from initgen.config.recipe import load_recipe
 
 from filemaker import add_land_fraction, curvilinear, points, regular
 
@@ -204,8 +205,8 @@ def test_histograms_weigh_by_the_ledgers_area_and_profile_target_is_the_plans(tm
     """
     import warnings
 
-    from initgen import plan as plan_mod
-    from initgen.restart import NetCDFStore
+    from initgen.engine import plan as plan_mod
+    from initgen.io.restart import NetCDFStore
 
     src = grid_file(tmp_path, kind)
     rec = api.load_recipe(recipe(tmp_path, taper=500, profile="exponential"))
@@ -267,10 +268,10 @@ def test_persistence_is_shown_when_the_ledger_has_it(tmp_path):
 
 
 def test_clamps_and_flags_are_explained_in_a_sentence():
-    from initgen.html_report import CLAMP_TEXT, FLAG_TEXT
+    from initgen.reports.html_report import CLAMP_TEXT, FLAG_TEXT
 
     src = Path(__file__).resolve().parents[1] / "initgen"
-    code = "\n".join(p.read_text() for p in src.glob("*.py"))
+    code = "\n".join(p.read_text() for p in src.rglob("*.py"))
     import re
 
     used_clamps = set(re.findall(r'clamp\("([a-z_]+)"', code))
@@ -286,7 +287,7 @@ def test_weight_map_shows_sea_grey_and_the_change_map_is_centred_on_zero(tmp_pat
     """A box over the regular file's sea (lon 150..200, |lat| < 20) shows grey sea cells."""
     import matplotlib.image as mpimg
 
-    from initgen.figures import SEA_GREY
+    from initgen.reports.figures import SEA_GREY
 
     src = regular(tmp_path / "in.nc")
     rec = recipe(tmp_path, w=110, e=160, s=-10, n=30, taper=300)
@@ -382,7 +383,7 @@ def test_centered_is_read_as_centred_with_the_same_hash(tmp_path):
     b = load_recipe(recipe(tmp_path, taper=100, placement="centered"))
     assert b.data["perturbations"][0]["region"]["taper_placement"] == "centred"
     assert b.sha256 == a
-    from initgen.recipe import RECIPE as NODE
+    from initgen.config.recipe import RECIPE as NODE
 
     assert "centered" in json.dumps(NODE.json())
 
@@ -410,7 +411,7 @@ def test_per_layer_sets_have_short_labels_and_full_names_in_the_table(tmp_path):
 
 
 def test_figure_and_html_modules_do_not_import_matplotlib():
-    code = "import sys, initgen.figures, initgen.html_report, initgen.report; print('matplotlib' in sys.modules)"
+    code = "import sys, initgen.reports.figures, initgen.reports.html_report, initgen.reports.report; print('matplotlib' in sys.modules)"
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True).stdout
     assert out.strip() == "False"
 
@@ -421,9 +422,9 @@ def test_maps_across_the_dateline_are_drawn_in_one_piece(tmp_path):
     report.preview_report(recipe(tmp_path, w=160, e=220, s=20, n=60, taper=400), src, None, tmp_path / "rep")
     page = Page((tmp_path / "rep" / "report.html").read_text())
     assert all(png_size(d) == FIG_PIXELS for d in page.images())
-    from initgen.figures import frame_centre, to_frame
-    from initgen.grid import open_model
-    from initgen.restart import NetCDFStore
+    from initgen.reports.figures import frame_centre, to_frame
+    from initgen.io.grid import open_model
+    from initgen.io.restart import NetCDFStore
 
     store = NetCDFStore(src)
     try:

@@ -1,4 +1,4 @@
-"""Tests for initgen.layers: constructors, units, orientation, validation, snow/soil split."""
+"""Tests for initgen.science.layers: constructors, units, orientation, validation, snow/soil split."""
 
 import numpy as np
 import pytest
@@ -6,7 +6,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from initgen.errors import InputError
-from initgen.layers import Layers, split_snow_soil, units_to_metres
+from initgen.science.layers import Layers, split_snow_soil, units_to_metres
 
 
 def test_from_interfaces_nodes_at_midpoints():
@@ -154,7 +154,7 @@ def test_split_snow_soil():
 # resolve_layers and depth ranges in names (issue 14): definitions, checked by hand computation
 # ---------------------------------------------------------------------------------------------
 
-from initgen.layers import depth_range_in_text, resolve_layers  # noqa: E402
+from initgen.science.layers import depth_range_in_text, resolve_layers  # noqa: E402
 
 
 @pytest.mark.parametrize("text, expect", [

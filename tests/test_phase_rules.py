@@ -10,7 +10,7 @@ Hand-worked examples compute the expected values in the test with the formula sh
 property tests check the invariants over random states (hypothesis).
 
 Constants: L_f = 3.337e5 J kg-1, rho_w = 1000 kg m-3, c_w = 4188, c_i = 2117.27 J kg-1 K-1
-(the constant set of initgen.constants); loam parameters of Clapp and Hornberger (1978),
+(the constant set of initgen.science.constants); loam parameters of Clapp and Hornberger (1978),
 Table 2: porosity 0.451, |psi_s| = 47.8 cm, b = 5.39.
 """
 
@@ -18,8 +18,8 @@ import numpy as np
 import pytest
 from hypothesis import given, settings, strategies as st
 
-from initgen import soil
-from initgen.constants import CP_ICE, CV_WATER, LATENT_HEAT_FUSION, RHO_WATER, T_FREEZE
+from initgen.science import soil
+from initgen.science.constants import CP_ICE, CV_WATER, LATENT_HEAT_FUSION, RHO_WATER, T_FREEZE
 
 LOAM = (0.451, 0.478, 5.39)          # Clapp and Hornberger (1978), Table 2
 CS = 2.2565e6                        # solids heat capacity used in the hand examples, J m-3 K-1

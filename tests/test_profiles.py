@@ -1,4 +1,4 @@
-"""Tests for initgen.profiles: damping depth, node values and exact layer means."""
+"""Tests for initgen.science.profiles: damping depth, node values and exact layer means."""
 
 import math
 
@@ -7,8 +7,8 @@ import pytest
 from scipy.integrate import quad
 
 from initgen.errors import InputError
-from initgen.layers import Layers
-from initgen.profiles import KINDS, damping_depth_m, factor
+from initgen.science.layers import Layers
+from initgen.science.profiles import KINDS, damping_depth_m, factor
 
 DAY = 86400.0
 YEAR = 365.25 * DAY

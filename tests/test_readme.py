@@ -11,8 +11,8 @@ import netCDF4
 import numpy as np
 
 from initgen.demo import run_demo
-from initgen.recipe import RECIPE
-from initgen.schema import walk_reference
+from initgen.config.recipe import RECIPE
+from initgen.config.schema import walk_reference
 
 ROOT = Path(__file__).resolve().parents[1]
 README = (ROOT / "README.md").read_text()

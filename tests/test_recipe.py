@@ -9,7 +9,7 @@ import yaml
 
 from initgen.cli import main
 from initgen.errors import InputError
-from initgen.recipe import LAYOUT, RECIPE, canonical_hash, load_layout, load_recipe
+from initgen.config.recipe import LAYOUT, RECIPE, canonical_hash, load_layout, load_recipe
 
 GOOD = """\
 initgen_recipe: 1
@@ -129,7 +129,7 @@ def test_layout_errors(tmp_path):
 
 
 def test_paths_may_not_leave_recipe_folder(tmp_path):
-    from initgen.recipe import resolve_path
+    from initgen.config.recipe import resolve_path
 
     sub = tmp_path / "exp"
     sub.mkdir()
@@ -147,7 +147,7 @@ def test_paths_may_not_leave_recipe_folder(tmp_path):
 def test_shipped_mask_never_replaces_a_path_with_folders(tmp_path):
     """A GeoJSON reference with folders resolves only as written (regression: a '../x.geojson'
     that left the recipe folder was silently swapped for the shipped mask of the same name)."""
-    from initgen.plan import resolve_shape_file
+    from initgen.engine.plan import resolve_shape_file
 
     exp = tmp_path / "exp"
     exp.mkdir()

@@ -1,4 +1,4 @@
-"""Tests for initgen.regions: shapes, hard masks, boundary distances and taper weights.
+"""Tests for initgen.science.regions: shapes, hard masks, boundary distances and taper weights.
 
 External references used (each named beside its check):
 - regionmask 0.13 ``mask_3D`` (hard masks, same polygon or its own SREX / Giorgi regions);
@@ -20,9 +20,9 @@ from hypothesis import strategies as st
 from pyproj import Geod
 from scipy.signal.windows import tukey
 
-from initgen import regions as rg
+from initgen.science import regions as rg
 from initgen.errors import InputError, InputWarning
-from initgen.geodesy import EARTH_RADIUS_KM as R
+from initgen.science.geodesy import EARTH_RADIUS_KM as R
 
 # regionmask 0.13 uses affine "*" internally; not ours to fix
 pytestmark = pytest.mark.filterwarnings("ignore:Use `@` matmul:PendingDeprecationWarning")

@@ -21,7 +21,8 @@ import netCDF4
 import numpy as np
 import pytest
 
-from initgen import api, report
+from initgen import api
+from initgen.reports import report
 from initgen.cli import main
 from initgen.demo import write_demo_restart
 from initgen.errors import InputError
@@ -451,7 +452,7 @@ def test_compare_box_of_one_changed_cell_on_every_grid_kind(tmp_path, kind):
 
 
 def test_importing_initgen_does_not_import_matplotlib():
-    code = "import sys, initgen.report, initgen.cli; print('matplotlib' in sys.modules)"
+    code = "import sys, initgen.reports.report, initgen.cli; print('matplotlib' in sys.modules)"
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True).stdout
     assert out.strip() == "False"
 

@@ -2,7 +2,7 @@
 0 C melts (the energy is not thrown away); the skin cap under snow respects a snow cover
 fraction. Files are small regular grids shaped like models' snow sections.
 
-Constants: L_f = 3.337e5 J kg-1 and c_i = 2117.27 J kg-1 K-1 (initgen.constants); the melt
+Constants: L_f = 3.337e5 J kg-1 and c_i = 2117.27 J kg-1 K-1 (initgen.science.constants); the melt
 rule is the enthalpy balance m c_i (T - T_f) = L_f * melt (common practice in land models'
 snow schemes).
 """
@@ -14,7 +14,7 @@ import numpy as np
 import pytest
 
 from initgen import api
-from initgen.constants import CP_ICE, LATENT_HEAT_FUSION, T_FREEZE
+from initgen.science.constants import CP_ICE, LATENT_HEAT_FUSION, T_FREEZE
 from initgen.errors import InputError
 
 RECIPE = """initgen_recipe: 1

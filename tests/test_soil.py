@@ -1,4 +1,4 @@
-"""Tests of initgen.soil: published values, a worked example, and property tests.
+"""Tests of initgen.science.soil: published values, a worked example, and property tests.
 
 Source labels beside each check:
 - "Clapp and Hornberger 1978, Table 2 (confirmed)", "Cosby et al. 1984, Table 4/5 (confirmed)",
@@ -8,7 +8,7 @@ Source labels beside each check:
 - "computed by hand": arithmetic from the published formula, written out beside the check
   (calculator arithmetic, independent of initgen's code).
 - "recalled from memory": not re-read in a published text.
-Constants are the CESM shr_const_mod set (see initgen.constants).
+Constants are the CESM shr_const_mod set (see initgen.science.constants).
 """
 
 import math
@@ -18,8 +18,8 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from initgen import soil
-from initgen.constants import CV_SOLID_DEFAULT, LATENT_HEAT_FUSION, RHO_WATER, T_FREEZE
+from initgen.science import soil
+from initgen.science.constants import CV_SOLID_DEFAULT, LATENT_HEAT_FUSION, RHO_WATER, T_FREEZE
 from initgen.errors import InputError
 
 PROP = settings(max_examples=1000, deadline=None, database=None,
@@ -258,7 +258,7 @@ def test_worked_example_loam_energy_mode():
     """Loam (Clapp and Hornberger 1978: theta_s 0.451, |psi_s| 0.478 m, b 5.39), layer
     dz = 0.1 m, liquid 0.30 m3 m-3, no ice, T0 = 274.0 K, cooled by 5 K in energy mode.
     Solids: default c_s = 2.2565e6 J m-3 K-1. All arithmetic below computed by hand
-    (calculator), from the formulas in initgen.soil's docstrings and the CESM constants.
+    (calculator), from the formulas in initgen.science.soil's docstrings and the CESM constants.
 
     1. Heat capacity of the starting state (de Vries 1963 mixing):
        C0 = (1 - 0.451) * 2.2565e6 + 0.30 * 1000 * 4188

@@ -1,4 +1,4 @@
-"""Tests for initgen.sources: regridding, bias anomalies, donor blends and member noise."""
+"""Tests for initgen.science.sources: regridding, bias anomalies, donor blends and member noise."""
 
 import hashlib
 
@@ -7,7 +7,7 @@ import pytest
 from scipy.interpolate import RegularGridInterpolator
 
 from initgen.errors import InputError
-from initgen.sources import (
+from initgen.science.sources import (
     EARTH_RADIUS_KM,
     bias_anomaly,
     correlated_noise,

@@ -1,4 +1,4 @@
-"""initgen.units: unit parsing through cf-units (UDUNITS-2), against the SI definitions.
+"""initgen.science.units: unit parsing through cf-units (UDUNITS-2), against the SI definitions.
 
 Sources: BIPM, The International System of Units (SI Brochure, 9th ed., 2019): T/K = t/degC +
 273.15, 1 hPa = 100 Pa, 1 cm = 0.01 m; CF conventions 1.11 section 3.1 (units are UDUNITS
@@ -9,9 +9,9 @@ from __future__ import annotations
 
 import pytest
 
-from initgen import units
+from initgen.science import units
 from initgen.errors import InputError
-from initgen import soil
+from initgen.science import soil
 
 
 @pytest.mark.parametrize("text,offset", [("K", 0.0), ("kelvin", 0.0), ("degrees_K", 0.0), ("degC", 273.15),

@@ -5,7 +5,7 @@ Each output is decoded here with the definitions written out in the test, not wi
 own reading code: total = liquid + ice; a phase fraction is a share of the water *mass* (the CF
 standard name table's definition of ``mass_fraction_of_unfrozen_water_in_soil_moisture``); a
 true ice volume is its mass / 917 kg m-3 and a liquid equivalent its mass / 1000 kg m-3 (the
-densities of ice at 0 C and of water, common practice; the constants of initgen.constants).
+densities of ice at 0 C and of water, common practice; the constants of initgen.science.constants).
 """
 
 from __future__ import annotations
@@ -17,7 +17,8 @@ import numpy as np
 import pytest
 
 import filemaker as fm
-from initgen import api, soil
+from initgen import api
+from initgen.science import soil
 from initgen.errors import InputError
 
 ROOT = Path(__file__).resolve().parents[1]

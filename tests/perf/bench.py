@@ -164,9 +164,10 @@ def bench_variant(tmp: Path, name: str, res: float, nlayers: int, compressed: bo
 def bench_preview(tmp: Path, res: float, nlayers: int, repeats: int, results: dict) -> None:
     """Dry run against apply's compute: preview (plan + ledger, no writing) and apply's plan + patch
     on a copy made beforehand (so neither copying nor hashing is counted), in this process."""
-    from initgen import api, plan as plan_mod
-    from initgen.recipe import load_recipe
-    from initgen.restart import NetCDFStore
+    from initgen import api
+    from initgen.engine import plan as plan_mod
+    from initgen.config.recipe import load_recipe
+    from initgen.io.restart import NetCDFStore
 
     src = tmp / "preview.nc"
     make_file(src, res, nlayers, False)

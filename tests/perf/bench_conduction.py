@@ -22,8 +22,8 @@ import numpy as np
 
 sys.path.insert(0, os.path.join(os.path.dirname(__file__), "..", ".."))
 
-from initgen import conduction  # noqa: E402
-from initgen.persistence import MAX_STEP_DAYS, STEPS_PER_INTERVAL  # noqa: E402
+from initgen.science import conduction  # noqa: E402
+from initgen.engine.persistence import MAX_STEP_DAYS, STEPS_PER_INTERVAL  # noqa: E402
 
 
 def case(ncol, nlay, seed=0):

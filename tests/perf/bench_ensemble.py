@@ -8,7 +8,7 @@ Run from the repository root::
 The input is the demo restart (``initgen.demo.write_demo_restart``, 120 x 80 cells, 8 soil
 layers) and the recipe is the shipped ``recipes/demo-warm-cold-pairs.yaml`` with 8 scales x 2
 signs = 16 members (energy mode, correlated noise). Both runs go through
-``initgen.ensemble.run`` in the same process: ``workers=1`` writes the members one after the
+``initgen.outputs.ensemble.run`` in the same process: ``workers=1`` writes the members one after the
 other in this process; ``workers=2`` uses two local worker processes. Runs alternate (serial,
 parallel, serial, ...) so that machine load affects both alike; each figure is the median
 wall-clock time, pool start-up included.
@@ -38,10 +38,10 @@ import yaml
 
 sys.path.insert(0, os.path.join(os.path.dirname(__file__), "..", ".."))
 
-from initgen import ensemble  # noqa: E402
+from initgen.outputs import ensemble  # noqa: E402
 from initgen.demo import write_demo_restart  # noqa: E402
-from initgen.recipe import load_recipe  # noqa: E402
-from initgen.shipped import shipped_file  # noqa: E402
+from initgen.config.recipe import load_recipe  # noqa: E402
+from initgen.io.shipped import shipped_file  # noqa: E402
 
 SCALES = [0.25, 0.5, 0.75, 1.0, 1.25, 1.5, 1.75, 2.0]
 

@@ -1,4 +1,4 @@
-"""Benchmark of initgen.regions taper weights (a script; pytest does not collect it).
+"""Benchmark of initgen.science.regions taper weights (a script; pytest does not collect it).
 
 Run:  /work/venv/bin/python tests/perf/bench_regions.py [--quick]
 
@@ -44,8 +44,8 @@ sys.path.insert(0, str(ROOT))
 import shapely  # noqa: E402
 from pyproj import Geod, Transformer  # noqa: E402
 
-from initgen import geodesy  # noqa: E402
-from initgen import regions as rg  # noqa: E402
+from initgen.science import geodesy  # noqa: E402
+from initgen.science import regions as rg  # noqa: E402
 
 WIDTH_KM = 300.0
 

@@ -33,8 +33,8 @@ import numpy as np
 
 sys.path.insert(0, os.path.join(os.path.dirname(__file__), "..", ".."))
 
-from initgen import soil  # noqa: E402
-from initgen.constants import T_FREEZE  # noqa: E402
+from initgen.science import soil  # noqa: E402
+from initgen.science.constants import T_FREEZE  # noqa: E402
 
 
 def make_state(ncol, nlay=10, seed=1):

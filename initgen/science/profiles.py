@@ -35,7 +35,7 @@ from numbers import Real
 import numpy as np
 
 from initgen.errors import InputError
-from initgen.layers import Layers
+from initgen.science.layers import Layers
 
 __all__ = ["KINDS", "EVALUATE", "damping_depth_m", "factor"]
 

@@ -86,7 +86,7 @@ from typing import NamedTuple
 
 import numpy as np
 
-from initgen.constants import (
+from initgen.science.constants import (
     CP_ICE,
     CV_CLAY_TEXTURE,
     CV_SAND_TEXTURE,
@@ -160,7 +160,7 @@ def _f64(x):
 # =============================================================================================
 
 def _temperature_units(units, name, key):
-    from initgen.units import temperature_scale_offset
+    from initgen.science.units import temperature_scale_offset
 
     so = temperature_scale_offset(units)
     if so is None:
@@ -178,7 +178,7 @@ def temperature_to_kelvin(values, units, name="temperature", key=None):
     values : array_like
         Temperatures in ``units``.
     units : str
-        Any UDUNITS temperature unit, parsed by :mod:`initgen.units` (cf-units): ``K``,
+        Any UDUNITS temperature unit, parsed by :mod:`initgen.science.units` (cf-units): ``K``,
         ``kelvin``, ``degK``, ``degrees_K``; ``degC``, ``deg_C``, ``degree_Celsius``,
         ``Celsius``, ``°C``, ``C``; ``degF`` .... ``C`` is coulomb in UDUNITS; for a
         temperature it can only mean Celsius, so it is read as such.
@@ -249,7 +249,7 @@ _SATURATION = {"saturationfraction", "fractionofsaturation"}
 
 def _water_units(units, name):
     """('mass', kg m-2 per unit) | ('volume', m3 m-3 per unit) | ('saturation', 1)."""
-    from initgen.units import water_amount
+    from initgen.science.units import water_amount
 
     key = str(units).strip().lower().replace(" ", "").replace("_", "") if units is not None else ""
     if key in _SATURATION:
@@ -413,7 +413,7 @@ def ice_volume_to_water_equivalent(theta_ice, reading):
     References
     ----------
     Density of ice at 0 C, 917 kg m-3, and of liquid water, 1000 kg m-3: the constants set of
-    :mod:`initgen.constants` (RHO_ICE, RHO_WATER), which names its source.
+    :mod:`initgen.science.constants` (RHO_ICE, RHO_WATER), which names its source.
     """
     return _f64(theta_ice) * _ice_factor(reading)
 
@@ -881,7 +881,7 @@ def enthalpy(T, theta_liq, theta_ice, dz, porosity, c_solid=None):
     References
     ----------
     .. [1] de Vries (1963) for C; the latent term uses L_f of the CESM constant set
-       (:mod:`initgen.constants`).
+       (:mod:`initgen.science.constants`).
     """
     liq = _f64(theta_liq)
     C = heat_capacity(liq, theta_ice, porosity, c_solid)

@@ -12,7 +12,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from .errors import InputError
+from initgen.errors import InputError
 
 K_QUARTZ = 7.7  # W m-1 K-1, Johansen (1975)
 K_OTHER_MINERALS = 2.0  # quartz fraction > 0.2

@@ -1,12 +1,12 @@
 """Ensembles: many perturbed starts from one recipe.
 
-A recipe's ``members`` section (see :func:`initgen.recipe.expand_members`) defines members that
+A recipe's ``members`` section (see :func:`initgen.config.recipe.expand_members`) defines members that
 differ only in how the shared anomaly is used: the change applied for a member is ::
 
     dT(z, x) = w(x) * f(z) * (sign * scale * A(x) + offset_K + noise(x))
 
 ``w``, ``f`` and ``A`` are computed once per input grid (in the calling process) and shared with
-every member; ``noise`` is spatially correlated Gaussian noise (:func:`initgen.sources.correlated_noise`
+every member; ``noise`` is spatially correlated Gaussian noise (:func:`initgen.science.sources.correlated_noise`
 on the model grid, Gaussian correlation in great-circle distance) drawn from the member's seed
 ``sources.member_seed(recipe seed, member name)``, so a member is reproducible from the recipe alone.
 Each output gets its own provenance record (``member`` holds the name, parameters and seed).
@@ -43,13 +43,13 @@ from pathlib import Path
 
 import numpy as np
 
-from . import plan as plan_mod
-from . import provenance as prov
-from . import sources
-from .errors import InputError
-from .grid import open_model
-from .recipe import Document, expand_members
-from .restart import NetCDFStore, clean_stale_files, sha256_file, write_atomic_text
+from initgen.engine import plan as plan_mod
+from initgen.outputs import provenance as prov
+from initgen.science import sources
+from initgen.errors import InputError
+from initgen.io.grid import open_model
+from initgen.config.recipe import Document, expand_members
+from initgen.io.restart import NetCDFStore, clean_stale_files, sha256_file, write_atomic_text
 
 MANIFEST_FORMAT = "initgen-ensemble-manifest/1"
 
@@ -678,7 +678,7 @@ def start_method(requested: str | None = None) -> str:
 def _mp_context(method: str):
     ctx = multiprocessing.get_context(method)
     if method == "forkserver":
-        ctx.set_forkserver_preload(["initgen.ensemble"])
+        ctx.set_forkserver_preload(["initgen.outputs.ensemble"])
     return ctx
 
 
@@ -707,7 +707,7 @@ def _run_local(method, nworkers, recipe, layout, tasks, payload, force, allow_ou
 def _stop_processes(procs, timeout: float = 30.0) -> None:
     """SIGTERM each worker (a member being written removes its temporary file and lock), wait for
     them, and SIGKILL any that did not end in ``timeout`` seconds (the caller then removes what
-    those left, see :func:`initgen.restart.clean_stale_files`)."""
+    those left, see :func:`initgen.io.restart.clean_stale_files`)."""
     import time
 
     for p in procs:
@@ -821,7 +821,7 @@ CSV_COLUMNS = ("member", "scale", "sign", "offset_K", "noise_sigma_K", "noise_le
 
 
 def _manifest(recipe, layout, outdir, results, started, workers, scheduler) -> dict:
-    from . import __version__
+    from initgen._version import __version__
 
     outputs = []
     for r in results:

@@ -23,8 +23,8 @@ from typing import Any
 
 import yaml
 
-from .errors import InputError
-from .schema import AnyOf, Bool, List, Num, Obj, Str
+from initgen.errors import InputError
+from initgen.config.schema import AnyOf, Bool, List, Num, Obj, Str
 
 RECIPE_VERSION = 1
 LAYOUT_VERSION = 1

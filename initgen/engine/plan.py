@@ -20,13 +20,14 @@ from pathlib import Path
 
 import numpy as np
 
-from . import ledger as ledger_mod
-from . import constants, geodesy, persistence, profiles, regions, soil, sources
-from .errors import InputError, InputWarning
-from .grid import ModelFile
-from .layers import Layers
-from .recipe import Document, resolve_path
-from .restart import NetCDFStore, read_field
+from initgen.engine import ledger as ledger_mod
+from initgen.science import constants, geodesy, profiles, regions, soil, sources
+from initgen.engine import persistence
+from initgen.errors import InputError, InputWarning
+from initgen.io.grid import ModelFile
+from initgen.science.layers import Layers
+from initgen.config.recipe import Document, resolve_path
+from initgen.io.restart import NetCDFStore, read_field
 
 T_FREEZE = 273.15
 MIN_WEIGHT = 1e-6  # weights below this are set to 0
@@ -143,7 +144,7 @@ def resolve_shape_file(recipe: Document, rel: str, key: str, allow_outside: bool
     """A GeoJSON path relative to the recipe; a bare file name that is not beside the recipe is
     looked up in the shipped masks/ library. A path with folders is never replaced by a shipped
     file of the same name."""
-    from .shipped import shipped_file
+    from initgen.io.shipped import shipped_file
 
     bare = Path(rel).name == rel
     if bare and not (recipe.base_dir / rel).exists():
@@ -159,7 +160,7 @@ def referenced_files(recipe: Document, allow_outside: bool = False) -> dict:
     """Every file the recipe reads (GeoJSON shapes, anomaly fields, climatologies, donors), by
     recipe key: its resolved path and sha256. The recipe's hash covers its text; these hashes
     cover what its text points to, so a changed outline or field shows in the provenance."""
-    from .restart import sha256_file
+    from initgen.io.restart import sha256_file
 
     out = {}
     for i, b in enumerate(recipe.data["perturbations"]):
@@ -223,7 +224,7 @@ def horizontal_weight(model: ModelFile, region: dict, geom, name: str, window: t
 
 def _metres_per(role, model: ModelFile) -> float:
     """Metres per unit of a length variable (surface altitude), from its units attribute (m if none)."""
-    from .layers import units_to_metres
+    from initgen.science.layers import units_to_metres
 
     try:
         return units_to_metres(role.units or "m", name=role.variables[0])
@@ -377,7 +378,7 @@ def _block_anomaly(model: ModelFile, anomaly: dict, recipe: Document, key: str, 
         ref = _interp_to_grid(dst, rlon, rlat, rvals, f"{key}.bias.reference_file", weight)
         return sources.bias_anomaly(mod, ref, b["scale"]), None
     d = anomaly["donor"]
-    from .grid import open_model
+    from initgen.io.grid import open_model
 
     path = resolve_path(recipe, d["file"], f"{key}.donor.file", allow_outside)
     donor_store = NetCDFStore(path)
@@ -444,7 +445,7 @@ def build_plan(recipe: Document, model: ModelFile, *, allow_outside: bool = Fals
     plan = Plan(recipe, model, blocks, dict(recipe.data["physics"]), region_any, window)
     plan.files = referenced_files(recipe, allow_outside)
     if getattr(model, "grid_file", None):  # the layout's separate grid file: its hash goes into the provenance
-        from .restart import sha256_file
+        from initgen.io.restart import sha256_file
 
         plan.files["layout.grid_file"] = {"path": model.grid_file, "sha256": sha256_file(model.grid_file)}
     check_before_writing(plan)
@@ -1040,11 +1041,11 @@ def _suction_metres(values: np.ndarray, role, model: ModelFile) -> np.ndarray:
     """Saturated matric potential from a file as a suction magnitude in metres of water.
 
     Lengths (m, cm, mm, also written 'mm H2O' or 'm of water') are converted with their unit;
-    pressures (Pa, hPa, kPa, MPa) with psi = p / (rho_w g); both parsed by initgen.units
+    pressures (Pa, hPa, kPa, MPa) with psi = p / (rho_w g); both parsed by initgen.science.units
     (cf-units). Missing or unknown units are refused: a suction read in the wrong unit moves the
     freezing curve by orders of magnitude.
     """
-    from . import units as units_mod
+    from initgen.science import units as units_mod
 
     raw = role.units.strip().lower()
     unit = raw.replace("h2o", "").replace("of water", "").replace("water", "").strip()
@@ -1174,7 +1175,7 @@ def soil_parameter_sources(physics: dict, model: ModelFile) -> dict:
 
 def _water_spec(plan: Plan, model: ModelFile):
     """The water convention of ``model`` (the input, or a donor read with the input's layout)."""
-    from . import water as water_mod
+    from initgen.io import water as water_mod
 
     if model.water is not None:
         return model.water
@@ -1184,7 +1185,7 @@ def _water_spec(plan: Plan, model: ModelFile):
 
 def _water_values(spec, rname: str, raw: np.ndarray, dz, por, name: str) -> np.ndarray:
     """One water variable as stored -> m3 m-3 as stored (a phase fraction -> fraction of 1)."""
-    from .water import FRACTION_ROLES, fraction_factor
+    from initgen.io.water import FRACTION_ROLES, fraction_factor
 
     if rname in FRACTION_ROLES:
         return np.asarray(raw, float) * fraction_factor(spec.units[rname])
@@ -1429,7 +1430,7 @@ def _write_water(plan, store, hkey, water, inside, led, area, write):
         if rname == "soil_water_total":  # conserved by the physics up to round-off: the total stays
             moved &= np.abs(vals - old_vals[rname]) > TOTAL_ROUNDING * (1.0 + np.abs(old_vals[rname]))
         if rname in ("soil_frozen_fraction", "soil_unfrozen_fraction"):
-            from .water import fraction_factor
+            from initgen.io.water import fraction_factor
 
             new = vals / fraction_factor(spec.units[rname])
         else:

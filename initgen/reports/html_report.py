@@ -3,7 +3,7 @@
 The page loads nothing from elsewhere: no scripts, no external style sheets, fonts or links; the
 style is inline and every figure is a ``data:image/png;base64`` URI. It opens offline and can be
 attached to an email as one file. Every number on the page is read from the ledger (preview) or
-the :func:`initgen.report.compare` result; this module only formats them.
+the :func:`initgen.reports.report.compare` result; this module only formats them.
 """
 
 from __future__ import annotations
@@ -12,7 +12,7 @@ import base64
 import html
 from pathlib import Path
 
-from .figures import short_label
+from initgen.reports.figures import short_label
 
 STYLE = """
 body{font-family:sans-serif;font-size:16px;line-height:1.45;max-width:1080px;margin:1.5em auto;padding:0 1em;color:#111}
@@ -120,7 +120,7 @@ def persistence_section(ledger: dict) -> list[str]:
                    "it will be shown here when initgen computes one.</p>")
         return out
     if isinstance(est, dict) and est.get("horizons_days") and est.get("remaining_fraction") is not None:
-        from .persistence import line  # the one wording of the estimate
+        from initgen.engine.persistence import line  # the one wording of the estimate
 
         out.append(f"<p>{esc(line(est))}.</p>")
         per_layer = est.get("remaining_change_per_layer_K") or []
@@ -138,7 +138,7 @@ def persistence_section(ledger: dict) -> list[str]:
             out.append(f"<p><em>Assumptions:</em> {esc(est['assumptions'])}</p>")
         return out
     if isinstance(est, dict) and "not_estimated" in est:
-        from .persistence import line
+        from initgen.engine.persistence import line
 
         out.append(f"<p>{esc(line(est))}.</p>")
         return out

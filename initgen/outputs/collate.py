@@ -28,9 +28,9 @@ from pathlib import Path
 
 import numpy as np
 
-from . import provenance as prov
-from .errors import InputError
-from .restart import sha256_file, write_atomic_text
+from initgen.outputs import provenance as prov
+from initgen.errors import InputError
+from initgen.io.restart import sha256_file, write_atomic_text
 
 BANDS_CM = ((0, 10), (10, 40), (40, 100), (100, 200))
 DEFAULT_THRESHOLD = 0.25

@@ -7,7 +7,7 @@ import json
 import sys
 from pathlib import Path
 
-from .restart import sha256_file, versions
+from initgen.io.restart import sha256_file, versions
 
 FORMAT = "initgen-provenance/1"
 
@@ -18,7 +18,7 @@ def utc_now() -> str:
 
 def history_line(recipe, when: str) -> str:
     """One CF ``history`` line: time, tool, version and recipe hash."""
-    from . import __version__
+    from initgen._version import __version__
 
     return f"{when}: initgen {__version__} applied recipe '{recipe.name}' (sha256 {recipe.sha256})"
 
@@ -87,7 +87,7 @@ def write_perturbed(*, recipe, layout, input_path, output_path, patch, force: bo
     """
     import contextlib
 
-    from .restart import copy_and_patch
+    from initgen.io.restart import copy_and_patch
 
     from concurrent.futures import ThreadPoolExecutor
 
@@ -119,7 +119,7 @@ def write_perturbed(*, recipe, layout, input_path, output_path, patch, force: bo
             output_path=output_path, output_sha256=out_sha, started=started, ended=utc_now(),
             ledger=holder["ledger"], history=history, member=member, allow_outside=allow_outside,
             command_line=command_line, io=io, files=files)
-        from .restart import write_atomic_text
+        from initgen.io.restart import write_atomic_text
 
         write_atomic_text(provenance_path(output_path), dumps(holder["record"]))
 
@@ -141,7 +141,7 @@ def dumps(rec: dict) -> str:
 
 
 def load(path: Path) -> dict:
-    from .errors import InputError
+    from initgen.errors import InputError
 
     path = Path(path)
     try:

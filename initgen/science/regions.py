@@ -40,7 +40,7 @@ import numpy as np
 import shapely
 from scipy.spatial import cKDTree
 
-from initgen import geodesy
+from initgen.science import geodesy
 from initgen.errors import InputError, InputWarning
 
 __all__ = [

@@ -30,7 +30,7 @@ __all__ = [
 
 #: Mean Earth radius in km: the IUGG mean radius R1 of the Geodetic Reference System 1980
 #: (Moritz 2000, Journal of Geodesy 74, 128-133; R1 = 6371.0088 km) rounded to 6371.0 km, as in
-#: REFERENCES.md; the same value as ``initgen.constants.EARTH_RADIUS_M / 1000``.
+#: REFERENCES.md; the same value as ``initgen.science.constants.EARTH_RADIUS_M / 1000``.
 EARTH_RADIUS_KM = 6371.0
 
 #: Default number of random Fourier features in :func:`correlated_noise`.

@@ -33,7 +33,7 @@ from typing import Any, Callable, Iterator
 
 import numpy as np
 
-from .errors import InputError
+from initgen.errors import InputError
 
 try:  # netCDF4 is a hard dependency; import lazily-failing for a clear message
     import netCDF4
@@ -876,7 +876,7 @@ def versions() -> dict:
     import sys
     from importlib import metadata
 
-    from . import __version__
+    from initgen._version import __version__
 
     # xarray's version from its package metadata when it is not imported yet: importing it takes
     # about a second, which every ensemble worker would pay for one string

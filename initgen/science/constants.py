@@ -12,7 +12,7 @@ tests state their tolerances against it. We call it ``CONSTANT_SET`` below.
 The volumetric heat capacities of soil constituents are those of de Vries (1963), as
 tabulated by Moene and van Dam (2014, Table 2.2), and the texture formula for the heat
 capacity of soil solids is the de Vries-based regression used by land models (see
-``soil_solid_heat_capacity`` in :mod:`initgen.soil`).
+``soil_solid_heat_capacity`` in :mod:`initgen.science.soil`).
 
 All values are SI: K, kg, m, s, J.
 

@@ -19,9 +19,9 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from . import geodesy, layers as layers_mod
-from .errors import InputError, InputWarning
-from .restart import Store, VarInfo, find_coordinate
+from initgen.science import geodesy, layers as layers_mod
+from initgen.errors import InputError, InputWarning
+from initgen.io.restart import Store, VarInfo, find_coordinate
 
 CF_ROLES = {
     "soil_temperature": ("soil_temperature",),
@@ -248,7 +248,7 @@ class Role:
         counts are those of the file. Values the variable cannot hold (outside an integer type's
         range or a valid_range) are clipped to it and noted in ``self.limits`` for the run to
         refuse or count."""
-        from .restart import pack, pack_overflow, storable_range, unpack
+        from initgen.io.restart import pack, pack_overflow, storable_range, unpack
 
         def one(info, vals):
             ok = np.isfinite(vals)
@@ -742,7 +742,7 @@ def _grid_store(layout, where: str, store: Store):
         return None, {}
     from pathlib import Path
 
-    from .restart import NetCDFStore
+    from initgen.io.restart import NetCDFStore
 
     text = str(spec["path"])
     if "{tile}" in text:
@@ -840,7 +840,7 @@ def open_model(store: Store, layout=None, needed: tuple = ()) -> ModelFile:
             spec, how = found
         bound[role] = _bind(store, role, spec, grid.dims, data, where)
         sources[role] = how
-    from . import water as water_mod
+    from initgen.io import water as water_mod
 
     # the physics' liquid and ice may come from any water convention (water.py): checked there
     water_needed = any(r in needed for r in ("soil_liquid", "soil_ice"))

@@ -15,7 +15,7 @@ convention                      roles                                           
 Every amount is in kg m-2, m3 m-3 or ``saturation_fraction`` (times the porosity); a fraction
 is the ice's (or the liquid's) share of the water *mass*, as the CF names
 ``mass_fraction_of_unfrozen_water_in_soil_moisture`` define it. The physics works on
-volumetric liquid and ice (m3 m-3, ice as liquid-water equivalent; see :mod:`initgen.soil`);
+volumetric liquid and ice (m3 m-3, ice as liquid-water equivalent; see :mod:`initgen.science.soil`);
 ``plan._read_water``/``plan._write_water`` convert with the functions of soil.py's unit
 conversion section. With ``total_only`` the file holds no phase split: initgen diagnoses it
 from the soil temperature, which is the equilibrium phase rule (:attr:`WaterSpec.phase_split_diagnosed`).
@@ -31,8 +31,8 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
-from . import soil
-from .errors import InputError
+from initgen.science import soil
+from initgen.errors import InputError
 
 CONVENTIONS = {
     "liquid_and_ice": ("soil_liquid", "soil_ice"),
@@ -49,7 +49,7 @@ _MASS_RATIOS = {"kg kg-1": 1.0, "kg/kg": 1.0, "kg kg**-1": 1.0, "kg kg^-1": 1.0,
 
 def fraction_factor(units: str) -> float | None:
     """Fraction of 1 per unit of a phase fraction (1, %, a mass ratio kg kg-1), or None."""
-    from .units import fraction_per
+    from initgen.science.units import fraction_per
 
     key = str(units or "").strip().lower()
     return _MASS_RATIOS[key] if key in _MASS_RATIOS else fraction_per(units)

@@ -14,7 +14,7 @@ import reprlib
 from dataclasses import dataclass, field
 from typing import Any
 
-from .errors import InputError
+from initgen.errors import InputError
 
 _MISSING = object()
 

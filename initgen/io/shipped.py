@@ -9,7 +9,7 @@ from __future__ import annotations
 
 from pathlib import Path
 
-_HERE = Path(__file__).resolve().parent
+_HERE = Path(__file__).resolve().parents[1]  # the package folder (this file is in initgen/io/)
 
 
 def shipped_dir(name: str) -> Path | None:
