@@ -2,17 +2,22 @@
 
 from __future__ import annotations
 
+import warnings
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
 import numpy as np
 
-from initgen.engine import plan as plan_mod
-from initgen.outputs import provenance as prov
-from initgen.io.grid import ModelFile, open_model
 from initgen.config.recipe import Document, inline_layout, load_layout, load_recipe
-from initgen.io.restart import NetCDFStore, XarrayStore
+from initgen.engine import plan as plan_mod
+from initgen.engine.persistence import line as persistence_line
+from initgen.engine.persistence import settings
+from initgen.io.grid import ModelFile, open_model
+from initgen.io.restart import NetCDFStore, XarrayStore, storable_range
+from initgen.outputs import collate as collate_mod
+from initgen.outputs import ensemble
+from initgen.outputs import provenance as prov
 
 
 def _recipe(recipe) -> Document:
@@ -60,9 +65,7 @@ class CheckResult:
         if self.layout is not None:
             lines.append(f"layout '{self.layout.name}' sha256: {self.layout.sha256}")
         if self.recipe.data.get("members"):
-            from initgen.outputs.ensemble import members
-
-            names = [m.name for m in members(self.recipe)]
+            names = [m.name for m in ensemble.members(self.recipe)]
             lines.append(f"members ({len(names)}): " + ", ".join(names))
         phys = self.recipe.data.get("physics") or {}
         if phys.get("mode", "none") != "none":
@@ -86,8 +89,6 @@ class CheckResult:
             if self.model.water is not None:
                 lines.append(self.model.water.describe())
             if self.plan is not None:
-                from initgen.io.restart import storable_range
-
                 for target in self.plan.targets:
                     role = self.model.role(target)
                     for v in (role.views if role is not None else []):
@@ -106,7 +107,6 @@ class CheckResult:
                                  + ", ".join(f"{f:.3g}" for f in b.factors) + f"; at the surface {b.surface_factor:.3g}")
                 n = int((b.weight > 0).sum())
                 lines.append(f"perturbation '{b.name}': {n} cell(s) with weight > 0, {int((b.weight >= 1).sum())} at full weight")
-            from initgen.engine.persistence import settings  # where the persistence estimate's soil properties come from
 
             ps = settings(self.plan)
             lines.append("persistence estimate: " + (f"not estimated: {ps['reason']}" if ps["reason"] else
@@ -136,7 +136,6 @@ def preview(recipe, input, layout=None, *, member: str | None = None, allow_outs
     ``member`` names one member of a recipe with members (without it: the recipe as written,
     scale 1 and no noise; :func:`preview_members` gives every member).
     """
-    from initgen.outputs import ensemble
 
     rec = _recipe(recipe)
     lay = _layout(layout, rec)
@@ -159,7 +158,6 @@ def apply(recipe, input, output, layout=None, *, member: str | None = None, forc
     Returns the provenance record (a dict). The input is never modified; on any error no output
     (and no provenance record) is left behind.
     """
-    from initgen.outputs import ensemble
 
     rec = _recipe(recipe)
     lay = _layout(layout, rec)
@@ -189,7 +187,6 @@ def _refuse_unstorable_first(plan, store) -> None:
     run the plan once read-only on the input so that a refusal comes before the copy is made.
     (With a donor the run would close the donor's file; the refusal then comes while patching
     the temporary copy, which is removed: no output either way.)"""
-    from initgen.io.restart import storable_range
 
     if any(b.donor is not None for b in plan.blocks) or \
             plan.recipe.data.get("limits", {}).get("packed_out_of_range") == "clip":
@@ -199,16 +196,12 @@ def _refuse_unstorable_first(plan, store) -> None:
                                                            "soil_frozen_fraction", "soil_unfrozen_fraction",
                                                            "snow_depth")]
     if any(storable_range(v.info.attrs, v.info.dtype) is not None for r in roles if r is not None for v in r.views):
-        import warnings
-
         with warnings.catch_warnings():  # the run that writes warns again
             warnings.simplefilter("ignore")
             plan_mod.run(plan, store, write=False)
 
 
 def _member(rec: Document, member: str | None):
-    from initgen.outputs import ensemble
-
     if member is None:  # the recipe as written: scale 1, sign +1, no offset, no noise
         return None
     return ensemble.select(rec, [member])[0]
@@ -227,7 +220,6 @@ def apply_ensemble(recipe, inputs, output_dir, layout=None, *, members=None, wor
     provenance record exist and match are kept, the others are written. A signal (SIGINT,
     SIGTERM, SIGHUP) stops it cleanly and raises ``ensemble.Interrupted`` (a KeyboardInterrupt).
     """
-    from initgen.outputs import ensemble
 
     rec = _recipe(recipe)
     return ensemble.run(rec, [Path(i) for i in inputs], Path(output_dir), _layout(layout, rec), names=members,
@@ -237,7 +229,6 @@ def apply_ensemble(recipe, inputs, output_dir, layout=None, *, members=None, wor
 
 def preview_members(recipe, input, layout=None, *, members=None, allow_outside_paths: bool = False) -> list:
     """The ledger of every member (or those named) for one input, writing nothing: [(Member, ledger)]."""
-    from initgen.outputs import ensemble
 
     rec = _recipe(recipe)
     return ensemble.preview(rec, input, _layout(layout, rec), names=members, allow_outside_paths=allow_outside_paths)
@@ -274,7 +265,6 @@ def weights(recipe, input, layout=None, *, allow_outside_paths: bool = False):
 def collate(records, out_dir, labels=None, threshold: float = 0.25) -> dict:
     """Collate provenance records (files, folders, manifests) into ``out_dir``: collation.csv,
     collation.json and collation.html; returns the collation (``ok`` False when any record differs)."""
-    from initgen.outputs import collate as collate_mod
 
     return collate_mod.collate(records, out_dir, labels=labels, threshold=threshold)
 
@@ -319,9 +309,7 @@ def ledger_text(ledger: dict) -> str:
     if phys.get("totals_left_out"):
         lines.append(f"totals in kg and J left out: {phys['totals_left_out']}")
     if "persistence" in ledger:
-        from initgen.engine.persistence import line
-
-        lines.append(line(ledger["persistence"]))
+        lines.append(persistence_line(ledger["persistence"]))
     water = ledger.get("water")
     if water:
         lines.append(f"soil water: {water['convention']} ({water['convention_from']}); volumetric ice "

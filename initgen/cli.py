@@ -19,12 +19,22 @@ import argparse
 import contextlib
 import json
 import os
+import signal
 import sys
+import threading
 import warnings
 from pathlib import Path
 
+from initgen import api, demo
 from initgen._version import __version__
+from initgen.config.recipe import LAYOUT, RECIPE, load_recipe
+from initgen.engine.persistence import line as persistence_line
 from initgen.errors import InputError, InputWarning
+from initgen.io.restart import check_output_path, write_atomic_text
+from initgen.outputs.collate import problems_text
+from initgen.outputs.ensemble import Interrupted, members_table, results_table, select
+from initgen.outputs.provenance import provenance_path
+from initgen.reports import report
 
 
 class _Parser(argparse.ArgumentParser):
@@ -244,8 +254,6 @@ def main(argv=None) -> int:
             sys.stderr.write(f"initgen: error: {msg}\n")
             return 2
         except KeyboardInterrupt as exc:
-            from initgen.outputs.ensemble import Interrupted
-
             if isinstance(exc, Interrupted):
                 sys.stderr.write(f"initgen: {exc.line()}\n")
             else:
@@ -269,8 +277,6 @@ def main(argv=None) -> int:
 def _interrupts_raise():
     """SIGTERM and SIGHUP end a command as Ctrl-C does (KeyboardInterrupt -> exit 130, one line),
     so that whatever is being written is cleaned up; the writers install their own handlers too."""
-    import signal
-    import threading
 
     if threading.current_thread() is not threading.main_thread():
         yield
@@ -379,16 +385,12 @@ def _targets_apply(args):
         raise InputError("--resume: finishes an ensemble written into a folder; this run writes one file "
                          "(to replace it, pass --force)")
     if args.member is not None:  # a bad member name is the first thing to hear about
-        from initgen.outputs.ensemble import select
-        from initgen.config.recipe import load_recipe
 
         select(load_recipe(args.recipe), [args.member])
     if len(args.input) == 1:  # the writer's own check: never the input, then folder and --force
-        from initgen.io.restart import check_output_path
 
         check_output_path(Path(args.input[0]), Path(args.output), args.force)
     _file_target(args.output, "--output", args.force)
-    from initgen.outputs.provenance import provenance_path
 
     _file_target(provenance_path(Path(args.output)), "--output", args.force)
 
@@ -434,8 +436,6 @@ def _check_outputs(args) -> None:
 
 
 def _dispatch(args) -> int:
-    from initgen import api
-
     _guard_outputs(args)
     if args.command == "apply":
         args._ensemble = bool(api.load_recipe(args.recipe).data.get("members")) and args.member is None
@@ -448,8 +448,6 @@ def _dispatch(args) -> int:
     if args.command == "apply":
         recipe = api.load_recipe(args.recipe)
         if recipe.data.get("members") and args.member is None:
-            from initgen.outputs.ensemble import results_table
-
             if Path(args.output).suffix.lower() in (".nc", ".nc4", ".cdf") and not Path(args.output).is_dir():
                 raise InputError(f"--output {args.output}: the recipe has members, so the output is a folder; give a "
                                  "folder name (or --member NAME to write one member to this file)")
@@ -483,19 +481,13 @@ def _dispatch(args) -> int:
     if args.command == "preview":
         recipe = api.load_recipe(args.recipe)
         if recipe.data.get("members") and args.member is None:
-            from initgen.outputs.ensemble import members_table
-
             if args.report:
                 raise InputError("--report: the recipe has members; name one with --member NAME for a report")
             rows = api.preview_members(recipe, args.input, args.layout, allow_outside_paths=args.allow_outside_paths)
             print(members_table(rows))
-            from initgen.engine.persistence import line as _persistence_line
-
             for m, led in rows:  # persistence.py: one line per member
-                print(f"{m.name}: {_persistence_line(led.get('persistence'))}")
+                print(f"{m.name}: {persistence_line(led.get('persistence'))}")
             if args.json:
-                from initgen.io.restart import write_atomic_text
-
                 data = {"members": [{"member": m.record(), "ledger": led} for m, led in rows]}
                 write_atomic_text(Path(args.json), json.dumps(data, indent=2) + "\n")
                 print(f"wrote {args.json}")
@@ -504,28 +496,19 @@ def _dispatch(args) -> int:
                           allow_outside_paths=args.allow_outside_paths)
         print(api.ledger_text(led))
         if args.json:
-            from initgen.io.restart import write_atomic_text
-
             write_atomic_text(Path(args.json), json.dumps(led, indent=2) + "\n")
             print(f"wrote {args.json}")
         if args.report:
-            from initgen.reports import report
-
             path = report.preview_report(args.recipe, args.input, args.layout, Path(args.report), ledger=led,
                                          allow_outside_paths=args.allow_outside_paths, member=args.member)
             print(f"wrote {path.parent / 'report.html'} and {path}")
         return 0
     if args.command == "mask":
-        from initgen.reports import report
-
         report.write_mask(args.recipe, args.input, args.layout, Path(args.output), png=args.png, force=args.force,
                           allow_outside_paths=args.allow_outside_paths)
         print(f"wrote {args.output}" + (f" and {args.png}" if args.png else ""))
         return 0
     if args.command == "compare":
-        from initgen.reports import report
-
-        from initgen.io.restart import write_atomic_text
 
         result = report.compare(args.a, args.b, allow=args.allow, layout=args.layout)
         print(report.compare_text(result))
@@ -536,8 +519,6 @@ def _dispatch(args) -> int:
             print(f"wrote {path} and {path.parent / 'compare.md'}")
         return 0 if result["ok"] else 3
     if args.command == "verify":
-        from initgen.reports import report
-
         result = report.verify(args.provenance, input=args.input, output=args.output, recipe=args.recipe,
                                layout=args.layout)
         print(result["message"])
@@ -545,24 +526,18 @@ def _dispatch(args) -> int:
             print(f"  checked {line}")
         return 0 if result["ok"] else 3
     if args.command == "collate":
-        from initgen.outputs.collate import problems_text
-
         col = api.collate(args.records, args.out, labels=args.label, threshold=args.threshold)
         print(f"collated {len(col['submissions'])} record(s): " + ", ".join(col["written"]))
         for line in problems_text(col):
             print(f"differs: {line}")
         return 0 if col["ok"] else 3
     if args.command == "schema":
-        from initgen.config.recipe import LAYOUT, RECIPE
-
         node = LAYOUT if args.layout else RECIPE
         schema = {"$schema": "https://json-schema.org/draft/2020-12/schema",
                   "title": "initgen layout" if args.layout else "initgen recipe", **node.json()}
         print(json.dumps(schema, indent=2))
         return 0
     if args.command == "demo":
-        from initgen import demo
-
         print(demo.run_demo(Path(args.out)))
         return 0
     raise InputError(f"unknown command {args.command}")  # pragma: no cover

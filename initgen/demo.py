@@ -8,12 +8,17 @@ end of winter, snow, and ocean cells marked with fill values. Nothing here is re
 
 from __future__ import annotations
 
+import json
 from pathlib import Path
 
 import numpy as np
 
+from initgen import api
+from initgen.errors import InputError
+from initgen.io.restart import create_netcdf, write_atomic_text
+from initgen.io.shipped import shipped_dir, shipped_file
+from initgen.reports import report
 from initgen.science import soil
-from initgen.io.restart import create_netcdf
 
 NODES = np.array([0.025, 0.075, 0.15, 0.3, 0.55, 0.9, 1.5, 2.5])
 INTERFACES = np.array([0.0, 0.05, 0.1, 0.2, 0.4, 0.7, 1.1, 1.9, 3.1])
@@ -178,12 +183,6 @@ def run_demo(out: Path) -> str:
     Returns the summary text (also written to ``summary.txt`` in ``out``). The demo folder is
     the demo's own: running it again regenerates its files.
     """
-    import json
-
-    from initgen import api
-    from initgen.errors import InputError
-    from initgen.io.restart import write_atomic_text
-    from initgen.io.shipped import shipped_file
 
     out = Path(out)
     if out.exists() and not out.is_dir():
@@ -195,7 +194,6 @@ def run_demo(out: Path) -> str:
     src = out / "demo-restart.nc"
     dst = out / "demo-restart.cold-highland.nc"
     # copy the shipped recipes and the outline beside the data, so every example runs there
-    from initgen.io.shipped import shipped_dir
 
     for example in sorted(shipped_dir("recipes").glob("*.yaml")):
         write_atomic_text(out / example.name, example.read_text(encoding="utf-8"))
@@ -216,9 +214,7 @@ def run_demo(out: Path) -> str:
         "",
         api.ledger_text(led),
     ])
-    try:
-        from initgen.reports import report
-
+    try:  # the preview report draws with matplotlib
         rep = report.preview_report(recipe, src, None, out / "preview", ledger=led)
         text += f"\npreview report: {rep.parent / 'report.html'} (one page to open offline; Markdown: {rep.name})"
     except ImportError:

@@ -17,14 +17,15 @@ import hashlib
 import json
 import os
 import re
+import string
 from dataclasses import dataclass, replace
 from pathlib import Path
 from typing import Any
 
 import yaml
 
-from initgen.errors import InputError
 from initgen.config.schema import AnyOf, Bool, List, Num, Obj, Str
+from initgen.errors import InputError
 
 RECIPE_VERSION = 1
 LAYOUT_VERSION = 1
@@ -643,8 +644,6 @@ def _check_member_name(name: str, key: str) -> None:
 
 
 def _check_template(template: str, n_members: int) -> None:
-    import string
-
     key = "members.output_template"
     try:
         fields = [f for _, f, _, _ in string.Formatter().parse(template) if f is not None]

@@ -18,7 +18,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from initgen.science import conduction, soil
+from initgen.science import conduction, soil, units
 
 STEPS_PER_INTERVAL = 16  # at least this many backward-Euler steps between horizons ...
 MAX_STEP_DAYS = 1.0  # ... each at most a day (time error < 0.005 in the fraction, tests/test_conduction.py)
@@ -174,9 +174,7 @@ def add_block(plan, led, T0, T, water, inside, area, store=None, hkey=None) -> N
             role = plan.model.role("sand")
             sand = role.read(store, hkey)
             sand = sand if role.layered else sand[:, None]
-            from initgen.engine.plan import _percent  # the same percent rule the physics uses
-
-            sand = np.broadcast_to(_percent(sand, role), T.shape)
+            sand = np.broadcast_to(units.percent_content(sand, role.units), T.shape)  # the physics' percent rule
             quartz, coarse = sand / 100.0, sand >= COARSE_SAND_PCT
         else:
             quartz, coarse = cfg["quartz"], cfg["coarse"]

@@ -20,14 +20,18 @@ from pathlib import Path
 
 import numpy as np
 
+from initgen.config.recipe import Document, resolve_path
 from initgen.engine import ledger as ledger_mod
-from initgen.science import constants, geodesy, profiles, regions, soil, sources
 from initgen.engine import persistence
 from initgen.errors import InputError, InputWarning
-from initgen.io.grid import ModelFile
-from initgen.science.layers import Layers
-from initgen.config.recipe import Document, resolve_path
-from initgen.io.restart import NetCDFStore, read_field
+from initgen.io import water as water_mod
+from initgen.io.grid import ModelFile, open_model
+from initgen.io.restart import NetCDFStore, read_field, sha256_file
+from initgen.io.shipped import shipped_file
+from initgen.io.water import FRACTION_ROLES, fraction_factor
+from initgen.science import constants, geodesy, profiles, regions, soil, sources
+from initgen.science import units as units_mod
+from initgen.science.layers import Layers, units_to_metres
 
 T_FREEZE = 273.15
 MIN_WEIGHT = 1e-6  # weights below this are set to 0
@@ -144,7 +148,6 @@ def resolve_shape_file(recipe: Document, rel: str, key: str, allow_outside: bool
     """A GeoJSON path relative to the recipe; a bare file name that is not beside the recipe is
     looked up in the shipped masks/ library. A path with folders is never replaced by a shipped
     file of the same name."""
-    from initgen.io.shipped import shipped_file
 
     bare = Path(rel).name == rel
     if bare and not (recipe.base_dir / rel).exists():
@@ -160,7 +163,6 @@ def referenced_files(recipe: Document, allow_outside: bool = False) -> dict:
     """Every file the recipe reads (GeoJSON shapes, anomaly fields, climatologies, donors), by
     recipe key: its resolved path and sha256. The recipe's hash covers its text; these hashes
     cover what its text points to, so a changed outline or field shows in the provenance."""
-    from initgen.io.restart import sha256_file
 
     out = {}
     for i, b in enumerate(recipe.data["perturbations"]):
@@ -224,7 +226,6 @@ def horizontal_weight(model: ModelFile, region: dict, geom, name: str, window: t
 
 def _metres_per(role, model: ModelFile) -> float:
     """Metres per unit of a length variable (surface altitude), from its units attribute (m if none)."""
-    from initgen.science.layers import units_to_metres
 
     try:
         return units_to_metres(role.units or "m", name=role.variables[0])
@@ -378,7 +379,6 @@ def _block_anomaly(model: ModelFile, anomaly: dict, recipe: Document, key: str, 
         ref = _interp_to_grid(dst, rlon, rlat, rvals, f"{key}.bias.reference_file", weight)
         return sources.bias_anomaly(mod, ref, b["scale"]), None
     d = anomaly["donor"]
-    from initgen.io.grid import open_model
 
     path = resolve_path(recipe, d["file"], f"{key}.donor.file", allow_outside)
     donor_store = NetCDFStore(path)
@@ -445,7 +445,6 @@ def build_plan(recipe: Document, model: ModelFile, *, allow_outside: bool = Fals
     plan = Plan(recipe, model, blocks, dict(recipe.data["physics"]), region_any, window)
     plan.files = referenced_files(recipe, allow_outside)
     if getattr(model, "grid_file", None):  # the layout's separate grid file: its hash goes into the provenance
-        from initgen.io.restart import sha256_file
 
         plan.files["layout.grid_file"] = {"path": model.grid_file, "sha256": sha256_file(model.grid_file)}
     check_before_writing(plan)
@@ -1045,7 +1044,6 @@ def _suction_metres(values: np.ndarray, role, model: ModelFile) -> np.ndarray:
     (cf-units). Missing or unknown units are refused: a suction read in the wrong unit moves the
     freezing curve by orders of magnitude.
     """
-    from initgen.science import units as units_mod
 
     raw = role.units.strip().lower()
     unit = raw.replace("h2o", "").replace("of water", "").replace("water", "").strip()
@@ -1074,16 +1072,6 @@ def _check_range(values: np.ndarray, lo: float, hi: float, model: ModelFile, rol
         name = what or f"variable '{role.variables[0]}' ({role_name}, units '{role.units}')"
         raise InputError(f"{model.store.describe()}: {name} has {int(bad.sum())} value(s) outside {lo:g}..{hi:g} "
                          f"(e.g. {float(v[bad].flat[0]):.6g}); check its units")
-
-
-def _percent(values: np.ndarray, role) -> np.ndarray:
-    """Sand or clay content in percent: fractions (units '1' or none, all values <= 1) are scaled."""
-    u = role.units.strip().lower()
-    if u in ("%", "percent", "pct"):
-        return values
-    if u in ("", "1", "fraction", "kg kg-1", "kg/kg") and np.nanmax(values, initial=0.0) <= 1.0:
-        return values * 100.0
-    return values
 
 
 def _hydraulics(plan: Plan, store, hkey, shape, model=None):
@@ -1115,8 +1103,8 @@ def _hydraulics(plan: Plan, store, hkey, shape, model=None):
                                    (b, "clapp_b", 0.0, 30.0)):
             _check_range(vals, lo, hi, model, role)
     elif model.role("sand") is not None and model.role("clay") is not None:
-        sand = _percent(role_or_none("sand"), model.role("sand"))
-        clay = _percent(role_or_none("clay"), model.role("clay"))
+        sand = units_mod.percent_content(role_or_none("sand"), model.role("sand").units)
+        clay = units_mod.percent_content(role_or_none("clay"), model.role("clay").units)
         _check_range(sand, 0.0, 100.0, model, "sand", low_open=False)
         _check_range(clay, 0.0, 100.0, model, "clay", low_open=False)
         _check_range(sand + clay, 0.0, 100.0, model, "sand", what="sand + clay", low_open=False)
@@ -1175,7 +1163,6 @@ def soil_parameter_sources(physics: dict, model: ModelFile) -> dict:
 
 def _water_spec(plan: Plan, model: ModelFile):
     """The water convention of ``model`` (the input, or a donor read with the input's layout)."""
-    from initgen.io import water as water_mod
 
     if model.water is not None:
         return model.water
@@ -1185,7 +1172,6 @@ def _water_spec(plan: Plan, model: ModelFile):
 
 def _water_values(spec, rname: str, raw: np.ndarray, dz, por, name: str) -> np.ndarray:
     """One water variable as stored -> m3 m-3 as stored (a phase fraction -> fraction of 1)."""
-    from initgen.io.water import FRACTION_ROLES, fraction_factor
 
     if rname in FRACTION_ROLES:
         return np.asarray(raw, float) * fraction_factor(spec.units[rname])
@@ -1430,8 +1416,6 @@ def _write_water(plan, store, hkey, water, inside, led, area, write):
         if rname == "soil_water_total":  # conserved by the physics up to round-off: the total stays
             moved &= np.abs(vals - old_vals[rname]) > TOTAL_ROUNDING * (1.0 + np.abs(old_vals[rname]))
         if rname in ("soil_frozen_fraction", "soil_unfrozen_fraction"):
-            from initgen.io.water import fraction_factor
-
             new = vals / fraction_factor(spec.units[rname])
         else:
             new = soil.volumetric_to_water(vals, spec.units[rname], water["dz"], porosity=water["porosity"])

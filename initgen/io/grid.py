@@ -14,14 +14,19 @@ a model's list of land columns).
 
 from __future__ import annotations
 
+import difflib
+import re
 import warnings
 from dataclasses import dataclass, field
+from pathlib import Path
 
 import numpy as np
 
-from initgen.science import geodesy, layers as layers_mod
 from initgen.errors import InputError, InputWarning
-from initgen.io.restart import Store, VarInfo, find_coordinate
+from initgen.io import water as water_mod
+from initgen.io.restart import NetCDFStore, Store, VarInfo, find_coordinate, pack, pack_overflow, storable_range, unpack
+from initgen.science import geodesy
+from initgen.science import layers as layers_mod
 
 CF_ROLES = {
     "soil_temperature": ("soil_temperature",),
@@ -248,7 +253,6 @@ class Role:
         counts are those of the file. Values the variable cannot hold (outside an integer type's
         range or a valid_range) are clipped to it and noted in ``self.limits`` for the run to
         refuse or count."""
-        from initgen.io.restart import pack, pack_overflow, storable_range, unpack
 
         def one(info, vals):
             ok = np.isfinite(vals)
@@ -469,8 +473,6 @@ def _cf_role(store: Store, role: str, hdims: tuple, records: set):
 
 def _var(store: Store, name: str, role: str, where: str) -> VarInfo:
     if name not in store.variables:
-        import difflib
-
         hint = difflib.get_close_matches(name, list(store.variables), n=1)
         extra = f"; did you mean '{hint[0]}'?" if hint else ""
         raise InputError(f"{where}: roles.{role} names variable '{name}', which {store.describe()} does not have{extra}")
@@ -740,14 +742,10 @@ def _grid_store(layout, where: str, store: Store):
     spec = (data or {}).get("grid_file")
     if not spec:
         return None, {}
-    from pathlib import Path
-
-    from initgen.io.restart import NetCDFStore
 
     text = str(spec["path"])
     if "{tile}" in text:
         # one grid file per tile: the tile comes from the restart's own file name
-        import re
 
         name = Path(getattr(store, "label", None) or store.path or "").name
         pattern = spec.get("tile_pattern") or r"tile(\d+)"
@@ -840,7 +838,6 @@ def open_model(store: Store, layout=None, needed: tuple = ()) -> ModelFile:
             spec, how = found
         bound[role] = _bind(store, role, spec, grid.dims, data, where)
         sources[role] = how
-    from initgen.io import water as water_mod
 
     # the physics' liquid and ice may come from any water convention (water.py): checked there
     water_needed = any(r in needed for r in ("soil_liquid", "soil_ice"))

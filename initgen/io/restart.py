@@ -25,14 +25,17 @@ import shutil
 import signal
 import socket
 import struct
+import sys
 import time
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
+from importlib import metadata
 from pathlib import Path
 from typing import Any, Callable, Iterator
 
 import numpy as np
 
+from initgen._version import __version__
 from initgen.errors import InputError
 
 try:  # netCDF4 is a hard dependency; import lazily-failing for a clear message
@@ -873,10 +876,6 @@ def read_field(path: Path, variable: str, key_name: str) -> tuple[np.ndarray, np
 
 def versions() -> dict:
     """Versions of the libraries that decide the bits of the output."""
-    import sys
-    from importlib import metadata
-
-    from initgen._version import __version__
 
     # xarray's version from its package metadata when it is not imported yet: importing it takes
     # about a second, which every ensemble worker would pay for one string

@@ -31,8 +31,9 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
-from initgen.science import soil
 from initgen.errors import InputError
+from initgen.science import soil
+from initgen.science.units import fraction_per
 
 CONVENTIONS = {
     "liquid_and_ice": ("soil_liquid", "soil_ice"),
@@ -49,7 +50,6 @@ _MASS_RATIOS = {"kg kg-1": 1.0, "kg/kg": 1.0, "kg kg**-1": 1.0, "kg kg^-1": 1.0,
 
 def fraction_factor(units: str) -> float | None:
     """Fraction of 1 per unit of a phase fraction (1, %, a mass ratio kg kg-1), or None."""
-    from initgen.science.units import fraction_per
 
     key = str(units or "").strip().lower()
     return _MASS_RATIOS[key] if key in _MASS_RATIOS else fraction_per(units)

@@ -28,9 +28,9 @@ from pathlib import Path
 
 import numpy as np
 
-from initgen.outputs import provenance as prov
 from initgen.errors import InputError
 from initgen.io.restart import sha256_file, write_atomic_text
+from initgen.outputs import provenance as prov
 
 BANDS_CM = ((0, 10), (10, 40), (40, 100), (100, 200))
 DEFAULT_THRESHOLD = 0.25
@@ -293,7 +293,7 @@ def to_csv(col: dict) -> str:
 
 
 def _figures(col: dict) -> dict:
-    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from matplotlib.backends.backend_agg import FigureCanvasAgg  # heavy: matplotlib loads only when drawing
     from matplotlib.figure import Figure
 
     figs = {}

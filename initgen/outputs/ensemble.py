@@ -35,6 +35,8 @@ import multiprocessing
 import os
 import signal
 import sys
+import threading
+import time
 import traceback
 from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
 from concurrent.futures.process import BrokenProcessPool
@@ -43,13 +45,14 @@ from pathlib import Path
 
 import numpy as np
 
+from initgen._version import __version__
+from initgen.config.recipe import Document, expand_members
 from initgen.engine import plan as plan_mod
-from initgen.outputs import provenance as prov
-from initgen.science import sources
 from initgen.errors import InputError
 from initgen.io.grid import open_model
-from initgen.config.recipe import Document, expand_members
 from initgen.io.restart import NetCDFStore, clean_stale_files, sha256_file, write_atomic_text
+from initgen.outputs import provenance as prov
+from initgen.science import sources
 
 MANIFEST_FORMAT = "initgen-ensemble-manifest/1"
 
@@ -497,7 +500,6 @@ _SIGNALS = tuple(s for s in (signal.SIGINT, signal.SIGTERM, getattr(signal, "SIG
 def _raise_on_signals():
     """SIGINT, SIGTERM and SIGHUP raise KeyboardInterrupt(signal name) in the main thread; returns
     the previous handlers (None when not in the main thread, where handlers cannot be set)."""
-    import threading
 
     if threading.current_thread() is not threading.main_thread():
         return None
@@ -663,7 +665,6 @@ def start_method(requested: str | None = None) -> str:
     while it forks), else ``forkserver``, else ``spawn``. The worker code is spawn-safe (it
     takes only picklable arguments), so any method gives the same output.
     """
-    import threading
 
     methods = multiprocessing.get_all_start_methods()
     if requested:
@@ -708,7 +709,6 @@ def _stop_processes(procs, timeout: float = 30.0) -> None:
     """SIGTERM each worker (a member being written removes its temporary file and lock), wait for
     them, and SIGKILL any that did not end in ``timeout`` seconds (the caller then removes what
     those left, see :func:`initgen.io.restart.clean_stale_files`)."""
-    import time
 
     for p in procs:
         with contextlib.suppress(Exception):
@@ -757,7 +757,7 @@ def _pool_round(method, nworkers, args, tasks, payload, force, allow_outside, co
 
 def _connect(address: str):
     try:
-        from distributed import Client
+        from distributed import Client  # optional (the dask extra), heavy: only for --scheduler
     except ImportError:
         raise InputError("--scheduler needs Dask distributed; install it with: pip install 'initgen[dask]'") from None
     try:
@@ -768,7 +768,7 @@ def _connect(address: str):
 
 
 def _run_dask(client, recipe, layout, tasks, payload, force, allow_outside, command_line, book, outdir):
-    from distributed import as_completed
+    from distributed import as_completed  # optional (the dask extra), heavy: only for --scheduler
     from distributed import wait as dask_wait
 
     shared_f = {}
@@ -821,8 +821,6 @@ CSV_COLUMNS = ("member", "scale", "sign", "offset_K", "noise_sigma_K", "noise_le
 
 
 def _manifest(recipe, layout, outdir, results, started, workers, scheduler) -> dict:
-    from initgen._version import __version__
-
     outputs = []
     for r in results:
         row = dict(r)

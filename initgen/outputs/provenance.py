@@ -2,12 +2,18 @@
 
 from __future__ import annotations
 
+import contextlib
 import datetime as _dt
 import json
+import os
 import sys
+import time
+from concurrent.futures import ThreadPoolExecutor
 from pathlib import Path
 
-from initgen.io.restart import sha256_file, versions
+from initgen._version import __version__
+from initgen.errors import InputError
+from initgen.io.restart import copy_and_patch, sha256_file, versions, write_atomic_text
 
 FORMAT = "initgen-provenance/1"
 
@@ -18,7 +24,6 @@ def utc_now() -> str:
 
 def history_line(recipe, when: str) -> str:
     """One CF ``history`` line: time, tool, version and recipe hash."""
-    from initgen._version import __version__
 
     return f"{when}: initgen {__version__} applied recipe '{recipe.name}' (sha256 {recipe.sha256})"
 
@@ -29,7 +34,6 @@ def provenance_path(output: Path) -> Path:
 
 def relative_to(path, folder) -> str | None:
     """``path`` relative to ``folder`` (both resolved), with '/' separators; None on another drive."""
-    import os
 
     if path is None:
         return None
@@ -85,11 +89,6 @@ def write_perturbed(*, recipe, layout, input_path, output_path, patch, force: bo
     output is moved into place, and removed again if that move fails). ``api.apply`` and every
     ensemble member go through here.
     """
-    import contextlib
-
-    from initgen.io.restart import copy_and_patch
-
-    from concurrent.futures import ThreadPoolExecutor
 
     input_path, output_path = Path(input_path), Path(output_path)
     started = utc_now()
@@ -105,8 +104,6 @@ def write_perturbed(*, recipe, layout, input_path, output_path, patch, force: bo
         holder["bytes"] = int(getattr(out_store, "bytes_written", 0))
 
     def after(tmp: Path):
-        import time
-
         t = time.perf_counter()
         out_sha = sha256_file(tmp)
         timings["hash_output_s"] = time.perf_counter() - t
@@ -119,7 +116,6 @@ def write_perturbed(*, recipe, layout, input_path, output_path, patch, force: bo
             output_path=output_path, output_sha256=out_sha, started=started, ended=utc_now(),
             ledger=holder["ledger"], history=history, member=member, allow_outside=allow_outside,
             command_line=command_line, io=io, files=files)
-        from initgen.io.restart import write_atomic_text
 
         write_atomic_text(provenance_path(output_path), dumps(holder["record"]))
 
@@ -141,8 +137,6 @@ def dumps(rec: dict) -> str:
 
 
 def load(path: Path) -> dict:
-    from initgen.errors import InputError
-
     path = Path(path)
     try:
         rec = json.loads(path.read_text(encoding="utf-8"))

@@ -17,6 +17,8 @@ import io
 import re
 
 import numpy as np
+import shapely
+from shapely import affinity
 
 #: Size of every PNG figure in inches and its resolution: every figure is 1000 x 640 pixels.
 FIG_SIZE_IN = (10.0, 6.4)
@@ -46,7 +48,7 @@ def short_label(name: str) -> str:
 
 def figure(nrows: int = 1, ncols: int = 1):
     """A new Agg figure and its axes (always a 2-D array)."""
-    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from matplotlib.backends.backend_agg import FigureCanvasAgg  # heavy: matplotlib loads only when drawing
     from matplotlib.figure import Figure
 
     fig = Figure(figsize=FIG_SIZE_IN, dpi=FIG_DPI)
@@ -130,7 +132,7 @@ def contour_half(ax, grid, values: np.ndarray, centre: float, **kw) -> bool:
             x = to_frame(grid.lon, centre)
             ax.contour(x, grid.lat, np.ma.masked_where(_seam(x), np.nan_to_num(v, nan=0.0)), levels=[0.5], **kw)
         else:
-            from matplotlib.tri import Triangulation
+            from matplotlib.tri import Triangulation  # heavy: matplotlib loads only when drawing
 
             x = to_frame(grid.lon, centre).ravel()
             tri = Triangulation(x, grid.lat.ravel())
@@ -142,8 +144,6 @@ def contour_half(ax, grid, values: np.ndarray, centre: float, **kw) -> bool:
 
 def outline(ax, geoms: list, centre: float) -> None:
     """Draw region outlines (shapely geometries in degrees) in the frame, joined across 180 degrees."""
-    import shapely
-    from shapely import affinity
 
     styles = ["-", "--", ":", "-."]
     for i, (name, geom) in enumerate(geoms):
@@ -237,9 +237,8 @@ def map_figure(grid, field, w, geoms, title: str, label: str, *, land=None, land
     diverging : bool
         A red-blue scale centred on zero (for changes); else a sequential scale from 0.
     """
-    from matplotlib.colors import ListedColormap
+    from matplotlib.colors import ListedColormap  # heavy: matplotlib loads only when drawing
     from matplotlib.lines import Line2D
-
     from matplotlib.ticker import FuncFormatter
 
     east = float(np.nanmin(grid.lon)) >= 0.0  # longitudes 0..360 in the file, else -180..180

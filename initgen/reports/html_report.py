@@ -12,6 +12,7 @@ import base64
 import html
 from pathlib import Path
 
+from initgen.engine.persistence import line as persistence_line
 from initgen.reports.figures import short_label
 
 STYLE = """
@@ -120,9 +121,7 @@ def persistence_section(ledger: dict) -> list[str]:
                    "it will be shown here when initgen computes one.</p>")
         return out
     if isinstance(est, dict) and est.get("horizons_days") and est.get("remaining_fraction") is not None:
-        from initgen.engine.persistence import line  # the one wording of the estimate
-
-        out.append(f"<p>{esc(line(est))}.</p>")
+        out.append(f"<p>{esc(persistence_line(est))}.</p>")  # the one wording of the estimate
         per_layer = est.get("remaining_change_per_layer_K") or []
         nl = max((len(r) for r in per_layer), default=0)
         head = ["after (days)", "heat anomaly left"] + [f"layer {i} change left (K)" for i in range(nl)]
@@ -138,9 +137,7 @@ def persistence_section(ledger: dict) -> list[str]:
             out.append(f"<p><em>Assumptions:</em> {esc(est['assumptions'])}</p>")
         return out
     if isinstance(est, dict) and "not_estimated" in est:
-        from initgen.engine.persistence import line
-
-        out.append(f"<p>{esc(line(est))}.</p>")
+        out.append(f"<p>{esc(persistence_line(est))}.</p>")
         return out
     if isinstance(est, dict):
         rows = []

@@ -18,6 +18,7 @@ interactive session is left as it is.
 
 from __future__ import annotations
 
+import inspect
 import json
 import math
 import tempfile
@@ -27,9 +28,22 @@ from typing import Any, Iterable, Iterator
 
 import numpy as np
 
+from initgen import api
+from initgen._version import __version__
+from initgen.config.recipe import document_from_text, inline_layout, load_layout, load_recipe
+from initgen.engine import plan as plan_mod
+from initgen.engine.persistence import line as persistence_line
+from initgen.engine.plan import MIN_WEIGHT, region_geometry
 from initgen.errors import InputError
+from initgen.io.grid import open_model
 from initgen.io.restart import (NetCDFStore, check_output_path, create_netcdf, sha256_file, unpack, write_atomic_bytes,
-                      write_atomic_text)
+                                write_atomic_text)
+from initgen.outputs import provenance as prov
+from initgen.outputs.ensemble import configure
+from initgen.reports.figures import histogram_figure, map_figure, profile_figure, short_label
+from initgen.reports.html_report import CLAMP_TEXT, FLAG_TEXT, MEAN_REGION, compare_page, preview_page
+from initgen.science import regions
+from initgen.science.regions import land_weight
 
 #: Largest number of elements of one variable read at once by :func:`compare` (per file).
 BLOCK_ELEMENTS = 2_000_000
@@ -219,8 +233,6 @@ class _ValueStats:
 
 def _find_grid(store: NetCDFStore, layout, notes: list):
     """The horizontal grid of ``store`` (lon, lat, area, dims), or None when lon/lat cannot be found."""
-    from initgen.io.grid import open_model
-    from initgen.config.recipe import load_layout
 
     lay = load_layout(layout) if _is_layout_path(layout) else layout
     with warnings.catch_warnings(record=True) as caught:
@@ -546,8 +558,6 @@ def _compare_fields(result: dict, layout) -> tuple:
     label; units; the layer's cells changed as the compare result counts them). Read from the two
     files one horizontal field at a time; (None, ...) without a grid.
     """
-    from initgen.io.grid import open_model
-    from initgen.config.recipe import load_layout
 
     sa = NetCDFStore(result["a"])
     try:
@@ -614,9 +624,6 @@ def compare_report(result: dict, folder, layout=None) -> Path:
     grid, per changed variable a map of the change b - a of its first changed layer on file
     a's own coastline and a histogram of that change weighted by cell area.
     """
-    from initgen._version import __version__
-    from initgen.reports.figures import histogram_figure
-    from initgen.reports.html_report import compare_page
 
     folder = Path(folder)
     if folder.exists() and not folder.is_dir():
@@ -675,7 +682,6 @@ def _load_document(entry: dict, kind: str, record_dir: Path, override=None, reci
     """The recipe or layout of a provenance record, and where it came from: the file given
     (``override``), the file beside the record or at its recorded path, or the text the record
     keeps (whose canonical sha256 the caller checks like a file's)."""
-    from initgen.config.recipe import document_from_text, inline_layout, load_layout, load_recipe
 
     loader = load_recipe if kind == "recipe" else load_layout
     if override is not None:
@@ -705,7 +711,6 @@ def _load_document(entry: dict, kind: str, record_dir: Path, override=None, reci
 
 def _document_changed(kind: str, doc, entry: dict, rec: dict, from_record: bool = False) -> str:
     """Why a recipe or layout no longer has its recorded canonical sha256."""
-    from initgen._version import __version__
 
     want = str(entry.get("sha256"))[:12]
     if from_record:
@@ -763,8 +768,6 @@ def verify(provenance_path, input=None, output=None, recipe=None, layout=None) -
     scale, offset and seed). The re-run is written into a temporary folder (``TMPDIR``), which
     needs as much free space as the output, and removed afterwards.
     """
-    from initgen import api
-    from initgen.outputs import provenance as prov
 
     record_path = Path(provenance_path)
     rec = prov.load(record_path)
@@ -798,8 +801,6 @@ def verify(provenance_path, input=None, output=None, recipe=None, layout=None) -
     member = rec.get("member") or None
     member_kw = {}
     if member:
-        import inspect
-
         if "member" not in inspect.signature(api.apply).parameters:
             raise InputError(f"{provenance_path}: this record is of ensemble member {member.get('name')}, and this "
                              "initgen cannot apply one member; verify it with the initgen version of the record")
@@ -897,7 +898,6 @@ def verify(provenance_path, input=None, output=None, recipe=None, layout=None) -
 def _map_figure(grid, field, w, geoms, title: str, label: str, *, cmap=None, vmin=None, vmax=None, land=None,
                 land_what="land fraction", taper_edge=None) -> bytes:
     """A map (see :func:`initgen.reports.figures.map_figure`); ``cmap='RdBu_r'`` asks for the diverging scale."""
-    from initgen.reports.figures import map_figure
 
     return map_figure(grid, field, w, geoms, title, label, land=land, land_what=land_what, taper_edge=taper_edge,
                       diverging=cmap == "RdBu_r", vmin=vmin, vmax=vmax)
@@ -905,7 +905,6 @@ def _map_figure(grid, field, w, geoms, title: str, label: str, *, cmap=None, vmi
 
 def _region_geoms(rec, allow_outside: bool) -> list:
     """(block name, shapely geometry) per perturbation block; None where the outline cannot be rebuilt."""
-    from initgen.engine.plan import region_geometry
 
     out = []
     for i, block in enumerate(rec.data["perturbations"]):
@@ -923,8 +922,6 @@ def _land_for_map(model, store) -> tuple:
     The land fraction, else the land mask (at the layout's threshold 0.5), else where the top
     soil temperature holds a valid value; (None, None) when the file has none of them.
     """
-    from initgen.engine import plan as plan_mod
-    from initgen.science.regions import land_weight
 
     full = model.grid.full_window()
     if model.role("land_fraction") is not None:
@@ -941,8 +938,6 @@ def _land_for_map(model, store) -> tuple:
 
 def _taper_edge(plan, rec, geoms: list) -> np.ndarray | None:
     """1 where any block's taper weight (the plan's own function on the plan's window) is above 0."""
-    from initgen.science import regions
-    from initgen.engine.plan import MIN_WEIGHT
 
     edge = None
     for (name, geom), blk in zip(geoms, rec.data["perturbations"]):
@@ -1087,7 +1082,6 @@ def _area_units(grid) -> tuple[float, str]:
 
 def _histogram_panels(capture: "_ChangeCapture", ledger: dict, roles: tuple, grid) -> tuple[list, list]:
     """(panels, sentences): a panel per layer with several values of change, a sentence per single-valued one."""
-    from initgen.reports.figures import short_label
 
     div, unit = _area_units(grid)
     panels, sentences = [], []
@@ -1134,7 +1128,6 @@ def _coarsen(edges: np.ndarray, area: np.ndarray, most: int = 40) -> tuple[np.nd
 
 def _profile_panels(ledger: dict, model, imposed) -> list:
     """Per layered soil variable of the ledger: layer extents, realised means and (for temperature) the target."""
-    from initgen.reports.figures import short_label
 
     layers = model.layers
     if layers is None:
@@ -1162,8 +1155,6 @@ def _md_table(header: list, rows: list) -> list[str]:
 
 def _ledger_markdown(ledger: dict) -> list[str]:
     """The ledger tables, with the numbers formatted as ``api.ledger_text`` formats them."""
-    from initgen.reports.figures import short_label
-    from initgen.reports.html_report import MEAN_REGION
 
     out = []
     reg = ledger["region"]
@@ -1231,11 +1222,6 @@ def preview_report(recipe, input, layout, out_dir, ledger=None, allow_outside_pa
     change of the cells ``apply`` would change: the plan is run against a read-only wrapper of
     the input that records what would be written instead of writing it).
     """
-    from initgen._version import __version__
-    from initgen import api
-    from initgen.engine import plan as plan_mod
-    from initgen.reports.figures import short_label
-    from initgen.reports.html_report import preview_page
 
     out_dir = Path(out_dir)
     if out_dir.exists() and not out_dir.is_dir():
@@ -1251,8 +1237,6 @@ def preview_report(recipe, input, layout, out_dir, ledger=None, allow_outside_pa
         model = api._model(store, lay, rec)
         plan = plan_mod.build_plan(rec, model, allow_outside=allow_outside_paths)
         if mem is not None:
-            from initgen.outputs.ensemble import configure
-
             plan = configure(plan, mem)
         grid = model.grid
         w = plan.full(np.max([b.weight for b in plan.blocks], axis=0))
@@ -1299,7 +1283,6 @@ def preview_report(recipe, input, layout, out_dir, ledger=None, allow_outside_pa
                                      f"change ({var.get('units', '')})", cmap="RdBu_r", **mk)
         captions[fname] = (f"Change of {short_label(name)}{top} ({var['role']}) as apply would write it (after physics and "
                            "limits), on a scale centred on zero." + coast)
-    from initgen.reports.figures import histogram_figure, profile_figure
 
     imposed = _imposed_profile(plan)
     prof = profile_figure(_profile_panels(ledger, model, imposed), f"Mean change over the region against depth: {who}")
@@ -1353,9 +1336,6 @@ def preview_report(recipe, input, layout, out_dir, ledger=None, allow_outside_pa
 
 def _preview_markdown(rec, lay, input, grid, ledger, figures, captions, donors, member=None, sentences=(),
                       input_sha256=None) -> str:
-    from initgen.reports.html_report import CLAMP_TEXT, FLAG_TEXT
-
-    from initgen._version import __version__
 
     L = [f"# initgen preview: {rec.name}" + (f", member {member}" if member else ""), ""]
     if rec.data.get("description"):
@@ -1422,9 +1402,7 @@ def _preview_markdown(rec, lay, input, grid, ledger, figures, captions, donors, 
     if est is None:
         L.append("PERSISTENCE ESTIMATE: not in this ledger (no `persistence` key).")
     else:
-        from initgen.engine.persistence import line  # persistence.py words the estimate once
-
-        L.append(line(est) + ".")
+        L.append(persistence_line(est) + ".")  # persistence.py words the estimate once
     L += ["", "## Figures", ""]
     for fname in figures:
         L += [f"![{captions.get(fname, fname)}]({fname})", "", captions.get(fname, ""), ""]
@@ -1478,9 +1456,6 @@ def write_mask(recipe, input, layout, output, png=None, force=False, allow_outsi
     exactly as ``apply`` uses it. Attributes name the recipe (name, sha256) and each block (name,
     taper width and placement, elevation band).
     """
-    from initgen._version import __version__
-    from initgen import api
-    from initgen.outputs import provenance as prov
 
     input = Path(input)
     output = Path(output)

@@ -40,8 +40,8 @@ import numpy as np
 import shapely
 from scipy.spatial import cKDTree
 
-from initgen.science import geodesy
 from initgen.errors import InputError, InputWarning
+from initgen.science import geodesy
 
 __all__ = [
     "box",

@@ -86,19 +86,10 @@ from typing import NamedTuple
 
 import numpy as np
 
-from initgen.science.constants import (
-    CP_ICE,
-    CV_CLAY_TEXTURE,
-    CV_SAND_TEXTURE,
-    CV_SOLID_DEFAULT,
-    CV_WATER,
-    GRAVITY,
-    LATENT_HEAT_FUSION,
-    RHO_ICE,
-    RHO_WATER,
-    T_FREEZE,
-)
 from initgen.errors import InputError
+from initgen.science.constants import (CP_ICE, CV_CLAY_TEXTURE, CV_SAND_TEXTURE, CV_SOLID_DEFAULT, CV_WATER, GRAVITY,
+                                       LATENT_HEAT_FUSION, RHO_ICE, RHO_WATER, T_FREEZE)
+from initgen.science.units import temperature_scale_offset, water_amount
 
 __all__ = [
     "SATURATION_FRACTION",
@@ -160,8 +151,6 @@ def _f64(x):
 # =============================================================================================
 
 def _temperature_units(units, name, key):
-    from initgen.science.units import temperature_scale_offset
-
     so = temperature_scale_offset(units)
     if so is None:
         where = f"layout key {key}" if key else "layout"
@@ -249,7 +238,6 @@ _SATURATION = {"saturationfraction", "fractionofsaturation"}
 
 def _water_units(units, name):
     """('mass', kg m-2 per unit) | ('volume', m3 m-3 per unit) | ('saturation', 1)."""
-    from initgen.science.units import water_amount
 
     key = str(units).strip().lower().replace(" ", "").replace("_", "") if units is not None else ""
     if key in _SATURATION:

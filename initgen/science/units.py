@@ -18,14 +18,17 @@ from __future__ import annotations
 import functools
 import re
 
-__all__ = ["parse", "temperature_scale_offset", "metres_per", "pascal_per", "water_amount", "fraction_per"]
+import numpy as np
+
+__all__ = ["parse", "temperature_scale_offset", "metres_per", "pascal_per", "water_amount", "fraction_per",
+           "percent_content"]
 
 _ALIASES = {"fraction": "1", "pct": "%", "°c": "degC", "c": "degC", "deg°c": "degC"}
 
 
 @functools.lru_cache(maxsize=512)
 def _parse(text: str):
-    import cf_units
+    import cf_units  # lazy: loading the UDUNITS-2 database is paid only when a unit is parsed
 
     try:
         return cf_units.Unit(text)
@@ -112,3 +115,15 @@ def water_amount(units) -> tuple[str, float] | None:
         # percent is refused: of the soil volume, or of saturation? (the layout says which)
         return ("volume", f) if f == 1.0 else None
     return None
+
+
+def percent_content(values, units):
+    """Sand or clay content in percent: fractions (units '1' or none, all values <= 1) are scaled.
+
+    Values in %, and any units this rule does not name, are returned as they are."""
+    u = units.strip().lower()
+    if u in ("%", "percent", "pct"):
+        return values
+    if u in ("", "1", "fraction", "kg kg-1", "kg/kg") and np.nanmax(values, initial=0.0) <= 1.0:
+        return values * 100.0
+    return values
