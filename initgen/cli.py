@@ -34,7 +34,10 @@ from initgen.io.restart import check_output_path, write_atomic_text
 from initgen.outputs.collate import problems_text
 from initgen.outputs.ensemble import Interrupted, members_table, results_table, select
 from initgen.outputs.provenance import provenance_path
-from initgen.reports import report
+from initgen.reports.compare import compare, compare_report, compare_text
+from initgen.reports.mask import write_mask
+from initgen.reports.preview import preview_report
+from initgen.reports.verify import verify
 
 
 class _Parser(argparse.ArgumentParser):
@@ -499,27 +502,27 @@ def _dispatch(args) -> int:
             write_atomic_text(Path(args.json), json.dumps(led, indent=2) + "\n")
             print(f"wrote {args.json}")
         if args.report:
-            path = report.preview_report(args.recipe, args.input, args.layout, Path(args.report), ledger=led,
+            path = preview_report(args.recipe, args.input, args.layout, Path(args.report), ledger=led,
                                          allow_outside_paths=args.allow_outside_paths, member=args.member)
             print(f"wrote {path.parent / 'report.html'} and {path}")
         return 0
     if args.command == "mask":
-        report.write_mask(args.recipe, args.input, args.layout, Path(args.output), png=args.png, force=args.force,
+        write_mask(args.recipe, args.input, args.layout, Path(args.output), png=args.png, force=args.force,
                           allow_outside_paths=args.allow_outside_paths)
         print(f"wrote {args.output}" + (f" and {args.png}" if args.png else ""))
         return 0
     if args.command == "compare":
 
-        result = report.compare(args.a, args.b, allow=args.allow, layout=args.layout)
-        print(report.compare_text(result))
+        result = compare(args.a, args.b, allow=args.allow, layout=args.layout)
+        print(compare_text(result))
         if args.json:
             write_atomic_text(Path(args.json), json.dumps(result, indent=2) + "\n")
         if args.report:
-            path = report.compare_report(result, Path(args.report), layout=args.layout)
+            path = compare_report(result, Path(args.report), layout=args.layout)
             print(f"wrote {path} and {path.parent / 'compare.md'}")
         return 0 if result["ok"] else 3
     if args.command == "verify":
-        result = report.verify(args.provenance, input=args.input, output=args.output, recipe=args.recipe,
+        result = verify(args.provenance, input=args.input, output=args.output, recipe=args.recipe,
                                layout=args.layout)
         print(result["message"])
         for line in result.get("checked", []):

@@ -17,8 +17,8 @@ from initgen import api
 from initgen.errors import InputError
 from initgen.io.restart import create_netcdf, write_atomic_text
 from initgen.io.shipped import shipped_dir, shipped_file
-from initgen.reports import report
-from initgen.science import soil
+from initgen.reports.preview import preview_report
+from initgen.science.soil import freezing as soil_freezing
 
 NODES = np.array([0.025, 0.075, 0.15, 0.3, 0.55, 0.9, 1.5, 2.5])
 INTERFACES = np.array([0.0, 0.05, 0.1, 0.2, 0.4, 0.7, 1.1, 1.9, 3.1])
@@ -48,7 +48,7 @@ def demo_fields(nlon: int = 120, nlat: int = 80, shift_K: float = 0.0) -> dict:
     tsoil = t_deep + (t_surf - t_deep) * np.exp(-z / 0.6)
     dz = np.diff(INTERFACES)[:, None, None]
     total = 0.30 * np.ones_like(tsoil)  # m3 m-3, below the loam porosity
-    liq_max = soil.supercooled_liquid_max(tsoil, LOAM["porosity"], LOAM["psi_sat_m"], LOAM["b"])
+    liq_max = soil_freezing.supercooled_liquid_max(tsoil, LOAM["porosity"], LOAM["psi_sat_m"], LOAM["b"])
     liq = np.minimum(total, liq_max)
     wliq = liq * dz * 1000.0
     wice = (total - liq) * dz * 1000.0
@@ -215,7 +215,7 @@ def run_demo(out: Path) -> str:
         api.ledger_text(led),
     ])
     try:  # the preview report draws with matplotlib
-        rep = report.preview_report(recipe, src, None, out / "preview", ledger=led)
+        rep = preview_report(recipe, src, None, out / "preview", ledger=led)
         text += f"\npreview report: {rep.parent / 'report.html'} (one page to open offline; Markdown: {rep.name})"
     except ImportError:
         pass

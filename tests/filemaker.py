@@ -152,14 +152,14 @@ def frozen_state(seed=0):
     """Soil temperature (K), liquid and ice (m3 m-3, liquid equivalent) of a partly frozen soil in
     phase equilibrium for loam: liquid = min(total, supercooled limit) below 273.15 K (the
     freezing curve of initgen.science.soil, Niu and Yang 2006). Shape (layer, lat, lon)."""
-    from initgen.science import soil
+    from initgen.science.soil.freezing import supercooled_liquid_max
 
     rng = np.random.default_rng(seed)
     shape = (WATER_NODES.size, WATER_LAT.size, WATER_LON.size)
     T = (270.0 + 0.8 * np.arange(WATER_NODES.size)[:, None, None] + rng.uniform(-1.5, 1.5, shape))
     T = T.astype("f4").astype(float)  # as the file stores it, so the split is in equilibrium as read
     W = rng.uniform(0.20, 0.40, shape)
-    lmax = soil.supercooled_liquid_max(T, LOAM["porosity"], LOAM["psi_sat_m"], LOAM["b"])
+    lmax = supercooled_liquid_max(T, LOAM["porosity"], LOAM["psi_sat_m"], LOAM["b"])
     liq = np.where(T > 273.15, W, np.minimum(W, lmax))
     return T, liq, W - liq
 
@@ -327,7 +327,7 @@ SECOND_INTERFACES = np.array([0.0, 0.02, 0.08, 0.2, 0.4, 0.7, 1.0])
 def second_model(path: Path, *, step: int = 2):
     """The demo's invented continent sampled every ``step`` cells as a list of land columns."""
     from initgen import demo
-    from initgen.science import soil
+    from initgen.science.soil.freezing import supercooled_liquid_max
 
     f = demo.demo_fields()
     LON, LAT = np.meshgrid(f["lon"], f["lat"])
@@ -345,7 +345,7 @@ def second_model(path: Path, *, step: int = 2):
     tsoil = t_deep[:, None] + (t_surf - t_deep)[:, None] * np.exp(-node[None] / 0.6)
     dz = (bot - top)[None]
     total = 0.30
-    liq = np.minimum(total, soil.supercooled_liquid_max(tsoil, **dict(porosity=0.451, psi_sat_m=0.478, b=5.39)))
+    liq = np.minimum(total, supercooled_liquid_max(tsoil, **dict(porosity=0.451, psi_sat_m=0.478, b=5.39)))
     n, nl = lon.size, node.size
     ds = netCDF4.Dataset(path, "w")
     ds.title = "second invented model for the collation tests"

@@ -21,7 +21,11 @@ import numpy as np
 import pytest
 
 from initgen import api
-from initgen.reports import report
+from initgen.reports.preview import _ChangeCapture
+from initgen.reports.preview import _imposed_profile
+from initgen.reports.compare import compare
+from initgen.reports.compare import compare_report
+from initgen.reports.preview import preview_report
 from initgen.cli import main
 from initgen.reports.figures import FIG_PIXELS, short_label
 from initgen.config.recipe import load_recipe
@@ -138,7 +142,7 @@ def test_preview_page_is_self_contained_with_every_figure_type(tmp_path, kind):
     rec = recipe(tmp_path, taper=500, profile="exponential")
     before = sha(src)
     with pytest.warns(Warning) if kind != "regular" else _nothing():  # no cell areas: equal weights, warned
-        md = report.preview_report(rec, src, None, tmp_path / "rep")
+        md = preview_report(rec, src, None, tmp_path / "rep")
     assert sha(src) == before
     page_path = md.parent / "report.html"
     text = page_path.read_text()
@@ -183,7 +187,7 @@ def test_histogram_area_is_the_spherical_zone_and_single_value_is_a_sentence(tmp
     """
     src = regular(tmp_path / "in.nc")
     rec = recipe(tmp_path)  # lon 20..80, lat 10..50: cells centred 25..75, 15..45
-    report.preview_report(rec, src, None, tmp_path / "rep")
+    preview_report(rec, src, None, tmp_path / "rep")
     text = (tmp_path / "rep" / "report.html").read_text()
     plain = Page(text).plain
     zone_km2 = 6371.0 ** 2 * math.radians(60.0) * (math.sin(math.radians(50)) - math.sin(math.radians(10)))
@@ -217,7 +221,7 @@ def test_histograms_weigh_by_the_ledgers_area_and_profile_target_is_the_plans(tm
         try:
             model = api._model(store, None, rec)
             plan = plan_mod.build_plan(rec, model)
-            cap = report._ChangeCapture(store, model, led, plan)
+            cap = _ChangeCapture(store, model, led, plan)
             plan_mod.run(plan, cap, write=True)
         finally:
             store.close()
@@ -233,7 +237,7 @@ def test_histograms_weigh_by_the_ledgers_area_and_profile_target_is_the_plans(tm
         assert r["cells_changed"] == r["cells_in_region"] == h["cells"][i]
         assert h["area_sum"][i] == pytest.approx(total, rel=1e-12)
         assert h["area"][i].sum() == pytest.approx(total, rel=1e-12)
-    imposed = report._imposed_profile(plan)
+    imposed = _imposed_profile(plan)
     realised = [r["area_weighted_mean"] for r in rows]
     np.testing.assert_allclose(imposed, realised, atol=1e-4)  # float32 storage of 275 K: 3e-5 K steps
     # exponential profile: f = exp(-z/e) at the layer node (profiles.factor, evaluate: node)
@@ -261,7 +265,7 @@ def test_persistence_is_shown_when_the_ledger_has_it(tmp_path):
     rec = recipe(tmp_path)
     led = api.preview(rec, src)
     led["persistence"] = {"e_folding_days": 42.5, "method": "an estimate"}
-    report.preview_report(rec, src, None, tmp_path / "rep", ledger=led)
+    preview_report(rec, src, None, tmp_path / "rep", ledger=led)
     plain = Page((tmp_path / "rep" / "report.html").read_text()).plain
     assert "PERSISTENCE ESTIMATE: not in this ledger" not in plain
     assert "e_folding_days 42.5" in plain and "an estimate" in plain
@@ -291,7 +295,7 @@ def test_weight_map_shows_sea_grey_and_the_change_map_is_centred_on_zero(tmp_pat
 
     src = regular(tmp_path / "in.nc")
     rec = recipe(tmp_path, w=110, e=160, s=-10, n=30, taper=300)
-    report.preview_report(rec, src, None, tmp_path / "rep")
+    preview_report(rec, src, None, tmp_path / "rep")
     img = (mpimg.imread(tmp_path / "rep" / "weights.png")[..., :3] * 255).round().astype(int)
     grey = round(float(SEA_GREY) * 255)
     assert np.count_nonzero(np.all(img == grey, axis=-1)) > 500
@@ -327,7 +331,7 @@ def test_compare_page_names_both_hashes_and_embeds_map_and_histogram(tmp_path, k
     imgs = page.images()
     assert len(imgs) == 2  # the map and the histogram of tsoil's first changed layer
     assert all(png_size(d) == FIG_PIXELS for d in imgs)
-    result = json.loads(json.dumps(report.compare(src, out, allow=["tsoil"])))
+    result = json.loads(json.dumps(compare(src, out, allow=["tsoil"])))
     row = result["variables"]["tsoil"]["layers"][0]
     assert f"{row['area_weighted_mean_change']:.4g}" in page.plain
     assert (tmp_path / "c" / "compare.md").exists()
@@ -337,8 +341,8 @@ def test_compare_page_gives_a_single_valued_change_as_a_sentence(tmp_path):
     src = regular(tmp_path / "in.nc")
     out = tmp_path / "out.nc"
     api.apply(recipe(tmp_path), src, out)  # hard edge, uniform -2 K, no physics: one value of change
-    result = report.compare(src, out, allow=["tsoil"])
-    path = report.compare_report(result, tmp_path / "c")
+    result = compare(src, out, allow=["tsoil"])
+    path = compare_report(result, tmp_path / "c")
     page = Page(path.read_text())
     assert len(page.images()) == 1  # the map; the histogram is a sentence
     n = result["variables"]["tsoil"]["layers"][0]["cells_changed"]
@@ -351,7 +355,7 @@ def test_one_definition_per_statistic_where_every_region_cell_changed(tmp_path):
     out = tmp_path / "out.nc"
     rec = recipe(tmp_path, taper=500)
     record = api.apply(rec, src, out)
-    cmp_ = report.compare(src, out)
+    cmp_ = compare(src, out)
     for r, c in zip(record["ledger"]["variables"]["tsoil"]["layers"], cmp_["variables"]["tsoil"]["layers"]):
         assert r["cells_changed"] == r["cells_in_region"] == c["cells_changed"]
         assert c["area_weighted_mean_change"] == pytest.approx(r["area_weighted_mean"], rel=1e-9)
@@ -401,7 +405,7 @@ def test_per_layer_sets_have_short_labels_and_full_names_in_the_table(tmp_path):
     lay.write_text("initgen_layout: 1\nname: per-layer\nroles:\n  soil_temperature: [tsoil1, tsoil2, tsoil3, "
                    "tsoil4, tsoil5]\n  layer_node_depth: {values: [0.05, 0.15, 0.35, 0.75, 1.5], units: m}\n"
                    "  land_fraction: landfrac\n")
-    report.preview_report(recipe(tmp_path, taper=300), src, lay, tmp_path / "rep")
+    preview_report(recipe(tmp_path, taper=300), src, lay, tmp_path / "rep")
     page = Page((tmp_path / "rep" / "report.html").read_text())
     assert "tsoil1..5 (soil_temperature, change in K)" in page.plain
     cells = page.plain
@@ -411,7 +415,7 @@ def test_per_layer_sets_have_short_labels_and_full_names_in_the_table(tmp_path):
 
 
 def test_figure_and_html_modules_do_not_import_matplotlib():
-    code = "import sys, initgen.reports.figures, initgen.reports.html_report, initgen.reports.report; print('matplotlib' in sys.modules)"
+    code = "import sys, initgen.reports.figures, initgen.reports.html_report, initgen.reports.compare, initgen.reports.preview, initgen.reports.verify, initgen.reports.mask; print('matplotlib' in sys.modules)"
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True).stdout
     assert out.strip() == "False"
 
@@ -419,7 +423,7 @@ def test_figure_and_html_modules_do_not_import_matplotlib():
 def test_maps_across_the_dateline_are_drawn_in_one_piece(tmp_path):
     """A region across 180 degrees on a -180..180 grid: one frame, tick labels in the file's convention."""
     src = regular(tmp_path / "in.nc", lon0=-180.0, nlon=72, nlat=36)
-    report.preview_report(recipe(tmp_path, w=160, e=220, s=20, n=60, taper=400), src, None, tmp_path / "rep")
+    preview_report(recipe(tmp_path, w=160, e=220, s=20, n=60, taper=400), src, None, tmp_path / "rep")
     page = Page((tmp_path / "rep" / "report.html").read_text())
     assert all(png_size(d) == FIG_PIXELS for d in page.images())
     from initgen.reports.figures import frame_centre, to_frame

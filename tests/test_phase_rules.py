@@ -18,7 +18,19 @@ import numpy as np
 import pytest
 from hypothesis import given, settings, strategies as st
 
-from initgen.science import soil
+from initgen.science.soil import properties
+from initgen.science.soil.properties import Hydraulics
+from initgen.errors import InputError
+from initgen.science.soil import modes
+from initgen.science.soil.modes import apply_energy_mode
+from initgen.science.soil.modes import apply_temperature_mode
+from initgen.science.soil.properties import blend_organic
+from initgen.science.soil.properties import enthalpy
+from initgen.science.soil.freezing import equilibrium_shift
+from initgen.science.soil.properties import heat_capacity
+from initgen.science.soil.modes import settle_one_sided
+from initgen.science.soil.freezing import supercooled_liquid_max
+from initgen.science.soil.properties import texture_solid_heat_capacity
 from initgen.science.constants import CP_ICE, CV_WATER, LATENT_HEAT_FUSION, RHO_WATER, T_FREEZE
 
 LOAM = (0.451, 0.478, 5.39)          # Clapp and Hornberger (1978), Table 2
@@ -40,7 +52,7 @@ def lmax(T):
 
 
 def run(mode, T, liq, ice, dT, rule="change_driven"):
-    fn = soil.apply_energy_mode if mode == "energy" else soil.apply_temperature_mode
+    fn = apply_energy_mode if mode == "energy" else apply_temperature_mode
     r = fn(T, liq, ice, dT, DZ, *LOAM, CS, rule=rule)
     return {k: float(v) for k, v in r._asdict().items()}
 
@@ -132,14 +144,14 @@ def test_cooling_from_above_the_curve_keeps_the_excess_liquid_as_it_is():
 
 
 def test_unknown_rule_is_refused():
-    with pytest.raises(soil.InputError, match="phase_rule"):
-        soil.apply_energy_mode(270.0, 0.1, 0.1, 1.0, 0.1, *LOAM, rule="nearest")
+    with pytest.raises(InputError, match="phase_rule"):
+        apply_energy_mode(270.0, 0.1, 0.1, 1.0, 0.1, *LOAM, rule="nearest")
 
 
 def test_equilibrium_shift_reports_what_the_equilibrium_rule_would_move():
     """At 268.15 K the equilibrium liquid is lmax = 0.1188: a layer with 0.05 liquid / 0.25
     ice would melt 0.0688 m3 m-3; one with 0.20 / 0.10 would freeze 0.0812."""
-    d = soil.equilibrium_shift([268.15, 268.15], [0.05, 0.20], [0.25, 0.10], *LOAM)
+    d = equilibrium_shift([268.15, 268.15], [0.05, 0.20], [0.25, 0.10], *LOAM)
     np.testing.assert_allclose(d, [-(lmax(268.15) - 0.05), 0.20 - lmax(268.15)], rtol=1e-9)
 
 
@@ -164,7 +176,7 @@ def cells(draw, consistent=None):
     f = draw(st.one_of(st.just(0.0), st.just(1.0), st.floats(0.0, 1.0)))
     cons = draw(st.booleans()) if consistent is None else consistent
     if cons and T < T_FREEZE:
-        cap = min(W, float(soil.supercooled_liquid_max(T, phi, psi, b)))
+        cap = min(W, float(supercooled_liquid_max(T, phi, psi, b)))
         liq = cap * f
     elif cons and T > T_FREEZE:
         liq = W
@@ -176,14 +188,14 @@ def cells(draw, consistent=None):
 
 
 def _apply(mode, c, rule="change_driven"):
-    fn = soil.apply_energy_mode if mode == "energy" else soil.apply_temperature_mode
+    fn = apply_energy_mode if mode == "energy" else apply_temperature_mode
     return fn(c["T"], c["liq"], c["ice"], c["dT"], c["dz"], c["phi"], c["psi"], c["b"], c["cs"], rule=rule)
 
 
 @PROP
 @given(c=cells())
 def test_property_water_conserved_and_sign_kept(c):
-    for rule in soil.PHASE_RULES:
+    for rule in modes.PHASE_RULES:
         for mode in ("energy", "temperature"):
             r = _apply(mode, c, rule)
             W0, W1 = c["liq"] + c["ice"], float(r.liq + r.ice)
@@ -198,10 +210,10 @@ def test_property_energy_mode_budget(c):
     """|dT| <= |imposed dT|; the enthalpy change equals C0 dT dz (1e-6 relative); the phase
     change is what that energy can pay for: |d ice| rho_w L_f dz <= C0 |dT| dz (+ round-off)."""
     r = _apply("energy", c)
-    C0 = soil.heat_capacity(c["liq"], c["ice"], c["phi"], c["cs"])
+    C0 = heat_capacity(c["liq"], c["ice"], c["phi"], c["cs"])
     target = C0 * c["dT"] * c["dz"]
-    H0 = soil.enthalpy(c["T"], c["liq"], c["ice"], c["dz"], c["phi"], c["cs"])
-    H1 = soil.enthalpy(r.T, r.liq, r.ice, c["dz"], c["phi"], c["cs"])
+    H0 = enthalpy(c["T"], c["liq"], c["ice"], c["dz"], c["phi"], c["cs"])
+    H1 = enthalpy(r.T, r.liq, r.ice, c["dz"], c["phi"], c["cs"])
     assert abs(float(r.T) - c["T"]) <= abs(c["dT"]) * (1 + 1e-12) + 1e-9
     assert abs((H1 - H0) - target) <= 1e-6 * abs(target)
     dice = abs(float(r.ice) - c["ice"])
@@ -224,7 +236,7 @@ def test_property_consistent_state_stays_consistent(c):
         r = _apply(mode, c)
         T1 = float(r.T)
         if T1 < T_FREEZE:
-            assert r.liq <= soil.supercooled_liquid_max(T1, c["phi"], c["psi"], c["b"]) + 1e-9, mode
+            assert r.liq <= supercooled_liquid_max(T1, c["phi"], c["psi"], c["b"]) + 1e-9, mode
         if T1 > T_FREEZE:
             assert r.ice <= 1e-12, mode
 
@@ -247,7 +259,7 @@ def test_settle_one_sided_changes_phase_only_where_the_temperature_requires_it()
     """Loam (Clapp and Hornberger 1978) with the Niu and Yang (2006) limit lmax(268.15) = 0.1188
     (REFERENCES.md worked value): 0.20 liquid at 268.15 K freezes down to 0.1188; 0.05 liquid
     with ice there is stable and kept; ice at 275 K melts; a layer at T_f is left as it is."""
-    liq, ice = soil.settle_one_sided([268.15, 268.15, 275.0, T_FREEZE], [0.20, 0.05, 0.1, 0.2],
+    liq, ice = settle_one_sided([268.15, 268.15, 275.0, T_FREEZE], [0.20, 0.05, 0.1, 0.2],
                                      [0.05, 0.25, 0.1, 0.15], *LOAM)
     np.testing.assert_allclose(liq, [lmax(268.15), 0.05, 0.2, 0.2], rtol=1e-12)
     np.testing.assert_allclose(ice, [0.25 - lmax(268.15) + 0.0, 0.25, 0.0, 0.15], rtol=1e-12)
@@ -296,25 +308,25 @@ def test_texture_class_centroids_follow_from_the_class_definitions():
     for name, m in classes:
         if name == "silt":               # not a Clapp and Hornberger (1978) class
             continue
-        sand, clay = soil.TEXTURE_CLASS_CENTROID_PCT[name]
+        sand, clay = properties.TEXTURE_CLASS_CENTROID_PCT[name]
         assert sand == pytest.approx(S[m].mean(), abs=0.06), name
         assert clay == pytest.approx(Cl[m].mean(), abs=0.06), name
     for name, verts in (("sand", [(85, 0), (100, 0), (90, 10)]),
                         ("loamy sand", [(70, 0), (85, 0), (90, 10), (85, 15)]),
                         ("silty clay", [(0, 40), (20, 40), (0, 60)])):
         c = Polygon(verts).centroid
-        assert soil.TEXTURE_CLASS_CENTROID_PCT[name] == pytest.approx((c.x, c.y), abs=0.1), name
-    assert set(soil.TEXTURE_CLASS_CENTROID_PCT) == set(soil.CLAPP_HORNBERGER_1978)
+        assert properties.TEXTURE_CLASS_CENTROID_PCT[name] == pytest.approx((c.x, c.y), abs=0.1), name
+    assert set(properties.TEXTURE_CLASS_CENTROID_PCT) == set(properties.CLAPP_HORNBERGER_1978)
 
 
 def test_texture_class_heat_capacity_uses_the_texture_formula():
     """Loam: centroid 41.0 % sand, 18.3 % clay; c_s = (2.128 * 41.0 + 2.385 * 18.3) / 59.3 * 1e6
     = 2.2073e6 J m-3 K-1 (texture formula of REFERENCES.md, de Vries 1963 values)."""
-    assert soil.texture_solid_heat_capacity("Loam") == pytest.approx(
+    assert texture_solid_heat_capacity("Loam") == pytest.approx(
         (2.128e6 * 41.0 + 2.385e6 * 18.3) / 59.3, rel=1e-12)
-    assert soil.texture_solid_heat_capacity("loam") == pytest.approx(2.2073e6, rel=1e-4)
-    with pytest.raises(soil.InputError, match="Clapp and Hornberger"):
-        soil.texture_solid_heat_capacity("peat")
+    assert texture_solid_heat_capacity("loam") == pytest.approx(2.2073e6, rel=1e-4)
+    with pytest.raises(InputError, match="Clapp and Hornberger"):
+        texture_solid_heat_capacity("peat")
 
 
 def test_organic_blend_against_lawrence_and_slater_2008():
@@ -323,11 +335,11 @@ def test_organic_blend_against_lawrence_and_slater_2008():
     (Clapp and Hornberger 1978: 0.451, 478 mm, 5.39) at f = 0.25 gives
     porosity 0.75 * 0.451 + 0.25 * 0.9 = 0.56325, |psi_s| 0.75 * 0.478 + 0.25 * 0.0103 = 0.361075 m,
     b 0.75 * 5.39 + 0.25 * 2.7 = 4.7175, c_s 0.75 * 2.2e6 + 0.25 * 2.5e6 = 2.275e6."""
-    (por, psi, b), cs = soil.blend_organic(soil.Hydraulics(*LOAM), 2.2e6, 1.0)
+    (por, psi, b), cs = blend_organic(Hydraulics(*LOAM), 2.2e6, 1.0)
     assert (float(por), float(psi), float(b), float(cs)) == pytest.approx((0.9, 0.0103, 2.7, 2.5e6))
-    (por, psi, b), cs = soil.blend_organic(soil.Hydraulics(*LOAM), 2.2e6, 0.25)
+    (por, psi, b), cs = blend_organic(Hydraulics(*LOAM), 2.2e6, 0.25)
     assert (float(por), float(psi), float(b), float(cs)) == pytest.approx((0.56325, 0.361075, 4.7175, 2.275e6))
-    (por, psi, b), cs = soil.blend_organic(soil.Hydraulics(*LOAM), 2.2e6, 0.0)
+    (por, psi, b), cs = blend_organic(Hydraulics(*LOAM), 2.2e6, 0.0)
     assert (float(por), float(psi), float(b), float(cs)) == pytest.approx((*LOAM, 2.2e6))
-    with pytest.raises(soil.InputError, match="organic_fraction"):
-        soil.blend_organic(soil.Hydraulics(*LOAM), 2.2e6, 1.5)
+    with pytest.raises(InputError, match="organic_fraction"):
+        blend_organic(Hydraulics(*LOAM), 2.2e6, 1.5)

@@ -22,7 +22,17 @@ import numpy as np
 import pytest
 
 from initgen import api
-from initgen.reports import report
+from initgen.reports import figures
+from initgen.io.restart import NetCDFStore
+from initgen.reports.common import _blocks
+from initgen.reports.common import _lon_arc
+from initgen.reports.compare import compare
+from initgen.reports.compare import compare_markdown
+from initgen.reports.compare import compare_text
+from initgen.reports.preview import preview_report
+from initgen.reports.verify import verify
+from initgen.reports.mask import write_mask
+from initgen.reports import common
 from initgen.cli import main
 from initgen.demo import write_demo_restart
 from initgen.errors import InputError
@@ -78,7 +88,7 @@ def test_compare_file_with_itself_exits_0(tmp_path, capsys):
     f = regular(tmp_path / "a.nc", chunked=True)
     assert main(["compare", str(f), str(f)]) == 0
     assert "identical" in capsys.readouterr().out
-    res = report.compare(f, f)
+    res = compare(f, f)
     assert res["ok"] and res["identical"] and res["differences"] == [] and res["structure"] == []
     assert all(v["status"] == "identical" for v in res["variables"].values())
     json.dumps(res, allow_nan=False)  # JSON-serialisable
@@ -123,7 +133,7 @@ def test_compare_finds_one_altered_value_with_count_and_box(tmp_path):
         v.set_auto_maskandscale(False)
         v[0, 2, 12, 3] = v[0, 2, 12, 3] + np.float32(1.5)
         v[0, 2, 13, 5] = v[0, 2, 13, 5] - np.float32(0.5)
-    res = report.compare(a, b)
+    res = compare(a, b)
     assert not res["ok"]
     t = res["variables"]["tsoil"]
     assert t["status"] == "differs" and t["cells_changed"] == 2
@@ -137,8 +147,8 @@ def test_compare_finds_one_altered_value_with_count_and_box(tmp_path):
     # equal weights would give (1.5 - 0.5) / 2; area weights favour the cell nearer the equator
     assert t["area_weighted_mean_change"] != pytest.approx(0.5, abs=1e-6)
     assert all(v["status"] == "identical" for n, v in res["variables"].items() if n != "tsoil")
-    assert report.compare(a, b, allow=["tsoil"])["ok"]
-    text = report.compare_text(res)
+    assert compare(a, b, allow=["tsoil"])["ok"]
+    text = compare_text(res)
     assert "tsoil" in text and "lev[2]" in text and "DIFFERENT" in text
 
 
@@ -154,18 +164,18 @@ def test_compare_reads_in_blocks_and_gets_the_same_answer(tmp_path, monkeypatch)
         v[:] = raw
     expected = int(np.count_nonzero(raw != old))
     assert 0 < expected <= 5 * 4 * 10
-    whole = report.compare(a, b)
+    whole = compare(a, b)
     seen = []
-    orig = report.NetCDFStore.read_raw
+    orig = NetCDFStore.read_raw
 
     def spy(self, name, key=None):
         out = orig(self, name, key)
         seen.append((name, np.asarray(out).size))
         return out
 
-    monkeypatch.setattr(report, "BLOCK_ELEMENTS", 50)
-    monkeypatch.setattr(report.NetCDFStore, "read_raw", spy)
-    blocked = report.compare(a, b)
+    monkeypatch.setattr(common, "BLOCK_ELEMENTS", 50)
+    monkeypatch.setattr(NetCDFStore, "read_raw", spy)
+    blocked = compare(a, b)
     assert blocked["variables"]["tsoil"] == whole["variables"]["tsoil"]
     assert whole["variables"]["tsoil"]["cells_changed"] == expected
     # no read of the 3-D variables exceeds the block limit (the grid's coordinates are read whole)
@@ -175,7 +185,7 @@ def test_compare_reads_in_blocks_and_gets_the_same_answer(tmp_path, monkeypatch)
 def test_blocks_cover_the_array_once():
     for shape in [(), (7,), (3, 5), (2, 3, 4, 5), (1, 1, 200)]:
         count = np.zeros(shape, int)
-        for key in report._blocks(shape, limit=7):
+        for key in _blocks(shape, limit=7):
             count[key] += 1
             assert count[key].size <= 7 or len(shape) == 0
         assert np.all(count == 1)
@@ -198,14 +208,14 @@ def test_compare_nan_and_fill_are_equal_and_structure_differences_are_found(tmp_
             w.setncatts({k: v.getncattr(k) for k in v.ncattrs() if k != "_FillValue"})
             w[:] = v[:]
         dst["other"].note = "touched"
-    res = report.compare(a, b)
+    res = compare(a, b)
     assert res["variables"]["tsoil"]["cells_changed"] == 0  # fill == fill
     assert not res["ok"]
     s = " | ".join(res["differences"])
     assert "global attribute 'title' differs" in s
     assert "variable 'tsoil': chunking" in s and "variable 'tsoil': filters" in s
     assert "variable 'other': attribute 'note' differs" in s
-    assert report.compare(a, b, allow=["tsoil", "other"])["differences"] == ["global attribute 'title' differs "
+    assert compare(a, b, allow=["tsoil", "other"])["differences"] == ["global attribute 'title' differs "
                                                                               "('test file' vs 'another title')"]
     # NaN against NaN is equal; a NaN against a number is a change that "became missing"
     c, d = tmp_path / "c.nc", tmp_path / "d.nc"
@@ -213,7 +223,7 @@ def test_compare_nan_and_fill_are_equal_and_structure_differences_are_found(tmp_
         with netCDF4.Dataset(path, "w") as ds:
             ds.createDimension("n", 3)
             ds.createVariable("x", "f8", ("n",))[:] = vals
-    r = report.compare(c, d)
+    r = compare(c, d)
     assert r["variables"]["x"]["cells_changed"] == 1 and r["variables"]["x"]["cells_became_missing"] == 1
     assert r["variables"]["x"]["weights"] == "equal" and r["grid"] is None
 
@@ -224,7 +234,7 @@ def test_compare_history_alone_is_ok_but_not_identical(tmp_path):
     shutil.copy(a, b)
     with netCDF4.Dataset(b, "r+") as ds:
         ds.history = "2000-01-01T00:00:00Z: something\n" + ds.history
-    res = report.compare(a, b)
+    res = compare(a, b)
     assert res["ok"] and not res["identical"] and res["differences"] == []
 
 
@@ -238,14 +248,14 @@ def test_compare_bad_input_is_one_line_exit_2(tmp_path, capsys):
     err = capsys.readouterr().err
     assert err.count("\n") == 1 and "not a readable netCDF file" in err
     with pytest.raises(InputError):
-        report.compare(a, tmp_path)
+        compare(a, tmp_path)
 
 
 def test_lon_arc_across_the_dateline():
-    assert report._lon_arc(np.array([175.0, -175.0, 179.0])) == pytest.approx((175.0, 185.0))
-    assert report._lon_arc(np.array([170.0, 190.0, 185.0])) == pytest.approx((170.0, 190.0))
-    assert report._lon_arc(np.array([-10.0, 10.0])) == pytest.approx((-10.0, 10.0))
-    assert report._lon_arc(np.array([350.0, 10.0])) == pytest.approx((350.0, 370.0))
+    assert _lon_arc(np.array([175.0, -175.0, 179.0])) == pytest.approx((175.0, 185.0))
+    assert _lon_arc(np.array([170.0, 190.0, 185.0])) == pytest.approx((170.0, 190.0))
+    assert _lon_arc(np.array([-10.0, 10.0])) == pytest.approx((-10.0, 10.0))
+    assert _lon_arc(np.array([350.0, 10.0])) == pytest.approx((350.0, 370.0))
 
 
 # ---------------------------------------------------------------------------------------------
@@ -254,7 +264,7 @@ def test_lon_arc_across_the_dateline():
 
 
 def test_verify_passes_on_the_demo(demo, capsys):
-    res = report.verify(demo["prov"])
+    res = verify(demo["prov"])
     assert res["ok"], res["message"]
     assert res["message"].startswith("verified")
     assert all(res["checks"].values())
@@ -271,7 +281,7 @@ def test_verify_fails_naming_the_variable_after_one_value_is_altered(demo, tmp_p
         v = ds["albedo_index"]  # a variable the recipe does not touch
         v.set_auto_maskandscale(False)
         v[10, 10] = v[10, 10] + 1
-    res = report.verify(demo["prov"], output=copy)
+    res = verify(demo["prov"], output=copy)
     assert not res["ok"]
     assert "albedo_index" in res["message"] and "altered after apply" in res["message"]
     assert not res["checks"]["output_sha256"] and not res["checks"]["same_as_rerun"]
@@ -283,7 +293,7 @@ def test_verify_fails_naming_the_variable_after_one_value_is_altered(demo, tmp_p
 
 def test_verify_refuses_a_different_input(demo, tmp_path):
     other = write_demo_restart(tmp_path / "other.nc", nlon=60, nlat=40)
-    res = report.verify(demo["prov"], input=other)
+    res = verify(demo["prov"], input=other)
     assert not res["ok"] and "input" in res["message"] and "differs" in res["message"]
 
 
@@ -293,13 +303,13 @@ def test_verify_missing_recipe_file_uses_the_recorded_text_else_a_clear_error(de
     rec["recipe"].pop("relative_path", None)
     p = tmp_path / "r.provenance.json"
     p.write_text(json.dumps(rec))
-    res = report.verify(p)  # the record keeps the recipe's text; its canonical sha256 is checked
+    res = verify(p)  # the record keeps the recipe's text; its canonical sha256 is checked
     assert res["ok"] and res["checks"]["recipe_sha256"], res["message"]
     assert any(c.startswith("recipe the recipe text stored in the record") for c in res["checked"]), res["checked"]
     rec["recipe"]["text"] = None
     p.write_text(json.dumps(rec))
     with pytest.raises(InputError, match="gone.yaml.*missing.*--recipe"):
-        report.verify(p)
+        verify(p)
 
 
 # ---------------------------------------------------------------------------------------------
@@ -323,7 +333,7 @@ def test_preview_report_figures_markdown_and_no_stray_files(demo, tmp_path):
     before = listing(folder)
     src_sha = sha(src)
     led = json.loads(demo["prov"].read_text())["ledger"]
-    path = report.preview_report(RECIPE, src, None, folder / "rep")
+    path = preview_report(RECIPE, src, None, folder / "rep")
     assert path == folder / "rep" / "preview.md"
     assert listing(folder) - before == {"rep"} | {f"rep/{n}" for n in listing(folder / "rep")}
     assert sha(src) == src_sha
@@ -333,7 +343,7 @@ def test_preview_report_figures_markdown_and_no_stray_files(demo, tmp_path):
     assert {"weights.png", "surface_anomaly.png", "profile.png", "histogram_soil.png"} <= set(pngs)
     for n in pngs:
         img = mpimg.imread(folder / "rep" / n)
-        assert img.shape[:2] == (report.FIG_PIXELS[1], report.FIG_PIXELS[0]), n
+        assert img.shape[:2] == (figures.FIG_PIXELS[1], figures.FIG_PIXELS[0]), n
     md = path.read_text()
     assert "demo-cold-highland" in md and led["region"] and str(led["region"]["cells_weight_above_0"]) in md
     assert "check these numbers before submission" in md and "protocol" in md
@@ -374,13 +384,13 @@ def test_mask_file_is_cf_and_holds_the_weights(demo, tmp_path):
         assert ds["lon"].standard_name == "longitude" and ds["lon"].units == "degrees_east"
         assert ds["lat"].standard_name == "latitude" and ds["lat"].units == "degrees_north"
         assert ds.Conventions.startswith("CF-")
-    assert mpimg.imread(png).shape[:2] == (report.FIG_PIXELS[1], report.FIG_PIXELS[0])
+    assert mpimg.imread(png).shape[:2] == (figures.FIG_PIXELS[1], figures.FIG_PIXELS[0])
     # existing outputs need --force; the input is never an output
     assert main(["mask", str(RECIPE), "-i", str(demo["src"]), "-o", str(out)]) == 2
     assert main(["mask", str(RECIPE), "-i", str(demo["src"]), "-o", str(out), "--force"]) == 0
     in_sha = sha(demo["src"])
     with pytest.raises(InputError, match="output is the input"):
-        report.write_mask(RECIPE, demo["src"], None, demo["src"], force=True)
+        write_mask(RECIPE, demo["src"], None, demo["src"], force=True)
     assert sha(demo["src"]) == in_sha
 
 
@@ -394,12 +404,12 @@ def test_mask_and_map_on_other_grid_kinds(tmp_path, kind):
         src = points(tmp_path / "in.nc", rot.ravel(), lat.ravel())
     rec = box_recipe(tmp_path, taper=500)
     with pytest.warns(Warning):  # no cell areas on these grids: equal weights, with a warning
-        report.write_mask(rec, src, None, tmp_path / "m.nc", png=tmp_path / "m.png")
+        write_mask(rec, src, None, tmp_path / "m.nc", png=tmp_path / "m.png")
     with netCDF4.Dataset(tmp_path / "m.nc") as ds:
         v = ds["region_weight"]
         assert v.coordinates == "lat lon" and ds["lon"].dimensions == v.dimensions
         assert 0 < v[:].max() <= 1
-    assert mpimg.imread(tmp_path / "m.png").shape[:2] == (report.FIG_PIXELS[1], report.FIG_PIXELS[0])
+    assert mpimg.imread(tmp_path / "m.png").shape[:2] == (figures.FIG_PIXELS[1], figures.FIG_PIXELS[0])
 
 
 def test_compare_box_recipe_output_matches_filemaker_region(tmp_path):
@@ -407,7 +417,7 @@ def test_compare_box_recipe_output_matches_filemaker_region(tmp_path):
     rec = box_recipe(tmp_path)
     out = tmp_path / "out.nc"
     record = api.apply(rec, src, out)
-    res = report.compare(src, out, allow=list(record["ledger"]["variables"]))
+    res = compare(src, out, allow=list(record["ledger"]["variables"]))
     assert res["ok"]
     a, b = read_raw(src, "tsoil"), read_raw(out, "tsoil")
     assert res["variables"]["tsoil"]["cells_changed"] == int((a != b).sum())
@@ -439,7 +449,7 @@ def test_compare_box_of_one_changed_cell_on_every_grid_kind(tmp_path, kind):
         v = ds[name]
         v.set_auto_maskandscale(False)
         v[index] = v[index] + np.float32(1.0)
-    res = report.compare(a, b)
+    res = compare(a, b)
     if kind != "regular-layer-last":  # no cell areas: the grid's warning becomes a note, not a warning
         assert any("equal weights" in n for n in res["notes"])
     t = res["variables"][name]
@@ -452,7 +462,7 @@ def test_compare_box_of_one_changed_cell_on_every_grid_kind(tmp_path, kind):
 
 
 def test_importing_initgen_does_not_import_matplotlib():
-    code = "import sys, initgen.reports.report, initgen.cli; print('matplotlib' in sys.modules)"
+    code = "import sys, initgen.reports.compare, initgen.reports.preview, initgen.reports.verify, initgen.reports.mask, initgen.cli; print('matplotlib' in sys.modules)"
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True).stdout
     assert out.strip() == "False"
 
@@ -466,10 +476,10 @@ def test_verify_and_preview_of_one_ensemble_member(demo, tmp_path):
     out = tmp_path / "cold.nc"
     record = api.apply(pairs, demo["src"], out, member="cold-x0.5")
     assert record["member"]["name"] == "cold-x0.5"
-    res = report.verify(Path(str(out) + ".provenance.json"))
+    res = verify(Path(str(out) + ".provenance.json"))
     assert res["ok"], res["message"]
     assert res["checks"]["member"]
-    md = report.preview_report(pairs, demo["src"], None, tmp_path / "rep", member="cold-x0.5").read_text()
+    md = preview_report(pairs, demo["src"], None, tmp_path / "rep", member="cold-x0.5").read_text()
     assert "member cold-x0.5" in md
     row0 = record["ledger"]["variables"]["tsoil"]["layers"][0]
     assert f"| {row0['area_weighted_mean']:.4g} |" in md  # the member's ledger, not the recipe as written
@@ -481,13 +491,13 @@ def test_compare_text_says_what_differs(tmp_path):
     shutil.copy(a, b)
     with netCDF4.Dataset(b, "r+") as ds:
         ds["other"][0, 0] = 5.0
-    text = report.compare_text(report.compare(a, b, allow=["other"]))
+    text = compare_text(compare(a, b, allow=["other"]))
     assert "result: OK, differences only in other (allowed)" in text and "history" not in text.splitlines()[2]
     with netCDF4.Dataset(b, "r+") as ds:
         ds.history = "changed"
-    text = report.compare_text(report.compare(a, b, allow=["other"]))
+    text = compare_text(compare(a, b, allow=["other"]))
     assert "result: OK, differences only in other (allowed) and the history attribute" in text
-    md = report.compare_markdown(report.compare(a, b))
+    md = compare_markdown(compare(a, b))
     assert md.startswith("# initgen compare: DIFFERENT") and "other" in md
 
 
@@ -505,8 +515,8 @@ def test_provenance_records_referenced_files_and_verify_names_a_changed_one(tmp_
     key = "perturbations[0].region.include[0].geojson"
     assert files[key]["sha256"] == sha(tmp_path / "shape.geojson")
     prov = tmp_path / "out.nc.provenance.json"
-    assert report.verify(prov)["ok"]
+    assert verify(prov)["ok"]
     (tmp_path / "shape.geojson").write_text(json.dumps({"type": "Polygon", "coordinates": [
         [[176, 34], [186, 34], [186, 42], [176, 42], [176, 34]]]}))
-    res = report.verify(prov)
+    res = verify(prov)
     assert not res["ok"] and "shape.geojson" in res["message"] and key in res["message"]

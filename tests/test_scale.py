@@ -7,7 +7,7 @@ import numpy as np
 
 from initgen import api
 from initgen.cli import main
-from initgen.reports.report import compare
+from initgen.reports.compare import compare
 
 from filemaker import read_raw, regular
 from test_core import box_recipe

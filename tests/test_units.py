@@ -11,7 +11,9 @@ import pytest
 
 from initgen.science import units
 from initgen.errors import InputError
-from initgen.science import soil
+from initgen.science.soil.conversion import temperature_to_kelvin
+from initgen.science.soil.conversion import volumetric_to_water
+from initgen.science.soil.conversion import water_to_volumetric
 
 
 @pytest.mark.parametrize("text,offset", [("K", 0.0), ("kelvin", 0.0), ("degrees_K", 0.0), ("degC", 273.15),
@@ -48,10 +50,10 @@ def test_water_amounts_refused(text):
 
 def test_water_in_grams_per_m2_is_converted():
     """500 g m-2 of water in a 0.1 m layer: 0.5 kg m-2 / (1000 kg m-3 x 0.1 m) = 0.005 m3 m-3."""
-    assert soil.water_to_volumetric(500.0, "g m-2", 0.1) == pytest.approx(0.005, rel=1e-12)
-    assert soil.volumetric_to_water(0.005, "g m-2", 0.1) == pytest.approx(500.0, rel=1e-12)
+    assert water_to_volumetric(500.0, "g m-2", 0.1) == pytest.approx(0.005, rel=1e-12)
+    assert volumetric_to_water(0.005, "g m-2", 0.1) == pytest.approx(500.0, rel=1e-12)
 
 
 def test_unknown_temperature_units_name_the_layout_key():
     with pytest.raises(InputError, match=r"'TS'.*units.soil_temperature"):
-        soil.temperature_to_kelvin(280.0, "degF", name="TS", key="units.soil_temperature")
+        temperature_to_kelvin(280.0, "degF", name="TS", key="units.soil_temperature")

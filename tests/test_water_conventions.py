@@ -18,7 +18,12 @@ import pytest
 
 import filemaker as fm
 from initgen import api
-from initgen.science import soil
+from initgen.science.soil import conversion
+from initgen.science.soil.conversion import frozen_fraction
+from initgen.science.soil.conversion import ice_volume_to_water_equivalent
+from initgen.science.soil.conversion import phases_from_total
+from initgen.science.soil.conversion import total_from_phases
+from initgen.science.soil.conversion import water_equivalent_to_ice_volume
 from initgen.errors import InputError
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -232,24 +237,24 @@ def test_the_two_ice_readings_are_different_experiments(tmp_path):
 
 def test_true_ice_volume_to_liquid_equivalent():
     """0.2 m3 m-3 of ice at 917 kg m-3 is 183.4 kg m-3 of water: 0.1834 m3 m-3 as liquid."""
-    assert soil.ice_volume_to_water_equivalent(0.2, "true_ice_volume") == pytest.approx(0.1834, rel=1e-12)
-    assert soil.water_equivalent_to_ice_volume(0.1834, "true_ice_volume") == pytest.approx(0.2, rel=1e-12)
-    assert soil.ice_volume_to_water_equivalent(0.2, "liquid_equivalent") == 0.2
+    assert ice_volume_to_water_equivalent(0.2, "true_ice_volume") == pytest.approx(0.1834, rel=1e-12)
+    assert water_equivalent_to_ice_volume(0.1834, "true_ice_volume") == pytest.approx(0.2, rel=1e-12)
+    assert ice_volume_to_water_equivalent(0.2, "liquid_equivalent") == 0.2
 
 
 def test_split_of_a_true_volume_total_by_frozen_mass_fraction():
     """W = 0.3 m3 m-3 of water (liquid equivalent), half of its mass frozen: 0.15 liquid and
     0.15 / 0.917 = 0.163577 m3 m-3 of ice, so the stored total is 0.313577 m3 m-3."""
     V = 0.15 + 0.15 / 0.917
-    liq, ice = soil.phases_from_total(V, 0.5, "frozen_fraction", "true_ice_volume")
+    liq, ice = phases_from_total(V, 0.5, "frozen_fraction", "true_ice_volume")
     assert liq == pytest.approx(0.15, rel=1e-12) and ice == pytest.approx(0.15, rel=1e-12)
-    liq, ice = soil.phases_from_total(V, 0.5, "unfrozen_fraction", "true_ice_volume")
+    liq, ice = phases_from_total(V, 0.5, "unfrozen_fraction", "true_ice_volume")
     assert liq == pytest.approx(0.15, rel=1e-12)
-    assert soil.total_from_phases(0.15, 0.15, "true_ice_volume") == pytest.approx(V, rel=1e-12)
-    liq, ice = soil.phases_from_total(0.3, 0.1, "liquid")
+    assert total_from_phases(0.15, 0.15, "true_ice_volume") == pytest.approx(V, rel=1e-12)
+    liq, ice = phases_from_total(0.3, 0.1, "liquid")
     assert (liq, ice) == (pytest.approx(0.1), pytest.approx(0.2))
-    assert soil.frozen_fraction(0.1, 0.3) == pytest.approx(0.75)
-    assert np.isnan(soil.frozen_fraction(0.0, 0.0))
+    assert frozen_fraction(0.1, 0.3) == pytest.approx(0.75)
+    assert np.isnan(frozen_fraction(0.0, 0.0))
 
 
 # --- packed variables ------------------------------------------------------------------------
@@ -347,7 +352,7 @@ def test_a_total_beside_liquid_and_ice_is_named_as_kept(tmp_path):
 
 
 def test_dry_layer_with_a_filled_fraction_holds_no_water():
-    liq, ice = soil.phases_from_total(np.array([0.0, 0.3]), np.array([np.nan, 0.5]), "frozen_fraction")
+    liq, ice = phases_from_total(np.array([0.0, 0.3]), np.array([np.nan, 0.5]), "frozen_fraction")
     assert liq.tolist() == [0.0, 0.15] and ice.tolist() == [0.0, 0.15]
 
 
@@ -410,16 +415,16 @@ if given is not None:
     _vol = st.floats(0.0, 0.6, allow_nan=False)
 
     @settings(max_examples=200, deadline=None)
-    @given(liq=_vol, ice=_vol, reading=st.sampled_from(soil.ICE_READINGS),
+    @given(liq=_vol, ice=_vol, reading=st.sampled_from(conversion.ICE_READINGS),
            kind=st.sampled_from(["liquid", "frozen_fraction", "unfrozen_fraction"]))
     def test_every_split_round_trips(liq, ice, reading, kind):
         """Encoding a state in a convention and reading it back gives the state (water mass kept)."""
-        total = soil.total_from_phases(liq, ice, reading)
-        f = soil.frozen_fraction(liq, ice)
+        total = total_from_phases(liq, ice, reading)
+        f = frozen_fraction(liq, ice)
         other = {"liquid": liq, "frozen_fraction": f, "unfrozen_fraction": 1.0 - f}[kind]
         if liq + ice == 0.0:
             other = 0.0
-        l2, i2 = soil.phases_from_total(total, other, kind, reading)
+        l2, i2 = phases_from_total(total, other, kind, reading)
         assert float(l2) == pytest.approx(liq, abs=1e-12) and float(i2) == pytest.approx(ice, abs=1e-12)
 
 

@@ -8,7 +8,7 @@ persistence under those assumptions, not a forecast of the model's behaviour.
 
 Sources of the soil properties, in order: the recipe's ``persistence.conductivity_W_m_K`` and
 ``persistence.heat_capacity_J_m3_K`` when given; otherwise the soil state read by a physics mode:
-heat capacity by de Vries (1963) mixing (``soil.heat_capacity``) and conductivity by Johansen
+heat capacity by de Vries (1963) mixing (``soil_properties.heat_capacity``) and conductivity by Johansen
 (1975) (``conduction.johansen_conductivity``) with the quartz content of the recipe's texture
 class (Peters-Lidard et al. 1998) or its sand fraction. When neither is available the ledger
 says why and gives no numbers: no silent default.
@@ -18,7 +18,8 @@ from __future__ import annotations
 
 import numpy as np
 
-from initgen.science import conduction, soil, units
+from initgen.science import conduction, units
+from initgen.science.soil import properties as soil_properties
 
 STEPS_PER_INTERVAL = 16  # at least this many backward-Euler steps between horizons ...
 MAX_STEP_DAYS = 1.0  # ... each at most a day (time error < 0.005 in the fraction, tests/test_conduction.py)
@@ -55,7 +56,7 @@ def settings(plan) -> dict:
                          "persistence.heat_capacity_J_m3_K and persistence.conductivity_W_m_K in the recipe")
         return out
     out["heat_capacity_source"] = ("recipe persistence.heat_capacity_J_m3_K" if c_const is not None else
-                                   "soil state, de Vries (1963) mixing (soil.heat_capacity)")
+                                   "soil state, de Vries (1963) mixing (soil_properties.heat_capacity)")
     if k_const is not None:
         out["conductivity_source"] = "recipe persistence.conductivity_W_m_K"
         return out
@@ -166,7 +167,7 @@ def add_block(plan, led, T0, T, water, inside, area, store=None, hkey=None) -> N
     if cfg["C"] is not None:
         C = np.full(dT.shape, float(cfg["C"]))
     else:
-        C = cols(soil.heat_capacity(water["liq"], water["ice"], water["porosity"], c_solid=water["c_solid"]))
+        C = cols(soil_properties.heat_capacity(water["liq"], water["ice"], water["porosity"], c_solid=water["c_solid"]))
     if cfg["k"] is not None:
         k = np.full(dT.shape, float(cfg["k"]))
     else:

@@ -29,9 +29,14 @@ from initgen.io.grid import ModelFile, open_model
 from initgen.io.restart import NetCDFStore, read_field, sha256_file
 from initgen.io.shipped import shipped_file
 from initgen.io.water import FRACTION_ROLES, fraction_factor
-from initgen.science import constants, geodesy, profiles, regions, soil, sources
+from initgen.science import constants, geodesy, profiles, regions, sources
 from initgen.science import units as units_mod
 from initgen.science.layers import Layers, units_to_metres
+from initgen.science.soil import conversion as soil_conversion
+from initgen.science.soil import freezing as soil_freezing
+from initgen.science.soil import limits as soil_limits
+from initgen.science.soil import modes as soil_modes
+from initgen.science.soil import properties as soil_properties
 
 T_FREEZE = 273.15
 MIN_WEIGHT = 1e-6  # weights below this are set to 0
@@ -460,7 +465,7 @@ def check_before_writing(plan: Plan) -> None:
         raise InputError(f"{model.store.describe()}: {exc}") from None
     if plan.physics.get("texture"):
         try:
-            soil.hydraulics_from_texture(plan.physics["texture"])
+            soil_properties.hydraulics_from_texture(plan.physics["texture"])
         except InputError as exc:
             raise _keyed(exc, "physics.texture") from None
     # the soil parameters the physics will use, read and range-checked where the region lies,
@@ -482,12 +487,12 @@ def _check_units(plan: Plan, model: ModelFile) -> None:
             warnings.warn(f"{model.store.describe()}: variable '{role.variables[0]}' ({target}) has no units "
                           f"attribute; assuming K (give it units, or set layout key units.{target})", InputWarning, stacklevel=2)
         if target in plan.targets and role is not None:
-            soil.temperature_to_kelvin(np.zeros(1), role.units or "K", name=role.variables[0], key=f"units.{target}")
+            soil_conversion.temperature_to_kelvin(np.zeros(1), role.units or "K", name=role.variables[0], key=f"units.{target}")
     if plan.physics["mode"] != "none" and "soil_temperature" in plan.targets:
         for rname in ("soil_liquid", "soil_ice"):
             role = model.role(rname)
             if role is not None:
-                soil.water_to_volumetric(np.zeros(1), role.units or "kg m-2", np.ones(1), porosity=np.ones(1),
+                soil_conversion.water_to_volumetric(np.zeros(1), role.units or "kg m-2", np.ones(1), porosity=np.ones(1),
                                          name=role.variables[0])
 
 
@@ -676,20 +681,20 @@ def _layer_col(vec: np.ndarray, nh: int) -> np.ndarray:
 
 def _temp_read(role, store, hkey):
     vals = role.read(store, hkey)
-    return soil.temperature_to_kelvin(vals, role.units or "K", name=role.variables[0], key=f"units.{role.name}")
+    return soil_conversion.temperature_to_kelvin(vals, role.units or "K", name=role.variables[0], key=f"units.{role.name}")
 
 
 def _temp_stored(role, kelvin: np.ndarray, layered: bool) -> np.ndarray:
     """Temperatures in K as they will read back from the file (type and packing of the variable)."""
     units = role.units or "K"
     vals = kelvin if layered else kelvin[:, 0]
-    q = soil.temperature_to_kelvin(role.stored(soil.kelvin_to_units(vals, units)), units, name=role.variables[0])
+    q = soil_conversion.temperature_to_kelvin(role.stored(soil_conversion.kelvin_to_units(vals, units)), units, name=role.variables[0])
     return q if layered else q[:, None]
 
 
 def _temp_write(role, store, hkey, kelvin, changed, write):
     if write:
-        role.write(store, hkey, soil.kelvin_to_units(kelvin, role.units or "K"), changed)
+        role.write(store, hkey, soil_conversion.kelvin_to_units(kelvin, role.units or "K"), changed)
 
 
 T_PLAUSIBLE_K = (100.0, 400.0)  # the widest clamps the recipe schema allows
@@ -741,7 +746,7 @@ def apply_block(plan: Plan, store, hkey: dict, widx: tuple, led, *, write: bool)
         water = _read_water(plan, store, hkey, T0.shape) if phys["mode"] != "none" else None
         if water is not None:
             led.disequilibrium += int(np.count_nonzero(
-                soil.disequilibrium(T0, water["liq"], water["ice"], water["porosity"], water["psi"], water["b"])
+                soil_freezing.disequilibrium(T0, water["liq"], water["ice"], water["porosity"], water["psi"], water["b"])
                 & inside))
             _report_input_shift(T0, water, inside, led, area)
         for b, w in zip(plan.blocks, weights):
@@ -770,7 +775,7 @@ def apply_block(plan: Plan, store, hkey: dict, widx: tuple, led, *, write: bool)
                 T_before = T
                 T = _physics(T, T + dT, water, sel, phys, led, area, nh, mode=phys["mode"], dT=dT)
                 _flag_departures(led, T - T_before, np.where(sel, dT, 0.0), sel)
-        T[inside], n_low, n_high = soil.clamp_soil_temperature(
+        T[inside], n_low, n_high = soil_limits.clamp_soil_temperature(
             T[inside], phys["soil_temperature_min_K"], phys["soil_temperature_max_K"])
         led.clamp("soil_temperature_below_min", n_low)
         led.clamp("soil_temperature_above_max", n_high)
@@ -857,7 +862,7 @@ def _surface_temperature(plan, store, hkey, widx, target, weights, inside_h, led
         moved = inside & (T != T0)          # snow the recipe changed; other values stay as read
         if plan.physics["mode"] == "energy" and np.any(moved & (T > T_FREEZE)):
             T, melt = _melt_snow(T, moved, layer_mass, led, area)
-        T[moved], n = soil.clamp_snow_temperature(T[moved])
+        T[moved], n = soil_limits.clamp_snow_temperature(T[moved])
         led.clamp("snow_temperature_above_freezing", n)
     else:
         snow = snow_mass
@@ -1110,14 +1115,14 @@ def _hydraulics(plan: Plan, store, hkey, shape, model=None):
         _check_range(sand + clay, 0.0, 100.0, model, "sand", what="sand + clay", low_open=False)
         ok = np.isfinite(sand) & np.isfinite(clay)
         sand_ok, clay_ok = np.where(ok, sand, 40.0), np.where(ok, clay, 20.0)
-        por, psi, b = (np.where(ok, x, np.nan) for x in soil.cosby_1984(sand_ok, clay_ok))
-        c_solid = np.where(ok, soil.soil_solid_heat_capacity(sand_ok, clay_ok), np.nan)
+        por, psi, b = (np.where(ok, x, np.nan) for x in soil_properties.cosby_1984(sand_ok, clay_ok))
+        c_solid = np.where(ok, soil_properties.soil_solid_heat_capacity(sand_ok, clay_ok), np.nan)
     elif phys.get("sand_pct") is not None and phys.get("clay_pct") is not None:
-        por, psi, b = soil.cosby_1984(phys["sand_pct"], phys["clay_pct"])
-        c_solid = soil.soil_solid_heat_capacity(phys["sand_pct"], phys["clay_pct"])
+        por, psi, b = soil_properties.cosby_1984(phys["sand_pct"], phys["clay_pct"])
+        c_solid = soil_properties.soil_solid_heat_capacity(phys["sand_pct"], phys["clay_pct"])
     elif phys.get("texture"):
-        por, psi, b = soil.hydraulics_from_texture(phys["texture"])
-        c_solid = soil.texture_solid_heat_capacity(phys["texture"])
+        por, psi, b = soil_properties.hydraulics_from_texture(phys["texture"])
+        c_solid = soil_properties.texture_solid_heat_capacity(phys["texture"])
     elif phys.get("porosity") and phys.get("psi_sat_m") and phys.get("clapp_b"):
         por, psi, b = phys["porosity"], phys["psi_sat_m"], phys["clapp_b"]
     else:
@@ -1127,8 +1132,8 @@ def _hydraulics(plan: Plan, store, hkey, shape, model=None):
         if named:
             raise InputError("recipe key physics.organic_fraction: the layout gives the model's own soil parameters "
                              f"({', '.join(named)}); blend organic soil into recipe parameters only (remove one)")
-        (por, psi, b), c_solid = soil.blend_organic(
-            (por, psi, b), soil.CV_SOLID_DEFAULT if c_solid is None else c_solid, phys["organic_fraction"])
+        (por, psi, b), c_solid = soil_properties.blend_organic(
+            (por, psi, b), constants.CV_SOLID_DEFAULT if c_solid is None else c_solid, phys["organic_fraction"])
     out = tuple(np.broadcast_to(np.asarray(x, float), shape) for x in (por, psi, b))
     return out + (None if c_solid is None else np.broadcast_to(np.asarray(c_solid, float), shape),)
 
@@ -1137,7 +1142,7 @@ def soil_parameter_sources(physics: dict, model: ModelFile) -> dict:
     """Where the soil parameters of a physics mode come from, in words (for check and the ledger):
     the same order of precedence as :func:`_hydraulics`."""
     named = [r for r in ("porosity", "psi_sat", "clapp_b") if model.role(r) is not None]
-    default_cs = (f"default {soil.CV_SOLID_DEFAULT:.5g} J m-3 K-1 (texture formula at equal sand and clay; "
+    default_cs = (f"default {constants.CV_SOLID_DEFAULT:.5g} J m-3 K-1 (texture formula at equal sand and clay; "
                   "a choice of initgen: give sand/clay or a texture to set it)")
     if named:
         hyd, cs = "file variables " + ", ".join(model.role(r).variables[0] for r in named), default_cs
@@ -1148,7 +1153,7 @@ def soil_parameter_sources(physics: dict, model: ModelFile) -> dict:
         hyd = f"Cosby et al. (1984) Table 5 at sand {physics['sand_pct']:g} %, clay {physics['clay_pct']:g} %"
         cs = "texture formula (de Vries 1963 values) at the same sand and clay"
     elif physics.get("texture"):
-        sand, clay = soil.TEXTURE_CLASS_CENTROID_PCT.get(physics["texture"], (None, None))
+        sand, clay = soil_properties.TEXTURE_CLASS_CENTROID_PCT.get(physics["texture"], (None, None))
         hyd = f"Clapp and Hornberger (1978) Table 2, {physics['texture']}"
         cs = (f"texture formula at the class centroid (sand {sand:g} %, clay {clay:g} %)" if sand is not None
               else "texture formula at the class centroid")
@@ -1175,7 +1180,7 @@ def _water_values(spec, rname: str, raw: np.ndarray, dz, por, name: str) -> np.n
 
     if rname in FRACTION_ROLES:
         return np.asarray(raw, float) * fraction_factor(spec.units[rname])
-    return soil.water_to_volumetric(raw, spec.units[rname], dz, porosity=por, name=name)
+    return soil_conversion.water_to_volumetric(raw, spec.units[rname], dz, porosity=por, name=name)
 
 
 def _water_file_values(spec, liq: np.ndarray, ice: np.ndarray) -> dict:
@@ -1187,14 +1192,14 @@ def _water_file_values(spec, liq: np.ndarray, ice: np.ndarray) -> dict:
     out = {}
     if conv == "liquid_and_ice":
         out["soil_liquid"] = liq
-        out["soil_ice"] = soil.water_equivalent_to_ice_volume(ice, reading)
+        out["soil_ice"] = soil_conversion.water_equivalent_to_ice_volume(ice, reading)
         return out
     if conv == "total_and_liquid":
         out["soil_liquid"] = liq
     elif conv in ("total_and_frozen_fraction", "total_and_unfrozen_fraction"):
-        f = soil.frozen_fraction(liq, ice)
+        f = soil_conversion.frozen_fraction(liq, ice)
         out[spec.roles[1]] = f if conv == "total_and_frozen_fraction" else 1.0 - f
-    out["soil_water_total"] = soil.total_from_phases(liq, ice, reading)
+    out["soil_water_total"] = soil_conversion.total_from_phases(liq, ice, reading)
     return out
 
 
@@ -1226,7 +1231,7 @@ def _read_water(plan: Plan, store, hkey, shape, donor: ModelFile | None = None) 
     conv, reading = spec.convention, spec.reading
     units = spec.units
     if conv == "liquid_and_ice":
-        liq, ice = vol["soil_liquid"], soil.ice_volume_to_water_equivalent(vol["soil_ice"], reading)
+        liq, ice = vol["soil_liquid"], soil_conversion.ice_volume_to_water_equivalent(vol["soil_ice"], reading)
         out["liq_name"], out["ice_name"] = (f"{where}: variable '{names[r]}'" for r in ("soil_liquid", "soil_ice"))
         out["liq_units"], out["ice_units"] = units["soil_liquid"], units["soil_ice"]
     elif conv == "total_only":
@@ -1236,7 +1241,7 @@ def _read_water(plan: Plan, store, hkey, shape, donor: ModelFile | None = None) 
         T = T if troles.layered else T[:, None]
         W = vol["soil_water_total"]
         ok = np.isfinite(T) & np.isfinite(W)
-        liq, ice = soil.equilibrate_phase(np.where(ok, T, T_FREEZE + 1.0), np.where(ok, W, 0.0), 0.0, por, psi, b)
+        liq, ice = soil_freezing.equilibrate_phase(np.where(ok, T, T_FREEZE + 1.0), np.where(ok, W, 0.0), 0.0, por, psi, b)
         bad = ok & ~(np.isfinite(liq) & np.isfinite(ice))  # soil parameters missing: no split known
         liq, ice = np.where(ok & ~bad, liq, W), np.where(ok & ~bad, ice, np.where(bad, np.nan, 0.0))
         out["liq_name"] = f"{where}: liquid diagnosed from total '{names['soil_water_total']}'"
@@ -1246,7 +1251,7 @@ def _read_water(plan: Plan, store, hkey, shape, donor: ModelFile | None = None) 
         other = spec.roles[1]
         kind = {"soil_liquid": "liquid", "soil_frozen_fraction": "frozen_fraction",
                 "soil_unfrozen_fraction": "unfrozen_fraction"}[other]
-        liq, ice = soil.phases_from_total(vol["soil_water_total"], vol[other], kind, reading)
+        liq, ice = soil_conversion.phases_from_total(vol["soil_water_total"], vol[other], kind, reading)
         tot = names["soil_water_total"]
         if kind == "liquid":
             out["liq_name"] = f"{where}: variable '{names[other]}'"
@@ -1282,9 +1287,9 @@ def _physics(T_old, T_new, water, sel, phys, led, area, nh, mode, dT=None):
                              "(kg m-2, m3 m-3 or saturation_fraction)")
     rule = phys.get("phase_rule", "change_driven")
     if mode == "energy":
-        res = soil.apply_energy_mode(T_old, water["liq"], water["ice"], dT, water["dz"], rule=rule, **kw)
+        res = soil_modes.apply_energy_mode(T_old, water["liq"], water["ice"], dT, water["dz"], rule=rule, **kw)
     else:
-        res = soil.apply_temperature_mode(T_old, water["liq"], water["ice"], T_new - T_old, water["dz"], rule=rule,
+        res = soil_modes.apply_temperature_mode(T_old, water["liq"], water["ice"], T_new - T_old, water["dz"], rule=rule,
                                           **kw)
     T = np.where(sel, res.T, T_old)
     _check_invariants(T_old, water, res, sel, dT if mode == "energy" else T_new - T_old, mode, rule, led, area, kw)
@@ -1330,9 +1335,9 @@ def _check_invariants(T_old, water, res, sel, imposed, mode, rule, led, area, kw
         inv["cells_beyond_imposed"] += int(np.count_nonzero(np.abs(dT) > np.abs(imp) * (1 + 1e-12) + 1e-9))
         liq0, ice0 = water["liq"], water["ice"]
         if rule == "equilibrium":
-            liq0, ice0 = soil.equilibrate_phase(np.where(sel, T_old, constants.T_FREEZE), liq0, ice0,
+            liq0, ice0 = soil_freezing.equilibrate_phase(np.where(sel, T_old, constants.T_FREEZE), liq0, ice0,
                                                 kw["porosity"], kw["psi_sat_m"], kw["b"])
-        C0 = soil.heat_capacity(liq0, ice0, kw["porosity"], kw["c_solid"])
+        C0 = soil_properties.heat_capacity(liq0, ice0, kw["porosity"], kw["c_solid"])
         target = (C0 * imposed * dz)[s]
         err = np.abs((res.sensible_J_m2 + res.latent_J_m2)[s] - target)
         big = np.abs(target) > 0
@@ -1347,11 +1352,11 @@ def _report_input_shift(T0, water, inside, led, area) -> None:
     """Per layer: input cells off the freezing curve and the kg the equilibrium rule would move."""
     ok = inside & np.isfinite(T0) & np.isfinite(water["liq"]) & np.isfinite(water["ice"])
     with np.errstate(invalid="ignore"):
-        shift = soil.equilibrium_shift(np.where(ok, T0, constants.T_FREEZE), water["liq"], water["ice"],
+        shift = soil_freezing.equilibrium_shift(np.where(ok, T0, constants.T_FREEZE), water["liq"], water["ice"],
                                        water["porosity"], water["psi"], water["b"])
-    # shifts within the tolerance of soil.disequilibrium (1e-4 m3 m-3: float32 storage, slightly
+    # shifts within the tolerance of soil_freezing.disequilibrium (1e-4 m3 m-3: float32 storage, slightly
     # different constants) are not counted
-    shift = np.where(ok & (np.abs(shift) > soil.DISEQUILIBRIUM_TOL), shift, 0.0)
+    shift = np.where(ok & (np.abs(shift) > soil_freezing.DISEQUILIBRIUM_TOL), shift, 0.0)
     kg_m2 = shift * water["dz"] * constants.RHO_WATER
     moved = shift != 0
     a = _bcast_h(area, 2)
@@ -1365,11 +1370,11 @@ def _equilibrate_blend(T, water, sel, led, area, rule) -> None:
 
     A blend of two consistent states need not be consistent itself (the freezing curve is not
     linear). Change-driven rule: liquid above the supercooled limit freezes and ice above 0 C
-    melts, nothing else (:func:`soil.settle_one_sided`). Equilibrium rule: the split is put on
-    the freezing curve (:func:`soil.equilibrate_phase`). Water is conserved.
+    melts, nothing else (:func:`soil_modes.settle_one_sided`). Equilibrium rule: the split is put on
+    the freezing curve (:func:`soil_freezing.equilibrate_phase`). Water is conserved.
     """
     ok = sel & np.isfinite(T)
-    settle = soil.equilibrate_phase if rule == "equilibrium" else soil.settle_one_sided
+    settle = soil_freezing.equilibrate_phase if rule == "equilibrium" else soil_modes.settle_one_sided
     liq, ice = settle(np.where(ok, T, T_FREEZE), water["liq"], water["ice"], water["porosity"], water["psi"],
                       water["b"])
     dice = np.where(ok, ice - water["ice"], 0.0)
@@ -1418,7 +1423,7 @@ def _write_water(plan, store, hkey, water, inside, led, area, write):
         if rname in ("soil_frozen_fraction", "soil_unfrozen_fraction"):
             new = vals / fraction_factor(spec.units[rname])
         else:
-            new = soil.volumetric_to_water(vals, spec.units[rname], water["dz"], porosity=water["porosity"])
+            new = soil_conversion.volumetric_to_water(vals, spec.units[rname], water["dz"], porosity=water["porosity"])
         new = np.where(moved, role.stored(new if role.layered else new[:, 0]).reshape(new.shape), old)
         changed = inside & (new != old) & ~(np.isnan(new) & np.isnan(old))
         led.stats(role.variables[0] if len(role.variables) == 1 else "+".join(role.variables), rname,

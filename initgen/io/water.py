@@ -32,7 +32,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 from initgen.errors import InputError
-from initgen.science import soil
+from initgen.science.soil import conversion as soil_conversion
 from initgen.science.units import fraction_per
 
 CONVENTIONS = {
@@ -120,9 +120,9 @@ def _units_of(role, rname: str, where: str, override: str | None = None) -> str:
         return u or "1"
     if not u:
         raise InputError(f"{where}: variable '{role.variables[0]}' ({rname}) has no units attribute; give it one, or "
-                         f"set layout key units.{rname} (kg m-2, m3 m-3 or {soil.SATURATION_FRACTION})")
+                         f"set layout key units.{rname} (kg m-2, m3 m-3 or {soil_conversion.SATURATION_FRACTION})")
     try:
-        soil.water_units_are_mass(u, role.variables[0])  # refuses units that are not a water amount
+        soil_conversion.water_units_are_mass(u, role.variables[0])  # refuses units that are not a water amount
     except InputError as exc:
         raise InputError(f"{where}: {exc} (or set layout key units.{rname} if the file has no units)") from None
     return u
@@ -171,7 +171,7 @@ def _resolve(roles: dict, layout_data: dict | None, where: str, required: bool) 
     kept = tuple(f"{r} '{'+'.join(roles[r].variables)}'" for r in WATER_ROLES if r in roles and r not in need)
     ice_role = "soil_ice" if conv == "liquid_and_ice" else "soil_water_total"
     declared = section.get("volumetric_ice")
-    if soil.water_units_are_mass(units[ice_role]):
+    if soil_conversion.water_units_are_mass(units[ice_role]):
         if declared:
             raise InputError(f"{where}: layout key water.volumetric_ice is {declared}, but the ice of this file "
                              f"('{roles[ice_role].variables[0]}', {ice_role}) is in '{units[ice_role]}', a mass, which "

@@ -3,7 +3,7 @@
 The page loads nothing from elsewhere: no scripts, no external style sheets, fonts or links; the
 style is inline and every figure is a ``data:image/png;base64`` URI. It opens offline and can be
 attached to an email as one file. Every number on the page is read from the ledger (preview) or
-the :func:`initgen.reports.report.compare` result; this module only formats them.
+the :func:`initgen.reports.compare.compare` result; this module only formats them.
 """
 
 from __future__ import annotations

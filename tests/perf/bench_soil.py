@@ -33,13 +33,16 @@ import numpy as np
 
 sys.path.insert(0, os.path.join(os.path.dirname(__file__), "..", ".."))
 
-from initgen.science import soil  # noqa: E402
+from initgen.science.soil import properties
+from initgen.science.soil.modes import apply_energy_mode
+from initgen.science.soil.modes import apply_temperature_mode
+from initgen.science.soil.freezing import equilibrate_phase
 from initgen.science.constants import T_FREEZE  # noqa: E402
 
 
 def make_state(ncol, nlay=10, seed=1):
     rng = np.random.default_rng(seed)
-    rows = list(soil.CLAPP_HORNBERGER_1978.values())
+    rows = list(properties.CLAPP_HORNBERGER_1978.values())
     pick = rng.integers(0, len(rows), ncol)
     phi = np.array([r.porosity for r in rows])[pick][None, :]
     psi = np.array([r.psi_sat_m for r in rows])[pick][None, :]
@@ -51,7 +54,7 @@ def make_state(ncol, nlay=10, seed=1):
     Ts = rng.uniform(250.0, 290.0, ncol)[None, :]
     T = 276.0 + (Ts - 276.0) * damp
     W = rng.uniform(0.1, 1.0, (nlay, ncol)) * phi
-    liq, ice = soil.equilibrate_phase(T, W, 0.0, phi, psi, b)
+    liq, ice = equilibrate_phase(T, W, 0.0, phi, psi, b)
     dT = rng.uniform(-5.0, 5.0, ncol)[None, :] * damp
     return T, liq, ice, dT, dz, phi, psi, b, cs
 
@@ -76,10 +79,10 @@ def main(argv=None):
     ncell = state[0].size
     scale = 1e7 / ncell
     note = " (scaled from %d cells)" % ncell if a.quick else ""
-    t_e, c_e = (t * scale for t in timed(soil.apply_energy_mode, state, repeat))
-    t_t, c_t = (t * scale for t in timed(soil.apply_temperature_mode, state, repeat))
+    t_e, c_e = (t * scale for t in timed(apply_energy_mode, state, repeat))
+    t_t, c_t = (t * scale for t in timed(apply_temperature_mode, state, repeat))
     tracemalloc.start()
-    soil.apply_energy_mode(*state)
+    apply_energy_mode(*state)
     peak = tracemalloc.get_traced_memory()[1]
     tracemalloc.stop()
     print(f"cells: {ncell}")
