@@ -244,12 +244,12 @@ def test_region_covering_whole_grid(tmp_path):
 
 
 def test_blocks_are_bounded_and_match_single_block(tmp_path, monkeypatch):
-    from initgen.engine import plan
+    from initgen.engine import tiling
 
     src = regular(tmp_path / "in.nc", nlon=72, nlat=36, chunked=True)
     rec = box_recipe(tmp_path, kind="exponential", extra=", efolding_m: 0.4")
     api.apply(rec, src, tmp_path / "big.nc")
-    monkeypatch.setattr(plan, "BLOCK_ELEMENTS", 50)
+    monkeypatch.setattr(tiling, "BLOCK_ELEMENTS", 50)
     api.apply(rec, src, tmp_path / "small.nc")
     np.testing.assert_array_equal(read_raw(tmp_path / "big.nc", "tsoil"), read_raw(tmp_path / "small.nc", "tsoil"))
 
@@ -280,6 +280,7 @@ def test_version(capsys):
 def test_region_across_the_grid_seam_reads_two_slabs_not_the_globe(tmp_path, monkeypatch):
     """A box across 0 degrees on a 0..360 grid touches two runs of longitude indices."""
     from initgen.engine import plan as plan_mod
+    from initgen.engine import tiling
     from initgen.io.grid import open_model
     from initgen.config.recipe import load_recipe
     from initgen.io.restart import NetCDFStore
@@ -291,14 +292,14 @@ def test_region_across_the_grid_seam_reads_two_slabs_not_the_globe(tmp_path, mon
         p = plan_mod.build_plan(rec, open_model(store))
         lon_idx = p.window[1]
         assert lon_idx.size < 72 // 2  # the window is not the whole globe
-        slabs = plan_mod.slabs(p)
+        slabs = tiling.slabs(p)
         assert len(slabs) == 2
         spans = sorted((h["lon"].start, h["lon"].stop) for h, _ in slabs)
         assert spans[0][0] == 0 and spans[1][1] == 72
         # tiny blocks tile each slab exactly, cut at the 6 x 6 chunk boundaries of the file
-        monkeypatch.setattr(plan_mod, "BLOCK_ELEMENTS", 40)
+        monkeypatch.setattr(tiling, "BLOCK_ELEMENTS", 40)
         for slab in slabs:
-            blocks = plan_mod.blocks_of(p, slab)
+            blocks = tiling.blocks_of(p, slab)
             cells = sum((h["lat"].stop - h["lat"].start) * (h["lon"].stop - h["lon"].start) for h, _ in blocks)
             h0 = slab[0]
             assert cells == (h0["lat"].stop - h0["lat"].start) * (h0["lon"].stop - h0["lon"].start)

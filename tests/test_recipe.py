@@ -147,7 +147,7 @@ def test_paths_may_not_leave_recipe_folder(tmp_path):
 def test_shipped_mask_never_replaces_a_path_with_folders(tmp_path):
     """A GeoJSON reference with folders resolves only as written (regression: a '../x.geojson'
     that left the recipe folder was silently swapped for the shipped mask of the same name)."""
-    from initgen.engine.plan import resolve_shape_file
+    from initgen.engine.fields import resolve_shape_file
 
     exp = tmp_path / "exp"
     exp.mkdir()

@@ -6,8 +6,8 @@ from __future__ import annotations
 
 import numpy as np
 
-from initgen.engine import plan as plan_mod
-from initgen.engine.plan import MIN_WEIGHT, region_geometry
+from initgen.engine import fields
+from initgen.engine.fields import MIN_WEIGHT, region_geometry
 from initgen.errors import InputError
 from initgen.reports.figures import map_figure
 from initgen.science import regions
@@ -44,9 +44,9 @@ def _land_for_map(model, store) -> tuple:
 
     full = model.grid.full_window()
     if model.role("land_fraction") is not None:
-        return land_weight(fraction=plan_mod.land_fraction(model, full)), "land fraction"
+        return land_weight(fraction=fields.land_fraction(model, full)), "land fraction"
     if model.role("land_mask") is not None:
-        return land_weight(mask=plan_mod.read_window(model, model.role("land_mask"), full)), "land mask"
+        return land_weight(mask=fields.read_window(model, model.role("land_mask"), full)), "land mask"
     soil = model.role("soil_temperature")
     if soil is not None:
         hkey = {d: slice(0, n) for d, n in zip(model.grid.dims, model.grid.shape)}
