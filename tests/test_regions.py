@@ -20,7 +20,18 @@ from hypothesis import strategies as st
 from pyproj import Geod
 from scipy.signal.windows import tukey
 
-from initgen.science import regions as rg
+from initgen.science.regions import mask as mask_mod
+from initgen.science.regions.mask import boundary_distance_km
+from initgen.science.regions.shapes import box
+from initgen.science.regions.factors import check_coverage
+from initgen.science.regions.shapes import combine
+from initgen.science.regions.factors import elevation_ramp
+from initgen.science.regions.mask import hard_mask
+from initgen.science.regions.factors import land_weight
+from initgen.science.regions.shapes import polygon
+from initgen.science.regions.shapes import published
+from initgen.science.regions.shapes import read_geojson
+from initgen.science.regions.mask import taper_weight
 from initgen.errors import InputError, InputWarning
 from initgen.science.geodesy import EARTH_RADIUS_KM as R
 
@@ -41,7 +52,7 @@ def highland_vertices(n=400):
     return np.column_stack([87.5 + 14.2 * r * np.cos(th), 33.5 + 5.3 * r * np.sin(th)])
 
 
-HIGHLAND = rg.polygon(highland_vertices())
+HIGHLAND = polygon(highland_vertices())
 
 
 def regular(lon1, lat1):
@@ -112,14 +123,14 @@ GRID_180 = (np.arange(-180.0, 180.0, 1.0), np.arange(-90.0, 90.1, 1.0))   # poin
 GRID_360 = (np.arange(0.5, 360.0, 1.0), np.arange(-89.5, 90.0, 1.0))      # 0..360, centres
 
 SHAPES = {
-    "box_on_grid_lines": rg.box(-10, 20, 30, 50),
+    "box_on_grid_lines": box(-10, 20, 30, 50),
     "highland": HIGHLAND,
     "srex_TIB": regionmask.defined_regions.srex[["TIB"]].polygons[0],
-    "dateline_box": rg.box(170, -170, -10, 10),
-    "north_cap": rg.box(-180, 180, 80, 90),
-    "south_cap": rg.box(-180, 180, -90, -75),
-    "ring_around_pole": rg.polygon([[0, 70], [90, 75], [180, 70], [270, 75]]),
-    "box_0_360": rg.box(300, 350, -40, -20),
+    "dateline_box": box(170, -170, -10, 10),
+    "north_cap": box(-180, 180, 80, 90),
+    "south_cap": box(-180, 180, -90, -75),
+    "ring_around_pole": polygon([[0, 70], [90, 75], [180, 70], [270, 75]]),
+    "box_0_360": box(300, 350, -40, -20),
 }
 
 
@@ -132,10 +143,10 @@ def test_hard_mask_equals_regionmask(name, grid):
     expected = regionmask_mask(geom, lon1, lat1)
     assert expected.any()
     # reference: regionmask 0.13 mask_3D for the same polygon (rasterised, regular grid)
-    np.testing.assert_array_equal(rg.hard_mask(lon, lat, geom, regular=True), expected)
+    np.testing.assert_array_equal(hard_mask(lon, lat, geom, regular=True), expected)
     # reference: regionmask 0.13 mask_3D for the same polygon
-    np.testing.assert_array_equal(rg.hard_mask(lon, lat, geom), expected)
-    np.testing.assert_array_equal(rg.hard_mask(lon1, lat1, geom, regular=True), expected)
+    np.testing.assert_array_equal(hard_mask(lon, lat, geom), expected)
+    np.testing.assert_array_equal(hard_mask(lon1, lat1, geom, regular=True), expected)
 
 
 @settings(max_examples=15, deadline=None)
@@ -152,7 +163,7 @@ def test_random_polygons_mask_equals_regionmask(seed, res, half, snap, hole):
         v = np.round(v * 2) / 2
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", InputWarning)
-        geom = rg.polygon(v)
+        geom = polygon(v)
     if hole:
         geom = geom.difference(shapely.Point(cx, cy).buffer(1.5))
     off = res / 2 if half else 0.0
@@ -161,9 +172,9 @@ def test_random_polygons_mask_equals_regionmask(seed, res, half, snap, hole):
     lon, lat = regular(lon1, lat1)
     expected = regionmask_mask(geom, lon1, lat1)
     # reference: regionmask 0.13 mask_3D for the same polygon
-    np.testing.assert_array_equal(rg.hard_mask(lon, lat, geom, regular=True), expected)
+    np.testing.assert_array_equal(hard_mask(lon, lat, geom, regular=True), expected)
     # reference: regionmask 0.13 mask_3D for the same polygon
-    np.testing.assert_array_equal(rg.hard_mask(lon, lat, geom), expected)
+    np.testing.assert_array_equal(hard_mask(lon, lat, geom), expected)
 
 
 @pytest.mark.parametrize("set_name, abbrev", [("srex", "CEU"), ("srex", "ALA"), ("srex", "SAU"),
@@ -171,23 +182,23 @@ def test_random_polygons_mask_equals_regionmask(seed, res, half, snap, hole):
 def test_published_region_mask_equals_regionmask(set_name, abbrev):
     lon1, lat1 = np.arange(-179.75, 180, 0.5), np.arange(-89.75, 90, 0.5)
     lon, lat = regular(lon1, lat1)
-    geom = rg.published(set_name, abbrev)
+    geom = published(set_name, abbrev)
     regions = getattr(regionmask.defined_regions, set_name)
     number = regions.map_keys(abbrev)
     expected = regions.mask_3D(lon1, lat1).sel(region=number).values
     # reference: regionmask 0.13 defined_regions.<set>.mask_3D, region selected by abbrev
-    np.testing.assert_array_equal(rg.hard_mask(lon, lat, geom, regular=True), expected)
+    np.testing.assert_array_equal(hard_mask(lon, lat, geom, regular=True), expected)
     # reference: same regionmask mask, point-by-point method
-    np.testing.assert_array_equal(rg.hard_mask(lon, lat, geom), expected)
+    np.testing.assert_array_equal(hard_mask(lon, lat, geom), expected)
 
 
 def test_curvilinear_mask_equals_regionmask():
     lon, lat = rotated_grid(n=120, m=90, centre=(12.0, 50.0), step=0.25)
-    geom = rg.published("srex", "CEU")
+    geom = published("srex", "CEU")
     expected = regionmask_mask(geom, lon, lat)
     assert 50 < expected.sum() < expected.size
     # reference: regionmask 0.13 mask_3D on 2-D (curvilinear) coordinates, shapely method
-    np.testing.assert_array_equal(rg.hard_mask(lon, lat, geom), expected)
+    np.testing.assert_array_equal(hard_mask(lon, lat, geom), expected)
 
 
 def test_point_list_mask():
@@ -195,7 +206,7 @@ def test_point_list_mask():
     lon = rng.uniform(60, 120, 3000)
     lat = rng.uniform(15, 50, 3000)
     lon[:5] = np.nan
-    got = rg.hard_mask(lon, lat, HIGHLAND)
+    got = hard_mask(lon, lat, HIGHLAND)
     assert not got[:5].any()
     expected = shapely.contains_xy(HIGHLAND, lon[5:], lat[5:])
     # reference: shapely.contains_xy on the same points (none lies on the boundary)
@@ -206,15 +217,15 @@ def test_point_list_mask():
 
 @pytest.mark.parametrize("name", ["highland", "srex_CEU"])
 def test_distance_within_half_percent_of_wgs84(name):
-    geom = HIGHLAND if name == "highland" else rg.published("srex", "CEU")
+    geom = HIGHLAND if name == "highland" else published("srex", "CEU")
     minx, miny, maxx, maxy = geom.bounds
     rng = np.random.default_rng(11)
     lon = rng.uniform(minx - 5, maxx + 5, 4000)
     lat = rng.uniform(miny - 3, maxy + 3, 4000)
-    d = rg.boundary_distance_km(lon, lat, geom, 300.0)
+    d = boundary_distance_km(lon, lat, geom, 300.0)
     zone = np.flatnonzero((d >= 10) & (d <= 300))
-    sel = np.concatenate([zone[rg.hard_mask(lon[zone], lat[zone], geom)][:30],
-                          zone[~rg.hard_mask(lon[zone], lat[zone], geom)][:30]])
+    sel = np.concatenate([zone[hard_mask(lon[zone], lat[zone], geom)][:30],
+                          zone[~hard_mask(lon[zone], lat[zone], geom)][:30]])
     assert sel.size == 60
     boundary = sample_rings(geom)
     ref = reference_distance_km(lon[sel], lat[sel], boundary, WGS84)
@@ -228,26 +239,26 @@ def test_distance_within_half_percent_of_wgs84(name):
 def test_distance_is_inf_beyond_max_and_for_nan():
     lon = np.array([87.5, 60.0, 140.0, np.nan, 87.5])
     lat = np.array([26.0, 33.0, 33.0, 30.0, np.nan])
-    d = rg.boundary_distance_km(lon, lat, HIGHLAND, 300.0)
+    d = boundary_distance_km(lon, lat, HIGHLAND, 300.0)
     assert np.isfinite(d[0]) and d[0] < 300
     assert np.all(np.isinf(d[1:]))
-    d0 = rg.boundary_distance_km(lon, lat, HIGHLAND, 0.0)
+    d0 = boundary_distance_km(lon, lat, HIGHLAND, 0.0)
     assert np.all(np.isinf(d0))
-    dall = rg.boundary_distance_km(lon[:3], lat[:3], HIGHLAND, np.inf)
+    dall = boundary_distance_km(lon[:3], lat[:3], HIGHLAND, np.inf)
     assert np.all(np.isfinite(dall))
 
 
 def test_whole_globe_has_no_boundary():
     lon, lat = regular(np.arange(-180, 180, 10.0), np.arange(-90, 91, 10.0))
-    globe = rg.box(-180, 180, -90, 90)
-    assert np.all(np.isinf(rg.boundary_distance_km(lon, lat, globe, 1000)))
-    np.testing.assert_array_equal(rg.taper_weight(lon, lat, globe, 500, "inside"), 1.0)
+    globe = box(-180, 180, -90, 90)
+    assert np.all(np.isinf(boundary_distance_km(lon, lat, globe, 1000)))
+    np.testing.assert_array_equal(taper_weight(lon, lat, globe, 500, "inside"), 1.0)
 
 
 def test_cap_taper_reaches_across_the_pole():
-    geom = rg.box(0, 30, 80, 88)
+    geom = box(0, 30, 80, 88)
     lon, lat = regular(np.arange(-180, 180, 2.0), np.arange(70, 90.1, 0.5))
-    w = rg.taper_weight(lon, lat, geom, 600.0)
+    w = taper_weight(lon, lat, geom, 600.0)
     # points beyond the pole from the region (lon 165..225, lat >= 85)
     far = np.flatnonzero(((lat >= 85) & (np.abs(lon - 195 + 360 * (lon < 0)) <= 30)).ravel())
     assert np.count_nonzero(w.ravel()[far] > 0) > 10        # the taper reaches over the pole
@@ -280,49 +291,49 @@ def tukey_rise(n=N_STEPS):
 
 @pytest.mark.parametrize("use_regular", [True, False])
 def test_outside_transect_is_tukey_tail(use_regular):
-    geom = rg.box(0, 60, 0, 40)
+    geom = box(0, 60, 0, 40)
     lat1 = transect(40.0, +1)
     if use_regular:
         lon, lat = regular([29.0, 30.0, 31.0], lat1)
-        w = rg.taper_weight(lon, lat, geom, WIDTH, "outside", regular=True)[:, 1]
+        w = taper_weight(lon, lat, geom, WIDTH, "outside", regular=True)[:, 1]
     else:
-        w = rg.taper_weight(np.full(lat1.size, 30.0), lat1, geom, WIDTH, "outside")
-    w[0] = rg.taper_weight([30.0], [40.0 + 1e-9], geom, WIDTH)[0]  # just outside the edge
+        w = taper_weight(np.full(lat1.size, 30.0), lat1, geom, WIDTH, "outside")
+    w[0] = taper_weight([30.0], [40.0 + 1e-9], geom, WIDTH)[0]  # just outside the edge
     # reference: scipy.signal.windows.tukey tail (alpha 0.5), distances R * dlat exactly
     np.testing.assert_allclose(w, tukey_tail(), atol=1e-6)
 
 
 def test_inside_and_centred_transects_are_tukey_edges():
-    geom = rg.box(0, 60, 0, 40)
+    geom = box(0, 60, 0, 40)
     lat_in = transect(40.0 - 1e-9, -1)                    # inwards from the north edge
-    w_in = rg.taper_weight(np.full(lat_in.size, 30.0), lat_in, geom, WIDTH, "inside")
+    w_in = taper_weight(np.full(lat_in.size, 30.0), lat_in, geom, WIDTH, "inside")
     # reference: scipy.signal.windows.tukey rising edge (alpha 0.5)
     np.testing.assert_allclose(w_in, tukey_rise(), atol=1e-6)
     lat_c = transect(40.0 + np.degrees(0.5 * WIDTH / R), -1)   # from w/2 outside to w/2 inside
-    w_c = rg.taper_weight(np.full(lat_c.size, 30.0), lat_c, geom, WIDTH, "centred")
+    w_c = taper_weight(np.full(lat_c.size, 30.0), lat_c, geom, WIDTH, "centred")
     # reference: scipy.signal.windows.tukey rising edge (alpha 0.5)
     np.testing.assert_allclose(w_c, tukey_rise(), atol=1e-6)
-    assert rg.taper_weight([30.0], [40.0], geom, WIDTH, "centred")[0] == pytest.approx(0.5)
+    assert taper_weight([30.0], [40.0], geom, WIDTH, "centred")[0] == pytest.approx(0.5)
 
 
-@pytest.mark.parametrize("placement", rg.PLACEMENTS)
+@pytest.mark.parametrize("placement", mask_mod.PLACEMENTS)
 @pytest.mark.parametrize("use_regular", [True, False])
 def test_width_zero_is_hard_mask(placement, use_regular):
     lon, lat = regular(np.arange(-180, 180, 1.0), np.arange(-90, 90.1, 1.0))
-    for geom in (HIGHLAND, rg.box(170, -170, -10, 10), rg.box(-180, 180, 80, 90)):
-        w = rg.taper_weight(lon, lat, geom, 0.0, placement, regular=use_regular)
+    for geom in (HIGHLAND, box(170, -170, -10, 10), box(-180, 180, 80, 90)):
+        w = taper_weight(lon, lat, geom, 0.0, placement, regular=use_regular)
         assert w.dtype == np.float64
-        np.testing.assert_array_equal(w, rg.hard_mask(lon, lat, geom).astype(float))
+        np.testing.assert_array_equal(w, hard_mask(lon, lat, geom).astype(float))
 
 
 @settings(max_examples=15, deadline=None)
 @given(lon0=st.floats(-200, 300), dlon=st.floats(1, 120), lat0=st.floats(-85, 70),
        dlat=st.floats(1, 40), width=st.floats(1, 2000))
 def test_placements_are_ordered_and_bounded(lon0, dlon, lat0, dlat, width):
-    geom = rg.box(lon0, lon0 + dlon, lat0, min(lat0 + dlat, 90))
+    geom = box(lon0, lon0 + dlon, lat0, min(lat0 + dlat, 90))
     lon, lat = regular(np.arange(-180, 180, 4.0), np.arange(-90, 90.1, 4.0))
-    mask = rg.hard_mask(lon, lat, geom, regular=True)
-    w_out, w_cen, w_in = (rg.taper_weight(lon, lat, geom, width, p, regular=True)
+    mask = hard_mask(lon, lat, geom, regular=True)
+    w_out, w_cen, w_in = (taper_weight(lon, lat, geom, width, p, regular=True)
                           for p in ("outside", "centred", "inside"))
     for w in (w_out, w_cen, w_in):
         assert np.all((w >= 0) & (w <= 1))
@@ -335,30 +346,30 @@ def test_placements_are_ordered_and_bounded(lon0, dlon, lat0, dlat, width):
 def test_curvilinear_and_points_equal_regular():
     lon1, lat1 = np.arange(50.0, 125.0, 0.25), np.arange(10.0, 55.0, 0.25)
     lon, lat = regular(lon1, lat1)
-    w_reg = rg.taper_weight(lon, lat, HIGHLAND, 300.0, "centred", regular=True)
+    w_reg = taper_weight(lon, lat, HIGHLAND, 300.0, "centred", regular=True)
     assert 0 < np.count_nonzero((w_reg > 0) & (w_reg < 1))
     # the same points as an irregular 2-D array (scrambled) and as a point list
     perm = np.random.default_rng(3).permutation(lon.size)
     shape2 = (150, lon.size // 150)
-    w_curv = rg.taper_weight(lon.ravel()[perm].reshape(shape2), lat.ravel()[perm].reshape(shape2),
+    w_curv = taper_weight(lon.ravel()[perm].reshape(shape2), lat.ravel()[perm].reshape(shape2),
                              HIGHLAND, 300.0, "centred")
     np.testing.assert_allclose(w_curv.ravel(), w_reg.ravel()[perm], rtol=0, atol=1e-12)
-    w_pts = rg.taper_weight(lon.ravel(), lat.ravel(), HIGHLAND, 300.0, "centred")
+    w_pts = taper_weight(lon.ravel(), lat.ravel(), HIGHLAND, 300.0, "centred")
     np.testing.assert_allclose(w_pts, w_reg.ravel(), rtol=0, atol=1e-12)
     # the 1-D axes of the regular grid give the same 2-D result
-    w_axes = rg.taper_weight(lon1, lat1, HIGHLAND, 300.0, "centred", regular=True)
+    w_axes = taper_weight(lon1, lat1, HIGHLAND, 300.0, "centred", regular=True)
     np.testing.assert_array_equal(w_axes, w_reg)
-    d_reg = rg.boundary_distance_km(lon, lat, HIGHLAND, 150.0, regular=True)
-    np.testing.assert_array_equal(rg.boundary_distance_km(lon, lat, HIGHLAND, 150.0), d_reg)
+    d_reg = boundary_distance_km(lon, lat, HIGHLAND, 150.0, regular=True)
+    np.testing.assert_array_equal(boundary_distance_km(lon, lat, HIGHLAND, 150.0), d_reg)
     # also in the other longitude convention
-    w_360 = rg.taper_weight(lon.ravel() + 360.0, lat.ravel(), HIGHLAND, 300.0, "centred")
+    w_360 = taper_weight(lon.ravel() + 360.0, lat.ravel(), HIGHLAND, 300.0, "centred")
     np.testing.assert_allclose(w_360, w_reg.ravel(), rtol=0, atol=1e-12)
 
 
 def test_rotated_grid_weights_match_reference_distances():
     lon, lat = rotated_grid(n=80, m=60, centre=(87.5, 33.5), step=0.5)
-    w = rg.taper_weight(lon, lat, HIGHLAND, 300.0, "outside")
-    np.testing.assert_array_equal(w, rg.taper_weight(lon.ravel(), lat.ravel(), HIGHLAND, 300.0)
+    w = taper_weight(lon, lat, HIGHLAND, 300.0, "outside")
+    np.testing.assert_array_equal(w, taper_weight(lon.ravel(), lat.ravel(), HIGHLAND, 300.0)
                                   .reshape(lon.shape))
     zone = np.flatnonzero(((w > 0.01) & (w < 0.99)).ravel())
     assert zone.size > 100
@@ -372,17 +383,17 @@ def test_rotated_grid_weights_match_reference_distances():
 def test_regular_flag_checked():
     lon, lat = rotated_grid(n=10, m=8)
     with pytest.raises(InputError, match="regular=True"):
-        rg.taper_weight(lon, lat, HIGHLAND, 100.0, regular=True)
+        taper_weight(lon, lat, HIGHLAND, 100.0, regular=True)
     with pytest.raises(InputError, match="same shape"):
-        rg.hard_mask(np.zeros(3), np.zeros(4), HIGHLAND)
+        hard_mask(np.zeros(3), np.zeros(4), HIGHLAND)
 
 
 # ------------------------------------------------------------------------- dateline, poles
 
 DATELINE_VARIANTS = {
-    "box": lambda: rg.box(170, -170, -20, -5),
-    "continuous": lambda: rg.polygon([[170, -20], [190, -20], [190, -5], [170, -5]]),
-    "negative": lambda: rg.polygon([[-190, -20], [-170, -20], [-170, -5], [-190, -5]]),
+    "box": lambda: box(170, -170, -20, -5),
+    "continuous": lambda: polygon([[170, -20], [190, -20], [190, -5], [170, -5]]),
+    "negative": lambda: polygon([[-190, -20], [-170, -20], [-170, -5], [-190, -5]]),
     "split": lambda: shapely.MultiPolygon([shapely.box(170, -20, 180, -5),
                                            shapely.box(-180, -20, -170, -5)]),
 }
@@ -396,9 +407,9 @@ def test_dateline_polygon_same_weights_on_both_grid_conventions():
     ref = None
     for name, make in DATELINE_VARIANTS.items():
         geom = make()
-        for placement in rg.PLACEMENTS:
-            wa = rg.taper_weight(*regular(lon_a, lat1), geom, 400.0, placement, regular=True)
-            wb = rg.taper_weight(*regular(lon_b, lat1), geom, 400.0, placement, regular=True)
+        for placement in mask_mod.PLACEMENTS:
+            wa = taper_weight(*regular(lon_a, lat1), geom, 400.0, placement, regular=True)
+            wb = taper_weight(*regular(lon_b, lat1), geom, 400.0, placement, regular=True)
             np.testing.assert_allclose(wb[:, order], wa, atol=1e-12)
             if placement == "inside":
                 ref = wa if ref is None else ref
@@ -411,61 +422,61 @@ def test_dateline_polygon_same_weights_on_both_grid_conventions():
 
 def test_long_edge_is_taken_the_short_way_with_warning():
     with pytest.warns(InputWarning, match="short way"):
-        geom = rg.polygon([[170, -20], [-170, -20], [-170, -5], [170, -5]])
+        geom = polygon([[170, -20], [-170, -20], [-170, -5], [170, -5]])
     assert geom.equals(DATELINE_VARIANTS["continuous"]())
 
 
 def test_polar_caps_follow_the_parallel():
     lon1, lat1 = np.arange(-180, 180, 1.0), np.arange(-90, 90.1, 0.5)
     lon, lat = regular(lon1, lat1)
-    for geom in (rg.box(-180, 180, 80, 90),
-                 rg.polygon([[0, 80], [90, 80], [180, 80], [270, 80]]),
-                 rg.polygon([[-180, 80], [180, 80], [180, 90], [-180, 90]])):
-        w = rg.taper_weight(lon, lat, geom, 400.0, regular=True)
+    for geom in (box(-180, 180, 80, 90),
+                 polygon([[0, 80], [90, 80], [180, 80], [270, 80]]),
+                 polygon([[-180, 80], [180, 80], [180, 90], [-180, 90]])):
+        w = taper_weight(lon, lat, geom, 400.0, regular=True)
         d = np.radians(np.clip(80 - lat, 0, None)) * R
         # reference: distance to a parallel along the meridian on the sphere, R * dlat
         np.testing.assert_allclose(w, tail(400.0, d), atol=1e-5)
-        np.testing.assert_array_equal(w, rg.taper_weight(lon, lat, geom, 400.0))
-    south = rg.box(0, 360, -90, -75)
-    w = rg.taper_weight(lon, lat, south, 250.0, "inside", regular=True)
+        np.testing.assert_array_equal(w, taper_weight(lon, lat, geom, 400.0))
+    south = box(0, 360, -90, -75)
+    w = taper_weight(lon, lat, south, 250.0, "inside", regular=True)
     d = np.radians(np.clip(-75 - lat, 0, None)) * R
     # reference: R * dlat on the sphere, rising edge of the taper
     np.testing.assert_allclose(w, np.where(lat <= -75, 1 - tail(250.0, d), 0.0), atol=1e-5)
 
 
 def test_ring_around_pole_picks_nearer_pole():
-    north = rg.polygon([[0, 70], [120, 70], [240, 70]])
-    south = rg.polygon([[0, -70], [120, -70], [240, -70]])
+    north = polygon([[0, 70], [120, 70], [240, 70]])
+    south = polygon([[0, -70], [120, -70], [240, -70]])
     assert north.contains(shapely.Point(10, 89)) and south.contains(shapely.Point(10, -89))
     with pytest.raises(InputError, match="unclear which pole"):
-        rg.polygon([[0, 0], [120, 0], [240, 0]])
+        polygon([[0, 0], [120, 0], [240, 0]])
 
 
 # ------------------------------------------------------------------------- shapes and files
 
 def test_bowtie_is_repaired_with_warning():
     with pytest.warns(InputWarning, match="make_valid"):
-        geom = rg.polygon([[0, 0], [10, 10], [10, 0], [0, 10]])
+        geom = polygon([[0, 0], [10, 10], [10, 0], [0, 10]])
     assert geom.is_valid and geom.area == pytest.approx(50.0)
     lon, lat = regular(np.arange(-5, 15, 0.5), np.arange(-5, 15, 0.5))
-    assert rg.hard_mask(lon, lat, geom, regular=True).sum() > 0
+    assert hard_mask(lon, lat, geom, regular=True).sum() > 0
 
 
 def test_geojson_with_hole_and_split_dateline_box():
     path = DATA / "region_hole_dateline.geojson"
-    geom = rg.read_geojson(path)
+    geom = read_geojson(path)
     lon1, lat1 = np.arange(-179.5, 180, 1.0), np.arange(-89.5, 90, 1.0)
     lon, lat = regular(lon1, lat1)
-    m = rg.hard_mask(lon, lat, geom, regular=True)
+    m = hard_mask(lon, lat, geom, regular=True)
     # reference: regionmask 0.13 mask_3D for the same polygon
     np.testing.assert_array_equal(m, regionmask_mask(geom, lon1, lat1))
-    assert not rg.hard_mask([20.0], [47.5], geom)[0]                    # in the hole
+    assert not hard_mask([20.0], [47.5], geom)[0]                    # in the hole
     pts_lon = np.array([180.0, 175.0, 20.0])
     pts_lat = np.array([-15.0, -15.0, 47.5])
-    d = rg.boundary_distance_km(pts_lon, pts_lat, geom, 2000.0)
-    ref = reference_distance_km(pts_lon, pts_lat, sample_rings(rg.box(170, -170, -20, -10)
-                                                               .union(rg.box(10, 30, 40, 55))
-                                                               .difference(rg.box(17, 23, 45, 50))
+    d = boundary_distance_km(pts_lon, pts_lat, geom, 2000.0)
+    ref = reference_distance_km(pts_lon, pts_lat, sample_rings(box(170, -170, -20, -10)
+                                                               .union(box(10, 30, 40, 55))
+                                                               .difference(box(17, 23, 45, 50))
                                                                ), SPHERE)
     # reference: pyproj.Geod(a=6371 km, f=0); the 180-degree seam is not boundary
     np.testing.assert_allclose(d, ref, rtol=1e-4)
@@ -481,7 +492,7 @@ def test_geojson_linestring_raises_naming_file(tmp_path):
     p = _write(tmp_path, {"type": "Feature", "properties": {},
                           "geometry": {"type": "LineString", "coordinates": [[0, 0], [1, 1]]}})
     with pytest.raises(InputError, match=r"shape\.geojson.*'LineString'") as err:
-        rg.read_geojson(p)
+        read_geojson(p)
     assert "\n" not in str(err.value)
 
 
@@ -496,61 +507,61 @@ def test_geojson_linestring_raises_naming_file(tmp_path):
 def test_geojson_errors(tmp_path, content, pattern):
     p = _write(tmp_path, content, "bad.geojson")
     with pytest.raises(InputError, match=pattern) as err:
-        rg.read_geojson(p)
+        read_geojson(p)
     assert "bad.geojson" in str(err.value)
 
 
 def test_geojson_missing_file(tmp_path):
     with pytest.raises(InputError, match="nowhere.geojson.*not found"):
-        rg.read_geojson(tmp_path / "nowhere.geojson")
+        read_geojson(tmp_path / "nowhere.geojson")
 
 
 def test_geojson_bare_polygon_and_feature(tmp_path):
     ring = [[10, 40], [30, 40], [30, 55], [10, 55], [10, 40]]
-    a = rg.read_geojson(_write(tmp_path, {"type": "Polygon", "coordinates": [ring]}, "a.json"))
-    b = rg.read_geojson(_write(tmp_path, {"type": "Feature", "properties": {},
+    a = read_geojson(_write(tmp_path, {"type": "Polygon", "coordinates": [ring]}, "a.json"))
+    b = read_geojson(_write(tmp_path, {"type": "Feature", "properties": {},
                                           "geometry": {"type": "Polygon", "coordinates": [ring]}},
                                "b.json"))
-    assert a.equals(rg.box(10, 30, 40, 55)) and b.equals(a)
+    assert a.equals(box(10, 30, 40, 55)) and b.equals(a)
 
 
 def test_published_errors_and_union():
     with pytest.raises(InputError, match="srex.*giorgi"):
-        rg.published("nonsense", "CEU")
+        published("nonsense", "CEU")
     with pytest.raises(InputError, match="'XYZ'.*CEU"):
-        rg.published("srex", "XYZ")
+        published("srex", "XYZ")
     lon1, lat1 = np.arange(-179.5, 180, 1.0), np.arange(-89.5, 90, 1.0)
     lon, lat = regular(lon1, lat1)
-    both = rg.published("SREX", ["ceu", "NEU"])
-    expected = (rg.hard_mask(lon, lat, rg.published("srex", "CEU"))
-                | rg.hard_mask(lon, lat, rg.published("srex", "NEU")))
-    np.testing.assert_array_equal(rg.hard_mask(lon, lat, both, regular=True), expected)
-    assert rg.published("srex", "c. europe").equals(rg.published("srex", "CEU"))
+    both = published("SREX", ["ceu", "NEU"])
+    expected = (hard_mask(lon, lat, published("srex", "CEU"))
+                | hard_mask(lon, lat, published("srex", "NEU")))
+    np.testing.assert_array_equal(hard_mask(lon, lat, both, regular=True), expected)
+    assert published("srex", "c. europe").equals(published("srex", "CEU"))
 
 
 def test_combine_include_exclude_any_convention():
     lon, lat = regular(np.arange(-179.5, 180, 1.0), np.arange(-89.5, 90, 1.0))
-    a, b, c = rg.box(-30, 10, 0, 30), rg.box(340, 370, 20, 50), rg.box(-5, 5, 10, 40)
-    geom = rg.combine([a, b], [c])
-    expected = ((rg.hard_mask(lon, lat, a) | rg.hard_mask(lon, lat, b))
-                & ~rg.hard_mask(lon, lat, c))
-    np.testing.assert_array_equal(rg.hard_mask(lon, lat, geom, regular=True), expected)
+    a, b, c = box(-30, 10, 0, 30), box(340, 370, 20, 50), box(-5, 5, 10, 40)
+    geom = combine([a, b], [c])
+    expected = ((hard_mask(lon, lat, a) | hard_mask(lon, lat, b))
+                & ~hard_mask(lon, lat, c))
+    np.testing.assert_array_equal(hard_mask(lon, lat, geom, regular=True), expected)
     with pytest.raises(InputError, match="empty"):
-        rg.combine([c], [rg.box(-10, 10, 0, 50)])
+        combine([c], [box(-10, 10, 0, 50)])
     with pytest.raises(InputError, match="include"):
-        rg.combine([], [c])
+        combine([], [c])
 
 
 @pytest.mark.parametrize("call, pattern", [
-    (lambda: rg.taper_weight([0.0], [0.0], HIGHLAND, -1.0), "width_km.*>= 0"),
-    (lambda: rg.taper_weight([0.0], [0.0], HIGHLAND, 10.0, "middle"), "placement"),
-    (lambda: rg.boundary_distance_km([0.0], [0.0], HIGHLAND, -5), "max_km"),
-    (lambda: rg.box(0, 10, 50, 40), "lat_min < lat_max"),
-    (lambda: rg.box(0, 0, 40, 50), "lon_min equals lon_max"),
-    (lambda: rg.polygon([[30, 100], [31, 100], [31, 101]]), "swapped"),
-    (lambda: rg.polygon([[0, 0], [1, 1]]), "at least 3"),
-    (lambda: rg.hard_mask([0.0], [0.0], shapely.LineString([(0, 0), (1, 1)])), "LineString"),
-    (lambda: rg.hard_mask([0.0], [0.0], "CEU"), "shapely Polygon"),
+    (lambda: taper_weight([0.0], [0.0], HIGHLAND, -1.0), "width_km.*>= 0"),
+    (lambda: taper_weight([0.0], [0.0], HIGHLAND, 10.0, "middle"), "placement"),
+    (lambda: boundary_distance_km([0.0], [0.0], HIGHLAND, -5), "max_km"),
+    (lambda: box(0, 10, 50, 40), "lat_min < lat_max"),
+    (lambda: box(0, 0, 40, 50), "lon_min equals lon_max"),
+    (lambda: polygon([[30, 100], [31, 100], [31, 101]]), "swapped"),
+    (lambda: polygon([[0, 0], [1, 1]]), "at least 3"),
+    (lambda: hard_mask([0.0], [0.0], shapely.LineString([(0, 0), (1, 1)])), "LineString"),
+    (lambda: hard_mask([0.0], [0.0], "CEU"), "shapely Polygon"),
 ])
 def test_input_errors(call, pattern):
     with pytest.raises(InputError, match=pattern) as err:
@@ -563,16 +574,16 @@ def test_input_errors(call, pattern):
 def test_elevation_ramp_is_raised_cosine():
     n = 20
     z = 1000.0 + np.arange(n + 1) * (500.0 / n)
-    w = rg.elevation_ramp(z, 1000.0, ramp_m=500.0)
+    w = elevation_ramp(z, 1000.0, ramp_m=500.0)
     # reference: scipy.signal.windows.tukey rising edge (alpha 0.5, M = 4n + 1)
     np.testing.assert_allclose(w, tukey(4 * n + 1, alpha=0.5)[: n + 1], atol=1e-12)
     z2 = 4000.0 - np.arange(n + 1) * (300.0 / n)
-    w2 = rg.elevation_ramp(z2, 1000.0, 500.0, max_m=4000.0, max_ramp_m=300.0)
+    w2 = elevation_ramp(z2, 1000.0, 500.0, max_m=4000.0, max_ramp_m=300.0)
     # reference: scipy.signal.windows.tukey rising edge, mirrored at max_m
     np.testing.assert_allclose(w2, tukey(4 * n + 1, alpha=0.5)[: n + 1], atol=1e-12)
-    w3 = rg.elevation_ramp([-10.0, 999.9, 1000.0, np.nan, 5000.0], 1000.0, max_m=4000.0)
+    w3 = elevation_ramp([-10.0, 999.9, 1000.0, np.nan, 5000.0], 1000.0, max_m=4000.0)
     np.testing.assert_array_equal(w3, [0, 0, 1, 0, 0])
-    assert rg.elevation_ramp([1e6], None, max_m=None)[0] == 1.0
+    assert elevation_ramp([1e6], None, max_m=None)[0] == 1.0
 
 
 @pytest.mark.parametrize("kwargs, pattern", [
@@ -583,33 +594,33 @@ def test_elevation_ramp_is_raised_cosine():
 ])
 def test_elevation_ramp_errors(kwargs, pattern):
     with pytest.raises(InputError, match=pattern):
-        rg.elevation_ramp([0.0], **kwargs)
+        elevation_ramp([0.0], **kwargs)
 
 
 def test_land_weight():
-    np.testing.assert_array_equal(rg.land_weight(fraction=[-0.01, 0.3, 1.0000001, np.nan]),
+    np.testing.assert_array_equal(land_weight(fraction=[-0.01, 0.3, 1.0000001, np.nan]),
                                   [0.0, 0.3, 1.0, 0.0])
-    np.testing.assert_array_equal(rg.land_weight(mask=[0, 1, 0.5, 0.49, np.nan]), [0, 1, 1, 0, 0])
-    np.testing.assert_array_equal(rg.land_weight(mask=[True, False]), [1.0, 0.0])
-    np.testing.assert_array_equal(rg.land_weight(mask=[2, 1], threshold=2), [1.0, 0.0])
+    np.testing.assert_array_equal(land_weight(mask=[0, 1, 0.5, 0.49, np.nan]), [0, 1, 1, 0, 0])
+    np.testing.assert_array_equal(land_weight(mask=[True, False]), [1.0, 0.0])
+    np.testing.assert_array_equal(land_weight(mask=[2, 1], threshold=2), [1.0, 0.0])
     with pytest.raises(InputError, match="percent"):
-        rg.land_weight(fraction=[0, 50, 100])
+        land_weight(fraction=[0, 50, 100])
     with pytest.raises(InputError, match="exactly one"):
-        rg.land_weight()
+        land_weight()
     with pytest.raises(InputError, match="exactly one"):
-        rg.land_weight(fraction=[1], mask=[1])
+        land_weight(fraction=[1], mask=[1])
 
 
 def test_check_coverage():
     lon, lat = regular(np.arange(0, 360, 1.0), np.arange(-60, 61, 1.0))
-    empty = rg.hard_mask(lon, lat, rg.box(-180, 180, 70, 90), regular=True)
+    empty = hard_mask(lon, lat, box(-180, 180, 70, 90), regular=True)
     with pytest.raises(InputError, match=r"region 'arctic' contains no grid point; the grid "
                                          r"spans lon 0\.\.359, lat -60\.\.60"):
-        rg.check_coverage(empty, "arctic", lon, lat)
-    small = rg.hard_mask(lon, lat, rg.box(9.5, 12.5, 9.5, 12.5), regular=True)
+        check_coverage(empty, "arctic", lon, lat)
+    small = hard_mask(lon, lat, box(9.5, 12.5, 9.5, 12.5), regular=True)
     with pytest.warns(InputWarning, match="only 9 grid points"):
-        assert rg.check_coverage(small, "tiny", lon, lat) == 9
-    big = rg.hard_mask(lon, lat, HIGHLAND, regular=True)
+        assert check_coverage(small, "tiny", lon, lat) == 9
+    big = hard_mask(lon, lat, HIGHLAND, regular=True)
     with warnings.catch_warnings():
         warnings.simplefilter("error")
-        assert rg.check_coverage(big, "highland", lon, lat) == big.sum()
+        assert check_coverage(big, "highland", lon, lat) == big.sum()

@@ -14,8 +14,11 @@ from initgen.errors import InputError, InputWarning
 from initgen.io.grid import ModelFile, open_model
 from initgen.io.restart import NetCDFStore, read_field, sha256_file
 from initgen.io.shipped import shipped_file
-from initgen.science import geodesy, profiles, regions, sources
+from initgen.science import geodesy, profiles, sources
 from initgen.science.layers import Layers, units_to_metres
+from initgen.science.regions import factors as regions_factors
+from initgen.science.regions import mask as regions_mask
+from initgen.science.regions import shapes as regions_shapes
 
 MIN_WEIGHT = 1e-6  # weights below this are set to 0
 
@@ -42,7 +45,7 @@ MAX_ABS_LON = 720.0  # two turns either way; beyond, wrapping a shape would take
 def _shape_geometry(shape: dict, recipe: Document, key: str, allow_outside: bool):
     if shape.get("geojson"):
         path = resolve_shape_file(recipe, shape["geojson"], key + ".geojson", allow_outside)
-        geom = regions.read_geojson(path)
+        geom = regions_shapes.read_geojson(path)
         west, _, east, _ = geom.bounds
         if not (-MAX_ABS_LON <= west and east <= MAX_ABS_LON):
             raise InputError(f"recipe key {key}.geojson: {path.name} has longitudes {west:.6g}..{east:.6g}, beyond "
@@ -52,11 +55,11 @@ def _shape_geometry(shape: dict, recipe: Document, key: str, allow_outside: bool
         (w, e), (s, n) = shape["box"]["lon"], shape["box"]["lat"]
         if s >= n:
             raise InputError(f"recipe key {key}.box.lat: south ({s}) must be below north ({n})")
-        return regions.box(w, e, s, n)
+        return regions_shapes.box(w, e, s, n)
     if shape.get("vertices"):
-        return regions.polygon(shape["vertices"])
+        return regions_shapes.polygon(shape["vertices"])
     pub = shape["published"]
-    return regions.published(pub["set"], pub["regions"])
+    return regions_shapes.published(pub["set"], pub["regions"])
 
 
 def resolve_shape_file(recipe: Document, rel: str, key: str, allow_outside: bool) -> Path:
@@ -99,7 +102,7 @@ def referenced_files(recipe: Document, allow_outside: bool = False) -> dict:
 def region_geometry(region: dict, recipe: Document, key: str, allow_outside: bool):
     inc = [shape_geometry(s, recipe, f"{key}.include[{i}]", allow_outside) for i, s in enumerate(region["include"])]
     exc = [shape_geometry(s, recipe, f"{key}.exclude[{i}]", allow_outside) for i, s in enumerate(region["exclude"])]
-    return regions.combine(inc, exc)
+    return regions_shapes.combine(inc, exc)
 
 
 def horizontal_weight(model: ModelFile, region: dict, geom, name: str, window: tuple,
@@ -107,31 +110,31 @@ def horizontal_weight(model: ModelFile, region: dict, geom, name: str, window: t
     """w(x) = taper(x) * elevation ramp(x) * land weight(x) on the window; 0 where land data are missing."""
     grid = model.grid
     if region["taper_km"] > 0:
-        w = regions.taper_weight(lon, lat, geom, region["taper_km"], placement=region["taper_placement"])
+        w = regions_mask.taper_weight(lon, lat, geom, region["taper_km"], placement=region["taper_placement"])
     else:
-        w = regions.hard_mask(lon, lat, geom).astype(np.float64)
+        w = regions_mask.hard_mask(lon, lat, geom).astype(np.float64)
     if not np.any(w > 0):
         raise InputError(f"region '{name}' contains no grid point; the grid spans {grid.extent()}; check the "
                          "region's coordinates and longitude convention")
-    regions.check_coverage(w > 0, name, lon, lat)
+    regions_factors.check_coverage(w > 0, name, lon, lat)
     elev = region.get("elevation")
     if elev:
         role = model.require("surface_altitude", f"region '{name}' has an elevation band")
         z = read_window(model, role, window) * _metres_per(role, model)
-        w = w * regions.elevation_ramp(z, elev["min_m"], elev["ramp_m"], elev.get("max_m"), elev["max_ramp_m"])
+        w = w * regions_factors.elevation_ramp(z, elev["min_m"], elev["ramp_m"], elev.get("max_m"), elev["max_ramp_m"])
     frac = model.role("land_fraction")
     mask = model.role("land_mask")
     if frac is not None and region["use_land_fraction"]:
-        w = w * regions.land_weight(fraction=land_fraction(model, window))
+        w = w * regions_factors.land_weight(fraction=land_fraction(model, window))
     elif mask is not None:
-        w = w * regions.land_weight(mask=read_window(model, mask, window), threshold=region["land_threshold"])
+        w = w * regions_factors.land_weight(mask=read_window(model, mask, window), threshold=region["land_threshold"])
     # the last sliver of a taper (w < 1e-6, a micro-kelvin per kelvin of anomaly) cannot change a
     # stored value; counting it as region would only blur the ledger
     w = np.where(np.isfinite(w) & (w >= MIN_WEIGHT), w, 0.0)
     if not np.any(w > 0):
         found = ""
         if elev:
-            inside = regions.hard_mask(lon, lat, geom) & np.isfinite(z)
+            inside = regions_mask.hard_mask(lon, lat, geom) & np.isfinite(z)
             if np.any(inside):
                 found = f"; surface altitude in the region spans {np.nanmin(z[inside]):.0f}..{np.nanmax(z[inside]):.0f} m"
         raise InputError(f"recipe key {key}: region '{name}' keeps no land grid cell above weight 0 after the "

@@ -10,8 +10,8 @@ from initgen.engine import fields
 from initgen.engine.fields import MIN_WEIGHT, region_geometry
 from initgen.errors import InputError
 from initgen.reports.figures import map_figure
-from initgen.science import regions
-from initgen.science.regions import land_weight
+from initgen.science.regions import mask as regions_mask
+from initgen.science.regions.factors import land_weight
 
 
 def _map_figure(grid, field, w, geoms, title: str, label: str, *, cmap=None, vmin=None, vmax=None, land=None,
@@ -63,7 +63,7 @@ def _taper_edge(plan, rec, geoms: list) -> np.ndarray | None:
         reg = blk["region"]
         if geom is None or reg["taper_km"] <= 0:
             continue
-        t = regions.taper_weight(plan.lon, plan.lat, geom, reg["taper_km"], placement=reg["taper_placement"]) \
+        t = regions_mask.taper_weight(plan.lon, plan.lat, geom, reg["taper_km"], placement=reg["taper_placement"]) \
             >= MIN_WEIGHT
         edge = t if edge is None else edge | t
     return None if edge is None else plan.full(edge.astype(float))

@@ -45,7 +45,14 @@ import shapely  # noqa: E402
 from pyproj import Geod, Transformer  # noqa: E402
 
 from initgen.science import geodesy  # noqa: E402
-from initgen.science import regions as rg  # noqa: E402
+from initgen.science.regions.mask import _candidates
+from initgen.science.regions.boundary import _in_arc
+from initgen.science.regions.boundary import _shape_cached
+from initgen.science.regions.boundary import _shape_of
+from initgen.science.regions.mask import _spacing_km
+from initgen.science.regions.mask import boundary_distance_km
+from initgen.science.regions.shapes import polygon
+from initgen.science.regions.mask import taper_weight
 
 WIDTH_KM = 300.0
 
@@ -84,7 +91,7 @@ def timed(fn, repeat=3):
     times = []
     out = None
     for _ in range(repeat):
-        rg._shape_cached.cache_clear()          # cold: no cached shape or k-d tree
+        _shape_cached.cache_clear()          # cold: no cached shape or k-d tree
         t0 = time.perf_counter()
         out = fn()
         times.append(time.perf_counter() - t0)
@@ -93,12 +100,12 @@ def timed(fn, repeat=3):
 
 def bbox_points(lon, lat, geom, max_km):
     """Flat indices of the grid points in the boundary's bbox widened by max_km (as rg)."""
-    tree = rg._shape_of(geom).tree(rg._spacing_km(max_km))
-    lat_lo, lat_hi, arc, margin = rg._candidates(tree, max_km)
+    tree = _shape_of(geom).tree(_spacing_km(max_km))
+    lat_lo, lat_hi, arc, margin = _candidates(tree, max_km)
     flon, flat = lon.ravel(), lat.ravel()
     cand = (flat >= lat_lo) & (flat <= lat_hi)
     idx = np.flatnonzero(cand)
-    return idx[rg._in_arc(flon[idx], *arc, margin=margin)]
+    return idx[_in_arc(flon[idx], *arc, margin=margin)]
 
 
 def aeqd_transformer(geom):
@@ -125,7 +132,7 @@ def naive_weights(lon, lat, geom, width_km, idx, to_aeqd):
 
 def bruteforce_distance_km(plon, plat, geom):
     """Great-circle distance to every 1 km boundary sample (no spatial index)."""
-    tree = rg._shape_of(geom).tree(1.0)
+    tree = _shape_of(geom).tree(1.0)
     b = tree.xyz
     out = np.empty(len(plon))
     p = geodesy.lonlat_to_unit(plon, plat)
@@ -172,11 +179,11 @@ def peak_rss_mb():
 
 def child_memory(res):
     """Run in a subprocess: peak memory of one regular-grid weights computation."""
-    geom = rg.polygon(highland_vertices())
+    geom = polygon(highland_vertices())
     lon, lat = global_grid(res)
     base_rss = peak_rss_mb()
     tracemalloc.start()
-    w = rg.taper_weight(lon, lat, geom, WIDTH_KM, "outside", regular=True)
+    w = taper_weight(lon, lat, geom, WIDTH_KM, "outside", regular=True)
     _, peak = tracemalloc.get_traced_memory()
     tracemalloc.stop()
     rss = peak_rss_mb()
@@ -207,16 +214,16 @@ def main():
     n_err = 40 if args.quick else 200
     n_brute = 300 if args.quick else 1000
 
-    geom = rg.polygon(highland_vertices())
+    geom = polygon(highland_vertices())
     lon, lat = global_grid(res)
     print(f"grid: {lat.shape[1]} x {lat.shape[0]} = {lon.size / 1e6:.2f} M cells "
           f"({res} degree), polygon {len(highland_vertices())} vertices, taper {WIDTH_KM} km")
     print(f"cpus: {os.cpu_count()}, load average at start: {load_note()}")
 
     # --- fast regular-grid weights
-    t_reg, w = timed(lambda: rg.taper_weight(lon, lat, geom, WIDTH_KM, "outside", regular=True))
+    t_reg, w = timed(lambda: taper_weight(lon, lat, geom, WIDTH_KM, "outside", regular=True))
     print(f"weights_regular_s: {t_reg:.3f}")
-    t_axes, w_axes = timed(lambda: rg.taper_weight(lon[0], lat[:, 0], geom, WIDTH_KM,
+    t_axes, w_axes = timed(lambda: taper_weight(lon[0], lat[:, 0], geom, WIDTH_KM,
                                                    "outside", regular=True))
     assert np.array_equal(w, w_axes)
     print(f"weights_regular_from_axes_s: {t_axes:.3f}")
@@ -240,7 +247,7 @@ def main():
     t0 = time.perf_counter()
     w_naive, d_naive = naive_weights(lon, lat, geom, WIDTH_KM, idx, to_aeqd)
     t_naive = time.perf_counter() - t0
-    t_fast_d, d_fast = timed(lambda: rg.boundary_distance_km(lon.ravel()[idx],
+    t_fast_d, d_fast = timed(lambda: boundary_distance_km(lon.ravel()[idx],
                                                              lat.ravel()[idx], geom, WIDTH_KM))
     t0 = time.perf_counter()
     shapely.contains_xy(geom, lon, lat)
@@ -279,7 +286,7 @@ def main():
     # --- brute-force great-circle baseline, sampled and scaled
     rng = np.random.default_rng(0)
     sample = rng.choice(idx, size=min(n_brute, idx.size), replace=False)
-    rg._shape_of(geom).tree(1.0)
+    _shape_of(geom).tree(1.0)
     t0 = time.perf_counter()
     d_brute = bruteforce_distance_km(lon.ravel()[sample], lat.ravel()[sample], geom)
     t_brute = (time.perf_counter() - t0) * idx.size / sample.size
@@ -292,7 +299,7 @@ def main():
     print(f"bruteforce_max_abs_diff_km: {diff.max():.4f} (its 1 km samples vs exact arcs)")
 
     # --- accuracy against pyproj WGS84 (points 10..300 km from the boundary, both sides)
-    d_grid = rg.boundary_distance_km(lon, lat, geom, WIDTH_KM, regular=True).ravel()
+    d_grid = boundary_distance_km(lon, lat, geom, WIDTH_KM, regular=True).ravel()
     zone = np.flatnonzero((d_grid >= 10) & (d_grid <= WIDTH_KM))
     pick = rng.choice(zone, size=min(n_err, zone.size), replace=False)
     ref = reference_wgs84_km(lon.ravel()[pick], lat.ravel()[pick], geom)
@@ -304,13 +311,13 @@ def main():
 
     # --- curvilinear and point lists
     clon, clat = rotated_grid(n_curv, step_curv)
-    t_curv, wc = timed(lambda: rg.taper_weight(clon, clat, geom, WIDTH_KM, "outside"))
+    t_curv, wc = timed(lambda: taper_weight(clon, clat, geom, WIDTH_KM, "outside"))
     print(f"curvilinear_grid: {n_curv} x {n_curv} rotated, {step_curv} degree, "
           f"{np.count_nonzero((wc > 0) & (wc < 1))} points in the taper")
     print(f"weights_curvilinear_1000x1000_s: {t_curv:.3f}")
     plon = rng.uniform(55, 120, n_pts)
     plat = rng.uniform(15, 52, n_pts)
-    t_pts, wp = timed(lambda: rg.taper_weight(plon, plat, geom, WIDTH_KM, "outside"))
+    t_pts, wp = timed(lambda: taper_weight(plon, plat, geom, WIDTH_KM, "outside"))
     print(f"points: {n_pts} random in lon 55..120, lat 15..52, "
           f"{np.count_nonzero((wp > 0) & (wp < 1))} in the taper")
     print(f"weights_points_2M_s: {t_pts:.3f}")
