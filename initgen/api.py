@@ -16,8 +16,10 @@ from initgen.engine.persistence import settings
 from initgen.io.grid import ModelFile, open_model
 from initgen.io.restart import NetCDFStore, XarrayStore, storable_range
 from initgen.outputs import collate as collate_mod
-from initgen.outputs import ensemble
+from initgen.outputs import ensemble, manifest
+from initgen.outputs import members as members_mod
 from initgen.outputs import provenance as prov
+from initgen.outputs.members import configure, select
 
 
 def _recipe(recipe) -> Document:
@@ -65,7 +67,7 @@ class CheckResult:
         if self.layout is not None:
             lines.append(f"layout '{self.layout.name}' sha256: {self.layout.sha256}")
         if self.recipe.data.get("members"):
-            names = [m.name for m in ensemble.members(self.recipe)]
+            names = [m.name for m in members_mod.members(self.recipe)]
             lines.append(f"members ({len(names)}): " + ", ".join(names))
         phys = self.recipe.data.get("physics") or {}
         if phys.get("mode", "none") != "none":
@@ -143,7 +145,7 @@ def preview(recipe, input, layout=None, *, member: str | None = None, allow_outs
     store = NetCDFStore(input)
     try:
         model = _model(store, lay, rec)
-        plan = ensemble.configure(plan_mod.build_plan(rec, model, allow_outside=allow_outside_paths), mem)
+        plan = configure(plan_mod.build_plan(rec, model, allow_outside=allow_outside_paths), mem)
         return plan_mod.run(plan, store, write=False)
     finally:
         store.close()
@@ -169,7 +171,7 @@ def apply(recipe, input, output, layout=None, *, member: str | None = None, forc
     store = NetCDFStore(input)
     try:
         model = _model(store, lay, rec)
-        plan = ensemble.configure(plan_mod.build_plan(rec, model, allow_outside=allow_outside_paths), mem)
+        plan = configure(plan_mod.build_plan(rec, model, allow_outside=allow_outside_paths), mem)
         _refuse_unstorable_first(plan, store)
     finally:
         store.close()
@@ -204,7 +206,7 @@ def _refuse_unstorable_first(plan, store) -> None:
 def _member(rec: Document, member: str | None):
     if member is None:  # the recipe as written: scale 1, sign +1, no offset, no noise
         return None
-    return ensemble.select(rec, [member])[0]
+    return select(rec, [member])[0]
 
 
 def apply_ensemble(recipe, inputs, output_dir, layout=None, *, members=None, workers: int | None = None,
@@ -214,7 +216,7 @@ def apply_ensemble(recipe, inputs, output_dir, layout=None, *, members=None, wor
 
     Outputs are named by the recipe's ``members.output_template``; ``manifest.json`` and
     ``manifest.csv`` list them. Runs on ``workers`` local processes (default min(2, CPUs)) or on
-    the Dask scheduler at ``scheduler``. Returns an ``ensemble.EnsembleResult`` (``exit_code``
+    the Dask scheduler at ``scheduler``. Returns an ``EnsembleResult`` (``exit_code``
     is 0 when every member was written, 2 when the failures were bad input, else 1).
     ``resume`` finishes an interrupted or partly failed ensemble: members whose output and
     provenance record exist and match are kept, the others are written. A signal (SIGINT,
@@ -231,7 +233,7 @@ def preview_members(recipe, input, layout=None, *, members=None, allow_outside_p
     """The ledger of every member (or those named) for one input, writing nothing: [(Member, ledger)]."""
 
     rec = _recipe(recipe)
-    return ensemble.preview(rec, input, _layout(layout, rec), names=members, allow_outside_paths=allow_outside_paths)
+    return manifest.preview(rec, input, _layout(layout, rec), names=members, allow_outside_paths=allow_outside_paths)
 
 
 def perturb(dataset, recipe, layout=None, *, allow_outside_paths: bool = False):

@@ -32,7 +32,9 @@ from initgen.engine.persistence import line as persistence_line
 from initgen.errors import InputError, InputWarning
 from initgen.io.restart import check_output_path, write_atomic_text
 from initgen.outputs.collate import problems_text
-from initgen.outputs.ensemble import Interrupted, members_table, results_table, select
+from initgen.outputs.ensemble import Interrupted
+from initgen.outputs.manifest import members_table, results_table
+from initgen.outputs.members import select
 from initgen.outputs.provenance import provenance_path
 from initgen.reports.compare import compare, compare_report, compare_text
 from initgen.reports.mask import write_mask

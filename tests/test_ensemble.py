@@ -14,6 +14,9 @@ import yaml
 
 from initgen import api
 from initgen.outputs import ensemble
+from initgen.outputs.members import member_noise
+from initgen.outputs import members as members_mod
+from initgen.engine import plan as plan_mod
 from initgen.science import sources
 from initgen.cli import main
 from initgen.demo import write_demo_restart
@@ -81,14 +84,14 @@ def pairs_local(tmp_path_factory, demo):
 
 def test_generated_members_names_seeds_and_schema(tmp_path):
     rec = load_recipe(recipe_file(tmp_path, {"scales": [1, 0.5]}))
-    ms = ensemble.members(rec)
+    ms = members_mod.members(rec)
     # a positive constant anomaly: sign +1 warms, so it is called warm
     assert [m.name for m in ms] == ["warm-x1.0", "cold-x1.0", "warm-x0.5", "cold-x0.5"]
     assert [(m.scale, m.sign, m.offset_K) for m in ms][:2] == [(1.0, 1, 0.0), (1.0, -1, 0.0)]
     assert all(m.seed == sources.member_seed(11, m.name) for m in ms)
     # a negative anomaly: sign +1 cools
     neg = load_recipe(recipe_file(tmp_path, {"scales": [1], "signs": [1]}, BASE.replace("2.0}", "-2.0}")))
-    assert [m.name for m in ensemble.members(neg)] == ["cold-x1.0"]
+    assert [m.name for m in members_mod.members(neg)] == ["cold-x1.0"]
     # the schema that `initgen schema` prints has the section
     props = RECIPE.json()["properties"]["members"]["properties"]
     assert {"list", "scales", "signs", "noise", "output_template"} <= set(props)
@@ -172,9 +175,9 @@ def test_noise_same_for_same_seed_and_member_different_otherwise(tmp_path, demo)
     check = api.check(rec, input=demo)
     plan = check.plan
     region = plan.region
-    a1, b1 = (ensemble.member_noise(plan, m) for m in ensemble.members(rec))
-    a2 = ensemble.member_noise(plan, ensemble.members(load_recipe(rec.path))[0])
-    a3 = ensemble.member_noise(plan, ensemble.members(other_seed)[0])
+    a1, b1 = (member_noise(plan, m) for m in members_mod.members(rec))
+    a2 = member_noise(plan, members_mod.members(load_recipe(rec.path))[0])
+    a3 = member_noise(plan, members_mod.members(other_seed)[0])
     assert np.array_equal(a1, a2)
     assert not np.allclose(a1[region], b1[region]) and not np.allclose(a1[region], a3[region])
     assert np.all(a1[~region] == 0) and 0.2 < a1[region].std() < 1.0
@@ -258,14 +261,14 @@ def test_a_failing_member_leaves_the_others_complete(tmp_path, demo, capsys):
 
 
 def test_an_unexpected_failure_gives_exit_1_and_the_rest_finish(tmp_path, demo, monkeypatch):
-    real = ensemble.member_noise
+    real = member_noise
 
     def boom(plan, member):
         if member.name == "warm-x0.5":
             raise RuntimeError("simulated crash")
         return real(plan, member)
 
-    monkeypatch.setattr(ensemble, "member_noise", boom)
+    monkeypatch.setattr(members_mod, "member_noise", boom)
     seen = []
     res = api.apply_ensemble(PAIRS, [demo], tmp_path / "out", workers=1, progress=lambda *a: seen.append(a))
     assert res.exit_code == 1
@@ -280,8 +283,8 @@ def test_several_inputs_naming_and_clashes(tmp_path, demo, capsys, monkeypatch):
     b = tmp_path / "start-0402.nc"
     shutil.copy(demo, b)
     builds = []
-    real_build = ensemble.plan_mod.build_plan
-    monkeypatch.setattr(ensemble.plan_mod, "build_plan", lambda *a, **k: builds.append(1) or real_build(*a, **k))
+    real_build = plan_mod.build_plan
+    monkeypatch.setattr(plan_mod, "build_plan", lambda *a, **k: builds.append(1) or real_build(*a, **k))
     shutil.copy(shipped_file("masks", "demo-highland.geojson"), tmp_path)
     rec = recipe_file(tmp_path, {"list": [{"name": "p", "offset_K": 0.5}],
                                  "output_template": "{input_stem}-{member}.nc"})

@@ -460,10 +460,11 @@ def start_ensemble(work, n, stalled, *extra, group=False):
 def interrupt_ensemble(work, n, k, how):
     """Run an n-member ensemble, stop it by ``how`` while members k and k+1 are being written."""
     from initgen.outputs import ensemble
+    from initgen.outputs.members import members
     from initgen.config.recipe import load_recipe
 
     (work / "ens.yaml").write_text(ensemble_recipe(n))
-    names_ = [m.name for m in ensemble.members(load_recipe(work / "ens.yaml"))]
+    names_ = [m.name for m in members(load_recipe(work / "ens.yaml"))]
     stalled = names_[k:k + 2]
     proc = start_ensemble(work, n, stalled, group=(how == "group"))
     for m in stalled:
@@ -569,6 +570,7 @@ def test_unreachable_scheduler_creates_nothing(work, capsys, monkeypatch):
     import socket
 
     from initgen.outputs import ensemble
+    from initgen.outputs.members import members
 
     with socket.socket() as s:  # a local port nobody listens on
         s.bind(("127.0.0.1", 0))

@@ -39,6 +39,7 @@ import yaml
 sys.path.insert(0, os.path.join(os.path.dirname(__file__), "..", ".."))
 
 from initgen.outputs import ensemble  # noqa: E402
+from initgen.outputs.members import members
 from initgen.demo import write_demo_restart  # noqa: E402
 from initgen.config.recipe import load_recipe  # noqa: E402
 from initgen.io.shipped import shipped_file  # noqa: E402
@@ -54,7 +55,7 @@ def setup(tmp: Path):
     shutil.copy(shipped_file("masks", "demo-highland.geojson"), tmp / "demo-highland.geojson")
     write_demo_restart(tmp / "demo.nc")
     recipe = load_recipe(tmp / "r.yaml")
-    assert len(ensemble.members(recipe)) == 16
+    assert len(members(recipe)) == 16
     return recipe, tmp / "demo.nc"
 
 
