@@ -13,8 +13,9 @@ from initgen.config.recipe import Document, inline_layout, load_layout, load_rec
 from initgen.engine import plan as plan_mod
 from initgen.engine.persistence import line as persistence_line
 from initgen.engine.persistence import settings
+from initgen.io.coding import storable_range
 from initgen.io.grid import ModelFile, open_model
-from initgen.io.restart import NetCDFStore, XarrayStore, storable_range
+from initgen.io.stores import NetCDFStore, XarrayStore
 from initgen.outputs import collate as collate_mod
 from initgen.outputs import ensemble, manifest
 from initgen.outputs import members as members_mod

@@ -30,7 +30,7 @@ from initgen._version import __version__
 from initgen.config.recipe import LAYOUT, RECIPE, load_recipe
 from initgen.engine.persistence import line as persistence_line
 from initgen.errors import InputError, InputWarning
-from initgen.io.restart import check_output_path, write_atomic_text
+from initgen.io.atomic import check_output_path, write_atomic_text
 from initgen.outputs.collate import problems_text
 from initgen.outputs.ensemble import Interrupted
 from initgen.outputs.manifest import members_table, results_table

@@ -15,7 +15,7 @@ import numpy as np
 
 from initgen import api
 from initgen.errors import InputError
-from initgen.io.restart import create_netcdf, write_atomic_text
+from initgen.io.atomic import create_netcdf, write_atomic_text
 from initgen.io.shipped import shipped_dir, shipped_file
 from initgen.reports.preview import preview_report
 from initgen.science.soil import freezing as soil_freezing

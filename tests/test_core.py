@@ -283,7 +283,7 @@ def test_region_across_the_grid_seam_reads_two_slabs_not_the_globe(tmp_path, mon
     from initgen.engine import tiling
     from initgen.io.grid import open_model
     from initgen.config.recipe import load_recipe
-    from initgen.io.restart import NetCDFStore
+    from initgen.io.stores import NetCDFStore
 
     src = regular(tmp_path / "in.nc", nlon=72, nlat=36, lon0=0.0, chunked=True)
     rec = load_recipe(box_recipe(tmp_path, w=-20, e=20, s=-30, n=30))

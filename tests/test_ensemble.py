@@ -22,7 +22,7 @@ from initgen.cli import main
 from initgen.demo import write_demo_restart
 from initgen.errors import InputError
 from initgen.config.recipe import RECIPE, load_recipe
-from initgen.io.restart import sha256_file
+from initgen.io.atomic import sha256_file
 from initgen.io.shipped import shipped_file
 
 PAIRS = shipped_file("recipes", "demo-warm-cold-pairs.yaml")

@@ -27,7 +27,9 @@ from pathlib import Path
 import netCDF4
 import pytest
 
-from initgen.io import restart
+from initgen.io import atomic
+from initgen.io.stores import NetCDFStore
+from initgen.io.atomic import _pid_alive
 from initgen.cli import main
 
 from filemaker import regular
@@ -108,7 +110,7 @@ def apply_args(work, output="out.nc", *extra):
 
 def assert_nothing_left(work, before_names, input_sha):
     now = names(work)
-    leftovers = {n for n in now if n.endswith(restart.TMP_TAG) or n.endswith(restart.LOCK_TAG)}
+    leftovers = {n for n in now if n.endswith(atomic.TMP_TAG) or n.endswith(atomic.LOCK_TAG)}
     assert not leftovers, leftovers
     assert "out.nc" not in now and "out.nc.provenance.json" not in now
     assert now - before_names <= {n for n in now if n.startswith(("marker-", "go-"))}, now - before_names
@@ -126,7 +128,7 @@ def test_signal_during_the_write_leaves_nothing(work, sig):
     proc, marker, _ = start(work, "a", *apply_args(work))
     wait_for(marker, proc)
     # mid-write: the temporary copy exists, the output does not
-    assert [n for n in names(work) if n.endswith(restart.TMP_TAG)]
+    assert [n for n in names(work) if n.endswith(atomic.TMP_TAG)]
     assert not (work / "out.nc").exists()
     proc.send_signal(sig)
     out, err = proc.communicate(timeout=60)
@@ -187,14 +189,14 @@ def test_full_disk_while_copying(work, capsys, monkeypatch):
 
 def test_full_disk_while_patching(work, capsys, monkeypatch):
     before, src = names(work), sha(work / "in.nc")
-    real = restart.NetCDFStore.write_changed
+    real = NetCDFStore.write_changed
 
     def fail_on_write(self, *a, **k):
-        if self.path.name.endswith(restart.TMP_TAG):  # the copy being patched
+        if self.path.name.endswith(atomic.TMP_TAG):  # the copy being patched
             _enospc()
         return real(self, *a, **k)
 
-    monkeypatch.setattr(restart.NetCDFStore, "write_changed", fail_on_write)
+    monkeypatch.setattr(NetCDFStore, "write_changed", fail_on_write)
     assert main([str(a) for a in apply_args(work)]) == 2
     line = _one_error_line(capsys)
     assert "out.nc" in line and "no space left on the device" in line
@@ -204,15 +206,15 @@ def test_full_disk_while_patching(work, capsys, monkeypatch):
 def test_full_disk_inside_the_netcdf_library(work, capsys, monkeypatch):
     """netCDF-C reports a full disk while writing as RuntimeError('NetCDF: HDF error'), no errno."""
     before, src = names(work), sha(work / "in.nc")
-    real = restart.NetCDFStore.write_changed
+    real = NetCDFStore.write_changed
 
     def hdf_error(self, *a, **k):
-        if self.path.name.endswith(restart.TMP_TAG):
+        if self.path.name.endswith(atomic.TMP_TAG):
             raise RuntimeError("NetCDF: HDF error")
         return real(self, *a, **k)
 
-    monkeypatch.setattr(restart.NetCDFStore, "write_changed", hdf_error)
-    monkeypatch.setattr(restart, "_free_bytes", lambda folder: 4096)
+    monkeypatch.setattr(NetCDFStore, "write_changed", hdf_error)
+    monkeypatch.setattr(atomic, "_free_bytes", lambda folder: 4096)
     assert main([str(a) for a in apply_args(work)]) == 2
     line = _one_error_line(capsys)
     assert "NetCDF: HDF error" in line and "disk is most likely full" in line and "out.nc" in line
@@ -224,7 +226,7 @@ def test_full_disk_while_writing_the_provenance_record(work, capsys, monkeypatch
     real_fsync = os.fsync
 
     def fsync(fd):
-        if os.readlink(f"/proc/self/fd/{fd}").endswith(".json" + f".{os.getpid()}{restart.TMP_TAG}"):
+        if os.readlink(f"/proc/self/fd/{fd}").endswith(".json" + f".{os.getpid()}{atomic.TMP_TAG}"):
             _enospc()
         return real_fsync(fd)
 
@@ -287,7 +289,7 @@ def test_two_runs_writing_the_same_output(work):
     assert "another" in lines[0]
     _valid_output(work, out_a if first.returncode == 0 else out_b)
     now = names(work)
-    assert not {n for n in now if n.endswith((restart.TMP_TAG, restart.LOCK_TAG))}
+    assert not {n for n in now if n.endswith((atomic.TMP_TAG, atomic.LOCK_TAG))}
     assert sha(work / "in.nc") == src
     assert now - before == {"out.nc", "out.nc.provenance.json", "marker-a", "go-a", "go-b"} | (
         {"marker-b"} if marker_b.exists() else set())
@@ -305,7 +307,7 @@ def test_two_runs_started_together(work):
     assert len(loser.splitlines()) == 1 and ("another" in loser or "exists; pass --force" in loser), loser
     winner_out = next(out for p, (out, err) in zip(procs, results) if p.returncode == 0)
     _valid_output(work, winner_out)
-    assert not {n for n in names(work) if n.endswith((restart.TMP_TAG, restart.LOCK_TAG))}
+    assert not {n for n in names(work) if n.endswith((atomic.TMP_TAG, atomic.LOCK_TAG))}
     assert sha(work / "in.nc") == src
 
 
@@ -322,7 +324,7 @@ def test_another_program_creates_the_output_meanwhile(work):
     assert len(err.splitlines()) == 1 and "another process created this file" in err and "kept theirs" in err
     assert (work / "out.nc").read_bytes() == b"theirs"
     assert not (work / "out.nc.provenance.json").exists()
-    assert not {n for n in names(work) if n.endswith((restart.TMP_TAG, restart.LOCK_TAG))}
+    assert not {n for n in names(work) if n.endswith((atomic.TMP_TAG, atomic.LOCK_TAG))}
     assert sha(work / "in.nc") == src
 
 
@@ -340,11 +342,11 @@ def dead_pid() -> int:
 def test_rerun_after_a_crash_removes_the_stale_temporary_and_lock(work, capsys):
     src = sha(work / "in.nc")
     pid = dead_pid()
-    stale = work / f".out.nc.{pid}{restart.TMP_TAG}"
+    stale = work / f".out.nc.{pid}{atomic.TMP_TAG}"
     stale.write_bytes((work / "in.nc").read_bytes()[:1000])  # half a copy, as a SIGKILL leaves it
-    lock = work / f".out.nc{restart.LOCK_TAG}"
+    lock = work / f".out.nc{atomic.LOCK_TAG}"
     lock.write_text(f"{os.uname().nodename} {pid}\n")
-    other = work / f".other.nc.{pid}{restart.TMP_TAG}"  # another output's temporary: not ours to remove
+    other = work / f".other.nc.{pid}{atomic.TMP_TAG}"  # another output's temporary: not ours to remove
     other.write_bytes(b"x")
     assert main([str(a) for a in apply_args(work, "out.nc", "-q")]) == 0
     assert not stale.exists() and not lock.exists() and other.exists()
@@ -355,7 +357,7 @@ def test_rerun_after_a_crash_removes_the_stale_temporary_and_lock(work, capsys):
 
 def test_temporary_of_a_live_run_is_left_alone(work, capsys):
     alive = os.getppid()
-    theirs = work / f".out.nc.{alive}{restart.TMP_TAG}"
+    theirs = work / f".out.nc.{alive}{atomic.TMP_TAG}"
     theirs.write_bytes(b"in progress")
     assert main([str(a) for a in apply_args(work, "out.nc", "-q")]) == 0
     assert theirs.read_bytes() == b"in progress"
@@ -363,7 +365,7 @@ def test_temporary_of_a_live_run_is_left_alone(work, capsys):
 
 def test_lock_of_a_live_run_stops_a_second_run(work, capsys):
     before, src = names(work), sha(work / "in.nc")
-    lock = work / f".out.nc{restart.LOCK_TAG}"
+    lock = work / f".out.nc{atomic.LOCK_TAG}"
     lock.write_text(f"{os.uname().nodename} {os.getppid()}\n")
     assert main([str(a) for a in apply_args(work)]) == 2
     line = _one_error_line(capsys)
@@ -419,7 +421,7 @@ def alive(pid: int) -> bool:
     except (FileNotFoundError, ProcessLookupError):
         return False
     except OSError:
-        return restart._pid_alive(pid)
+        return _pid_alive(pid)
     return state not in ("Z", "X")
 
 
@@ -434,7 +436,7 @@ def ensemble_state(folder: Path, running: bool = False):
     on_disk = {str(p) for p in folder.rglob("*.nc")}
     records = {str(p)[: -len(".provenance.json")] for p in folder.rglob("*.provenance.json")}
     leftovers = sorted(p.name for p in folder.rglob("*") if p.name.endswith(
-        (restart.TMP_TAG, restart.LOCK_TAG, ".repack")) or p.name == ".initgen-stop")
+        (atomic.TMP_TAG, atomic.LOCK_TAG, ".repack")) or p.name == ".initgen-stop")
     if running:
         assert set(ok) <= on_disk and on_disk - set(ok) <= pending, (sorted(ok), sorted(on_disk))
         on_disk &= set(ok)
@@ -479,7 +481,7 @@ def interrupt_ensemble(work, n, k, how):
             break
         time.sleep(0.05)
     assert manifest["counts"]["ok"] == k and len(on_disk) == k
-    assert len(list((work / "ens").rglob(f".in.nc.*{restart.TMP_TAG}"))) == 2  # two members mid-write
+    assert len(list((work / "ens").rglob(f".in.nc.*{atomic.TMP_TAG}"))) == 2  # two members mid-write
     if how == "group":
         os.killpg(proc.pid, signal.SIGINT)  # Ctrl-C in a terminal: the whole process group
     else:
@@ -725,7 +727,7 @@ def test_interrupted_ensemble_on_dask_stops_its_tasks(work, monkeypatch):
                                  str(work / "in.nc"), "--output", str(work / "ens"), "--scheduler",
                                  cl.scheduler_address], stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
         wait_for(work / "marker-dask", proc, timeout=120)
-        assert len(list((work / "ens").rglob(f".in.nc.*{restart.TMP_TAG}"))) == 1  # the third member, mid-write
+        assert len(list((work / "ens").rglob(f".in.nc.*{atomic.TMP_TAG}"))) == 1  # the third member, mid-write
         proc.send_signal(signal.SIGTERM)
         out, err = proc.communicate(timeout=120)
         assert proc.returncode == 130, err

@@ -210,7 +210,7 @@ def test_histograms_weigh_by_the_ledgers_area_and_profile_target_is_the_plans(tm
     import warnings
 
     from initgen.engine import plan as plan_mod
-    from initgen.io.restart import NetCDFStore
+    from initgen.io.stores import NetCDFStore
 
     src = grid_file(tmp_path, kind)
     rec = api.load_recipe(recipe(tmp_path, taper=500, profile="exponential"))
@@ -428,7 +428,7 @@ def test_maps_across_the_dateline_are_drawn_in_one_piece(tmp_path):
     assert all(png_size(d) == FIG_PIXELS for d in page.images())
     from initgen.reports.figures import frame_centre, to_frame
     from initgen.io.grid import open_model
-    from initgen.io.restart import NetCDFStore
+    from initgen.io.stores import NetCDFStore
 
     store = NetCDFStore(src)
     try:

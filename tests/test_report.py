@@ -23,7 +23,7 @@ import pytest
 
 from initgen import api
 from initgen.reports import figures
-from initgen.io.restart import NetCDFStore
+from initgen.io.stores import NetCDFStore
 from initgen.reports.common import _blocks
 from initgen.reports.common import _lon_arc
 from initgen.reports.compare import compare

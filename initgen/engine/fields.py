@@ -11,9 +11,10 @@ import numpy as np
 
 from initgen.config.recipe import Document, resolve_path
 from initgen.errors import InputError, InputWarning
+from initgen.io.atomic import sha256_file
 from initgen.io.grid import ModelFile, open_model
-from initgen.io.restart import NetCDFStore, read_field, sha256_file
 from initgen.io.shipped import shipped_file
+from initgen.io.stores import NetCDFStore, read_field
 from initgen.science import geodesy, profiles, sources
 from initgen.science.layers import Layers, units_to_metres
 from initgen.science.regions import factors as regions_factors

@@ -24,7 +24,8 @@ import numpy as np
 
 from initgen.errors import InputError, InputWarning
 from initgen.io import water as water_mod
-from initgen.io.restart import NetCDFStore, Store, VarInfo, find_coordinate, pack, pack_overflow, storable_range, unpack
+from initgen.io.coding import pack, pack_overflow, storable_range, unpack
+from initgen.io.stores import NetCDFStore, Store, VarInfo, find_coordinate
 from initgen.science import geodesy
 from initgen.science import layers as layers_mod
 

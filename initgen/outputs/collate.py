@@ -29,7 +29,7 @@ from pathlib import Path
 import numpy as np
 
 from initgen.errors import InputError
-from initgen.io.restart import sha256_file, write_atomic_text
+from initgen.io.atomic import sha256_file, write_atomic_text
 from initgen.outputs import provenance as prov
 
 BANDS_CM = ((0, 10), (10, 40), (40, 100), (100, 200))

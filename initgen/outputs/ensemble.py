@@ -41,7 +41,7 @@ from pathlib import Path
 
 from initgen.config.recipe import Document
 from initgen.errors import InputError
-from initgen.io.restart import clean_stale_files, sha256_file
+from initgen.io.atomic import clean_stale_files, sha256_file
 from initgen.outputs import provenance as prov
 from initgen.outputs.manifest import EnsembleResult, _manifest, write_manifest
 from initgen.outputs.members import (STOP_NAME, Member, Task, _init_worker, _result, _run_in_worker, build_shared,
@@ -379,7 +379,7 @@ def _run_local(method, nworkers, recipe, layout, tasks, payload, force, allow_ou
 def _stop_processes(procs, timeout: float = 30.0) -> None:
     """SIGTERM each worker (a member being written removes its temporary file and lock), wait for
     them, and SIGKILL any that did not end in ``timeout`` seconds (the caller then removes what
-    those left, see :func:`initgen.io.restart.clean_stale_files`)."""
+    those left, see :func:`initgen.io.atomic.clean_stale_files`)."""
 
     for p in procs:
         with contextlib.suppress(Exception):

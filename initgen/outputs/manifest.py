@@ -11,8 +11,9 @@ from pathlib import Path
 
 from initgen._version import __version__
 from initgen.engine import plan as plan_mod
+from initgen.io.atomic import write_atomic_text
 from initgen.io.grid import open_model
-from initgen.io.restart import NetCDFStore, write_atomic_text
+from initgen.io.stores import NetCDFStore
 from initgen.outputs import provenance as prov
 from initgen.outputs.members import configure, ledger_summary, select
 

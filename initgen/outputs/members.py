@@ -23,7 +23,7 @@ from initgen.config.recipe import Document, expand_members
 from initgen.engine import plan as plan_mod
 from initgen.errors import InputError
 from initgen.io.grid import open_model
-from initgen.io.restart import NetCDFStore
+from initgen.io.stores import NetCDFStore
 from initgen.outputs import provenance as prov
 from initgen.science import sources
 

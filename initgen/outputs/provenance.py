@@ -13,7 +13,8 @@ from pathlib import Path
 
 from initgen._version import __version__
 from initgen.errors import InputError
-from initgen.io.restart import copy_and_patch, sha256_file, versions, write_atomic_text
+from initgen.io.atomic import copy_and_patch, sha256_file, write_atomic_text
+from initgen.io.stores import versions
 
 FORMAT = "initgen-provenance/1"
 

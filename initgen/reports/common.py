@@ -9,7 +9,7 @@ from typing import Any, Iterator
 
 import numpy as np
 
-from initgen.io.restart import NetCDFStore
+from initgen.io.stores import NetCDFStore
 
 BLOCK_ELEMENTS = 2_000_000
 

@@ -16,8 +16,10 @@ import numpy as np
 from initgen._version import __version__
 from initgen.config.recipe import load_layout
 from initgen.errors import InputError
+from initgen.io.atomic import sha256_file, write_atomic_text
+from initgen.io.coding import unpack
 from initgen.io.grid import open_model
-from initgen.io.restart import NetCDFStore, sha256_file, unpack, write_atomic_text
+from initgen.io.stores import NetCDFStore
 from initgen.reports.common import (HISTORY, _attr_diffs, _attr_equal, _blocks, _encoding, _fmt, _is_layout_path,
                                     _lon_arc, _py, _short)
 from initgen.reports.figures import histogram_figure

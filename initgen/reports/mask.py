@@ -10,7 +10,8 @@ import numpy as np
 from initgen import api
 from initgen._version import __version__
 from initgen.errors import InputError
-from initgen.io.restart import NetCDFStore, check_output_path, create_netcdf, write_atomic_bytes
+from initgen.io.atomic import check_output_path, create_netcdf, write_atomic_bytes
+from initgen.io.stores import NetCDFStore
 from initgen.outputs import provenance as prov
 from initgen.reports.maps import _land_for_map, _map_figure, _region_geoms, _taper_edge
 

@@ -18,7 +18,8 @@ from initgen._version import __version__
 from initgen.engine import plan as plan_mod
 from initgen.engine.persistence import line as persistence_line
 from initgen.errors import InputError
-from initgen.io.restart import NetCDFStore, sha256_file, write_atomic_bytes, write_atomic_text
+from initgen.io.atomic import sha256_file, write_atomic_bytes, write_atomic_text
+from initgen.io.stores import NetCDFStore
 from initgen.outputs.members import configure
 from initgen.reports.common import CAUTION, _fmt
 from initgen.reports.figures import histogram_figure, profile_figure, short_label

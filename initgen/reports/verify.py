@@ -14,7 +14,7 @@ from initgen import api
 from initgen._version import __version__
 from initgen.config.recipe import document_from_text, inline_layout, load_layout, load_recipe
 from initgen.errors import InputError
-from initgen.io.restart import sha256_file
+from initgen.io.atomic import sha256_file
 from initgen.outputs import provenance as prov
 from initgen.reports.common import _py, _short
 from initgen.reports.compare import compare

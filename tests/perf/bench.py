@@ -167,7 +167,7 @@ def bench_preview(tmp: Path, res: float, nlayers: int, repeats: int, results: di
     from initgen import api
     from initgen.engine import plan as plan_mod
     from initgen.config.recipe import load_recipe
-    from initgen.io.restart import NetCDFStore
+    from initgen.io.stores import NetCDFStore
 
     src = tmp / "preview.nc"
     make_file(src, res, nlayers, False)
