@@ -14,7 +14,8 @@ from initgen.engine import plan as plan_mod
 from initgen.engine.persistence import line as persistence_line
 from initgen.engine.persistence import settings
 from initgen.io.coding import storable_range
-from initgen.io.grid import ModelFile, open_model
+from initgen.io.grid import open_model
+from initgen.io.model import ModelFile
 from initgen.io.stores import NetCDFStore, XarrayStore
 from initgen.outputs import collate as collate_mod
 from initgen.outputs import ensemble, manifest

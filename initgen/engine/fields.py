@@ -12,7 +12,8 @@ import numpy as np
 from initgen.config.recipe import Document, resolve_path
 from initgen.errors import InputError, InputWarning
 from initgen.io.atomic import sha256_file
-from initgen.io.grid import ModelFile, open_model
+from initgen.io.grid import open_model
+from initgen.io.model import ModelFile
 from initgen.io.shipped import shipped_file
 from initgen.io.stores import NetCDFStore, read_field
 from initgen.science import geodesy, profiles, sources

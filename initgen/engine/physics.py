@@ -12,7 +12,7 @@ from initgen.engine.fields import _layout_of
 from initgen.engine.tiling import _bcast_h, _layer_col
 from initgen.errors import InputError
 from initgen.io import water as water_mod
-from initgen.io.grid import ModelFile
+from initgen.io.model import ModelFile
 from initgen.io.water import FRACTION_ROLES, fraction_factor
 from initgen.science import constants
 from initgen.science import units as units_mod

@@ -32,7 +32,7 @@ from initgen.engine.snow import (_active_snow_layers, _melt_snow, _snow_layer_ma
 from initgen.engine.tiling import _bcast_h, _layer_col, blocks_of, slabs
 from initgen.errors import InputError, InputWarning
 from initgen.io.atomic import sha256_file
-from initgen.io.grid import ModelFile
+from initgen.io.model import ModelFile
 from initgen.science import sources
 from initgen.science.constants import T_FREEZE
 from initgen.science.soil import conversion as soil_conversion

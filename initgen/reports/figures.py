@@ -220,7 +220,7 @@ def map_figure(grid, field, w, geoms, title: str, label: str, *, land=None, land
 
     Parameters
     ----------
-    grid : initgen.io.grid.Grid
+    grid : initgen.io.model.Grid
         The model grid; the map is drawn from the part its frame shows (:func:`crop`).
     field : numpy.ndarray
         Values in the grid's horizontal shape (NaN: nothing to show).
