@@ -112,6 +112,14 @@ class Ledger:
             cur = np.zeros_like(per_layer, dtype=float)
         self.phase[key] = cur + per_layer
 
+    def _phase_rule(self) -> str:
+        rule = self.plan.physics.get("phase_rule", "change_driven")
+        if getattr(self.plan.model, "phase_split_diagnosed", False):
+            self.note("phase_rule", "the file keeps only total soil water, so its model diagnoses the liquid/ice "
+                                    f"split from temperature: the equilibrium rule is used (the recipe says {rule})")
+            return "equilibrium"
+        return rule
+
     def note(self, key: str, text: str) -> None:
         """Say how something was inferred (the first wording per key is kept)."""
         self.notes.setdefault(key, text)
@@ -148,7 +156,7 @@ class Ledger:
             "clamps": dict(sorted(self.clamps.items())),
             "flags": dict(sorted(self.flags.items())),
             "physics": {"mode": self.plan.physics["mode"],
-                        **({"phase_rule": self.plan.physics.get("phase_rule", "change_driven"),
+                        **({"phase_rule": self._phase_rule(),
                             "soil_parameters": self.soil_sources}
                            if self.plan.physics["mode"] != "none" else {})},
             "member_factors": {"scale_times_sign": _num(self.plan.member_scale),

@@ -1293,7 +1293,7 @@ def _physics(T_old, T_new, water, sel, phys, led, area, nh, mode, dT=None):
             raise InputError(f"{water[key + '_name']} holds more water than the layer's volume in {int(over.sum())} "
                              f"perturbed cell(s) when read as '{water[key + '_units']}'; check its units attribute "
                              "(kg m-2, m3 m-3 or saturation_fraction)")
-    rule = phys.get("phase_rule", "change_driven")
+    rule = effective_phase_rule(phys, water["spec"])
     if mode == "energy":
         res = soil.apply_energy_mode(T_old, water["liq"], water["ice"], dT, water["dz"], rule=rule, **kw)
     else:
@@ -1354,6 +1354,14 @@ def _check_invariants(T_old, water, res, sel, imposed, mode, rule, led, area, kw
                                                      float((err[big] / np.abs(target[big])).max()))
     else:
         inv["cells_not_exact"] += int(np.count_nonzero(dT != imp))
+
+
+def effective_phase_rule(physics: dict, water_spec) -> str:
+    """The recipe's phase rule, except for a file that keeps only total water: its model
+    diagnoses the liquid/ice split from temperature, which is the equilibrium rule."""
+    if water_spec is not None and getattr(water_spec, "phase_split_diagnosed", False):
+        return "equilibrium"
+    return physics.get("phase_rule", "change_driven")
 
 
 def _report_input_shift(T0, water, inside, led, area) -> None:

@@ -438,3 +438,63 @@ def test_float_variable_with_valid_max_refuses_a_change_that_would_read_back_as_
     r.write_text(PACKED + "limits: {packed_out_of_range: clip}\n")
     led = api.preview(r, f, layout=tmp_path / "l.yaml")
     assert led["clamps"]["soil_temp_outside_packed_range"] == n
+
+
+# ---------------------------------------------------------------------------------------------
+# The phase rules' invariants on a file of each convention (issue: phase change as the model
+# itself would make it). Decoded with the definitions above, not with initgen's reading code.
+# ---------------------------------------------------------------------------------------------
+
+@pytest.mark.parametrize("convention", [c for c in fm.WATER_VARS if c != "total_only"])
+@pytest.mark.parametrize("rule", soil.PHASE_RULES)
+@pytest.mark.parametrize("mode", ["energy", "temperature"])
+def test_invariants_hold_on_every_convention(tmp_path, convention, rule, mode):
+    """For a cooling (-3 K) and a warming (+2 K) of the frozen state: water (liquid + ice, kg m-2
+    decoded from the written file) is conserved per cell to 1e-9 kg m-2; the temperature change
+    never has the sign opposite to the imposed one; energy mode changes by no more than the
+    imposed change, temperature mode by exactly it (exponential profile, e-folding 0.5 m,
+    f(z) from the layer means); the ledger's measured invariants agree; the change-driven rule
+    melts nothing under a warming that stays below 0 C."""
+    units = "kg m-2"
+    f = fm.water_file(tmp_path / "in.nc", convention, units)
+    lay = fm.water_layout(tmp_path / "l.yaml", convention, units)
+    liq0, ice0 = decode(f, convention, units)
+    T0 = raw(f, "soil_temp")[0]
+    extra = f"  phase_rule: {rule}\n"
+    for dT in (-3, 2):
+        text = RECIPE.replace("DT", str(dT)).replace("mode: energy", f"mode: {mode}")
+        text = text.replace("physics: {mode: " + mode + ", texture: loam}",
+                            "physics:\n  mode: " + mode + "\n  texture: loam\n" + extra)
+        rec = tmp_path / f"r{dT}.yaml"
+        rec.write_text(text)
+        out = tmp_path / f"o{dT}.nc"
+        led = api.apply(rec, f, out, layout=lay)["ledger"]
+        liq1, ice1 = decode(out, convention, units)
+        T1 = raw(out, "soil_temp")[0]
+        np.testing.assert_allclose(liq1 + ice1, liq0 + ice0, rtol=0, atol=1e-9)
+        d = T1 - T0
+        assert np.all(d * dT >= 0), (convention, rule, mode, dT)
+        assert np.all(np.abs(d) <= abs(dT) + 1e-9)
+        changed = d != 0
+        assert changed.any()
+        inv = led["physics"]["invariants"]
+        assert inv["cells_change_opposite_to_imposed"] == 0
+        assert abs(inv["water_change_relative"]) < 1e-12
+        if mode == "energy":
+            assert inv["cells_change_beyond_imposed"] == 0 and inv["max_energy_budget_rel_error"] < 1e-6
+        else:
+            assert inv["cells_change_not_equal_to_imposed"] == 0
+        if rule == "change_driven" and dT > 0:
+            stays_frozen = T1 < 273.15
+            assert np.all((ice1 - ice0)[stays_frozen] >= -1e-9)       # no melting below 0 C
+        assert led["physics"]["phase_rule"] == rule
+
+
+def test_total_only_uses_the_equilibrium_rule_and_says_so(tmp_path):
+    """A file with only total water: its model diagnoses the split from temperature, so the
+    equilibrium rule is used whatever the recipe says, and the ledger's notes say why."""
+    f = fm.water_file(tmp_path / "in.nc", "total_only", "kg m-2")
+    lay = fm.water_layout(tmp_path / "l.yaml", "total_only", "kg m-2")
+    led = api.preview(recipe(tmp_path, 2), f, layout=lay)
+    assert led["physics"]["phase_rule"] == "equilibrium"
+    assert "diagnoses" in led["notes"]["phase_rule"]
