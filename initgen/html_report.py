@@ -188,7 +188,32 @@ def _ledger_tables(ledger: dict) -> list[str]:
 
 def _physics_tables(ledger: dict) -> list[str]:
     phys = ledger.get("physics", {})
-    out = [f"<p>Mode: <code>{esc(phys.get('mode'))}</code>.</p>"]
+    rule = (f", phase rule <code>{esc(phys['phase_rule'])}</code> ("
+            + ("water changes phase only where the imposed change requires it"
+               if phys["phase_rule"] == "change_driven" else
+               "the liquid/ice split is put on the freezing curve, as a model that diagnoses it would") + ")"
+            if phys.get("phase_rule") else "")
+    out = [f"<p>Mode: <code>{esc(phys.get('mode'))}</code>{rule}.</p>"]
+    if phys.get("soil_parameters"):
+        out.append(table(["soil parameter", "from"], [[k.replace("_", " "), v]
+                                                      for k, v in phys["soil_parameters"].items()]))
+    inv = phys.get("invariants")
+    if inv:
+        out.append("<p>Invariants, measured on the changed layer-cells (the physics' promises; a non-zero "
+                   "count of cells is a defect to report):</p>")
+        out.append(table(["invariant", "measured"], [[k.replace("_", " "), num(v) if isinstance(v, float) else v]
+                                                     for k, v in inv.items() if k != "meaning"], {1}))
+    shift = ledger.get("input_phase_disequilibrium")
+    if shift and sum(shift["cells_per_layer"]):
+        out.append(f"<p>Input off the freezing curve of the soil parameters used: {esc(shift['meaning'])}.</p>")
+        rows = [[i, c, num(f), num(m)] for i, (c, f, m) in enumerate(zip(
+            shift["cells_per_layer"], shift["equilibrium_rule_would_freeze_kg_per_layer"],
+            shift["equilibrium_rule_would_melt_kg_per_layer"]))]
+        out.append(table(["layer", "cells", "equilibrium rule would freeze (kg)", "would melt (kg)"], rows,
+                         {0, 1, 2, 3}))
+    if ledger.get("notes"):
+        out.append(table(["what initgen inferred", "how"], [[k.replace("_", " "), v]
+                                                            for k, v in ledger["notes"].items()]))
     totals = [(k, v) for k, v in phys.items() if k.endswith("_total_J") or k.endswith("_total_kg")]
     if totals:
         out.append(table(["quantity (region total)", "value"], [[k, num(v)] for k, v in totals], {1}))
