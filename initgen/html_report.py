@@ -217,7 +217,13 @@ def _physics_tables(ledger: dict) -> list[str]:
     totals = [(k, v) for k, v in phys.items() if k.endswith("_total_J") or k.endswith("_total_kg")]
     if totals:
         out.append(table(["quantity (region total)", "value"], [[k, num(v)] for k, v in totals], {1}))
-    per_layer = [(k, v) for k, v in phys.items() if "_per_layer_" in k and isinstance(v, list)]
+    per_layer = [(k, v) for k, v in phys.items() if "_per_layer_" in k and isinstance(v, list)
+                 and not k.startswith("snow_")]
+    snow = [(k, v) for k, v in phys.items() if "_per_layer_" in k and isinstance(v, list) and k.startswith("snow_")]
+    if snow:   # per snow layer, not per soil layer
+        out.append(table(["snow layer"] + [k for k, _ in snow],
+                         [[i] + [num(v[i]) if i < len(v) else "-" for _, v in snow]
+                          for i in range(max(len(v) for _, v in snow))], set(range(len(snow) + 1))))
     if per_layer:
         depths = None
         for var in ledger.get("variables", {}).values():
