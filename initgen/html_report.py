@@ -45,6 +45,10 @@ CLAMP_TEXT = {
 
 #: What each flag of the ledger means (cells initgen left as they were, or worth a look).
 FLAG_TEXT = {
+    "temperature_mode_latent_heat_beyond_imposed_energy": "temperature mode set the new temperature exactly, and "
+                                                          "the water that changed phase on the way (all ice melts "
+                                                          "above 0 C) took more latent heat than the imposed change's "
+                                                          "sensible heat; energy mode would give a smaller change",
     "snow_layers_melting": "energy mode: snow warmed past 0 C melted instead of warming further (the energy above "
                            "0 C paid the latent heat; the snow mass went down by the melt)",
     "water_above_porosity_kept": "the layer held more water than its pores before the change; initgen kept it "

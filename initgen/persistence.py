@@ -176,7 +176,7 @@ def add_block(plan, led, T0, T, water, inside, area, store=None, hkey=None) -> N
             sand = sand if role.layered else sand[:, None]
             from .plan import _percent  # the same percent rule the physics uses
 
-            sand = np.broadcast_to(_percent(sand, role), T.shape)
+            sand = np.broadcast_to(_percent(sand, role, "sand"), T.shape)
             quartz, coarse = sand / 100.0, sand >= COARSE_SAND_PCT
         else:
             quartz, coarse = cfg["quartz"], cfg["coarse"]

@@ -151,22 +151,29 @@ def test_each_convention_gives_the_liquid_and_ice_files_change(tmp_path, referen
 
 
 def test_total_only_diagnoses_the_split_and_writes_no_water(tmp_path, reference):
-    """total_only: the split is the equilibrium one at the file's temperature, so the temperature
-    change equals that of the liquid + ice file holding the same (equilibrium) state; the total
-    stays bit for bit and the model is told that the split is diagnosed."""
+    """total_only: the split is the equilibrium one at the file's temperature and the model
+    diagnoses it, so the equilibrium rule applies: the temperature change equals that of the
+    liquid + ice file holding the same (equilibrium) state under phase_rule equilibrium; the
+    total stays bit for bit and the model is told that the split is diagnosed."""
     f = fm.water_file(tmp_path / "in.nc", "total_only", "kg m-2")
     lay = LAYOUTS / "total-water-only.yaml"
     chk = api.check(recipe(tmp_path, -3), layout=lay, input=f)
     assert chk.model.water_convention == "total_only" and chk.model.phase_split_diagnosed
     assert "diagnosed from the soil temperature" in chk.summary()
+    ref_in = fm.water_file(tmp_path / "ref.nc", "liquid_and_ice", "kg m-2")
+    ref_lay = fm.water_layout(tmp_path / "ref.yaml", "liquid_and_ice", "kg m-2")
     for dT in (-3, 4):
         o = tmp_path / f"o{dT}.nc"
         rec = api.apply(recipe(tmp_path, dT), f, o, layout=lay)
+        eq = recipe(tmp_path, dT).read_text().replace("texture: loam}", "texture: loam, phase_rule: equilibrium}")
+        (tmp_path / "eq.yaml").write_text(eq)
+        ref = api.apply(tmp_path / "eq.yaml", ref_in, tmp_path / f"ref{dT}.nc", layout=ref_lay)
         assert np.array_equal(raw(o, "water_total"), raw(f, "water_total"))
-        np.testing.assert_allclose(raw(o, "soil_temp")[0], reference[dT][1], atol=1e-4)
+        np.testing.assert_allclose(raw(o, "soil_temp")[0], raw(tmp_path / f"ref{dT}.nc", "soil_temp")[0], atol=1e-4)
         assert rec["ledger"]["water"]["phase_split_diagnosed"] is True
-        assert rec["ledger"]["physics"]["frozen_region_total_kg"] == pytest.approx(
-            reference[dT][2]["physics"]["frozen_region_total_kg"], rel=1e-6)
+        assert rec["ledger"]["physics"]["phase_rule"] == "equilibrium"
+        for key in ("frozen_region_total_kg", "melted_region_total_kg"):
+            assert rec["ledger"]["physics"][key] == pytest.approx(ref["ledger"]["physics"][key], rel=1e-6, abs=1e-3)
 
 
 LAYOUT_FILES = {  # shipped example layout -> the file of its shape (convention, units, ice reading)
