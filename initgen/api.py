@@ -323,7 +323,8 @@ def ledger_text(ledger: dict) -> str:
     inv = phys.get("invariants")
     if inv:
         bad = [k for k in ("cells_change_opposite_to_imposed", "cells_change_beyond_imposed",
-                           "cells_change_not_equal_to_imposed") if inv.get(k)]
+                           "cells_change_not_equal_to_imposed", "cells_phase_change_beyond_energy",
+                           "cells_made_inconsistent") if inv.get(k)]
         text = (f"water change {inv['water_change_region_kg']:.3g} kg (relative {inv['water_change_relative']:.3g})"
                 + (f", energy budget error <= {inv['max_energy_budget_rel_error']:.2g} (relative)"
                    if "max_energy_budget_rel_error" in inv else ""))

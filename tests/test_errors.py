@@ -1282,6 +1282,8 @@ TARGETS = {
     "compare --json": (lambda w, r: ["compare", w / "in.nc", w / "in.nc", "--json", "{T}"], "file"),
     "compare --report": (lambda w, r: ["compare", w / "in.nc", w / "in.nc", "--report", "{T}"], "report"),
     "demo --out": (lambda w, r: ["demo", "--out", "{T}"], "demo"),
+    # the targets are checked before any record is read, so any file stands in for the record here
+    "collate --out": (lambda w, r: ["collate", w / "in.nc", "--out", "{T}"], "collation"),
 }
 
 
@@ -1300,7 +1302,7 @@ def test_output_target_that_exists(work, capsys, target):
     else:
         path.mkdir()
         name = {"ensemble": "manifest.json", "report": "preview.md" if "preview" in target else "compare.md",
-                "demo": "notes.txt"}[kind]
+                "demo": "notes.txt", "collation": "collation.html"}[kind]
         (path / name).write_text("someone's file\n")
         phrases = ("taken", name if kind != "ensemble" else "holds an ensemble already", "--force")
     argv = _argv(work, target, path)

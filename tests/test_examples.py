@@ -207,3 +207,15 @@ def test_every_shipped_recipe_keeps_the_physics_promises_on_the_demo(demo, name)
         assert inv["max_energy_budget_rel_error"] < 1e-6
     else:
         assert inv["cells_change_not_equal_to_imposed"] == 0
+
+
+def test_demo_report_page_states_the_phase_rule_invariants_and_parameter_sources(demo, tmp_path):
+    """The page a group attaches says which phase rule ran, where the soil parameters came
+    from, and the measured invariants (the same ledger numbers as the preview's JSON)."""
+    from initgen.reports import preview as report
+
+    report.preview_report(demo / "demo-cold-highland.yaml", demo / "demo-restart.nc", None, tmp_path / "rep")
+    text = (tmp_path / "rep" / "report.html").read_text()
+    for phrase in ("phase rule <code>change_driven</code>", "Invariants, measured on the changed layer-cells",
+                   "cells change opposite to imposed", "Clapp and Hornberger (1978) Table 2, loam"):
+        assert phrase in text, phrase

@@ -322,3 +322,13 @@ def test_check_refuses_bad_file_soil_parameters_before_anything_is_written(tmp_p
     assert "'por' (porosity" in capsys.readouterr().err
     assert main(["apply", str(rec)] + argv + ["-o", str(tmp_path / "o.nc")]) == 2
     assert not (tmp_path / "o.nc").exists()
+
+
+def test_file_sand_without_units_is_refused_naming_the_layout_key(tmp_path):
+    """Percent or fraction is read from the units alone: values cannot tell (a low-clay block
+    looks like fractions), so a sand variable without units is refused, naming units.sand."""
+    rec = recipe(tmp_path, physics="physics: {mode: energy}\n")
+    src = _physics_params_file(tmp_path, (("sandf", 40.0, ""), ("clayf", 0.2, "1")))
+    lay = _layout_with(tmp_path, "  sand: sandf\n  clay: clayf")
+    with pytest.raises(Exception, match="'sandf' \\(sand\\).*units.sand"):
+        api.preview(rec, src, layout=lay)

@@ -343,3 +343,34 @@ def test_organic_blend_against_lawrence_and_slater_2008():
     assert (float(por), float(psi), float(b), float(cs)) == pytest.approx((*LOAM, 2.2e6))
     with pytest.raises(InputError, match="organic_fraction"):
         blend_organic(Hydraulics(*LOAM), 2.2e6, 1.5)
+
+
+# =============================================================================================
+# Edge cases found in review
+# =============================================================================================
+
+def test_liquid_above_porosity_freezes_down_to_the_capped_curve_just_below_freezing():
+    """Niu and Yang's limit exceeds the porosity within a few mK of T_f and is capped there
+    (theta_liq <= theta_s): 0.5 liquid cooled from 274.15 K to 273.149 K keeps 0.451 (loam
+    porosity, Clapp and Hornberger 1978) and freezes 0.049, like the equilibrium rule."""
+    r = run("temperature", 274.15, 0.5, 0.0, -1.001)
+    assert r["liq"] == pytest.approx(0.451, abs=1e-12) and r["ice"] == pytest.approx(0.049, abs=1e-12)
+    liq, ice = settle_one_sided(273.149, 0.5, 0.0, *LOAM)
+    assert float(liq) == pytest.approx(0.451, abs=1e-12) and float(ice) == pytest.approx(0.049, abs=1e-12)
+
+
+@pytest.mark.parametrize("rule", modes.PHASE_RULES)
+def test_a_change_below_the_enthalpys_round_off_leaves_the_cell_as_it_is(rule):
+    """dT = -1e-20 K on a state on the curve (a profile factor of 1e-26 deep down): nothing the
+    solver can resolve, so the cell is returned bit-identical instead of being moved one float64
+    step of T (which could go against the imposed sign)."""
+    T0 = 258.4943359120343
+    l0 = lmax(T0)
+    r = run("energy", T0, l0, 0.3, -1e-20, rule=rule)
+    assert r["T"] == T0 and r["liq"] == l0 and r["ice"] == 0.3
+    assert r["frozen_kg_m2"] == 0 and r["melted_kg_m2"] == 0
+
+
+def test_water_above_the_layer_volume_is_refused_by_the_modes():
+    with pytest.raises(InputError, match="liquid water above 1 m3 m-3"):
+        apply_energy_mode(270.0, 1e20, 0.1, -1.0, 0.1, *LOAM)

@@ -19,6 +19,7 @@ import pytest
 import filemaker as fm
 from initgen import api
 from initgen.science.soil import conversion
+from initgen.science.soil.modes import PHASE_RULES
 from initgen.science.soil.conversion import frozen_fraction
 from initgen.science.soil.conversion import ice_volume_to_water_equivalent
 from initgen.science.soil.conversion import phases_from_total
@@ -157,22 +158,29 @@ def test_each_convention_gives_the_liquid_and_ice_files_change(tmp_path, referen
 
 
 def test_total_only_diagnoses_the_split_and_writes_no_water(tmp_path, reference):
-    """total_only: the split is the equilibrium one at the file's temperature, so the temperature
-    change equals that of the liquid + ice file holding the same (equilibrium) state; the total
-    stays bit for bit and the model is told that the split is diagnosed."""
+    """total_only: the split is the equilibrium one at the file's temperature and the model
+    diagnoses it, so the equilibrium rule applies: the temperature change equals that of the
+    liquid + ice file holding the same (equilibrium) state under phase_rule equilibrium; the
+    total stays bit for bit and the model is told that the split is diagnosed."""
     f = fm.water_file(tmp_path / "in.nc", "total_only", "kg m-2")
     lay = LAYOUTS / "total-water-only.yaml"
     chk = api.check(recipe(tmp_path, -3), layout=lay, input=f)
     assert chk.model.water_convention == "total_only" and chk.model.phase_split_diagnosed
     assert "diagnosed from the soil temperature" in chk.summary()
+    ref_in = fm.water_file(tmp_path / "ref.nc", "liquid_and_ice", "kg m-2")
+    ref_lay = fm.water_layout(tmp_path / "ref.yaml", "liquid_and_ice", "kg m-2")
     for dT in (-3, 4):
         o = tmp_path / f"o{dT}.nc"
         rec = api.apply(recipe(tmp_path, dT), f, o, layout=lay)
+        eq = recipe(tmp_path, dT).read_text().replace("texture: loam}", "texture: loam, phase_rule: equilibrium}")
+        (tmp_path / "eq.yaml").write_text(eq)
+        ref = api.apply(tmp_path / "eq.yaml", ref_in, tmp_path / f"ref{dT}.nc", layout=ref_lay)
         assert np.array_equal(raw(o, "water_total"), raw(f, "water_total"))
-        np.testing.assert_allclose(raw(o, "soil_temp")[0], reference[dT][1], atol=1e-4)
+        np.testing.assert_allclose(raw(o, "soil_temp")[0], raw(tmp_path / f"ref{dT}.nc", "soil_temp")[0], atol=1e-4)
         assert rec["ledger"]["water"]["phase_split_diagnosed"] is True
-        assert rec["ledger"]["physics"]["frozen_region_total_kg"] == pytest.approx(
-            reference[dT][2]["physics"]["frozen_region_total_kg"], rel=1e-6)
+        assert rec["ledger"]["physics"]["phase_rule"] == "equilibrium"
+        for key in ("frozen_region_total_kg", "melted_region_total_kg"):
+            assert rec["ledger"]["physics"][key] == pytest.approx(ref["ledger"]["physics"][key], rel=1e-6, abs=1e-3)
 
 
 LAYOUT_FILES = {  # shipped example layout -> the file of its shape (convention, units, ice reading)
@@ -444,3 +452,63 @@ def test_float_variable_with_valid_max_refuses_a_change_that_would_read_back_as_
     r.write_text(PACKED + "limits: {packed_out_of_range: clip}\n")
     led = api.preview(r, f, layout=tmp_path / "l.yaml")
     assert led["clamps"]["soil_temp_outside_packed_range"] == n
+
+
+# ---------------------------------------------------------------------------------------------
+# The phase rules' invariants on a file of each convention (issue: phase change as the model
+# itself would make it). Decoded with the definitions above, not with initgen's reading code.
+# ---------------------------------------------------------------------------------------------
+
+@pytest.mark.parametrize("convention", [c for c in fm.WATER_VARS if c != "total_only"])
+@pytest.mark.parametrize("rule", PHASE_RULES)
+@pytest.mark.parametrize("mode", ["energy", "temperature"])
+def test_invariants_hold_on_every_convention(tmp_path, convention, rule, mode):
+    """For a cooling (-3 K) and a warming (+2 K) of the frozen state: water (liquid + ice, kg m-2
+    decoded from the written file) is conserved per cell to 1e-9 kg m-2; the temperature change
+    never has the sign opposite to the imposed one; energy mode changes by no more than the
+    imposed change, temperature mode by exactly it (exponential profile, e-folding 0.5 m,
+    f(z) from the layer means); the ledger's measured invariants agree; the change-driven rule
+    melts nothing under a warming that stays below 0 C."""
+    units = "kg m-2"
+    f = fm.water_file(tmp_path / "in.nc", convention, units)
+    lay = fm.water_layout(tmp_path / "l.yaml", convention, units)
+    liq0, ice0 = decode(f, convention, units)
+    T0 = raw(f, "soil_temp")[0]
+    extra = f"  phase_rule: {rule}\n"
+    for dT in (-3, 2):
+        text = RECIPE.replace("DT", str(dT)).replace("mode: energy", f"mode: {mode}")
+        text = text.replace("physics: {mode: " + mode + ", texture: loam}",
+                            "physics:\n  mode: " + mode + "\n  texture: loam\n" + extra)
+        rec = tmp_path / f"r{dT}.yaml"
+        rec.write_text(text)
+        out = tmp_path / f"o{dT}.nc"
+        led = api.apply(rec, f, out, layout=lay)["ledger"]
+        liq1, ice1 = decode(out, convention, units)
+        T1 = raw(out, "soil_temp")[0]
+        np.testing.assert_allclose(liq1 + ice1, liq0 + ice0, rtol=0, atol=1e-9)
+        d = T1 - T0
+        assert np.all(d * dT >= 0), (convention, rule, mode, dT)
+        assert np.all(np.abs(d) <= abs(dT) + 1e-9)
+        changed = d != 0
+        assert changed.any()
+        inv = led["physics"]["invariants"]
+        assert inv["cells_change_opposite_to_imposed"] == 0
+        assert abs(inv["water_change_relative"]) < 1e-12
+        if mode == "energy":
+            assert inv["cells_change_beyond_imposed"] == 0 and inv["max_energy_budget_rel_error"] < 1e-6
+        else:
+            assert inv["cells_change_not_equal_to_imposed"] == 0
+        if rule == "change_driven" and dT > 0:
+            stays_frozen = T1 < 273.15
+            assert np.all((ice1 - ice0)[stays_frozen] >= -1e-9)       # no melting below 0 C
+        assert led["physics"]["phase_rule"] == rule
+
+
+def test_total_only_uses_the_equilibrium_rule_and_says_so(tmp_path):
+    """A file with only total water: its model diagnoses the split from temperature, so the
+    equilibrium rule is used whatever the recipe says, and the ledger's notes say why."""
+    f = fm.water_file(tmp_path / "in.nc", "total_only", "kg m-2")
+    lay = fm.water_layout(tmp_path / "l.yaml", "total_only", "kg m-2")
+    led = api.preview(recipe(tmp_path, 2), f, layout=lay)
+    assert led["physics"]["phase_rule"] == "equilibrium"
+    assert "diagnoses" in led["notes"]["phase_rule"]

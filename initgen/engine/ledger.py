@@ -112,14 +112,25 @@ class Ledger:
             cur = np.zeros_like(per_layer, dtype=float)
         self.phase[key] = cur + per_layer
 
+    def _phase_rule(self) -> str:
+        rule = self.plan.physics.get("phase_rule", "change_driven")
+        if getattr(self.plan.model, "phase_split_diagnosed", False):
+            self.note("phase_rule", "the file keeps only total soil water, so its model diagnoses the liquid/ice "
+                                    f"split from temperature: the equilibrium rule is used (the recipe says {rule})")
+            return "equilibrium"
+        return rule
+
     def note(self, key: str, text: str) -> None:
         """Say how something was inferred (the first wording per key is kept)."""
         self.notes.setdefault(key, text)
 
-    def add_input_shift(self, cells: np.ndarray, freeze_kg: np.ndarray, melt_kg: np.ndarray) -> None:
+    def add_input_shift(self, cells: np.ndarray, freeze_kg: np.ndarray, melt_kg: np.ndarray,
+                        inconsistent: np.ndarray) -> None:
         """Accumulate, per layer, the input's cells out of phase equilibrium and the kg (area
-        integrated) of water the equilibrium rule would freeze and melt in them."""
-        for key, v in (("cells", cells), ("freeze_kg", freeze_kg), ("melt_kg", melt_kg)):
+        integrated) of water the equilibrium rule would freeze and melt in them; and the cells a
+        one-sided model would not hold either (liquid above the curve below 0 C, ice above 0 C)."""
+        for key, v in (("cells", cells), ("freeze_kg", freeze_kg), ("melt_kg", melt_kg),
+                       ("inconsistent", inconsistent)):
             cur = self.input_shift.get(key)
             self.input_shift[key] = v if cur is None or cur.shape != v.shape else cur + v
 
@@ -148,7 +159,7 @@ class Ledger:
             "clamps": dict(sorted(self.clamps.items())),
             "flags": dict(sorted(self.flags.items())),
             "physics": {"mode": self.plan.physics["mode"],
-                        **({"phase_rule": self.plan.physics.get("phase_rule", "change_driven"),
+                        **({"phase_rule": self._phase_rule(),
                             "soil_parameters": self.soil_sources}
                            if self.plan.physics["mode"] != "none" else {})},
             "member_factors": {"scale_times_sign": _num(self.plan.member_scale),
@@ -181,8 +192,10 @@ class Ledger:
                    "water_change_relative": float(f"{inv['water_change_kg'] / inv['water_before_kg']:.3g}")
                    if inv["water_before_kg"] > 0 else 0.0,
                    "cells_change_opposite_to_imposed": int(inv["cells_opposite_sign"])}
+            rec["cells_made_inconsistent"] = int(inv["cells_made_inconsistent"])
             if mode == "energy":
                 rec["cells_change_beyond_imposed"] = int(inv["cells_beyond_imposed"])
+                rec["cells_phase_change_beyond_energy"] = int(inv["cells_phase_change_beyond_energy"])
                 rec["max_energy_budget_rel_error"] = float(f"{inv['max_energy_budget_rel_error']:.3g}")
             else:
                 rec["cells_change_not_equal_to_imposed"] = int(inv["cells_not_exact"])
@@ -190,7 +203,10 @@ class Ledger:
                               "the file's precision): water (liquid + ice) conserved; the temperature change never "
                               "opposite to the imposed one; "
                               + ("|dT| <= |imposed dT| and the enthalpy change C0 dT dz" if mode == "energy"
-                                 else "dT equal to the imposed change"))
+                                 else "dT equal to the imposed change")
+                              + "; a state consistent with the one-sided rule (no liquid above the freezing "
+                                "curve below 0 C, no ice above 0 C) stays so"
+                              + ("; the phase change paid by the imposed energy" if mode == "energy" else ""))
             out["physics"]["invariants"] = rec
         if self.input_shift:
             rule = self.plan.physics.get("phase_rule", "change_driven")
@@ -199,6 +215,7 @@ class Ledger:
                 "cells_per_layer": [int(v) for v in s["cells"]],
                 "equilibrium_rule_would_freeze_kg_per_layer": [_num(v) for v in s["freeze_kg"]],
                 "equilibrium_rule_would_melt_kg_per_layer": [_num(v) for v in s["melt_kg"]],
+                "cells_inconsistent_with_one_sided_rule_per_layer": [int(v) for v in s["inconsistent"]],
                 "acted_on": rule == "equilibrium",
                 "meaning": ("region layer-cells of the input whose liquid/ice split is not on the freezing curve of "
                             "the soil parameters used; "

@@ -175,7 +175,7 @@ def add_block(plan, led, T0, T, water, inside, area, store=None, hkey=None) -> N
             role = plan.model.role("sand")
             sand = role.read(store, hkey)
             sand = sand if role.layered else sand[:, None]
-            sand = np.broadcast_to(units.percent_content(sand, role.units), T.shape)  # the physics' percent rule
+            sand = np.broadcast_to(units.percent_content(sand, role, "sand"), T.shape)  # the physics' percent rule
             quartz, coarse = sand / 100.0, sand >= COARSE_SAND_PCT
         else:
             quartz, coarse = cfg["quartz"], cfg["coarse"]

@@ -207,10 +207,14 @@ def run(plan: Plan, store, *, write: bool, progress=None) -> dict:
     source = plan.physics.get("texture") or ("sand/clay" if plan.physics.get("sand_pct") is not None else
                                              "the given parameters")
     shift = out.get("input_phase_disequilibrium")
-    if shift and sum(shift["cells_per_layer"]):
+    # the change-driven rule holds ice beside liquid below the curve as stable: warn only about
+    # states it would not hold either; the equilibrium rule re-balances every cell counted
+    warn_cells = (sum(shift["cells_per_layer"]) if shift and shift["acted_on"] else
+                  sum(shift["cells_inconsistent_with_one_sided_rule_per_layer"]) if shift else 0)
+    if warn_cells:
         fr = sum(shift["equilibrium_rule_would_freeze_kg_per_layer"])
         me = sum(shift["equilibrium_rule_would_melt_kg_per_layer"])
-        warnings.warn(f"{sum(shift['cells_per_layer'])} region layer-cell(s) of the input are not in phase equilibrium "
+        warnings.warn(f"{warn_cells} region layer-cell(s) of the input are not in phase equilibrium "
                       f"for the soil parameters used ({source}): the equilibrium rule would freeze {fr:.3g} kg and "
                       f"melt {me:.3g} kg of water there; "
                       + ("physics.phase_rule equilibrium re-balances them" if shift["acted_on"] else

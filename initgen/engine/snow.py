@@ -85,6 +85,8 @@ def _melt_snow(T, moved, layer_mass, led, area):
     melt = np.where(over, melt, 0.0)
     a = _bcast_h(area, 2)
     led.add_phase("snow_melted_kg", (melt * a).sum(axis=tuple(i for i in range(melt.ndim) if i != 1)))
+    led.note("snow_melt_water", "snow that melted leaves the column: initgen writes it into no liquid water "
+                                "variable (the snow mass goes down by the melt, counted in snow_melted_*)")
     led.flag("snow_layers_melting", np.count_nonzero(melt > 0))
     return np.where(over, T_FREEZE, T), melt
 

@@ -46,6 +46,10 @@ CLAMP_TEXT = {
 
 #: What each flag of the ledger means (cells initgen left as they were, or worth a look).
 FLAG_TEXT = {
+    "temperature_mode_latent_heat_beyond_imposed_energy": "temperature mode set the new temperature exactly, and "
+                                                          "the water that changed phase on the way (all ice melts "
+                                                          "above 0 C) took more latent heat than the imposed change's "
+                                                          "sensible heat; energy mode would give a smaller change",
     "snow_layers_melting": "energy mode: snow warmed past 0 C melted instead of warming further (the energy above "
                            "0 C paid the latent heat; the snow mass went down by the melt)",
     "water_above_porosity_kept": "the layer held more water than its pores before the change; initgen kept it "
@@ -185,11 +189,42 @@ def _ledger_tables(ledger: dict) -> list[str]:
 
 def _physics_tables(ledger: dict) -> list[str]:
     phys = ledger.get("physics", {})
-    out = [f"<p>Mode: <code>{esc(phys.get('mode'))}</code>.</p>"]
+    rule = (f", phase rule <code>{esc(phys['phase_rule'])}</code> ("
+            + ("water changes phase only where the imposed change requires it"
+               if phys["phase_rule"] == "change_driven" else
+               "the liquid/ice split is put on the freezing curve, as a model that diagnoses it would") + ")"
+            if phys.get("phase_rule") else "")
+    out = [f"<p>Mode: <code>{esc(phys.get('mode'))}</code>{rule}.</p>"]
+    if phys.get("soil_parameters"):
+        out.append(table(["soil parameter", "from"], [[k.replace("_", " "), v]
+                                                      for k, v in phys["soil_parameters"].items()]))
+    inv = phys.get("invariants")
+    if inv:
+        out.append("<p>Invariants, measured on the changed layer-cells (the physics' promises; a non-zero "
+                   "count of cells is a defect to report):</p>")
+        out.append(table(["invariant", "measured"], [[k.replace("_", " "), num(v) if isinstance(v, float) else v]
+                                                     for k, v in inv.items() if k != "meaning"], {1}))
+    shift = ledger.get("input_phase_disequilibrium")
+    if shift and sum(shift["cells_per_layer"]):
+        out.append(f"<p>Input off the freezing curve of the soil parameters used: {esc(shift['meaning'])}.</p>")
+        rows = [[i, c, num(f), num(m)] for i, (c, f, m) in enumerate(zip(
+            shift["cells_per_layer"], shift["equilibrium_rule_would_freeze_kg_per_layer"],
+            shift["equilibrium_rule_would_melt_kg_per_layer"]))]
+        out.append(table(["layer", "cells", "equilibrium rule would freeze (kg)", "would melt (kg)"], rows,
+                         {0, 1, 2, 3}))
+    if ledger.get("notes"):
+        out.append(table(["what initgen inferred", "how"], [[k.replace("_", " "), v]
+                                                            for k, v in ledger["notes"].items()]))
     totals = [(k, v) for k, v in phys.items() if k.endswith("_total_J") or k.endswith("_total_kg")]
     if totals:
         out.append(table(["quantity (region total)", "value"], [[k, num(v)] for k, v in totals], {1}))
-    per_layer = [(k, v) for k, v in phys.items() if "_per_layer_" in k and isinstance(v, list)]
+    per_layer = [(k, v) for k, v in phys.items() if "_per_layer_" in k and isinstance(v, list)
+                 and not k.startswith("snow_")]
+    snow = [(k, v) for k, v in phys.items() if "_per_layer_" in k and isinstance(v, list) and k.startswith("snow_")]
+    if snow:   # per snow layer, not per soil layer
+        out.append(table(["snow layer"] + [k for k, _ in snow],
+                         [[i] + [num(v[i]) if i < len(v) else "-" for _, v in snow]
+                          for i in range(max(len(v) for _, v in snow))], set(range(len(snow) + 1))))
     if per_layer:
         depths = None
         for var in ledger.get("variables", {}).values():

@@ -20,6 +20,8 @@ import re
 
 import numpy as np
 
+from initgen.errors import InputError
+
 __all__ = ["parse", "temperature_scale_offset", "metres_per", "pascal_per", "water_amount", "fraction_per",
            "percent_content"]
 
@@ -117,13 +119,16 @@ def water_amount(units) -> tuple[str, float] | None:
     return None
 
 
-def percent_content(values, units):
-    """Sand or clay content in percent: fractions (units '1' or none, all values <= 1) are scaled.
+def percent_content(values, role, role_name: str):
+    """Sand or clay content in percent, decided by the units alone (never by the values, which a
+    block of a low-clay region could make look like fractions): percent as it is, fractions
+    ('1', 'fraction', 'kg kg-1') times 100; anything else is refused, naming the layout key.
 
-    Values in %, and any units this rule does not name, are returned as they are."""
-    u = units.strip().lower()
+    ``role`` is anything with ``units`` and ``variables`` (a bound role)."""
+    u = role.units.strip().lower()
     if u in ("%", "percent", "pct"):
         return values
-    if u in ("", "1", "fraction", "kg kg-1", "kg/kg") and np.nanmax(values, initial=0.0) <= 1.0:
+    if u in ("1", "fraction", "kg kg-1", "kg/kg"):
         return values * 100.0
-    return values
+    raise InputError(f"variable '{role.variables[0]}' ({role_name}) has units {role.units!r}; initgen reads sand and "
+                     f"clay as '%' or as fractions '1': set units.{role_name} in the layout")

@@ -57,6 +57,8 @@ _CHECKS = (  # (argument index, test of validity, what is wrong, what to do)
      "fix negative water in the input, or check the fill value"),
     (2, lambda v: (v >= 0) & (v < np.inf), "negative or missing ice",
      "fix negative water in the input, or check the fill value"),
+    (1, lambda v: v <= 1.0, "liquid water above 1 m3 m-3", "check the water units"),
+    (2, lambda v: v <= 1.0, "ice above 1 m3 m-3", "check the water units"),
     (4, lambda v: (v > 0) & (v < np.inf), "layer thickness dz not finite and > 0 m",
      "check the layer geometry"),
     (5, lambda v: (v > 0) & (v <= 1), "porosity outside (0, 1] m3 m-3",
@@ -148,7 +150,9 @@ def settle_one_sided(T, liq, ice, porosity, psi_sat_m, b):
     T, liq, ice = _f64(T), _f64(liq), _f64(ice)
     below = T < T_FREEZE
     with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
-        lmax = _liq_max_below(np.where(below, T, T_FREEZE - 1.0), _f64(porosity), np.abs(_f64(psi_sat_m)), _f64(b))
+        phi = _f64(porosity)
+        lmax = np.minimum(phi, _liq_max_below(np.where(below, T, T_FREEZE - 1.0), phi, np.abs(_f64(psi_sat_m)),
+                                              _f64(b)))   # the curve is capped at the porosity
     stays = np.where(below, np.minimum(liq, lmax), liq)
     above = T > T_FREEZE
     liq1 = np.where(above, liq + ice, stays)
@@ -163,7 +167,17 @@ def _diagnosed_start(T, liq, ice, phi, psi, b, touched):
     return np.where(touched, le, liq), np.where(touched, ie, ice)
 
 
+def _below_resolution(T, liq, ice, dT, phi, cs):
+    """Cells whose imposed enthalpy change is below the round-off of their enthalpy (a factor of
+    1e-26 deep in a profile): the solver cannot resolve it, so the cell is left as it is rather
+    than moved by one float64 step of T, possibly against the imposed sign."""
+    C0 = (1.0 - phi) * cs + CV_WATER * liq + _CV_ICE_WE * ice
+    scale = np.abs(C0 * (T - T_FREEZE)) + _LV * (liq + ice) + C0
+    return np.abs(C0 * dT) <= 8.0 * np.finfo(np.float64).eps * scale
+
+
 def _energy_block(T, liq, ice, dT, dz, phi, psi, b, cs, touched):
+    touched = touched & ~_below_resolution(T, liq, ice, dT, phi, cs)
     liq, ice = _diagnosed_start(T, liq, ice, phi, psi, b, touched)
     W = liq + ice
     Csol = (1.0 - phi) * cs
@@ -193,12 +207,13 @@ def _freezable(T, liq, phi, psi, b):
     disequilibrium: it is reported by the caller and kept as it is, not acted on.
     Returns ``(W_eligible, kept)`` with ``W_eligible + kept == liq``.
     """
-    lmax0 = np.where(T < T_FREEZE, _liq_max_below(np.minimum(T, T_FREEZE), phi, psi, b), np.inf)
+    lmax0 = np.where(T < T_FREEZE, np.minimum(phi, _liq_max_below(np.minimum(T, T_FREEZE), phi, psi, b)), np.inf)
     elig = np.where(T >= T_FREEZE, liq, np.minimum(liq, lmax0))
     return elig, liq - elig
 
 
 def _energy_block_change_driven(T, liq, ice, dT, dz, phi, psi, b, cs, touched):
+    touched = touched & ~_below_resolution(T, liq, ice, dT, phi, cs)
     Csol = (1.0 - phi) * cs
     C0 = Csol + CV_WATER * liq + _CV_ICE_WE * ice
     H0d = C0 * (T - T_FREEZE) + _LV * liq                  # J m-3
@@ -243,7 +258,7 @@ def _temperature_block_change_driven(T, liq, ice, dT, dz, phi, psi, b, cs, touch
     cool = (dT < 0) & (T1 < T_FREEZE)
     if cool.any():
         elig, kept = _freezable(T, liq, phi, psi, b)
-        lmax1 = _liq_max_below(np.where(cool, T1, T_FREEZE - 1.0), phi, psi, b)
+        lmax1 = np.minimum(phi, _liq_max_below(np.where(cool, T1, T_FREEZE - 1.0), phi, psi, b))
         stays = np.minimum(elig, lmax1)
         liq1 = np.where(cool, stays + kept, liq1)
         ice1 = np.where(cool, ice + (elig - stays), ice1)
