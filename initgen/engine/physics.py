@@ -133,11 +133,11 @@ def _hydraulics(plan: Plan, store, hkey, shape, model=None):
         por, psi, b = phys["porosity"], phys["psi_sat_m"], phys["clapp_b"]
     else:
         raise InputError("recipe key physics: a physics mode needs soil hydraulic parameters; give physics.texture, "
-                         "physics.sand_pct and clay_pct, or porosity, psi_sat_m and clapp_b (or name them in the layout)")
+                         "physics.sand_pct and clay_pct, or porosity, psi_sat_m and clapp_b (or name them in the layout)", key="physics")
     if phys.get("organic_fraction") is not None:
         if named:
             raise InputError("recipe key physics.organic_fraction: the layout gives the model's own soil parameters "
-                             f"({', '.join(named)}); blend organic soil into recipe parameters only (remove one)")
+                             f"({', '.join(named)}); blend organic soil into recipe parameters only (remove one)", key="physics.organic_fraction")
         (por, psi, b), c_solid = soil_properties.blend_organic(
             (por, psi, b), constants.CV_SOLID_DEFAULT if c_solid is None else c_solid, phys["organic_fraction"])
     out = tuple(np.broadcast_to(np.asarray(x, float), shape) for x in (por, psi, b))

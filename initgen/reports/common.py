@@ -45,10 +45,6 @@ def _py(x: Any) -> Any:
     return str(x)
 
 
-def _fmt(v: float | None, spec: str = ".4g") -> str:
-    return "-" if v is None else format(v, spec)
-
-
 def _short(x: Any, limit: int = 40) -> str:
     """A short printable form of an attribute value for a one-line message."""
     text = repr(_py(x))

@@ -21,10 +21,11 @@ from initgen.errors import InputError
 from initgen.io.atomic import sha256_file, write_atomic_bytes, write_atomic_text
 from initgen.io.stores import NetCDFStore
 from initgen.outputs.members import configure
-from initgen.reports.common import CAUTION, _fmt
+from initgen.reports.common import CAUTION
 from initgen.reports.figures import histogram_figure, profile_figure, short_label
 from initgen.reports.html_report import CLAMP_TEXT, FLAG_TEXT, MEAN_REGION, preview_page
 from initgen.reports.maps import _area_units, _land_for_map, _map_figure, _region_geoms, _taper_edge
+from initgen.text import value_or_dash
 
 
 def _imposed_profile(plan) -> np.ndarray | None:
@@ -243,7 +244,7 @@ def _ledger_markdown(ledger: dict) -> list[str]:
             depth = r.get("node_depth_m")
             am = r["area_weighted_mean"]
             body.append([r["layer"], f"{depth:.3f}" if depth is not None else "-", r["cells_changed"],
-                         f"{am:.4g}" if am is not None else "-", _fmt(r["min"]), _fmt(r["max"])])
+                         f"{am:.4g}" if am is not None else "-", value_or_dash(r["min"]), value_or_dash(r["max"])])
         out += _md_table(["layer", "depth_m", "changed", "mean over region", "min", "max"], body)
         out.append("")
     out += [MEAN_REGION + ".", ""]
@@ -386,8 +387,8 @@ def preview_report(recipe, input, layout, out_dir, ledger=None, allow_outside_pa
         factors = b.get("layer_factors")
         blocks.append([b["name"], ", ".join(b["targets"]), b["cells_weight_above_0"],
                        f"{blk['region']['taper_km']:g} km {blk['region']['taper_placement']}",
-                       f"{_fmt(an.get('min'))}..{_fmt(an.get('max'))}" if an else "donor",
-                       _fmt(b.get("surface_factor")),
+                       f"{value_or_dash(an.get('min'))}..{value_or_dash(an.get('max'))}" if an else "donor",
+                       value_or_dash(b.get("surface_factor")),
                        ", ".join(f"{f:.3g}" for f in factors) if factors else "-"])
     page = preview_page(rec=rec, lay=lay, input=input, input_sha256=input_sha, grid=grid, ledger=ledger,
                         member=None if mem is None else mem.record(), blocks=blocks,
@@ -426,8 +427,8 @@ def _preview_markdown(rec, lay, input, grid, ledger, figures, captions, donors, 
         factors = b.get("layer_factors")
         body.append([b["name"], ", ".join(b["targets"]), b["cells_weight_above_0"],
                      f"{blk['region']['taper_km']:g} km {blk['region']['taper_placement']}",
-                     f"{_fmt(an.get('min'))}..{_fmt(an.get('max'))}" if an else "donor",
-                     _fmt(b.get("surface_factor")),
+                     f"{value_or_dash(an.get('min'))}..{value_or_dash(an.get('max'))}" if an else "donor",
+                     value_or_dash(b.get("surface_factor")),
                      ", ".join(f"{f:.3g}" for f in factors) if factors else "-"])
     L += _md_table(["block", "targets", "cells w>0", "taper", "anomaly K", "surface factor", "layer factors"], body)
     L += ["", "## What would change (the ledger)", ""]
