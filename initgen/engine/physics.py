@@ -44,7 +44,7 @@ def _temp_write(role, store, hkey, kelvin, changed, write):
         role.write(store, hkey, soil_conversion.kelvin_to_units(kelvin, role.units or "K"), changed)
 
 
-_SUCTION_PER_PASCAL = 1.0 / (1000.0 * 9.80616)  # m of water per Pa: psi = p / (rho_w g), constants.py set
+_SUCTION_PER_PASCAL = 1.0 / (1000.0 * 9.80616)  # m of water per Pa: psi = p / (rho_w g), science/constants.py set
 
 
 def _suction_metres(values: np.ndarray, role, model: ModelFile) -> np.ndarray:
@@ -214,7 +214,7 @@ TOTAL_ROUNDING = 1e-12  # m3 m-3 (relative to 1 + total): a total that moved les
 
 def _read_water(plan: Plan, store, hkey, shape, donor: ModelFile | None = None) -> dict:
     """Soil liquid and ice (m3 m-3, ice as liquid-water equivalent) from the file's own water
-    convention (water.py), with the layer geometry and soil parameters the physics needs."""
+    convention (io/water.py), with the layer geometry and soil parameters the physics needs."""
     model = donor or plan.model
     src = model.store if donor else store
     nh = len(model.grid.shape)

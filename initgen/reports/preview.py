@@ -327,7 +327,7 @@ def preview_report(recipe, input, layout, out_dir, ledger=None, allow_outside_pa
         a = b.anomaly * plan.member_scale + getattr(plan, "member_offset_K", 0.0)
         if getattr(plan, "noise", None) is not None:
             a = a + plan.noise
-        surf += plan.full(a * b.weight * b.surface_factor)  # as plan.py applies it to skin and snow temperature
+        surf += plan.full(a * b.weight * b.surface_factor)  # as engine/plan.py applies it to skin and snow temperature
     who = f"recipe {rec.name}" + (f", member {member}" if member else "")
     coast = f" Grey: sea (no land); thin line: coastline ({land_what} 0.5, from the input)." if land is not None else ""
     mk = dict(land=land, land_what=land_what or "", taper_edge=edge)
