@@ -4,11 +4,9 @@ recipe, the water convention read and written back, the phase step and its check
 
 from __future__ import annotations
 
-from typing import TYPE_CHECKING
-
 import numpy as np
 
-from initgen.engine.fields import _layout_of
+from initgen.engine.fields import Plan, _layout_of
 from initgen.engine.tiling import _bcast_h, _layer_col
 from initgen.errors import InputError
 from initgen.io import water as water_mod
@@ -21,9 +19,6 @@ from initgen.science.soil import conversion as soil_conversion
 from initgen.science.soil import freezing as soil_freezing
 from initgen.science.soil import modes as soil_modes
 from initgen.science.soil import properties as soil_properties
-
-if TYPE_CHECKING:  # annotations only: the plan module imports this one
-    from initgen.engine.plan import Plan
 
 
 def _temp_read(role, store, hkey):
