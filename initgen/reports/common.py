@@ -138,3 +138,17 @@ def _lon_arc(lons: np.ndarray) -> tuple[float, float]:
 
 def _is_layout_path(layout) -> bool:
     return layout is not None and not hasattr(layout, "data")
+
+
+def physics_tables(ledger: dict) -> tuple[list, list, list | None]:
+    """What the physics part of every report shows, read from the ledger once: the region totals
+    (``*_total_J``, ``*_total_kg``), the per-layer series (``*_per_layer_*``) and the soil
+    temperature's node depths (None when the ledger has none). Renderers only format them."""
+    phys = ledger.get("physics", {})
+    totals = [(k, v) for k, v in phys.items() if k.endswith("_total_J") or k.endswith("_total_kg")]
+    per_layer = [(k, v) for k, v in phys.items() if "_per_layer_" in k and isinstance(v, list)]
+    depths = None
+    for var in ledger.get("variables", {}).values():
+        if var.get("role") == "soil_temperature" and var.get("layers"):
+            depths = [r.get("node_depth_m") for r in var["layers"]]
+    return totals, per_layer, depths
