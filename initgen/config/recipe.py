@@ -467,8 +467,9 @@ def _validate(raw: Any, node: Obj, kind: str, source: str, version_key: str, ver
     try:
         return node.validate(copy.deepcopy(raw), "")
     except InputError as exc:
+        # the schema words every key as a recipe key; a layout's keys are named as such
         msg = str(exc) if kind == "recipe" else str(exc).replace("recipe key ", f"{kind} key ", 1)
-        raise InputError(f"{source}: {msg}") from None
+        raise InputError(f"{source}: {msg}", key=exc.key, file=str(source)) from None
     except RecursionError:
         raise InputError(f"{source}: the {kind} is nested too deeply; start from `initgen schema`") from None
 
