@@ -120,7 +120,37 @@ class CheckResult:
 
 
 def check(recipe, layout=None, input=None, *, allow_outside_paths: bool = False) -> CheckResult:
-    """Validate a recipe (and layout, and their fit to an input file). Writes nothing."""
+    """Validate a recipe (and layout, and their fit to an input file). Writes nothing.
+
+    Parameters
+    ----------
+    recipe : str, os.PathLike, dict or Document
+        The recipe: a YAML file, an already-parsed mapping or a loaded document.
+    layout : str, os.PathLike, dict or Document, optional
+        Where the model keeps each quantity; without one, roles are found from CF attributes
+        (or the recipe's inline layout).
+    input : str or os.PathLike, optional
+        A restart file to check the recipe against (opened read-only): grid, roles, layers and
+        the whole plan are built, as ``apply`` would.
+    allow_outside_paths : bool
+        Let the recipe read files outside its own folder (``--allow-outside-paths``).
+
+    Returns
+    -------
+    CheckResult
+        The loaded recipe and layout, and (with ``input``) the model file and the plan;
+        ``summary()`` words them as ``initgen check`` prints them.
+
+    Raises
+    ------
+    InputError
+        Any bad input: the message names the file, variable or key (``exc.key``) and what to do.
+
+    Examples
+    --------
+    >>> import initgen
+    >>> print(initgen.check("recipe.yaml", input="restart.nc").summary())  # doctest: +SKIP
+    """
     rec = _recipe(recipe)
     lay = _layout(layout, rec)
     if input is None:
@@ -139,6 +169,37 @@ def preview(recipe, input, layout=None, *, member: str | None = None, allow_outs
 
     ``member`` names one member of a recipe with members (without it: the recipe as written,
     scale 1 and no noise; :func:`preview_members` gives every member).
+
+    Parameters
+    ----------
+    recipe : str, os.PathLike, dict or Document
+        The recipe: a YAML file, an already-parsed mapping or a loaded document.
+    input : str or os.PathLike
+        The restart file, opened read-only.
+    layout : str, os.PathLike, dict or Document, optional
+        Where the model keeps each quantity; without one, roles are found from CF attributes
+        (or the recipe's inline layout).
+    member : str, optional
+        One member of the recipe's ``members`` section.
+    allow_outside_paths : bool
+        Let the recipe read files outside its own folder (``--allow-outside-paths``).
+
+    Returns
+    -------
+    dict
+        The ledger: what ``apply`` would change (counts, per-layer statistics, clamps, flags,
+        energy and phase change), the same record the provenance keeps.
+
+    Raises
+    ------
+    InputError
+        Any bad input.
+
+    Examples
+    --------
+    >>> import initgen
+    >>> ledger = initgen.preview("recipe.yaml", "restart.nc")  # doctest: +SKIP
+    >>> ledger["region"]["cells_weight_above_0"]  # doctest: +SKIP
     """
 
     rec = _recipe(recipe)
@@ -161,6 +222,44 @@ def apply(recipe, input, output, layout=None, *, member: str | None = None, forc
     applied as written: scale 1, no offset, no noise; :func:`apply_ensemble` writes every member).
     Returns the provenance record (a dict). The input is never modified; on any error no output
     (and no provenance record) is left behind.
+
+    Parameters
+    ----------
+    recipe : str, os.PathLike, dict or Document
+        The recipe: a YAML file, an already-parsed mapping or a loaded document.
+    input : str or os.PathLike
+        The restart file; never modified.
+    output : str or os.PathLike
+        The perturbed copy; ``<output>.provenance.json`` is written beside it.
+    layout : str, os.PathLike, dict or Document, optional
+        Where the model keeps each quantity; without one, roles are found from CF attributes
+        (or the recipe's inline layout).
+    member : str, optional
+        One member of the recipe's ``members`` section.
+    force : bool
+        Replace an existing output.
+    allow_outside_paths : bool
+        Let the recipe read files outside its own folder (``--allow-outside-paths``).
+    progress : callable, optional
+        Called as ``progress(done, total)`` after each block.
+    repack : bool
+        Rewrite the output whole with the same encodings (smaller, slower; ``--repack``).
+
+    Returns
+    -------
+    dict
+        The provenance record (recipe, layout, hashes, versions, ledger, io section).
+
+    Raises
+    ------
+    InputError
+        Any bad input, raised before a byte of the output is written.
+
+    Examples
+    --------
+    >>> import initgen
+    >>> record = initgen.apply("recipe.yaml", "restart.nc", "restart.cold.nc")  # doctest: +SKIP
+    >>> record["ledger"]["region"]  # doctest: +SKIP
     """
 
     rec = _recipe(recipe)
@@ -239,7 +338,35 @@ def preview_members(recipe, input, layout=None, *, members=None, allow_outside_p
 
 
 def perturb(dataset, recipe, layout=None, *, allow_outside_paths: bool = False):
-    """In-memory version for notebooks: returns ``(new_dataset, ledger)``; the input is untouched."""
+    """In-memory version for notebooks: returns ``(new_dataset, ledger)``; the input is untouched.
+
+    Parameters
+    ----------
+    dataset : xarray.Dataset
+        The restart state, in memory; copied, never changed.
+    recipe : str, os.PathLike, dict or Document
+        The recipe: a YAML file, an already-parsed mapping or a loaded document.
+    layout : str, os.PathLike, dict or Document, optional
+        Where the model keeps each quantity; without one, roles are found from CF attributes
+        (or the recipe's inline layout).
+    allow_outside_paths : bool
+        Let the recipe read files outside its own folder (``--allow-outside-paths``).
+
+    Returns
+    -------
+    tuple of (xarray.Dataset, dict)
+        The perturbed copy (with one more ``history`` line) and the ledger.
+
+    Raises
+    ------
+    InputError
+        Any bad input.
+
+    Examples
+    --------
+    >>> import xarray as xr, initgen
+    >>> new_ds, ledger = initgen.perturb(xr.open_dataset("restart.nc"), "recipe.yaml")  # doctest: +SKIP
+    """
     rec = _recipe(recipe)
     lay = _layout(layout, rec)
     ds = dataset.copy(deep=True)

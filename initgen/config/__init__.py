@@ -1,2 +1,2 @@
-"""Floor 3, configuration: the schema language and the recipe and layout formats (validation,
+"""Floor 4 (DEVELOPERS.md), configuration: the schema language and the recipe and layout formats (validation,
 canonical hashing, members)."""

@@ -467,8 +467,9 @@ def _validate(raw: Any, node: Obj, kind: str, source: str, version_key: str, ver
     try:
         return node.validate(copy.deepcopy(raw), "")
     except InputError as exc:
+        # the schema words every key as a recipe key; a layout's keys are named as such
         msg = str(exc) if kind == "recipe" else str(exc).replace("recipe key ", f"{kind} key ", 1)
-        raise InputError(f"{source}: {msg}") from None
+        raise InputError(f"{source}: {msg}", key=exc.key, file=str(source)) from None
     except RecursionError:
         raise InputError(f"{source}: the {kind} is nested too deeply; start from `initgen schema`") from None
 
@@ -602,21 +603,21 @@ def expand_members(data: dict) -> list[dict]:
     for i, block in enumerate(data["perturbations"]):
         if block["anomaly"].get("donor"):
             raise InputError(f"recipe key perturbations[{i}].anomaly.donor: a donor blend cannot be scaled per "
-                             "member; use constant_K, field or bias with members, or drop the members section")
+                             "member; use constant_K, field or bias with members, or drop the members section", key=f"perturbations[{i}].anomaly.donor")
     if mem.get("list"):
         if mem.get("signs") is not None:
             raise InputError("recipe key members.signs: belongs to a generated set (scales); give each listed "
-                             "member its own sign")
+                             "member its own sign", key="members.signs")
         out = [dict(m) for m in mem["list"]]
         for i, m in enumerate(out):
             if m["sign"] not in (1, -1):
-                raise InputError(f"recipe key members.list[{i}].sign: must be 1 or -1, got {m['sign']}")
+                raise InputError(f"recipe key members.list[{i}].sign: must be 1 or -1, got {m['sign']}", key=f"members.list[{i}].sign")
             _check_member_name(m["name"], f"members.list[{i}].name")
     else:
         signs = mem.get("signs") or [1, -1]
         for j, sg in enumerate(signs):
             if sg not in (1, -1):
-                raise InputError(f"recipe key members.signs[{j}]: must be 1 or -1, got {sg}")
+                raise InputError(f"recipe key members.signs[{j}]: must be 1 or -1, got {sg}", key=f"members.signs[{j}]")
         consts = [b["anomaly"].get("constant_K") for b in data["perturbations"]]
         if all(c is not None and c > 0 for c in consts):
             label = {1: "warm", -1: "cold"}
@@ -630,7 +631,7 @@ def expand_members(data: dict) -> list[dict]:
                 name = f"{label[sg]}-x{float(sc)!r}"
                 if name in where:
                     raise InputError(f"recipe key members.scales[{i}]: duplicate member name '{name}' "
-                                     f"(same as {where[name]}); give every scale and sign once")
+                                     f"(same as {where[name]}); give every scale and sign once", key=f"members.scales[{i}]")
                 where[name] = f"members.scales[{i}], members.signs[{j}]"
                 out.append({"name": name, "scale": float(sc), "sign": int(sg), "offset_K": 0.0})
     _check_template(mem["output_template"], len(out))
@@ -640,7 +641,7 @@ def expand_members(data: dict) -> list[dict]:
 def _check_member_name(name: str, key: str) -> None:
     if not set(name) <= _NAME_OK or name.startswith("."):
         raise InputError(f"recipe key {key}: member name {name!r} may hold only letters, digits, '-', '_', '.', "
-                         "'+' and may not start with '.', because it names files and folders")
+                         "'+' and may not start with '.', because it names files and folders", key=key)
 
 
 def _check_template(template: str, n_members: int) -> None:
@@ -648,18 +649,18 @@ def _check_template(template: str, n_members: int) -> None:
     try:
         fields = [f for _, f, _, _ in string.Formatter().parse(template) if f is not None]
     except ValueError as exc:
-        raise InputError(f"recipe key {key}: {template!r} is not a valid template ({exc})") from None
+        raise InputError(f"recipe key {key}: {template!r} is not a valid template ({exc})", key=key) from None
     for f in fields:
         if f not in MEMBER_TEMPLATE_FIELDS:
             raise InputError(f"recipe key {key}: unknown field {{{f}}} in {template!r}; use "
-                             + ", ".join("{" + k + "}" for k in MEMBER_TEMPLATE_FIELDS))
+                             + ", ".join("{" + k + "}" for k in MEMBER_TEMPLATE_FIELDS), key=key)
     if n_members > 1 and "member" not in fields:
         raise InputError(f"recipe key {key}: {template!r} has no {{member}}, so the members would overwrite "
-                         "each other; put {member} in the file or folder name")
+                         "each other; put {member} in the file or folder name", key=key)
     parts = Path(template).parts
     if Path(template).is_absolute() or ".." in parts or not parts:
         raise InputError(f"recipe key {key}: {template!r} must be a relative path inside the output folder "
-                         "(no leading '/', no '..')")
+                         "(no leading '/', no '..')", key=key)
 
 
 def _check_table(table: list, key: str) -> None:
@@ -690,8 +691,7 @@ def resolve_path(doc: Document, rel: str, key: str, allow_outside: bool = False)
     if not allow_outside and base not in full.parents and full != base:
         raise InputError(
             f"recipe key {key}: path '{rel}' leaves the recipe's folder {base}; move the file beside "
-            "the recipe or pass --allow-outside-paths"
-        )
+            "the recipe or pass --allow-outside-paths", key=key)
     if not full.exists():
-        raise InputError(f"recipe key {key}: file '{rel}' not found (looked for {full})")
+        raise InputError(f"recipe key {key}: file '{rel}' not found (looked for {full})", key=key)
     return full

@@ -73,26 +73,26 @@ class Num(Node):
     def validate(self, value, path):
         kind = "an integer" if self.integer else "a number"
         if isinstance(value, bool) or not isinstance(value, (int, float)):
-            raise InputError(f"recipe key {_where(path)}: must be {kind}, got {_show(value)}")
+            raise InputError(f"recipe key {_where(path)}: must be {kind}, got {_show(value)}", key=_where(path))
         if self.integer and not isinstance(value, int):
             if float(value).is_integer():
                 value = int(value)
             else:
-                raise InputError(f"recipe key {_where(path)}: must be {kind}, got {_show(value)}")
+                raise InputError(f"recipe key {_where(path)}: must be {kind}, got {_show(value)}", key=_where(path))
         try:
             finite = math.isfinite(value)
         except OverflowError:  # an integer too large for a float
             finite = False
         if not finite:
-            raise InputError(f"recipe key {_where(path)}: must be a finite number, got {_show(value)}")
+            raise InputError(f"recipe key {_where(path)}: must be a finite number, got {_show(value)}", key=_where(path))
         unit = f" {self.unit}" if self.unit else ""
         if self.minimum is not None and value < self.minimum:
-            raise InputError(f"recipe key {path}: must be >= {self.minimum}{unit}, got {value}")
+            raise InputError(f"recipe key {path}: must be >= {self.minimum}{unit}, got {value}", key=path)
         if self.exclusive_minimum is not None and value <= self.exclusive_minimum:
-            raise InputError(f"recipe key {path}: must be > {self.exclusive_minimum}{unit}, got {value}")
+            raise InputError(f"recipe key {path}: must be > {self.exclusive_minimum}{unit}, got {value}", key=path)
         if self.maximum is not None and value > self.maximum:
             hint = self.doc_hint_over if self.doc_hint_over else ""
-            raise InputError(f"recipe key {path}: must be <= {self.maximum}{unit}, got {value}{hint}")
+            raise InputError(f"recipe key {path}: must be <= {self.maximum}{unit}, got {value}{hint}", key=path)
         return value if self.integer else float(value)  # 100 and 100.0 hash the same
 
     def json(self):
@@ -116,14 +116,13 @@ class Str(Node):
 
     def validate(self, value, path):
         if not isinstance(value, str) or not value.strip():
-            raise InputError(f"recipe key {_where(path)}: must be a non-empty string, got {_show(value)}")
+            raise InputError(f"recipe key {_where(path)}: must be a non-empty string, got {_show(value)}", key=_where(path))
         value = self.aliases.get(value, value)  # e.g. 'centered' is read as 'centred' (and hashes alike)
         if self.choices and value not in self.choices:
             hint = difflib.get_close_matches(value, self.choices, n=1)
             extra = f" (did you mean '{hint[0]}'?)" if hint else ""
             raise InputError(
-                f"recipe key {path}: must be one of {', '.join(self.choices)}, got {_show(value)}{extra}"
-            )
+                f"recipe key {path}: must be one of {', '.join(self.choices)}, got {_show(value)}{extra}", key=path)
         return value
 
     def json(self):
@@ -137,7 +136,7 @@ class Str(Node):
 class Bool(Node):
     def validate(self, value, path):
         if not isinstance(value, bool):
-            raise InputError(f"recipe key {_where(path)}: must be true or false, got {_show(value)}")
+            raise InputError(f"recipe key {_where(path)}: must be true or false, got {_show(value)}", key=_where(path))
         return value
 
     def json(self):
@@ -153,15 +152,13 @@ class List(Node):
 
     def validate(self, value, path):
         if not isinstance(value, list):
-            raise InputError(f"recipe key {_where(path)}: must be a list, got {_show(value)}")
+            raise InputError(f"recipe key {_where(path)}: must be a list, got {_show(value)}", key=_where(path))
         if len(value) < self.min_items:
             raise InputError(
-                f"recipe key {_where(path)}: needs at least {self.min_items} item(s), got {len(value)}"
-            )
+                f"recipe key {_where(path)}: needs at least {self.min_items} item(s), got {len(value)}", key=_where(path))
         if self.max_items is not None and len(value) > self.max_items:
             raise InputError(
-                f"recipe key {_where(path)}: takes at most {self.max_items} item(s), got {len(value)}"
-            )
+                f"recipe key {_where(path)}: takes at most {self.max_items} item(s), got {len(value)}", key=_where(path))
         out = [self.item.validate(v, f"{path}[{i}]") for i, v in enumerate(value)]
         if self.unique_key:
             seen = set()
@@ -173,8 +170,7 @@ class List(Node):
                 if key in seen:
                     raise InputError(
                         f"recipe key {path}[{i}].{self.unique_key}: duplicate name {_show(shown)} (names are compared without case); "
-                        "give every entry its own name"
-                    )
+                        "give every entry its own name", key=f"{path}[{i}].{self.unique_key}")
                 seen.add(key)
         return out
 
@@ -198,21 +194,20 @@ class Obj(Node):
         if value is None and not self.required:
             value = {}
         if not isinstance(value, dict):
-            raise InputError(f"recipe key {_where(path)}: must be a mapping of keys, got {_show(value)}")
+            raise InputError(f"recipe key {_where(path)}: must be a mapping of keys, got {_show(value)}", key=_where(path))
         for key in value:
             if not isinstance(key, str):
-                raise InputError(f"recipe key {_where(path)}: keys must be strings, got {_show(key)}")
+                raise InputError(f"recipe key {_where(path)}: keys must be strings, got {_show(key)}", key=_where(path))
             if key not in self.fields:
                 hint = difflib.get_close_matches(key, list(self.fields), n=1)
                 extra = f"; did you mean '{hint[0]}'?" if hint else f"; known keys: {', '.join(self.fields)}"
-                raise InputError(f"recipe key {_join(path, key)}: unknown key{extra}")
+                raise InputError(f"recipe key {_join(path, key)}: unknown key{extra}", key=f"{_join(path, key)}")
         for group in self.one_of:
             present = [k for k in group if value.get(k) is not None]  # "constant_K:" left empty is absent
             if len(present) != 1:
                 got = ", ".join(present) if present else "none"
                 raise InputError(
-                    f"recipe key {_where(path)}: give exactly one of {', '.join(group)} (got {got})"
-                )
+                    f"recipe key {_where(path)}: give exactly one of {', '.join(group)} (got {got})", key=_where(path))
         out = {}
         for key, node in self.fields.items():
             sub = _join(path, key)
@@ -220,7 +215,7 @@ class Obj(Node):
                 out[key] = node.validate(value[key], sub)
             # an optional key written empty ("physics:" with nothing below) is the same as absent
             elif node.required and not any(key in g for g in self.one_of):
-                raise InputError(f"recipe key {sub}: is required ({node.doc or 'see initgen schema'})")
+                raise InputError(f"recipe key {sub}: is required ({node.doc or 'see initgen schema'})", key=sub)
             elif not node.required:
                 default = node.default
                 if isinstance(node, Obj) and default is None:
@@ -261,13 +256,13 @@ class AnyOf(Node):
             try:
                 return opt.validate(value, path)
             except InputError as exc:
-                errors.append(str(exc))
+                errors.append(exc)
         forms = " or ".join(self.names) if self.names else "one of the documented forms"
         # report the error of the form whose JSON type matches the value, if any
-        for opt, msg in zip(self.options, errors):
+        for opt, err in zip(self.options, errors):
             if _type_matches(opt, value):
-                raise InputError(msg)
-        raise InputError(f"recipe key {_where(path)}: must be {forms}, got {_show(value)}")
+                raise InputError(str(err), key=err.key)
+        raise InputError(f"recipe key {_where(path)}: must be {forms}, got {_show(value)}", key=_where(path))
 
     def json(self):
         return self._base({"anyOf": [o.json() for o in self.options]})

@@ -5,6 +5,7 @@ the window of grid indices a region can touch, surface anomalies and vertical pr
 from __future__ import annotations
 
 import warnings
+from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
@@ -25,10 +26,62 @@ from initgen.science.regions import shapes as regions_shapes
 MIN_WEIGHT = 1e-6  # weights below this are set to 0
 
 
+@dataclass
+class BlockPlan:
+    name: str
+    index: int
+    targets: tuple
+    weight: np.ndarray  # window shape
+    anomaly: np.ndarray | None  # window shape, K
+    factors: np.ndarray | None  # per soil layer
+    surface_factor: float
+    donor: ModelFile | None = None
+    snow_mass_mode: str = "add"
+    snow_mass_change: float = 0.0
+    notes: list = field(default_factory=list)
+
+
+@dataclass
+class Plan:
+    recipe: Document
+    model: ModelFile
+    blocks: list
+    physics: dict
+    region: np.ndarray  # bool, window shape: any block's weight > 0
+    window: tuple | None = None  # per horizontal dim, sorted file indices; None: the whole grid
+    member_scale: float = 1.0
+    member_offset_K: float = 0.0
+    noise: np.ndarray | None = None  # window shape, K
+    files: dict = field(default_factory=dict)  # files the recipe reads: key -> {path, sha256}
+
+    def __post_init__(self):
+        if self.window is None:
+            self.window = self.model.grid.full_window()
+        self.lon, self.lat, self.area = self.model.grid.at(self.window)
+        # the soil quantities are per m2 of land: weight means and totals by land area
+        f = land_fraction(self.model, self.window)
+        if f is not None:
+            self.area = self.area * np.clip(np.nan_to_num(f, nan=0.0), 0.0, 1.0)
+
+    def full(self, arr: np.ndarray, fill: float = 0.0) -> np.ndarray:
+        """A window-shaped array placed on the whole grid (for maps and mask files)."""
+        out = np.full(self.model.grid.shape, fill, dtype=np.result_type(arr, np.float64))
+        out[np.ix_(*self.window)] = arr
+        return out
+
+    @property
+    def targets(self) -> tuple:
+        out = []
+        for b in self.blocks:
+            for t in b.targets:
+                if t not in out:
+                    out.append(t)
+        return tuple(out)
+
+
 def _keyed(exc: InputError, key: str) -> InputError:
     """An error from a science module (which knows no recipe keys), with the recipe key in front."""
-    msg = str(exc)
-    return exc if "recipe key" in msg else InputError(f"recipe key {key}: {msg}")
+    return exc if exc.key is not None else InputError(f"recipe key {key}: {exc}", key=key)
 
 
 def shape_geometry(shape: dict, recipe: Document, key: str, allow_outside: bool):
@@ -38,7 +91,7 @@ def shape_geometry(shape: dict, recipe: Document, key: str, allow_outside: bool)
         raise _keyed(exc, key) from None
     except RecursionError:  # json.load of an absurdly nested file
         raise InputError(f"recipe key {key}: the shape's file is nested too deeply to be a GeoJSON region; "
-                         "fix the file") from None
+                         "fix the file", key=key) from None
 
 
 MAX_ABS_LON = 720.0  # two turns either way; beyond, wrapping a shape would take for ever
@@ -51,12 +104,12 @@ def _shape_geometry(shape: dict, recipe: Document, key: str, allow_outside: bool
         west, _, east, _ = geom.bounds
         if not (-MAX_ABS_LON <= west and east <= MAX_ABS_LON):
             raise InputError(f"recipe key {key}.geojson: {path.name} has longitudes {west:.6g}..{east:.6g}, beyond "
-                             f"+-{MAX_ABS_LON:g} degrees; give longitude/latitude in degrees (EPSG:4326)")
+                             f"+-{MAX_ABS_LON:g} degrees; give longitude/latitude in degrees (EPSG:4326)", key=f"{key}.geojson")
         return geom
     if shape.get("box"):
         (w, e), (s, n) = shape["box"]["lon"], shape["box"]["lat"]
         if s >= n:
-            raise InputError(f"recipe key {key}.box.lat: south ({s}) must be below north ({n})")
+            raise InputError(f"recipe key {key}.box.lat: south ({s}) must be below north ({n})", key=f"{key}.box.lat")
         return regions_shapes.box(w, e, s, n)
     if shape.get("vertices"):
         return regions_shapes.polygon(shape["vertices"])
@@ -75,7 +128,7 @@ def resolve_shape_file(recipe: Document, rel: str, key: str, allow_outside: bool
         if lib is not None:
             return lib
         raise InputError(f"recipe key {key}: file '{rel}' not found beside the recipe ({recipe.base_dir}) nor in "
-                         "the shipped masks library; check the name")
+                         "the shipped masks library; check the name", key=key)
     return resolve_path(recipe, rel, key, allow_outside)
 
 
@@ -140,7 +193,7 @@ def horizontal_weight(model: ModelFile, region: dict, geom, name: str, window: t
             if np.any(inside):
                 found = f"; surface altitude in the region spans {np.nanmin(z[inside]):.0f}..{np.nanmax(z[inside]):.0f} m"
         raise InputError(f"recipe key {key}: region '{name}' keeps no land grid cell above weight 0 after the "
-                         f"elevation band and land weighting{found}; check elevation.min_m/max_m and the land data")
+                         f"elevation band and land weighting{found}; check elevation.min_m/max_m and the land data", key=key)
     return w
 
 
@@ -250,7 +303,7 @@ def _interp_to_grid(dst: tuple, lon, lat, vals, key: str, weight: np.ndarray) ->
         # nearest values from elsewhere for the whole region would be an invented field
         raise InputError(f"recipe key {key}: the anomaly file covers none of the region (it spans lon "
                          f"{np.nanmin(lon):.6g}..{np.nanmax(lon):.6g}, lat {np.nanmin(lat):.6g}..{np.nanmax(lat):.6g}); "
-                         "use a file that covers the region")
+                         "use a file that covers the region", key=key)
     if np.any(miss):
         frac = miss.sum() / max(1, (weight > 0).sum())
         warnings.warn(f"recipe key {key}: the anomaly file covers only {100 * (1 - frac):.1f}% of the region; "
@@ -258,7 +311,7 @@ def _interp_to_grid(dst: tuple, lon, lat, vals, key: str, weight: np.ndarray) ->
     bad = (weight > 0) & ~np.isfinite(out)
     if np.any(bad):
         raise InputError(f"recipe key {key}: the anomaly field has no valid value for {bad.sum()} region cell(s); "
-                         "use a file that covers the region")
+                         "use a file that covers the region", key=key)
     return np.where(np.isfinite(out), out, 0.0)
 
 
@@ -275,7 +328,7 @@ def block_anomaly(model: ModelFile, anomaly: dict, recipe: Document, key: str, w
             worst = float(np.nanmax(np.abs(np.where(big, a, 0.0)))) if np.any(np.isfinite(a[big])) else float("nan")
             kind = next(k for k in ("field", "bias") if anomaly.get(k))
             raise InputError(f"recipe key {key}.{kind}: the anomaly reaches {worst:.6g} K in {int(big.sum())} region "
-                             f"cell(s), beyond +-{MAX_ANOMALY_K:g} K; check the file's units and variable, or the scale")
+                             f"cell(s), beyond +-{MAX_ANOMALY_K:g} K; check the file's units and variable, or the scale", key=f"{key}.{kind}")
     return a, donor
 
 
@@ -308,7 +361,7 @@ def _block_anomaly(model: ModelFile, anomaly: dict, recipe: Document, key: str, 
             or not np.allclose(donor.grid.lat_src, model.grid.lat_src):
         donor_store.close()
         raise InputError(f"recipe key {key}.donor.file: {path} is not on the same grid as the input; "
-                         "a donor must be a restart file of the same model and grid")
+                         "a donor must be a restart file of the same model and grid", key=f"{key}.donor.file")
     return None, donor
 
 
@@ -328,10 +381,11 @@ def profile_factors(profile: dict, layers: Layers | None, key: str) -> tuple[np.
         if layers is None:
             if profile["kind"] != "uniform":
                 raise InputError(f"recipe key {key}.kind: profile '{profile['kind']}' needs soil layer depths, and "
-                                 "none were found; name roles.layer_node_depth (or interfaces/thickness) in the layout")
+                                 "none were found; name roles.layer_node_depth (or interfaces/thickness) in the layout", key=f"{key}.kind")
             return None, fsurf
         return np.asarray(profiles.factor(profile["kind"], layers, evaluate=profile["evaluate"], **kw), float), fsurf
     except InputError as exc:
-        msg = str(exc)
-        raise (exc if "recipe key" in msg else
-               InputError(f"recipe key {key}.{msg.replace('period_s:', 'period_days:')}")) from None
+        if exc.key is not None:  # already names its recipe key
+            raise exc from None
+        # a profiles error names its parameter first (period_s is the recipe's period_days)
+        raise InputError(f"recipe key {key}.{str(exc).replace('period_s:', 'period_days:')}", key=key) from None

@@ -4,11 +4,9 @@ recipe, the water convention read and written back, the phase step and its check
 
 from __future__ import annotations
 
-from typing import TYPE_CHECKING
-
 import numpy as np
 
-from initgen.engine.fields import _layout_of
+from initgen.engine.fields import Plan, _layout_of
 from initgen.engine.tiling import _bcast_h, _layer_col
 from initgen.errors import InputError
 from initgen.io import water as water_mod
@@ -21,9 +19,6 @@ from initgen.science.soil import conversion as soil_conversion
 from initgen.science.soil import freezing as soil_freezing
 from initgen.science.soil import modes as soil_modes
 from initgen.science.soil import properties as soil_properties
-
-if TYPE_CHECKING:  # annotations only: the plan module imports this one
-    from initgen.engine.plan import Plan
 
 
 def _temp_read(role, store, hkey):
@@ -44,7 +39,7 @@ def _temp_write(role, store, hkey, kelvin, changed, write):
         role.write(store, hkey, soil_conversion.kelvin_to_units(kelvin, role.units or "K"), changed)
 
 
-_SUCTION_PER_PASCAL = 1.0 / (1000.0 * 9.80616)  # m of water per Pa: psi = p / (rho_w g), constants.py set
+_SUCTION_PER_PASCAL = 1.0 / (1000.0 * 9.80616)  # m of water per Pa: psi = p / (rho_w g), science/constants.py set
 
 
 def _suction_metres(values: np.ndarray, role, model: ModelFile) -> np.ndarray:
@@ -133,11 +128,11 @@ def _hydraulics(plan: Plan, store, hkey, shape, model=None):
         por, psi, b = phys["porosity"], phys["psi_sat_m"], phys["clapp_b"]
     else:
         raise InputError("recipe key physics: a physics mode needs soil hydraulic parameters; give physics.texture, "
-                         "physics.sand_pct and clay_pct, or porosity, psi_sat_m and clapp_b (or name them in the layout)")
+                         "physics.sand_pct and clay_pct, or porosity, psi_sat_m and clapp_b (or name them in the layout)", key="physics")
     if phys.get("organic_fraction") is not None:
         if named:
             raise InputError("recipe key physics.organic_fraction: the layout gives the model's own soil parameters "
-                             f"({', '.join(named)}); blend organic soil into recipe parameters only (remove one)")
+                             f"({', '.join(named)}); blend organic soil into recipe parameters only (remove one)", key="physics.organic_fraction")
         (por, psi, b), c_solid = soil_properties.blend_organic(
             (por, psi, b), constants.CV_SOLID_DEFAULT if c_solid is None else c_solid, phys["organic_fraction"])
     out = tuple(np.broadcast_to(np.asarray(x, float), shape) for x in (por, psi, b))
@@ -214,7 +209,7 @@ TOTAL_ROUNDING = 1e-12  # m3 m-3 (relative to 1 + total): a total that moved les
 
 def _read_water(plan: Plan, store, hkey, shape, donor: ModelFile | None = None) -> dict:
     """Soil liquid and ice (m3 m-3, ice as liquid-water equivalent) from the file's own water
-    convention (water.py), with the layer geometry and soil parameters the physics needs."""
+    convention (io/water.py), with the layer geometry and soil parameters the physics needs."""
     model = donor or plan.model
     src = model.store if donor else store
     nh = len(model.grid.shape)

@@ -15,14 +15,13 @@ netCDF file being patched in place or an in-memory xarray dataset.
 from __future__ import annotations
 
 import warnings
-from dataclasses import dataclass, field
 
 import numpy as np
 
 from initgen.config.recipe import Document
 from initgen.engine import ledger as ledger_mod
 from initgen.engine import persistence
-from initgen.engine.fields import (_keyed, block_anomaly, find_window, horizontal_weight, land_fraction,
+from initgen.engine.fields import (BlockPlan, Plan, _keyed, block_anomaly, find_window, horizontal_weight,
                                    profile_factors, referenced_files, region_geometry)
 from initgen.engine.physics import (_equilibrate_blend, _flag_departures, _hydraulics, _physics, _read_water,
                                     _report_input_shift, _temp_read, _temp_stored, _temp_write, _write_water,
@@ -39,59 +38,6 @@ from initgen.science.soil import conversion as soil_conversion
 from initgen.science.soil import freezing as soil_freezing
 from initgen.science.soil import limits as soil_limits
 from initgen.science.soil import properties as soil_properties
-
-
-@dataclass
-class BlockPlan:
-    name: str
-    index: int
-    targets: tuple
-    weight: np.ndarray  # window shape
-    anomaly: np.ndarray | None  # window shape, K
-    factors: np.ndarray | None  # per soil layer
-    surface_factor: float
-    donor: ModelFile | None = None
-    snow_mass_mode: str = "add"
-    snow_mass_change: float = 0.0
-    notes: list = field(default_factory=list)
-
-
-@dataclass
-class Plan:
-    recipe: Document
-    model: ModelFile
-    blocks: list
-    physics: dict
-    region: np.ndarray  # bool, window shape: any block's weight > 0
-    window: tuple | None = None  # per horizontal dim, sorted file indices; None: the whole grid
-    member_scale: float = 1.0
-    member_offset_K: float = 0.0
-    noise: np.ndarray | None = None  # window shape, K
-    files: dict = field(default_factory=dict)  # files the recipe reads: key -> {path, sha256}
-
-    def __post_init__(self):
-        if self.window is None:
-            self.window = self.model.grid.full_window()
-        self.lon, self.lat, self.area = self.model.grid.at(self.window)
-        # the soil quantities are per m2 of land: weight means and totals by land area
-        f = land_fraction(self.model, self.window)
-        if f is not None:
-            self.area = self.area * np.clip(np.nan_to_num(f, nan=0.0), 0.0, 1.0)
-
-    def full(self, arr: np.ndarray, fill: float = 0.0) -> np.ndarray:
-        """A window-shaped array placed on the whole grid (for maps and mask files)."""
-        out = np.full(self.model.grid.shape, fill, dtype=np.result_type(arr, np.float64))
-        out[np.ix_(*self.window)] = arr
-        return out
-
-    @property
-    def targets(self) -> tuple:
-        out = []
-        for b in self.blocks:
-            for t in b.targets:
-                if t not in out:
-                    out.append(t)
-        return tuple(out)
 
 
 def needed_roles(recipe: Document) -> tuple:

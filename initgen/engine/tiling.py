@@ -4,12 +4,9 @@ seam) and fixed-size blocks cut at chunk boundaries, so memory does not grow wit
 
 from __future__ import annotations
 
-from typing import TYPE_CHECKING
-
 import numpy as np
 
-if TYPE_CHECKING:  # annotations only: the plan module imports this one
-    from initgen.engine.plan import Plan
+from initgen.engine.fields import Plan
 
 BLOCK_ELEMENTS = 250_000  # values per variable per block (2 MB as float64): memory stays flat
 

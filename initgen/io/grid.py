@@ -398,7 +398,7 @@ def open_model(store: Store, layout=None, needed: tuple = ()) -> ModelFile:
         bound[role] = _bind(store, role, spec, grid.dims, data, where)
         sources[role] = how
 
-    # the physics' liquid and ice may come from any water convention (water.py): checked there
+    # the physics' liquid and ice may come from any water convention (io/water.py): checked there
     water_needed = any(r in needed for r in ("soil_liquid", "soil_ice"))
     missing = [r for r in needed if r not in bound and not (water_needed and r in water_mod.WATER_ROLES)]
     if missing:

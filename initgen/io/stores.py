@@ -327,11 +327,11 @@ def read_field(path: Path, variable: str, key_name: str) -> tuple[np.ndarray, np
     try:
         if variable not in store.variables:
             raise InputError(f"{path}: has no variable '{variable}' (recipe key {key_name}); "
-                             f"variables: {', '.join(sorted(store.variables))}")
+                             f"variables: {', '.join(sorted(store.variables))}", key=key_name)
         lon_name, lat_name = find_coordinate(store, "lon"), find_coordinate(store, "lat")
         if lon_name is None or lat_name is None:
             raise InputError(f"{path}: no longitude/latitude variables found (recipe key {key_name}); "
-                             "give them standard_name longitude/latitude")
+                             "give them standard_name longitude/latitude", key=key_name)
         lon = store.read(lon_name)
         lat = store.read(lat_name)
         vals = store.read(variable)
@@ -340,7 +340,7 @@ def read_field(path: Path, variable: str, key_name: str) -> tuple[np.ndarray, np
         vals = vals[keep]
         if vals.ndim != 2:
             raise InputError(f"{path}: variable '{variable}' must be 2-D (lat, lon) after dropping size-1 "
-                             f"dimensions, got dims {info.dims} (recipe key {key_name})")
+                             f"dimensions, got dims {info.dims} (recipe key {key_name})", key=key_name)
         dims = [d for d, k in zip(info.dims, keep) if k != 0]
         lon_dim = store.variables[lon_name].dims
         if lon.ndim == 1 and dims[0] == lon_dim[0]:

@@ -16,8 +16,8 @@ Every amount is in kg m-2, m3 m-3 or ``saturation_fraction`` (times the porosity
 is the ice's (or the liquid's) share of the water *mass*, as the CF names
 ``mass_fraction_of_unfrozen_water_in_soil_moisture`` define it. The physics works on
 volumetric liquid and ice (m3 m-3, ice as liquid-water equivalent; see :mod:`initgen.science.soil`);
-``plan._read_water``/``plan._write_water`` convert with the functions of soil.py's unit
-conversion section. With ``total_only`` the file holds no phase split: initgen diagnoses it
+``engine.physics._read_water``/``_write_water`` convert with the functions of :mod:`initgen.science.soil.conversion`
+(the unit conversions). With ``total_only`` the file holds no phase split: initgen diagnoses it
 from the soil temperature, which is the equilibrium phase rule (:attr:`WaterSpec.phase_split_diagnosed`).
 
 A volumetric ice content (or a volumetric total that includes ice) is ambiguous: the volume

@@ -78,10 +78,10 @@ def plan_tasks(recipe: Document, inputs, outdir: Path, chosen: list[Member], *, 
             if str(out) in where:
                 raise InputError(f"recipe key members.output_template: gives the same output {out} for "
                                  f"{where[str(out)]} and for member {m.name} of {inp}; add {{input_stem}} "
-                                 "(several inputs) or {member} to the template")
+                                 "(several inputs) or {member} to the template", key="members.output_template")
             if os.path.realpath(out) in in_real:
                 raise InputError(f"recipe key members.output_template: output {out} is an input file; initgen never "
-                                 "modifies its input")
+                                 "modifies its input", key="members.output_template")
             if out.exists() and not (force or resume):
                 raise InputError(f"{out}: exists; pass --resume to keep the finished members and write the rest, "
                                  "or --force to replace the ensemble's outputs")

@@ -16,6 +16,7 @@ from initgen.io.grid import open_model
 from initgen.io.stores import NetCDFStore
 from initgen.outputs import provenance as prov
 from initgen.outputs.members import configure, ledger_summary, select
+from initgen.text import value_or_dash
 
 MANIFEST_FORMAT = "initgen-ensemble-manifest/1"
 
@@ -117,10 +118,6 @@ def preview(recipe, input_path, layout=None, *, names=None, allow_outside_paths:
         store.close()
 
 
-def _fmt(v, spec):
-    return "-" if v is None else format(v, spec)
-
-
 def members_table(rows) -> str:
     """One line per member: name, scale, sign, offset, top-layer mean change over region, frozen, melted, clamps."""
     lines = [f"{'member':<20} {'scale':>6} {'sign':>4} {'offset_K':>8} {'top_dT_K':>9} {'frozen_kg':>10} "
@@ -128,8 +125,8 @@ def members_table(rows) -> str:
     for m, led in rows:
         s = ledger_summary(led)
         lines.append(f"{m.name:<20} {m.scale:>6.3g} {m.sign:>+4d} {m.offset_K:>8.3g} "
-                     f"{_fmt(s['top_soil_temperature_change_area_mean_K'], '9.4g')} "
-                     f"{_fmt(s['frozen_kg'], '10.4g')} {_fmt(s['melted_kg'], '10.4g')} {_fmt(s['latent_J'], '10.4g')} "
+                     f"{value_or_dash(s['top_soil_temperature_change_area_mean_K'], '9.4g')} "
+                     f"{value_or_dash(s['frozen_kg'], '10.4g')} {value_or_dash(s['melted_kg'], '10.4g')} {value_or_dash(s['latent_J'], '10.4g')} "
                      f"{s['clamped_cells']:>7d}")
     lines.append("(top_dT_K: mean over region of the top soil layer's change, area-weighted as in the ledger; "
                  "frozen, melted and latent: region totals; clamped: cells a limit changed)")
@@ -145,7 +142,7 @@ def results_table(result: EnsembleResult) -> str:
         if r["status"] == "ok" and r["message"].startswith("kept"):
             tail += " (kept: written earlier, matches its record)"
         lines.append(f"{r['member']['name']:<20} {Path(r['input']).name:<24} {r['status']:<7} "
-                     f"{_fmt(s.get('top_soil_temperature_change_area_mean_K'), '9.4g')}  {tail}")
+                     f"{value_or_dash(s.get('top_soil_temperature_change_area_mean_K'), '9.4g')}  {tail}")
     c = result.manifest["counts"]
     kept = sum(1 for r in result.results if r["status"] == "ok" and r["message"].startswith("kept"))
     lines.append(f"{c['ok']} of {c['outputs']} output(s) written" + (f" ({kept} kept from an earlier run)" if kept

@@ -20,11 +20,12 @@ from initgen.io.atomic import sha256_file, write_atomic_text
 from initgen.io.coding import unpack
 from initgen.io.grid import open_model
 from initgen.io.stores import NetCDFStore
-from initgen.reports.common import (HISTORY, _attr_diffs, _attr_equal, _blocks, _encoding, _fmt, _is_layout_path,
-                                    _lon_arc, _py, _short)
+from initgen.reports.common import (HISTORY, _attr_diffs, _attr_equal, _blocks, _encoding, _is_layout_path, _lon_arc,
+                                    _py, _short)
 from initgen.reports.figures import histogram_figure
 from initgen.reports.html_report import compare_page
 from initgen.reports.maps import _area_units, _land_for_map, _map_figure
+from initgen.text import value_or_dash
 
 
 class _ValueStats:
@@ -346,13 +347,13 @@ def compare_text(result: dict) -> str:
             box = v.get("bbox")
             lon = f"{box['lon'][0]:.2f}..{box['lon'][1]:.2f}" if box else "-"
             lat = f"{box['lat'][0]:.2f}..{box['lat'][1]:.2f}" if box else "-"
-            lines.append(f"{label:<22} {v['cells_changed']:>9} {v['cells']:>9} {_fmt(v['max_abs_change']):>11} "
-                         f"{_fmt(v['area_weighted_mean_change']):>12} {(v.get('units') or '-'):<7} {lon:<15} {lat}")
+            lines.append(f"{label:<22} {v['cells_changed']:>9} {v['cells']:>9} {value_or_dash(v['max_abs_change']):>11} "
+                         f"{value_or_dash(v['area_weighted_mean_change']):>12} {(v.get('units') or '-'):<7} {lon:<15} {lat}")
             for row in v.get("layers") or []:
                 if row["cells_changed"]:
                     lines.append(f"  {v['layer_dim']}[{row['layer']}]".ljust(22) +
-                                 f" {row['cells_changed']:>9} {row['cells']:>9} {_fmt(row['max_abs_change']):>11} "
-                                 f"{_fmt(row['area_weighted_mean_change']):>12}")
+                                 f" {row['cells_changed']:>9} {row['cells']:>9} {value_or_dash(row['max_abs_change']):>11} "
+                                 f"{value_or_dash(row['area_weighted_mean_change']):>12}")
             for s in v.get("structure") or []:
                 lines.append(f"  {s}")
         if any(v.get("allowed") for v in changed.values()):

@@ -13,6 +13,7 @@ import html
 from pathlib import Path
 
 from initgen.engine.persistence import line as persistence_line
+from initgen.reports.common import physics_tables
 from initgen.reports.figures import short_label
 
 STYLE = """
@@ -215,21 +216,14 @@ def _physics_tables(ledger: dict) -> list[str]:
     if ledger.get("notes"):
         out.append(table(["what initgen inferred", "how"], [[k.replace("_", " "), v]
                                                             for k, v in ledger["notes"].items()]))
-    totals = [(k, v) for k, v in phys.items() if k.endswith("_total_J") or k.endswith("_total_kg")]
-    if totals:
-        out.append(table(["quantity (region total)", "value"], [[k, num(v)] for k, v in totals], {1}))
-    per_layer = [(k, v) for k, v in phys.items() if "_per_layer_" in k and isinstance(v, list)
-                 and not k.startswith("snow_")]
-    snow = [(k, v) for k, v in phys.items() if "_per_layer_" in k and isinstance(v, list) and k.startswith("snow_")]
+    totals, per_layer, depths, snow = physics_tables(ledger)
     if snow:   # per snow layer, not per soil layer
         out.append(table(["snow layer"] + [k for k, _ in snow],
                          [[i] + [num(v[i]) if i < len(v) else "-" for _, v in snow]
                           for i in range(max(len(v) for _, v in snow))], set(range(len(snow) + 1))))
+    if totals:
+        out.append(table(["quantity (region total)", "value"], [[k, num(v)] for k, v in totals], {1}))
     if per_layer:
-        depths = None
-        for var in ledger.get("variables", {}).values():
-            if var.get("role") == "soil_temperature" and var.get("layers"):
-                depths = [r.get("node_depth_m") for r in var["layers"]]
         n = max(len(v) for _, v in per_layer)
         rows = [[i, num(depths[i], ".3f") if depths and i < len(depths) else "-"]
                 + [num(v[i]) if i < len(v) else "-" for _, v in per_layer] for i in range(n)]

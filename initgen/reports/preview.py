@@ -21,10 +21,11 @@ from initgen.errors import InputError
 from initgen.io.atomic import sha256_file, write_atomic_bytes, write_atomic_text
 from initgen.io.stores import NetCDFStore
 from initgen.outputs.members import configure
-from initgen.reports.common import CAUTION, _fmt
+from initgen.reports.common import CAUTION, physics_tables
 from initgen.reports.figures import histogram_figure, profile_figure, short_label
 from initgen.reports.html_report import CLAMP_TEXT, FLAG_TEXT, MEAN_REGION, preview_page
 from initgen.reports.maps import _area_units, _land_for_map, _map_figure, _region_geoms, _taper_edge
+from initgen.text import value_or_dash
 
 
 def _imposed_profile(plan) -> np.ndarray | None:
@@ -243,11 +244,26 @@ def _ledger_markdown(ledger: dict) -> list[str]:
             depth = r.get("node_depth_m")
             am = r["area_weighted_mean"]
             body.append([r["layer"], f"{depth:.3f}" if depth is not None else "-", r["cells_changed"],
-                         f"{am:.4g}" if am is not None else "-", _fmt(r["min"]), _fmt(r["max"])])
+                         f"{am:.4g}" if am is not None else "-", value_or_dash(r["min"]), value_or_dash(r["max"])])
         out += _md_table(["layer", "depth_m", "changed", "mean over region", "min", "max"], body)
         out.append("")
     out += [MEAN_REGION + ".", ""]
     return out
+
+
+def _block_rows(ledger: dict, rec) -> list:
+    """One row per perturbation block (the ledger's numbers, the recipe's taper), for the Markdown
+    and the HTML page alike."""
+    rows = []
+    for b, blk in zip(ledger.get("blocks", []), rec.data["perturbations"]):
+        an = b.get("anomaly_K") or {}
+        factors = b.get("layer_factors")
+        rows.append([b["name"], ", ".join(b["targets"]), b["cells_weight_above_0"],
+                     f"{blk['region']['taper_km']:g} km {blk['region']['taper_placement']}",
+                     f"{value_or_dash(an.get('min'))}..{value_or_dash(an.get('max'))}" if an else "donor",
+                     value_or_dash(b.get("surface_factor")),
+                     ", ".join(f"{f:.3g}" for f in factors) if factors else "-"])
+    return rows
 
 
 def preview_report(recipe, input, layout, out_dir, ledger=None, allow_outside_paths=False, *,
@@ -326,7 +342,7 @@ def preview_report(recipe, input, layout, out_dir, ledger=None, allow_outside_pa
         a = b.anomaly * plan.member_scale + getattr(plan, "member_offset_K", 0.0)
         if getattr(plan, "noise", None) is not None:
             a = a + plan.noise
-        surf += plan.full(a * b.weight * b.surface_factor)  # as plan.py applies it to skin and snow temperature
+        surf += plan.full(a * b.weight * b.surface_factor)  # as engine/plan.py applies it to skin and snow temperature
     who = f"recipe {rec.name}" + (f", member {member}" if member else "")
     coast = f" Grey: sea (no land); thin line: coastline ({land_what} 0.5, from the input)." if land is not None else ""
     mk = dict(land=land, land_what=land_what or "", taper_edge=edge)
@@ -380,15 +396,7 @@ def preview_report(recipe, input, layout, out_dir, ledger=None, allow_outside_pa
 
     input_sha = sha256_file(input)
     md = _preview_markdown(rec, lay, input, grid, ledger, figures, captions, donors, member, sentences, input_sha)
-    blocks = []
-    for b, blk in zip(ledger.get("blocks", []), rec.data["perturbations"]):
-        an = b.get("anomaly_K") or {}
-        factors = b.get("layer_factors")
-        blocks.append([b["name"], ", ".join(b["targets"]), b["cells_weight_above_0"],
-                       f"{blk['region']['taper_km']:g} km {blk['region']['taper_placement']}",
-                       f"{_fmt(an.get('min'))}..{_fmt(an.get('max'))}" if an else "donor",
-                       _fmt(b.get("surface_factor")),
-                       ", ".join(f"{f:.3g}" for f in factors) if factors else "-"])
+    blocks = _block_rows(ledger, rec)
     page = preview_page(rec=rec, lay=lay, input=input, input_sha256=input_sha, grid=grid, ledger=ledger,
                         member=None if mem is None else mem.record(), blocks=blocks,
                         figures=[(png, captions.get(f, f)) for f, png in figures.items()], sentences=sentences,
@@ -420,15 +428,7 @@ def _preview_markdown(rec, lay, input, grid, ledger, figures, captions, donors, 
           f"{grid.extent()}; cell area {grid.area_source}",
           f"- initgen {__version__}; this is a dry run: no netCDF file was written", ""]
     L += ["## Perturbation blocks", ""]
-    body = []
-    for b, blk in zip(ledger.get("blocks", []), rec.data["perturbations"]):
-        an = b.get("anomaly_K") or {}
-        factors = b.get("layer_factors")
-        body.append([b["name"], ", ".join(b["targets"]), b["cells_weight_above_0"],
-                     f"{blk['region']['taper_km']:g} km {blk['region']['taper_placement']}",
-                     f"{_fmt(an.get('min'))}..{_fmt(an.get('max'))}" if an else "donor",
-                     _fmt(b.get("surface_factor")),
-                     ", ".join(f"{f:.3g}" for f in factors) if factors else "-"])
+    body = _block_rows(ledger, rec)
     L += _md_table(["block", "targets", "cells w>0", "taper", "anomaly K", "surface factor", "layer factors"], body)
     L += ["", "## What would change (the ledger)", ""]
     L += _ledger_markdown(ledger)
@@ -447,15 +447,10 @@ def _preview_markdown(rec, lay, input, grid, ledger, figures, captions, donors, 
     L += ["", "## Physics: energy and phase change", ""]
     phys = ledger.get("physics", {})
     L.append(f"Mode: `{phys.get('mode')}`.")
-    totals = [(k, v) for k, v in phys.items() if k.endswith("_total_J") or k.endswith("_total_kg")]
+    totals, per_layer, depths, _snow = physics_tables(ledger)
     if totals:
         L += [""] + _md_table(["quantity (region total)", "value"], [[k, f"{v:.4g}"] for k, v in totals])
-    per_layer = [(k, v) for k, v in phys.items() if "_per_layer_" in k and isinstance(v, list)]
     if per_layer:
-        depths = None
-        for var in ledger.get("variables", {}).values():
-            if var.get("role") == "soil_temperature" and var.get("layers"):
-                depths = [r.get("node_depth_m") for r in var["layers"]]
         n = max(len(v) for _, v in per_layer)
         rows = []
         for i in range(n):

@@ -12,6 +12,8 @@ from __future__ import annotations
 
 import numpy as np
 
+from initgen.science.constants import EARTH_RADIUS_M
+
 __all__ = [
     "EARTH_RADIUS_KM",
     "wrap_lon",
@@ -23,12 +25,9 @@ __all__ = [
     "cell_areas_regular",
 ]
 
-#: Mean radius of the Earth in km (IUGG mean radius R1 = 6371.0088 km, rounded).
-#:
-#: References
-#: ----------
-#: Moritz, H. (2000). Geodetic Reference System 1980. Journal of Geodesy 74, 128-133.
-EARTH_RADIUS_KM = 6371.0
+#: Mean radius of the Earth in km: :data:`initgen.science.constants.EARTH_RADIUS_M` (the one home
+#: of the value, IUGG mean radius R1 = 6371.0088 km rounded; Moritz 2000) in km.
+EARTH_RADIUS_KM = EARTH_RADIUS_M / 1000.0
 
 
 def wrap_lon(lon, west=-180.0):

@@ -17,6 +17,8 @@ import numpy as np
 from scipy.spatial import cKDTree
 
 from initgen.errors import InputError
+from initgen.science import geodesy
+from initgen.science.geodesy import EARTH_RADIUS_KM  # the one home of the radius: constants.EARTH_RADIUS_M
 
 __all__ = [
     "EARTH_RADIUS_KM",
@@ -28,10 +30,6 @@ __all__ = [
     "member_seed",
 ]
 
-#: Mean Earth radius in km: the IUGG mean radius R1 of the Geodetic Reference System 1980
-#: (Moritz 2000, Journal of Geodesy 74, 128-133; R1 = 6371.0088 km) rounded to 6371.0 km, as in
-#: REFERENCES.md; the same value as ``initgen.science.constants.EARTH_RADIUS_M / 1000``.
-EARTH_RADIUS_KM = 6371.0
 
 #: Default number of random Fourier features in :func:`correlated_noise`.
 DEFAULT_FEATURES = 1024
@@ -60,14 +58,6 @@ def _unit_vectors(lon_deg: np.ndarray, lat_deg: np.ndarray) -> np.ndarray:
     return np.stack([clat * np.cos(lon), clat * np.sin(lon), np.sin(lat)], axis=-1)
 
 
-def _chord_to_km(chord: np.ndarray) -> np.ndarray:
-    """Great-circle distance (km) on the sphere of radius R from the chord of unit vectors.
-
-    d = 2 R asin(c / 2), c the chord length between unit vectors (spherical geometry).
-    """
-    return 2.0 * EARTH_RADIUS_KM * np.arcsin(np.clip(chord / 2.0, 0.0, 1.0))
-
-
 def _check_dst(dst_lon, dst_lat) -> tuple[np.ndarray, np.ndarray]:
     lon = _float_array(dst_lon, "dst_lon")
     lat = _float_array(dst_lat, "dst_lat")
@@ -94,7 +84,7 @@ class _NearestValid:
     def query(self, lon: np.ndarray, lat: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         """Return (value, great-circle distance in km) of the nearest valid source point."""
         chord, idx = self.tree.query(_unit_vectors(lon, lat))
-        return self.values[idx], _chord_to_km(chord)
+        return self.values[idx], geodesy.chord_to_km(chord)
 
 
 # ----------------------------------------------------------------------------- regular grids
@@ -307,7 +297,7 @@ def interp_points(src_lon, src_lat, values, dst_lon, dst_lat, *, max_distance_km
     if max_distance_km is None:
         if nearest.values.size > 1:
             chord = nearest.tree.query(nearest.tree.data, k=2)[0][:, 1]
-            max_d = 2.0 * float(np.median(_chord_to_km(chord)))
+            max_d = 2.0 * float(np.median(geodesy.chord_to_km(chord)))
         else:
             max_d = math.inf
     else:

@@ -15,10 +15,7 @@ from scipy.spatial import cKDTree
 
 from initgen.errors import InputError, InputWarning
 from initgen.science import geodesy
-
-
-def _fmt(x):
-    return f"{float(x):g}"
+from initgen.text import number
 
 
 def _polygonal(geom):
@@ -42,7 +39,7 @@ def _repair(geom, what):
     fixed = _polygonal(shapely.make_valid(geom))
     warnings.warn(
         f"{what} is not a valid polygon ({reason}); repaired with shapely.make_valid "
-        f"(area {_fmt(geom.area)} -> {_fmt(fixed.area)} square degrees): check the vertex "
+        f"(area {number(geom.area)} -> {number(fixed.area)} square degrees): check the vertex "
         f"order", InputWarning, stacklevel=3)
     if fixed.is_empty:
         raise InputError(f"{what} has no area after repair ({reason}); give the vertices "

@@ -10,8 +10,8 @@ import warnings
 import numpy as np
 
 from initgen.errors import InputError, InputWarning
-from initgen.science.regions.boundary import _fmt
 from initgen.science.regions.mask import _raised_cosine_rise
+from initgen.text import number
 
 
 def elevation_ramp(elevation_m, min_m, ramp_m=0.0, max_m=None, max_ramp_m=0.0):
@@ -52,7 +52,7 @@ def elevation_ramp(elevation_m, min_m, ramp_m=0.0, max_m=None, max_ramp_m=0.0):
         except (TypeError, ValueError):
             raise InputError(f"elevation {name} must be a number, got {v!r}")
         if not math.isfinite(v):
-            raise InputError(f"elevation {name} must be finite, got {_fmt(v)}")
+            raise InputError(f"elevation {name} must be finite, got {number(v)}")
         return v
 
     lo = num("min_m", min_m, allow_none=True)
@@ -60,14 +60,14 @@ def elevation_ramp(elevation_m, min_m, ramp_m=0.0, max_m=None, max_ramp_m=0.0):
     r_lo = num("ramp_m", ramp_m)
     r_hi = num("max_ramp_m", max_ramp_m)
     if r_lo < 0 or r_hi < 0:
-        raise InputError(f"elevation ramps must be >= 0 m, got ramp_m={_fmt(r_lo)}, "
-                         f"max_ramp_m={_fmt(r_hi)}")
+        raise InputError(f"elevation ramps must be >= 0 m, got ramp_m={number(r_lo)}, "
+                         f"max_ramp_m={number(r_hi)}")
     if lo is not None and hi is not None:
         if hi <= lo:
-            raise InputError(f"elevation max_m ({_fmt(hi)}) must be above min_m ({_fmt(lo)})")
+            raise InputError(f"elevation max_m ({number(hi)}) must be above min_m ({number(lo)})")
         if lo + r_lo > hi - r_hi:
-            raise InputError(f"elevation ramps overlap: min_m + ramp_m = {_fmt(lo + r_lo)} "
-                             f"is above max_m - max_ramp_m = {_fmt(hi - r_hi)}; shorten the "
+            raise InputError(f"elevation ramps overlap: min_m + ramp_m = {number(lo + r_lo)} "
+                             f"is above max_m - max_ramp_m = {number(hi - r_hi)}; shorten the "
                              f"ramps or widen the band")
     z = np.asarray(elevation_m, dtype=np.float64)
     w = np.where(np.isnan(z), 0.0, 1.0)
@@ -104,7 +104,7 @@ def land_weight(fraction=None, mask=None, threshold=0.5):
         f = np.asarray(fraction, dtype=np.float64)
         with np.errstate(invalid="ignore"):
             if np.nanmax(f, initial=0.0) > 1.5:
-                raise InputError(f"land fraction reaches {_fmt(np.nanmax(f))}, above 1; if "
+                raise InputError(f"land fraction reaches {number(np.nanmax(f))}, above 1; if "
                                  f"it is in percent, divide by 100")
         return np.where(np.isnan(f), 0.0, np.clip(f, 0.0, 1.0))
     try:
@@ -144,8 +144,8 @@ def check_coverage(mask, region_name, lon, lat):
         lat = np.asarray(lat, dtype=np.float64)
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", RuntimeWarning)
-            span = (f"lon {_fmt(np.nanmin(lon))}..{_fmt(np.nanmax(lon))}, "
-                    f"lat {_fmt(np.nanmin(lat))}..{_fmt(np.nanmax(lat))}")
+            span = (f"lon {number(np.nanmin(lon))}..{number(np.nanmax(lon))}, "
+                    f"lat {number(np.nanmin(lat))}..{number(np.nanmax(lat))}")
         raise InputError(f"region '{region_name}' contains no grid point; the grid spans "
                          f"{span}; check the region's coordinates or enlarge it")
     if n < 10:

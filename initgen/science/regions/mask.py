@@ -15,7 +15,8 @@ import shapely
 
 from initgen.errors import InputError
 from initgen.science import geodesy
-from initgen.science.regions.boundary import _fmt, _in_arc, _shape_of
+from initgen.science.regions.boundary import _in_arc, _shape_of
+from initgen.text import number
 
 #: Allowed values of ``placement`` in :func:`taper_weight`.
 PLACEMENTS = ("outside", "inside", "centred")
@@ -209,7 +210,7 @@ def _check_max_km(max_km):
     except (TypeError, ValueError):
         raise InputError(f"max_km must be a number, got {max_km!r}")
     if not max_km >= 0.0:
-        raise InputError(f"max_km must be >= 0, got {_fmt(max_km)}")
+        raise InputError(f"max_km must be >= 0, got {number(max_km)}")
     return max_km
 
 
@@ -347,7 +348,7 @@ def taper_weight(lon, lat, geom, width_km, placement="outside", regular=False):
     except (TypeError, ValueError):
         raise InputError(f"taper width_km must be a number, got {width_km!r}")
     if not (width >= 0.0 and math.isfinite(width)):
-        raise InputError(f"taper width_km must be a finite number >= 0, got {_fmt(width)}; "
+        raise InputError(f"taper width_km must be a finite number >= 0, got {number(width)}; "
                          f"use 0 for a hard edge")
     if placement not in PLACEMENTS:
         raise InputError(f"taper placement {placement!r} is not one of "

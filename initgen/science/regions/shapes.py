@@ -24,7 +24,8 @@ import numpy as np
 import shapely
 
 from initgen.errors import InputError, InputWarning
-from initgen.science.regions.boundary import _check_geom, _fmt, _polygonal, _repair, _shape_of
+from initgen.science.regions.boundary import _check_geom, _polygonal, _repair, _shape_of
+from initgen.text import number
 
 # Published region sets shipped with (or downloaded by) regionmask.
 _NE_VERSIONS = ("natural_earth_v4_1_0", "natural_earth_v5_0_0", "natural_earth_v5_1_2")
@@ -49,7 +50,7 @@ def _ring_coords(coords, what, *, allow_cap=True):
     bad = np.abs(a[:, 1]) > 90.0
     if bad.any():
         lon0, lat0 = a[np.argmax(bad)]
-        raise InputError(f"{what}: vertex ({_fmt(lon0)}, {_fmt(lat0)}) has latitude outside "
+        raise InputError(f"{what}: vertex ({number(lon0)}, {number(lat0)}) has latitude outside "
                          f"-90..90; are lon and lat swapped? give [lon, lat] pairs")
     if len(a) > 1 and np.array_equal(a[0], a[-1]):
         a = a[:-1]
@@ -66,8 +67,8 @@ def _ring_coords(coords, what, *, allow_cap=True):
             i = int(np.argmax(long_edge))
             j = (i + 1) % len(lon)
             warnings.warn(
-                f"{what}: edge from ({_fmt(lon[i])}, {_fmt(lat[i])}) to ({_fmt(lon[j])}, "
-                f"{_fmt(lat[j])}) spans more than 180 degrees of longitude; taken the short "
+                f"{what}: edge from ({number(lon[i])}, {number(lat[i])}) to ({number(lon[j])}, "
+                f"{number(lat[j])}) spans more than 180 degrees of longitude; taken the short "
                 f"way across the 180-degree meridian; write continuous longitudes (e.g. "
                 f"170 to 190) to avoid this warning", InputWarning, stacklevel=3)
         return np.column_stack([ulon, lat])
@@ -112,14 +113,14 @@ def box(lon_min, lon_max, lat_min, lat_max):
         raise InputError("box: bounds must be finite numbers")
     if not -90.0 <= lat_min < lat_max <= 90.0:
         raise InputError(f"box: need -90 <= lat_min < lat_max <= 90, got lat_min="
-                         f"{_fmt(lat_min)}, lat_max={_fmt(lat_max)}")
+                         f"{number(lat_min)}, lat_max={number(lat_max)}")
     if lon_min == lon_max:
-        raise InputError(f"box: lon_min equals lon_max ({_fmt(lon_min)}); use "
+        raise InputError(f"box: lon_min equals lon_max ({number(lon_min)}); use "
                          f"box(-180, 180, ...) for all longitudes")
     if lon_min > lon_max:
         lon_max += 360.0
     if lon_max - lon_min > 360.0:
-        raise InputError(f"box: spans {_fmt(lon_max - lon_min)} degrees of longitude, more "
+        raise InputError(f"box: spans {number(lon_max - lon_min)} degrees of longitude, more "
                          f"than 360; use box(-180, 180, ...) for all longitudes")
     return shapely.box(lon_min, lat_min, lon_max, lat_max)
 

@@ -182,7 +182,7 @@ def blend_organic(hydraulics, c_solid, organic_fraction):
     """
     f = _f64(organic_fraction)
     if not np.all((f >= 0) & (f <= 1)):
-        raise InputError("recipe key physics.organic_fraction: must lie in 0..1 (a fraction, not percent)")
+        raise InputError("recipe key physics.organic_fraction: must lie in 0..1 (a fraction, not percent)", key="physics.organic_fraction")
     om = ORGANIC_LAWRENCE_SLATER_2008
     por, psi, b = (_f64(x) for x in hydraulics)
     mix = (lambda mineral, organic: (1.0 - f) * mineral + f * organic)
