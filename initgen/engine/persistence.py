@@ -82,6 +82,11 @@ def settings(plan) -> dict:
     if out["quartz"] is None and not out["sand_role"]:
         out["reason"] = ("the quartz content Johansen's conductivity needs is unknown (the soil parameters come "
                          "from the layout or as constants); give persistence.conductivity_W_m_K in the recipe")
+    elif phys.get("organic_fraction"):
+        # the porosity in the conductivity is the blended one, the solids and dry conductivities the
+        # mineral ones: said, not hidden
+        out["conductivity_source"] += (f"; physics.organic_fraction {phys['organic_fraction']:g} blends the "
+                                       "porosity only, not the solids or dry conductivity (mineral values)")
     return out
 
 
