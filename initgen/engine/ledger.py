@@ -76,7 +76,6 @@ class Ledger:
         self.clamps: Counter = Counter()
         self.flags: Counter = Counter()
         self.phase = {}
-        self.disequilibrium = 0
         self.input_shift = {}     # per layer: cells and kg the equilibrium rule would move in the input
         self.soil_sources = None  # where the soil parameters came from (set by the plan's run)
         self.invariants = Counter()   # the physics' promises, measured on the cells it changed
@@ -165,7 +164,8 @@ class Ledger:
             "member_factors": {"scale_times_sign": _num(self.plan.member_scale),
                                "offset_K": _num(self.plan.member_offset_K),
                                "noise": self.plan.noise is not None},
-            "cells_not_in_phase_equilibrium_before": int(self.disequilibrium),
+            # the input's cells off the freezing curve: the same count as input_phase_disequilibrium
+            "cells_not_in_phase_equilibrium_before": int(sum(self.input_shift["cells"])) if self.input_shift else 0,
         }
         if model.layers is not None:  # layer geometry, so a record can be collated without the model file
             # (None where the file gives no interfaces: nodes only)

@@ -35,7 +35,6 @@ from initgen.io.model import ModelFile
 from initgen.science import sources
 from initgen.science.constants import T_FREEZE
 from initgen.science.soil import conversion as soil_conversion
-from initgen.science.soil import freezing as soil_freezing
 from initgen.science.soil import limits as soil_limits
 from initgen.science.soil import properties as soil_properties
 
@@ -244,9 +243,6 @@ def apply_block(plan: Plan, store, hkey: dict, widx: tuple, led, *, write: bool)
         T = T0.copy()
         water = _read_water(plan, store, hkey, T0.shape) if phys["mode"] != "none" else None
         if water is not None:
-            led.disequilibrium += int(np.count_nonzero(
-                soil_freezing.disequilibrium(T0, water["liq"], water["ice"], water["porosity"], water["psi"], water["b"])
-                & inside))
             _report_input_shift(T0, water, inside, led, area)
         for b, w in zip(plan.blocks, weights):
             if "soil_temperature" not in b.targets:

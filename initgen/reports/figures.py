@@ -352,7 +352,7 @@ def profile_figure(panels: list, title: str) -> bytes | None:
         ax.set_ylabel("depth (m)", fontsize=FONT["label"])
         ax.tick_params(labelsize=FONT["tick"])
         ax.set_title(p["label"], fontsize=FONT["label"])
-    handles, labels = {}, []
+    handles = {}
     for ax in axes[0]:
         for h, lab in zip(*ax.get_legend_handles_labels()):
             handles.setdefault(lab, h)

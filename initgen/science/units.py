@@ -18,8 +18,6 @@ from __future__ import annotations
 import functools
 import re
 
-import numpy as np
-
 from initgen.errors import InputError
 
 __all__ = ["parse", "temperature_scale_offset", "metres_per", "pascal_per", "water_amount", "fraction_per",

@@ -146,7 +146,7 @@ def disequilibrium(T, liq, ice, porosity, psi_sat_m, b, tol=DISEQUILIBRIUM_TOL):
     + tol), or (T <= T_f and ice > tol and liq < theta_liq_max(T) - tol). A layer at exactly
     T_f holding ice with liq >= porosity (the latent plateau) is in equilibrium.
 
-    initgen re-equilibrates only the cells it perturbs; this function only reports.
+    This function only reports; :func:`equilibrium_shift` gives the amounts the pipeline counts.
 
     Parameters
     ----------
