@@ -374,3 +374,14 @@ def test_a_change_below_the_enthalpys_round_off_leaves_the_cell_as_it_is(rule):
 def test_water_above_the_layer_volume_is_refused_by_the_modes():
     with pytest.raises(InputError, match="liquid water above 1 m3 m-3"):
         apply_energy_mode(270.0, 1e20, 0.1, -1.0, 0.1, *LOAM)
+
+
+def test_one_sided_consistency_by_hand():
+    """Loam, lmax(268.15) = 0.1188 (REFERENCES.md worked value, Niu and Yang 2006): 0.05 liquid
+    with ice is consistent (stable for a one-sided model), 0.20 liquid is not; ice at 275 K is
+    not; both phases at T_f are."""
+    from initgen.science.soil.freezing import one_sided_consistent
+
+    ok = one_sided_consistent([268.15, 268.15, 275.0, T_FREEZE], [0.05, 0.20, 0.1, 0.2], [0.25, 0.05, 0.1, 0.15],
+                              *LOAM)
+    assert ok.tolist() == [True, False, False, True]

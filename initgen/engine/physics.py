@@ -369,11 +369,7 @@ RHO_LF = constants.RHO_WATER * constants.LATENT_HEAT_FUSION   # J per m3 of liqu
 
 
 def _one_sided_consistent(T, liq, ice, kw, tol=1e-9) -> np.ndarray:
-    """No liquid above the supercooled curve below 0 C and no ice above 0 C (to ``tol`` m3 m-3)."""
-    with np.errstate(invalid="ignore", divide="ignore"):
-        lmax = soil_freezing.supercooled_liquid_max(np.where(np.isfinite(T), T, constants.T_FREEZE), kw["porosity"],
-                                           kw["psi_sat_m"], kw["b"])
-    return ~(((T < constants.T_FREEZE) & (liq > lmax + tol)) | ((T > constants.T_FREEZE) & (ice > tol)))
+    return soil_freezing.one_sided_consistent(T, liq, ice, kw["porosity"], kw["psi_sat_m"], kw["b"], tol=tol)
 
 
 def effective_phase_rule(physics: dict, water_spec) -> str:

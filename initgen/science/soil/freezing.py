@@ -203,3 +203,36 @@ def equilibrium_shift(T, liq, ice, porosity, psi_sat_m, b):
     with np.errstate(invalid="ignore"):
         _, ie = equilibrate_phase(T, liq, ice, porosity, psi_sat_m, b)
     return np.where(np.isfinite(T), ie - ice, np.nan)
+
+
+def one_sided_consistent(T, liq, ice, porosity, psi_sat_m, b, tol=1e-9):
+    """States a model with a one-sided phase rule holds: no liquid above the supercooled limit
+    below T_f (Niu and Yang 2006, capped at the porosity) and no ice above T_f.
+
+    Ice beside liquid below the curve, and both phases at T_f, are consistent. This is the
+    consistency the change-driven rule keeps (:func:`~initgen.science.soil.modes.settle_one_sided`
+    projects a state onto it).
+
+    Parameters
+    ----------
+    T : array_like
+        Temperature, K (NaN is treated as T_f: consistent).
+    liq, ice : array_like
+        Liquid and ice (liquid-equivalent) contents, m3 m-3.
+    porosity, psi_sat_m, b : array_like
+        Freezing-curve parameters (see :func:`supercooled_liquid_max`).
+    tol : float
+        Tolerance, m3 m-3.
+
+    Returns
+    -------
+    numpy.ndarray of bool
+
+    References
+    ----------
+    .. [1] Niu, G.-Y., and Yang, Z.-L. (2006). *Journal of Hydrometeorology* 7, 937-952.
+    """
+    T, liq, ice = _f64(T), _f64(liq), _f64(ice)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        lmax = supercooled_liquid_max(np.where(np.isfinite(T), T, T_FREEZE), porosity, psi_sat_m, b)
+    return ~(((T < T_FREEZE) & (liq > lmax + tol)) | ((T > T_FREEZE) & (ice > tol)))
