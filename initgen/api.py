@@ -39,9 +39,7 @@ def _layout(layout, recipe: Document) -> Document | None:
 
 
 def _model(store, layout, recipe) -> ModelFile:
-    model = open_model(store, layout, needed=plan_mod.needed_roles(recipe))
-    model.layout = layout
-    return model
+    return open_model(store, layout, needed=plan_mod.needed_roles(recipe))
 
 
 def layer_lines(layers) -> list:

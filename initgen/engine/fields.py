@@ -355,7 +355,7 @@ def _block_anomaly(model: ModelFile, anomaly: dict, recipe: Document, key: str, 
 
     path = resolve_path(recipe, d["file"], f"{key}.donor.file", allow_outside)
     donor_store = NetCDFStore(path)
-    donor = open_model(donor_store, _layout_of(model))
+    donor = open_model(donor_store, model.layout)
     if donor.grid.shape != model.grid.shape or donor.grid.lon_src.shape != model.grid.lon_src.shape \
             or not np.allclose(donor.grid.lon_src, model.grid.lon_src) \
             or not np.allclose(donor.grid.lat_src, model.grid.lat_src):
@@ -363,10 +363,6 @@ def _block_anomaly(model: ModelFile, anomaly: dict, recipe: Document, key: str, 
         raise InputError(f"recipe key {key}.donor.file: {path} is not on the same grid as the input; "
                          "a donor must be a restart file of the same model and grid", key=f"{key}.donor.file")
     return None, donor
-
-
-def _layout_of(model: ModelFile):
-    return getattr(model, "layout", None)
 
 
 def profile_factors(profile: dict, layers: Layers | None, key: str) -> tuple[np.ndarray | None, float]:

@@ -6,7 +6,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from initgen.engine.fields import Plan, _layout_of
+from initgen.engine.fields import Plan
 from initgen.engine.tiling import _bcast_h, _layer_col
 from initgen.errors import InputError
 from initgen.io import water as water_mod
@@ -172,7 +172,7 @@ def _water_spec(plan: Plan, model: ModelFile):
 
     if model.water is not None:
         return model.water
-    lay = _layout_of(plan.model)
+    lay = plan.model.layout
     return water_mod.resolve(model.roles, lay.data if lay is not None else None, model.store.describe(), True)
 
 

@@ -415,7 +415,7 @@ def open_model(store: Store, layout=None, needed: tuple = ()) -> ModelFile:
                                                                  for v in sources.values()) else "") \
         if layout else "CF attributes"
     model = ModelFile(store, grid, bound, layer_geom, ldim, src, role_sources=sources,
-                      grid_file=None if gstore is None else str(gstore.path))
+                      grid_file=None if gstore is None else str(gstore.path), layout=layout)
     for r in bound.values():
         r.limits = model.limits
     model.water = water_mod.resolve(bound, data, f"{store.describe()} ({where})" if data else store.describe(),

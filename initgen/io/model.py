@@ -272,6 +272,7 @@ class ModelFile:
     notes: list = field(default_factory=list)
     water: object | None = None  # water.WaterSpec: how the file keeps soil water (None: it holds none)
     limits: StoreLimits = field(default_factory=StoreLimits)  # shared with every role (Role.stored)
+    layout: object | None = None  # the layout Document it was opened with (None: CF attributes only)
 
     @property
     def water_convention(self) -> str | None:

@@ -106,7 +106,6 @@ def preview(recipe, input_path, layout=None, *, names=None, allow_outside_paths:
     store = NetCDFStore(input_path)
     try:
         model = open_model(store, layout, needed=plan_mod.needed_roles(recipe))
-        model.layout = layout
         base = plan_mod.build_plan(recipe, model, allow_outside=allow_outside_paths)
         out = []
         for m in chosen:

@@ -171,7 +171,6 @@ def build_shared(recipe: Document, layout: Document | None, input_path: Path, *,
     store = NetCDFStore(input_path)
     try:
         model = open_model(store, layout, needed=plan_mod.needed_roles(recipe))
-        model.layout = layout
         key = _grid_fingerprint(model, recipe, layout, allow_outside)
         if cache is not None and key in cache:
             return cache[key], key
@@ -187,7 +186,6 @@ def build_shared(recipe: Document, layout: Document | None, input_path: Path, *,
 def plan_on(recipe: Document, layout: Document | None, store, shared: Shared, member: Member | None):
     """A plan for ``store`` (the output copy) from shared arrays, configured for ``member``."""
     model = open_model(store, layout, needed=plan_mod.needed_roles(recipe))
-    model.layout = layout
     if tuple(model.grid.shape) != shared.shape:
         raise InputError(f"{store.describe()}: grid shape {model.grid.shape} differs from the shared plan's "
                          f"{shared.shape}")
