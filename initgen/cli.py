@@ -440,112 +440,134 @@ def _check_outputs(args) -> None:
         check(args)
 
 
+def _cmd_check(args) -> int:
+    res = api.check(args.recipe, args.layout, args.input, allow_outside_paths=args.allow_outside_paths)
+    print(res.summary())
+    return 0
+
+
+def _cmd_apply(args) -> int:
+    recipe = api.load_recipe(args.recipe)
+    if recipe.data.get("members") and args.member is None:
+        if Path(args.output).suffix.lower() in (".nc", ".nc4", ".cdf") and not Path(args.output).is_dir():
+            raise InputError(f"--output {args.output}: the recipe has members, so the output is a folder; give a "
+                             "folder name (or --member NAME to write one member to this file)")
+
+        res = api.apply_ensemble(recipe, args.input, args.output, args.layout, workers=args.workers,
+                                 scheduler=args.scheduler, force=args.force, resume=args.resume,
+                                 allow_outside_paths=args.allow_outside_paths,
+                                 progress=_member_progress(args.quiet))
+        if not args.quiet:
+            print(results_table(res))
+        for r in res.failed:
+            sys.stderr.write(f"initgen: error: member {r['member']['name']} of {r['input']}: {r['message']}\n")
+        return res.exit_code
+    if args.output.endswith(("/", os.sep)):
+        raise InputError(f"--output {args.output}: names a folder; give the output file's name")
+    if len(args.input) != 1:
+        raise InputError("--input: give one input file (several inputs need a recipe with a members section)")
+    rec = api.apply(recipe, args.input[0], args.output, args.layout, member=args.member, force=args.force,
+                    allow_outside_paths=args.allow_outside_paths, progress=_progress_printer(args.quiet),
+                    repack=args.repack)
+    if not args.quiet:
+        print(api.ledger_text(rec["ledger"]))
+        print(f"wrote {args.output} (sha256 {rec['output']['sha256']})")
+        print(f"wrote {args.output}.provenance.json")
+    if args.verbose:
+        io = rec.get("io", {})
+        stages = ", ".join(f"{k[:-2]} {v:.2f} s" for k, v in io.get("timings_s", {}).items())
+        print(f"timings: {stages}; {io.get('bytes_rewritten', 0):,} bytes rewritten; file size "
+              f"{io.get('size_growth_bytes', 0):+,} bytes" + (" (repacked)" if io.get("repacked") else ""))
+    return 0
+
+
+def _cmd_preview(args) -> int:
+    recipe = api.load_recipe(args.recipe)
+    if recipe.data.get("members") and args.member is None:
+        if args.report:
+            raise InputError("--report: the recipe has members; name one with --member NAME for a report")
+        rows = api.preview_members(recipe, args.input, args.layout, allow_outside_paths=args.allow_outside_paths)
+        print(members_table(rows))
+        for m, led in rows:  # persistence.py: one line per member
+            print(f"{m.name}: {persistence_line(led.get('persistence'))}")
+        if args.json:
+            data = {"members": [{"member": m.record(), "ledger": led} for m, led in rows]}
+            write_atomic_text(Path(args.json), json.dumps(data, indent=2) + "\n")
+            print(f"wrote {args.json}")
+        return 0
+    led = api.preview(recipe, args.input, args.layout, member=args.member,
+                      allow_outside_paths=args.allow_outside_paths)
+    print(api.ledger_text(led))
+    if args.json:
+        write_atomic_text(Path(args.json), json.dumps(led, indent=2) + "\n")
+        print(f"wrote {args.json}")
+    if args.report:
+        path = preview_report(args.recipe, args.input, args.layout, Path(args.report), ledger=led,
+                                     allow_outside_paths=args.allow_outside_paths, member=args.member)
+        print(f"wrote {path.parent / 'report.html'} and {path}")
+    return 0
+
+
+def _cmd_mask(args) -> int:
+    write_mask(args.recipe, args.input, args.layout, Path(args.output), png=args.png, force=args.force,
+                      allow_outside_paths=args.allow_outside_paths)
+    print(f"wrote {args.output}" + (f" and {args.png}" if args.png else ""))
+    return 0
+
+
+def _cmd_compare(args) -> int:
+    result = compare(args.a, args.b, allow=args.allow, layout=args.layout)
+    print(compare_text(result))
+    if args.json:
+        write_atomic_text(Path(args.json), json.dumps(result, indent=2) + "\n")
+    if args.report:
+        path = compare_report(result, Path(args.report), layout=args.layout)
+        print(f"wrote {path} and {path.parent / 'compare.md'}")
+    return 0 if result["ok"] else 3
+
+
+def _cmd_verify(args) -> int:
+    result = verify(args.provenance, input=args.input, output=args.output, recipe=args.recipe,
+                           layout=args.layout)
+    print(result["message"])
+    for line in result.get("checked", []):
+        print(f"  checked {line}")
+    return 0 if result["ok"] else 3
+
+
+def _cmd_collate(args) -> int:
+    col = api.collate(args.records, args.out, labels=args.label, threshold=args.threshold)
+    print(f"collated {len(col['submissions'])} record(s): " + ", ".join(col["written"]))
+    for line in problems_text(col):
+        print(f"differs: {line}")
+    return 0 if col["ok"] else 3
+
+
+def _cmd_schema(args) -> int:
+    node = LAYOUT if args.layout else RECIPE
+    schema = {"$schema": "https://json-schema.org/draft/2020-12/schema",
+              "title": "initgen layout" if args.layout else "initgen recipe", **node.json()}
+    print(json.dumps(schema, indent=2))
+    return 0
+
+
+def _cmd_demo(args) -> int:
+    print(demo.run_demo(Path(args.out)))
+    return 0
+
+
+# command -> the function that runs it (after the output checks), each returning the exit code
+COMMANDS = {"check": _cmd_check, "apply": _cmd_apply, "preview": _cmd_preview, "mask": _cmd_mask,
+            "compare": _cmd_compare, "verify": _cmd_verify, "collate": _cmd_collate, "schema": _cmd_schema,
+            "demo": _cmd_demo}
+
+
 def _dispatch(args) -> int:
     _guard_outputs(args)
     if args.command == "apply":
         args._ensemble = bool(api.load_recipe(args.recipe).data.get("members")) and args.member is None
     _check_outputs(args)
-
-    if args.command == "check":
-        res = api.check(args.recipe, args.layout, args.input, allow_outside_paths=args.allow_outside_paths)
-        print(res.summary())
-        return 0
-    if args.command == "apply":
-        recipe = api.load_recipe(args.recipe)
-        if recipe.data.get("members") and args.member is None:
-            if Path(args.output).suffix.lower() in (".nc", ".nc4", ".cdf") and not Path(args.output).is_dir():
-                raise InputError(f"--output {args.output}: the recipe has members, so the output is a folder; give a "
-                                 "folder name (or --member NAME to write one member to this file)")
-
-            res = api.apply_ensemble(recipe, args.input, args.output, args.layout, workers=args.workers,
-                                     scheduler=args.scheduler, force=args.force, resume=args.resume,
-                                     allow_outside_paths=args.allow_outside_paths,
-                                     progress=_member_progress(args.quiet))
-            if not args.quiet:
-                print(results_table(res))
-            for r in res.failed:
-                sys.stderr.write(f"initgen: error: member {r['member']['name']} of {r['input']}: {r['message']}\n")
-            return res.exit_code
-        if args.output.endswith(("/", os.sep)):
-            raise InputError(f"--output {args.output}: names a folder; give the output file's name")
-        if len(args.input) != 1:
-            raise InputError("--input: give one input file (several inputs need a recipe with a members section)")
-        rec = api.apply(recipe, args.input[0], args.output, args.layout, member=args.member, force=args.force,
-                        allow_outside_paths=args.allow_outside_paths, progress=_progress_printer(args.quiet),
-                        repack=args.repack)
-        if not args.quiet:
-            print(api.ledger_text(rec["ledger"]))
-            print(f"wrote {args.output} (sha256 {rec['output']['sha256']})")
-            print(f"wrote {args.output}.provenance.json")
-        if args.verbose:
-            io = rec.get("io", {})
-            stages = ", ".join(f"{k[:-2]} {v:.2f} s" for k, v in io.get("timings_s", {}).items())
-            print(f"timings: {stages}; {io.get('bytes_rewritten', 0):,} bytes rewritten; file size "
-                  f"{io.get('size_growth_bytes', 0):+,} bytes" + (" (repacked)" if io.get("repacked") else ""))
-        return 0
-    if args.command == "preview":
-        recipe = api.load_recipe(args.recipe)
-        if recipe.data.get("members") and args.member is None:
-            if args.report:
-                raise InputError("--report: the recipe has members; name one with --member NAME for a report")
-            rows = api.preview_members(recipe, args.input, args.layout, allow_outside_paths=args.allow_outside_paths)
-            print(members_table(rows))
-            for m, led in rows:  # persistence.py: one line per member
-                print(f"{m.name}: {persistence_line(led.get('persistence'))}")
-            if args.json:
-                data = {"members": [{"member": m.record(), "ledger": led} for m, led in rows]}
-                write_atomic_text(Path(args.json), json.dumps(data, indent=2) + "\n")
-                print(f"wrote {args.json}")
-            return 0
-        led = api.preview(recipe, args.input, args.layout, member=args.member,
-                          allow_outside_paths=args.allow_outside_paths)
-        print(api.ledger_text(led))
-        if args.json:
-            write_atomic_text(Path(args.json), json.dumps(led, indent=2) + "\n")
-            print(f"wrote {args.json}")
-        if args.report:
-            path = preview_report(args.recipe, args.input, args.layout, Path(args.report), ledger=led,
-                                         allow_outside_paths=args.allow_outside_paths, member=args.member)
-            print(f"wrote {path.parent / 'report.html'} and {path}")
-        return 0
-    if args.command == "mask":
-        write_mask(args.recipe, args.input, args.layout, Path(args.output), png=args.png, force=args.force,
-                          allow_outside_paths=args.allow_outside_paths)
-        print(f"wrote {args.output}" + (f" and {args.png}" if args.png else ""))
-        return 0
-    if args.command == "compare":
-
-        result = compare(args.a, args.b, allow=args.allow, layout=args.layout)
-        print(compare_text(result))
-        if args.json:
-            write_atomic_text(Path(args.json), json.dumps(result, indent=2) + "\n")
-        if args.report:
-            path = compare_report(result, Path(args.report), layout=args.layout)
-            print(f"wrote {path} and {path.parent / 'compare.md'}")
-        return 0 if result["ok"] else 3
-    if args.command == "verify":
-        result = verify(args.provenance, input=args.input, output=args.output, recipe=args.recipe,
-                               layout=args.layout)
-        print(result["message"])
-        for line in result.get("checked", []):
-            print(f"  checked {line}")
-        return 0 if result["ok"] else 3
-    if args.command == "collate":
-        col = api.collate(args.records, args.out, labels=args.label, threshold=args.threshold)
-        print(f"collated {len(col['submissions'])} record(s): " + ", ".join(col["written"]))
-        for line in problems_text(col):
-            print(f"differs: {line}")
-        return 0 if col["ok"] else 3
-    if args.command == "schema":
-        node = LAYOUT if args.layout else RECIPE
-        schema = {"$schema": "https://json-schema.org/draft/2020-12/schema",
-                  "title": "initgen layout" if args.layout else "initgen recipe", **node.json()}
-        print(json.dumps(schema, indent=2))
-        return 0
-    if args.command == "demo":
-        print(demo.run_demo(Path(args.out)))
-        return 0
-    raise InputError(f"unknown command {args.command}")  # pragma: no cover
+    return COMMANDS[args.command](args)
 
 
 if __name__ == "__main__":  # pragma: no cover
