@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import contextlib
 import warnings
 from dataclasses import dataclass
 from pathlib import Path
@@ -40,6 +41,64 @@ def _layout(layout, recipe: Document) -> Document | None:
 
 def _model(store, layout, recipe) -> ModelFile:
     return open_model(store, layout, needed=plan_mod.needed_roles(recipe))
+
+
+@dataclass
+class Planned:
+    """What :func:`open_plan` yields: the recipe and layout documents, the open input store, the
+    model file, the plan (configured for the member, if any) and the member."""
+
+    recipe: Document
+    layout: Document | None
+    store: Any
+    model: ModelFile
+    plan: Any
+    member: Any
+
+
+@contextlib.contextmanager
+def open_plan(recipe, input, layout=None, *, member: str | None = None, allow_outside_paths: bool = False):
+    """Open ``input`` read-only and plan ``recipe`` on it; the store is closed on leaving.
+
+    The one open -> model -> plan -> close sequence of the API and the reports.
+
+    Parameters
+    ----------
+    recipe : str, Path or Document
+        The recipe.
+    input : str or Path
+        The model file.
+    layout : str, Path, Document or None
+        The layout (default: the recipe's inline layout, or CF attributes).
+    member : str, optional
+        A member of the recipe's members section (default: the recipe as written).
+    allow_outside_paths : bool
+        Let the recipe read files outside its own folder.
+
+    Yields
+    ------
+    Planned
+
+    Raises
+    ------
+    InputError
+        Any bad input (the store is closed).
+
+    Examples
+    --------
+    >>> with initgen.api.open_plan("recipe.yaml", "restart.nc") as p:  # doctest: +SKIP
+    ...     print(p.plan.region.sum(), "cells")
+    """
+    rec = _recipe(recipe)
+    lay = _layout(layout, rec)
+    mem = _member(rec, member)
+    store = NetCDFStore(input)
+    try:
+        model = _model(store, lay, rec)
+        plan = configure(plan_mod.build_plan(rec, model, allow_outside=allow_outside_paths), mem)
+        yield Planned(rec, lay, store, model, plan, mem)
+    finally:
+        store.close()
 
 
 def layer_lines(layers) -> list:
@@ -149,17 +208,11 @@ def check(recipe, layout=None, input=None, *, allow_outside_paths: bool = False)
     >>> import initgen
     >>> print(initgen.check("recipe.yaml", input="restart.nc").summary())  # doctest: +SKIP
     """
-    rec = _recipe(recipe)
-    lay = _layout(layout, rec)
     if input is None:
-        return CheckResult(rec, lay, None, None)
-    store = NetCDFStore(input)
-    try:
-        model = _model(store, lay, rec)
-        plan = plan_mod.build_plan(rec, model, allow_outside=allow_outside_paths)
-        return CheckResult(rec, lay, model, plan)
-    finally:
-        store.close()
+        rec = _recipe(recipe)
+        return CheckResult(rec, _layout(layout, rec), None, None)
+    with open_plan(recipe, input, layout, allow_outside_paths=allow_outside_paths) as p:
+        return CheckResult(p.recipe, p.layout, p.model, p.plan)
 
 
 def preview(recipe, input, layout=None, *, member: str | None = None, allow_outside_paths: bool = False) -> dict:
@@ -200,16 +253,8 @@ def preview(recipe, input, layout=None, *, member: str | None = None, allow_outs
     >>> ledger["region"]["cells_weight_above_0"]  # doctest: +SKIP
     """
 
-    rec = _recipe(recipe)
-    lay = _layout(layout, rec)
-    mem = _member(rec, member)
-    store = NetCDFStore(input)
-    try:
-        model = _model(store, lay, rec)
-        plan = configure(plan_mod.build_plan(rec, model, allow_outside=allow_outside_paths), mem)
-        return plan_mod.run(plan, store, write=False)
-    finally:
-        store.close()
+    with open_plan(recipe, input, layout, member=member, allow_outside_paths=allow_outside_paths) as p:
+        return plan_mod.run(p.plan, p.store, write=False)
 
 
 def apply(recipe, input, output, layout=None, *, member: str | None = None, force: bool = False,
@@ -267,13 +312,9 @@ def apply(recipe, input, output, layout=None, *, member: str | None = None, forc
     output = Path(output)
     # validate everything against the input, read-only, before a byte is written; the plan's
     # arrays depend only on the input, so the same plan then patches the copy
-    store = NetCDFStore(input)
-    try:
-        model = _model(store, lay, rec)
-        plan = configure(plan_mod.build_plan(rec, model, allow_outside=allow_outside_paths), mem)
-        _refuse_unstorable_first(plan, store)
-    finally:
-        store.close()
+    with open_plan(rec, input, lay, member=member, allow_outside_paths=allow_outside_paths) as p:
+        plan = p.plan
+        _refuse_unstorable_first(plan, p.store)
 
     def patch(out_store):
         return plan_mod.run(plan, out_store, write=True, progress=progress)
@@ -379,16 +420,9 @@ def perturb(dataset, recipe, layout=None, *, allow_outside_paths: bool = False):
 
 def weights(recipe, input, layout=None, *, allow_outside_paths: bool = False):
     """The combined horizontal weight field max_i w_i(x) and the grid, for maps and mask files."""
-    rec = _recipe(recipe)
-    lay = _layout(layout, rec)
-    store = NetCDFStore(input)
-    try:
-        model = _model(store, lay, rec)
-        plan = plan_mod.build_plan(rec, model, allow_outside=allow_outside_paths)
-        w = plan.full(np.max([b.weight for b in plan.blocks], axis=0))
-        return w, model.grid, plan
-    finally:
-        store.close()
+    with open_plan(recipe, input, layout, allow_outside_paths=allow_outside_paths) as p:
+        w = p.plan.full(np.max([b.weight for b in p.plan.blocks], axis=0))
+        return w, p.model.grid, p.plan
 
 
 def collate(records, out_dir, labels=None, threshold: float = 0.25) -> dict:
@@ -469,5 +503,5 @@ def ledger_text(ledger: dict) -> str:
     return "\n".join(lines)
 
 
-__all__ = ["check", "preview", "preview_members", "apply", "apply_ensemble", "perturb", "weights", "ledger_text",
+__all__ = ["check", "preview", "preview_members", "apply", "apply_ensemble", "perturb", "weights", "open_plan", "ledger_text",
            "collate"]

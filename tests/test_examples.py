@@ -219,3 +219,12 @@ def test_demo_report_page_states_the_phase_rule_invariants_and_parameter_sources
     for phrase in ("phase rule <code>change_driven</code>", "Invariants, measured on the changed layer-cells",
                    "cells change opposite to imposed", "Clapp and Hornberger (1978) Table 2, loam"):
         assert phrase in text, phrase
+
+
+def test_preview_report_of_a_donor_recipe_without_a_given_ledger(demo, tmp_path):
+    """The report computes its own ledger when none is given; a donor recipe's run closes the
+    donor file, so the ledger and the figures each get their own plan."""
+    from initgen.reports import preview as report
+
+    md = report.preview_report(demo / "demo-donor-transplant.yaml", demo / "demo-restart.nc", None, tmp_path / "rep")
+    assert (md.parent / "report.html").is_file()

@@ -11,7 +11,6 @@ from initgen import api
 from initgen._version import __version__
 from initgen.errors import InputError
 from initgen.io.atomic import check_output_path, create_netcdf, write_atomic_bytes
-from initgen.io.stores import NetCDFStore
 from initgen.outputs import provenance as prov
 from initgen.reports.maps import _land_for_map, _map_figure, _region_geoms, _taper_edge
 
@@ -58,9 +57,10 @@ def write_mask(recipe, input, layout, output, png=None, force=False, allow_outsi
         if png.resolve() == output.resolve():
             raise InputError(f"{png}: the PNG path is the mask file's path; give the PNG another name")
         check_output_path(input, png, force)
-    rec = api._recipe(recipe)
-    lay = api._layout(layout, rec)
-    w, grid, plan = api.weights(rec, input, lay, allow_outside_paths=allow_outside_paths)
+    with api.open_plan(recipe, input, layout, allow_outside_paths=allow_outside_paths) as p:
+        rec, plan, grid = p.recipe, p.plan, p.model.grid
+        w = plan.full(np.max([b.weight for b in plan.blocks], axis=0))
+        land, land_what = _land_for_map(p.model, p.store) if png is not None else (None, None)
     true_area = not str(grid.area_source).startswith("equal")
     lon_name, lat_name = "lon", "lat"
     if grid.kind != "regular" and ({"lon", "lat"} & set(grid.dims)):
@@ -124,11 +124,6 @@ def write_mask(recipe, input, layout, output, png=None, force=False, allow_outsi
 
     data = None
     if png is not None:  # draw first: a failure leaves no mask file behind
-        store = NetCDFStore(input)
-        try:
-            land, land_what = _land_for_map(api._model(store, lay, rec), store)
-        finally:
-            store.close()
         geoms = _region_geoms(rec, allow_outside_paths)
         data = _map_figure(grid, w, w, geoms,
                            f"Region weight w(x): recipe {rec.name}", "weight (1)", vmin=0.0, vmax=1.0, land=land,

@@ -19,8 +19,6 @@ from initgen.engine import plan as plan_mod
 from initgen.engine.persistence import line as persistence_line
 from initgen.errors import InputError
 from initgen.io.atomic import sha256_file, write_atomic_bytes, write_atomic_text
-from initgen.io.stores import NetCDFStore
-from initgen.outputs.members import configure
 from initgen.reports.common import CAUTION, physics_tables
 from initgen.reports.figures import histogram_figure, profile_figure, short_label
 from initgen.reports.html_report import CLAMP_TEXT, FLAG_TEXT, MEAN_REGION, preview_page
@@ -312,25 +310,15 @@ def preview_report(recipe, input, layout, out_dir, ledger=None, allow_outside_pa
     out_dir = Path(out_dir)
     if out_dir.exists() and not out_dir.is_dir():
         raise InputError(f"{out_dir}: exists and is not a folder; give a folder for the report")
-    rec = api._recipe(recipe)
-    lay = api._layout(layout, rec)
-    member_kw = {} if member is None else {"member": member}
-    if ledger is None:
-        ledger = api.preview(rec, input, lay, allow_outside_paths=allow_outside_paths, **member_kw)
-    mem = api._member(rec, member)
-    store = NetCDFStore(input)
-    try:
-        model = api._model(store, lay, rec)
-        plan = plan_mod.build_plan(rec, model, allow_outside=allow_outside_paths)
-        if mem is not None:
-            plan = configure(plan, mem)
+    if ledger is None:   # the same ledger apply would write (a run closes a donor file: its own plan)
+        ledger = api.preview(recipe, input, layout, member=member, allow_outside_paths=allow_outside_paths)
+    with api.open_plan(recipe, input, layout, member=member, allow_outside_paths=allow_outside_paths) as p:
+        rec, lay, store, model, plan, mem = p.recipe, p.layout, p.store, p.model, p.plan, p.member
         grid = model.grid
         w = plan.full(np.max([b.weight for b in plan.blocks], axis=0))
         capture = _ChangeCapture(store, model, ledger, plan)
         plan_mod.run(plan, capture, write=True)
         land, land_what = _land_for_map(model, store)
-    finally:
-        store.close()
     geoms = _region_geoms(rec, allow_outside_paths)
     edge = _taper_edge(plan, rec, geoms)
     surf = np.zeros(grid.shape)
