@@ -30,7 +30,7 @@ from initgen.science.regions.mask import hard_mask
 from initgen.science.regions.factors import land_weight
 from initgen.science.regions.shapes import polygon
 from initgen.science.regions.shapes import published
-from initgen.science.regions.shapes import read_geojson
+from initgen.io.readers import read_geojson
 from initgen.science.regions.mask import taper_weight
 from initgen.errors import InputError, InputWarning
 from initgen.science.geodesy import EARTH_RADIUS_KM as R

@@ -13,6 +13,7 @@ import numpy as np
 from initgen.config.recipe import Document, resolve_path
 from initgen.errors import InputError, InputWarning
 from initgen.io.atomic import sha256_file
+from initgen.io import readers
 from initgen.io.grid import open_model
 from initgen.io.model import ModelFile
 from initgen.io.shipped import shipped_file
@@ -100,7 +101,7 @@ MAX_ABS_LON = 720.0  # two turns either way; beyond, wrapping a shape would take
 def _shape_geometry(shape: dict, recipe: Document, key: str, allow_outside: bool):
     if shape.get("geojson"):
         path = resolve_shape_file(recipe, shape["geojson"], key + ".geojson", allow_outside)
-        geom = regions_shapes.read_geojson(path)
+        geom = readers.read_geojson(path)
         west, _, east, _ = geom.bounds
         if not (-MAX_ABS_LON <= west and east <= MAX_ABS_LON):
             raise InputError(f"recipe key {key}.geojson: {path.name} has longitudes {west:.6g}..{east:.6g}, beyond "

@@ -15,9 +15,7 @@ Interpreting vertex lists (:func:`polygon`, :func:`read_geojson`)
 
 from __future__ import annotations
 
-import json
 import math
-import os
 import warnings
 
 import numpy as np
@@ -173,14 +171,16 @@ def _geojson_geometry(obj, what):
                      f"Polygon or MultiPolygon")
 
 
-def read_geojson(path):
-    """Read a region from a GeoJSON file (RFC 7946: WGS84 longitude, latitude).
+def geojson_region(doc, name):
+    """A region from a parsed GeoJSON document (RFC 7946: WGS84 longitude, latitude).
 
     Parameters
     ----------
-    path : str or os.PathLike
-        A FeatureCollection, Feature or bare geometry. Every geometry must be a Polygon
-        or MultiPolygon (holes allowed); all of them are merged into one region.
+    doc : object
+        The parsed JSON: a FeatureCollection, Feature or bare geometry. Every geometry must be
+        a Polygon or MultiPolygon (holes allowed); all of them are merged into one region.
+    name : str
+        Where the document came from (a file name), for messages.
 
     Returns
     -------
@@ -189,24 +189,13 @@ def read_geojson(path):
     Raises
     ------
     InputError
-        Missing or unreadable file, invalid JSON, a geometry of another type (the message
-        names the file and the type found), or a non-geographic ``crs``.
+        A geometry of another type (the message names the file and the type found), or a
+        non-geographic ``crs``.
 
     References
     ----------
     Butler, H., et al. (2016). The GeoJSON Format. IETF RFC 7946.
     """
-    name = os.fspath(path)
-    try:
-        with open(name, encoding="utf-8") as fh:
-            doc = json.load(fh)
-    except FileNotFoundError:
-        raise InputError(f"GeoJSON file '{name}' not found; check the path")
-    except (OSError, UnicodeDecodeError) as err:
-        raise InputError(f"GeoJSON file '{name}' cannot be read ({err})")
-    except json.JSONDecodeError as err:
-        raise InputError(f"GeoJSON file '{name}' is not valid JSON (line {err.lineno}: "
-                         f"{err.msg})")
     if not isinstance(doc, dict):
         raise InputError(f"GeoJSON file '{name}': expected a JSON object at the top level")
     crs = doc.get("crs")
