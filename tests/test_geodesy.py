@@ -197,3 +197,13 @@ def test_regional_grid_bounds_extrapolated():
     assert a[1, 1] == pytest.approx(exp, rel=1e-12)
     assert a.sum() == pytest.approx(
         r2 * np.radians(3.0) * (np.sin(np.radians(51.5)) - np.sin(np.radians(49.5))), rel=1e-12)
+
+
+def test_smallest_lon_arc_by_hand():
+    """Intervals 170..175 and -178..-170 (across the 180 degree meridian): the largest gap is
+    -170..170 (340 degrees), so the arc starts at 170 and is 20 degrees wide; a set covering the
+    whole circle has no gap (-180, 360)."""
+    from initgen.science.geodesy import smallest_lon_arc
+
+    assert smallest_lon_arc([170.0, -178.0], [175.0, -170.0]) == pytest.approx((170.0, 20.0))
+    assert smallest_lon_arc([-180.0, 0.0], [0.0, 180.0]) == (-180.0, 360.0)

@@ -10,6 +10,7 @@ from typing import Any, Iterator
 import numpy as np
 
 from initgen.io.stores import NetCDFStore
+from initgen.science import geodesy
 
 BLOCK_ELEMENTS = 2_000_000
 
@@ -124,12 +125,9 @@ def _lon_arc(lons: np.ndarray) -> tuple[float, float]:
     u = np.unique(np.mod(lons, 360.0))
     if u.size == 1:
         return lo, lo
-    gaps = np.diff(np.concatenate([u, u[:1] + 360.0]))
-    i = int(np.argmax(gaps))
-    width = 360.0 - float(gaps[i])
+    west, width = geodesy.smallest_lon_arc(u, u)
     if hi - lo <= width + 1e-9:
         return lo, hi  # the data's own convention already gives the shortest interval
-    west = float(u[(i + 1) % u.size])
     west += 360.0 * math.floor((lo - west) / 360.0)
     if west < lo - 1e-9:
         west += 360.0

@@ -16,6 +16,7 @@ from initgen.science.constants import EARTH_RADIUS_M
 
 __all__ = [
     "EARTH_RADIUS_KM",
+    "smallest_lon_arc",
     "wrap_lon",
     "great_circle_km",
     "lonlat_to_unit",
@@ -325,3 +326,29 @@ def spherical_polygon_area_m2(lon_corners, lat_corners, radius_km=None):
 
     a, b, c, d = (p[..., k, :] for k in range(4))
     return r_m * r_m * np.abs(omega(a, b, c) + omega(a, c, d))
+
+
+def smallest_lon_arc(lo, hi):
+    """The smallest circular longitude arc covering intervals [lo_i, hi_i] (degrees, one 360
+    degree span, hi_i >= lo_i): the complement of the largest gap between them.
+
+    Parameters
+    ----------
+    lo, hi : array_like
+        Interval ends, degrees east (points: lo = hi).
+
+    Returns
+    -------
+    tuple of float
+        ``(start, width)``: the arc runs east from ``start`` over ``width`` degrees;
+        ``(-180, 360)`` when no gap is left.
+    """
+    lo, hi = np.asarray(lo, float), np.asarray(hi, float)
+    order = np.argsort(lo)
+    lo, hi = lo[order], np.maximum.accumulate(hi[order])
+    # gaps between merged intervals, plus the gap across the wrap point
+    gaps = np.append(lo[1:] - hi[:-1], lo[0] + 360.0 - hi[-1])
+    k = int(np.argmax(gaps))
+    if gaps[k] <= 0.0:
+        return -180.0, 360.0
+    return float(lo[(k + 1) % len(lo)]), float(360.0 - gaps[k])

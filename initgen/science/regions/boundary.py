@@ -71,18 +71,7 @@ def _segments(lines):
 
 def _lon_arc(x0, x1):
     """Smallest circular arc (start, width) covering segments with lon in [-180, 180]."""
-    lo = np.minimum(x0, x1)
-    hi = np.maximum(x0, x1)
-    order = np.argsort(lo)
-    lo, hi = lo[order], hi[order]
-    hi = np.maximum.accumulate(hi)
-    # gaps between merged intervals, plus the gap across the wrap point
-    gaps = np.append(lo[1:] - hi[:-1], lo[0] + 360.0 - hi[-1])
-    k = int(np.argmax(gaps))
-    if gaps[k] <= 0.0:
-        return -180.0, 360.0
-    start = lo[(k + 1) % len(lo)]
-    return float(start), float(360.0 - gaps[k])
+    return geodesy.smallest_lon_arc(np.minimum(x0, x1), np.maximum(x0, x1))
 
 
 def _in_arc(lon, start, width, margin):
