@@ -6,6 +6,8 @@ against a published value or a reference library, named beside the check.
 
 from __future__ import annotations
 
+import hashlib
+
 from pathlib import Path
 
 import netCDF4
@@ -127,7 +129,13 @@ def points(path: Path, lon, lat, T=None, depth_units="m"):
     return path
 
 
+def sha(path) -> str:
+    """sha256 of a file's bytes (hashlib), as the provenance record states it."""
+    return hashlib.sha256(Path(path).read_bytes()).hexdigest()
+
+
 def read_raw(path, name):
+    """A variable's values as stored (no unpacking, no masking)."""
     with netCDF4.Dataset(path) as ds:
         v = ds.variables[name]
         v.set_auto_maskandscale(False)

@@ -18,6 +18,7 @@ from initgen.cli import main
 from initgen.config.recipe import load_recipe
 
 from filemaker import FILL, NODES, curvilinear, points, read_raw, regular
+from filemaker import sha
 
 
 def write_recipe(tmp_path, text, name="r.yaml"):
@@ -40,10 +41,6 @@ perturbations:
 
 def box_recipe(tmp_path, w=20, e=80, s=10, n=50, a=-2.0, kind="uniform", extra=""):
     return write_recipe(tmp_path, BOX.format(w=w, e=e, s=s, n=n, a=a, kind=kind, extra=extra))
-
-
-def sha(path):
-    return hashlib.sha256(open(path, "rb").read()).hexdigest()
 
 
 def test_regular_grid_changes_only_land_cells_in_box(tmp_path):

@@ -11,7 +11,6 @@ The test names read as the catalogue: ``test_<the bad input>``.
 
 from __future__ import annotations
 
-import hashlib
 import json
 import os
 import subprocess
@@ -27,16 +26,13 @@ from initgen.cli import main
 from initgen.demo import write_demo_restart
 
 from filemaker import NODES, curvilinear, points, regular
+from filemaker import sha
 
 # ---------------------------------------------------------------------------------------------
 # Helpers
 # ---------------------------------------------------------------------------------------------
 
 _QUIET = (DeprecationWarning, PendingDeprecationWarning, ImportWarning, ResourceWarning)
-
-
-def sha(path) -> str:
-    return hashlib.sha256(Path(path).read_bytes()).hexdigest()
 
 
 def listing(folder: Path) -> dict:

@@ -4,12 +4,12 @@ from __future__ import annotations
 
 from pathlib import Path
 
-import netCDF4
 import numpy as np
 import pytest
 
 from initgen import api
 from initgen.demo import run_demo
+from filemaker import read_raw as raw
 
 ROOT = Path(__file__).resolve().parents[1]
 EXAMPLES = sorted(p.name for p in (ROOT / "recipes").glob("*.yaml"))
@@ -20,13 +20,6 @@ def demo(tmp_path_factory):
     out = tmp_path_factory.mktemp("demo")
     run_demo(out)
     return out
-
-
-def raw(path, name):
-    with netCDF4.Dataset(path) as ds:
-        v = ds[name]
-        v.set_auto_maskandscale(False)
-        return np.array(v[:])
 
 
 @pytest.mark.parametrize("name", EXAMPLES)

@@ -13,7 +13,6 @@ guessed sleep.
 from __future__ import annotations
 
 import errno
-import hashlib
 import json
 import os
 import shutil
@@ -33,6 +32,7 @@ from initgen.io.atomic import _pid_alive
 from initgen.cli import main
 
 from filemaker import regular
+from filemaker import sha
 
 RECIPE = """\
 initgen_recipe: 1
@@ -67,10 +67,6 @@ RUNNER = textwrap.dedent("""\
     from initgen.cli import main
     sys.exit(main(sys.argv[3:]))
 """)
-
-
-def sha(path) -> str:
-    return hashlib.sha256(Path(path).read_bytes()).hexdigest()
 
 
 def names(folder) -> set:

@@ -15,11 +15,9 @@ About 1300 examples in all (``INITGEN_FUZZ_SCALE=20`` multiplies them for a long
 from __future__ import annotations
 
 import copy
-import hashlib
 import json
 import os
 import warnings
-from pathlib import Path
 
 import numpy as np
 import pytest
@@ -33,6 +31,7 @@ from initgen.config.recipe import LAYOUT, RECIPE, load_layout, load_recipe
 from initgen.config.schema import walk_reference
 
 from filemaker import regular
+from filemaker import sha
 
 SCALE = float(os.environ.get("INITGEN_FUZZ_SCALE", "1"))  # e.g. 20 for a long hunt before a release
 
@@ -252,10 +251,6 @@ def folder(tmp_path_factory):
         ds["lat"].units = "degrees_north"
         ds.createVariable("anom", "f4", ("lat", "lon"))[:] = np.full((18, 36), -1.0)
     return d
-
-
-def sha(path) -> str:
-    return hashlib.sha256(Path(path).read_bytes()).hexdigest()
 
 
 def dump(doc) -> str | None:

@@ -8,7 +8,6 @@ IHDR: width and height as 4-byte big-endian integers); file hashes against ``has
 from __future__ import annotations
 
 import base64
-import hashlib
 import json
 import math
 import struct
@@ -31,6 +30,7 @@ from initgen.reports.figures import FIG_PIXELS, short_label
 from initgen.config.recipe import load_recipe
 
 from filemaker import add_land_fraction, curvilinear, points, regular
+from filemaker import sha
 
 PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"  # W3C PNG specification (2003), section 5.2
 
@@ -108,10 +108,6 @@ def assert_self_contained(text: str, page: Page) -> None:
                 assert attrs[key].startswith("data:") or attrs[key].startswith("#"), (tag, key, attrs[key][:40])
     low = text.lower()
     assert "http:" not in low and "https:" not in low and "@import" not in low and "url(" not in low
-
-
-def sha(path) -> str:
-    return hashlib.sha256(Path(path).read_bytes()).hexdigest()
 
 
 def grid_file(tmp_path: Path, kind: str) -> Path:

@@ -9,6 +9,7 @@ import numpy as np
 import pytest
 
 from initgen import api
+from filemaker import read_raw as raw
 
 ROOT = Path(__file__).resolve().parents[1]
 LAYOUTS = ROOT / "recipes" / "layouts"
@@ -27,13 +28,6 @@ def recipe(tmp_path, targets="[soil_temperature]", physics=""):
     p = tmp_path / "r.yaml"
     p.write_text(RECIPE.replace("TARGETS", targets) + physics)
     return p
-
-
-def raw(path, name):
-    with netCDF4.Dataset(path) as ds:
-        v = ds[name]
-        v.set_auto_maskandscale(False)
-        return np.array(v[:])
 
 
 def gridded_file(path, fields):

@@ -9,7 +9,6 @@ built-in demo), not reference data.
 
 from __future__ import annotations
 
-import hashlib
 import json
 import shutil
 import subprocess
@@ -38,6 +37,7 @@ from initgen.demo import write_demo_restart
 from initgen.errors import InputError
 
 from filemaker import curvilinear, points, read_raw, regular
+from filemaker import sha
 
 RECIPE = Path(__file__).resolve().parents[1] / "recipes" / "demo-cold-highland.yaml"
 
@@ -58,10 +58,6 @@ def box_recipe(folder: Path, w=20, e=80, s=10, n=50, taper=0) -> Path:
     p = folder / "box.yaml"
     p.write_text(BOX.format(w=w, e=e, s=s, n=n, taper=taper))
     return p
-
-
-def sha(path) -> str:
-    return hashlib.sha256(Path(path).read_bytes()).hexdigest()
 
 
 def listing(folder: Path) -> set:

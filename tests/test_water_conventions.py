@@ -26,6 +26,7 @@ from initgen.science.soil.conversion import phases_from_total
 from initgen.science.soil.conversion import total_from_phases
 from initgen.science.soil.conversion import water_equivalent_to_ice_volume
 from initgen.errors import InputError
+from filemaker import read_raw as raw
 
 ROOT = Path(__file__).resolve().parents[1]
 LAYOUTS = ROOT / "recipes" / "layouts"
@@ -46,13 +47,6 @@ def recipe(tmp_path, dT, extra=""):
     p = tmp_path / f"r{dT}.yaml"
     p.write_text(RECIPE.replace("DT", str(dT)) + extra)
     return p
-
-
-def raw(path, name):
-    with netCDF4.Dataset(path) as ds:
-        v = ds[name]
-        v.set_auto_maskandscale(False)
-        return np.array(v[:])
 
 
 def read(path, name, per_layer):
