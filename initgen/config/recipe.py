@@ -245,7 +245,9 @@ MEMBERS = Obj(
 # Layout schema
 # ---------------------------------------------------------------------------------------------
 
-LAYERED_ROLES = ("soil_temperature", "soil_liquid", "soil_ice", "snow_temperature", "snow_layer_mass")
+# roles a layout may give as a list of 2-D per-layer variables (top first); which roles a file may
+# hold with a layer axis is io.model.LAYERED_ROLES, a wider set (soil parameters too)
+LIST_ROLES = ("soil_temperature", "soil_liquid", "soil_ice", "snow_temperature", "snow_layer_mass")
 # soil water kept as a total with the liquid or a phase fraction (see WATER below)
 WATER_ROLES = ("soil_water_total", "soil_frozen_fraction", "soil_unfrozen_fraction")
 PLAIN_ROLES = ("longitude", "latitude", "land_fraction", "land_mask", "surface_altitude",
@@ -298,7 +300,7 @@ LAYOUT = Obj(
         "initgen_layout": Num(integer=True, minimum=1, maximum=LAYOUT_VERSION, doc="layout format version"),
         "name": Str(default=None, doc="a name for this layout (model or file kind)"),
         "roles": Obj(doc="role -> variable name(s)", fields={
-            **{r: replace(_LAYERED) for r in LAYERED_ROLES + WATER_ROLES},
+            **{r: replace(_LAYERED) for r in LIST_ROLES + WATER_ROLES},
             **{r: Str(default=None, doc=f"variable holding {r.replace('_', ' ')}") for r in PLAIN_ROLES},
             **{r: replace(_DEPTH) for r in DEPTH_ROLES},
         }),
@@ -309,7 +311,7 @@ LAYOUT = Obj(
                                        doc="with roles.snow_layer_count: whether the counted (active) snow layers "
                                            "are the first or the last along the snow layer axis as stored"),
         "units": Obj(default=None, doc="units to assume for variables without a units attribute: role -> units",
-                     fields={r: Str(default=None) for r in LAYERED_ROLES + WATER_ROLES + PLAIN_ROLES}),
+                     fields={r: Str(default=None) for r in LIST_ROLES + WATER_ROLES + PLAIN_ROLES}),
         "water": WATER,
         "interfaces": Str(choices=("as_given", "midpoints_between_nodes"), default="as_given",
                           doc="as_given: layer interfaces only from the file or the layout (never guessed); "
