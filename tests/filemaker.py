@@ -17,6 +17,17 @@ NODES = np.array([0.05, 0.15, 0.35, 0.75, 1.5])
 FILL = np.float32(1.0e20)
 
 
+def cf_lonlat(ds, lon, lat):
+    """CF longitude and latitude coordinate variables on the existing dims 'lon' and 'lat'."""
+    v = ds.createVariable("lon", "f8", ("lon",))
+    v.units, v.standard_name = "degrees_east", "longitude"
+    v[:] = lon
+    w = ds.createVariable("lat", "f8", ("lat",))
+    w.units, w.standard_name = "degrees_north", "latitude"
+    w[:] = lat
+    return v, w
+
+
 def _temps(shape_h, nlay=NODES.size, seed=0):
     rng = np.random.default_rng(seed)
     base = 275.0 + rng.normal(0.0, 2.0, size=shape_h)
@@ -40,12 +51,7 @@ def regular(path: Path, *, fmt="NETCDF4", nlon=36, nlat=18, lon0=0.0, packed=Fal
     ds.createDimension("lev", NODES.size)
     if with_time:
         ds.createDimension("time", 1)
-    v = ds.createVariable("lon", "f8", ("lon",))
-    v.units, v.standard_name = "degrees_east", "longitude"
-    v[:] = lon
-    v = ds.createVariable("lat", "f8", ("lat",))
-    v.units, v.standard_name = "degrees_north", "latitude"
-    v[:] = lat
+    cf_lonlat(ds, lon, lat)
     v = ds.createVariable("lev", "f4", ("lev",))
     v.units, v.positive, v.standard_name = "m", "down", "depth"
     v[:] = NODES
@@ -233,12 +239,7 @@ def water_file(path: Path, convention="liquid_and_ice", units="kg m-2", *, ice_r
         ds.createDimension("lat", WATER_LAT.size)
         ds.createDimension("lon", WATER_LON.size)
         ds.createDimension("nv", 2)
-        v = ds.createVariable("lon", "f8", ("lon",))
-        v.units, v.standard_name = "degrees_east", "longitude"
-        v[:] = WATER_LON
-        v = ds.createVariable("lat", "f8", ("lat",))
-        v.units, v.standard_name = "degrees_north", "latitude"
-        v[:] = WATER_LAT
+        cf_lonlat(ds, WATER_LON, WATER_LAT)
         v = ds.createVariable("soil_layer", "f8", ("soil_layer",))
         v.units, v.positive, v.standard_name, v.bounds = "m", "down", "depth", "soil_layer_bnds"
         v[:] = WATER_NODES
@@ -307,12 +308,7 @@ def packed_temperature_file(path: Path, headroom_K=5.9):
         ds.createDimension("soil_layer", WATER_NODES.size)
         ds.createDimension("lat", WATER_LAT.size)
         ds.createDimension("lon", WATER_LON.size)
-        v = ds.createVariable("lon", "f8", ("lon",))
-        v.units, v.standard_name = "degrees_east", "longitude"
-        v[:] = WATER_LON
-        v = ds.createVariable("lat", "f8", ("lat",))
-        v.units, v.standard_name = "degrees_north", "latitude"
-        v[:] = WATER_LAT
+        cf_lonlat(ds, WATER_LON, WATER_LAT)
         v = ds.createVariable("soil_layer", "f8", ("soil_layer",))
         v.units, v.positive, v.standard_name = "m", "down", "depth"
         v[:] = WATER_NODES
@@ -423,12 +419,7 @@ def _lonlat_regular(ds, nlon=12, nlat=6, lon0=-175.0, bounds=False):
     lat = -90 + 90.0 / nlat + (180.0 / nlat) * np.arange(nlat)
     ds.createDimension("lon", nlon)
     ds.createDimension("lat", nlat)
-    v = ds.createVariable("lon", "f8", ("lon",))
-    v.units, v.standard_name = "degrees_east", "longitude"
-    v[:] = lon
-    w = ds.createVariable("lat", "f8", ("lat",))
-    w.units, w.standard_name = "degrees_north", "latitude"
-    w[:] = lat
+    v, w = cf_lonlat(ds, lon, lat)
     if bounds:
         ds.createDimension("nv", 2)
         v.bounds, w.bounds = "lon_bnds", "lat_bnds"
