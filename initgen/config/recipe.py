@@ -467,11 +467,9 @@ def _validate(raw: Any, node: Obj, kind: str, source: str, version_key: str, ver
     if version_key not in raw:
         raise InputError(f"{source}: missing '{version_key}: {version}' at the top; add it to mark the {kind} format")
     try:
-        return node.validate(copy.deepcopy(raw), "")
+        return node.validate(copy.deepcopy(raw), "", kind)  # messages name a "recipe key" or a "layout key"
     except InputError as exc:
-        # the schema words every key as a recipe key; a layout's keys are named as such
-        msg = str(exc) if kind == "recipe" else str(exc).replace("recipe key ", f"{kind} key ", 1)
-        raise InputError(f"{source}: {msg}", key=exc.key, file=str(source)) from None
+        raise InputError(f"{source}: {exc}", key=exc.key, file=str(source)) from None
     except RecursionError:
         raise InputError(f"{source}: the {kind} is nested too deeply; start from `initgen schema`") from None
 

@@ -45,7 +45,9 @@ class Node:
     def required(self) -> bool:
         return self.default is _MISSING
 
-    def validate(self, value: Any, path: str) -> Any:  # pragma: no cover - abstract
+    def validate(self, value: Any, path: str, kind: str) -> Any:  # pragma: no cover - abstract
+        """The validated value (defaults filled); ``path`` is the key path so far and ``kind`` the
+        document's kind ('recipe' or 'layout'), which messages name: "layout key roles.x: ..."."""
         raise NotImplementedError
 
     def json(self) -> dict:  # pragma: no cover - abstract
@@ -70,29 +72,29 @@ class Num(Node):
     unit: str = ""
     doc_hint_over: str = ""  # added to the message when a value is above the maximum
 
-    def validate(self, value, path):
-        kind = "an integer" if self.integer else "a number"
+    def validate(self, value, path, kind):
+        what = "an integer" if self.integer else "a number"
         if isinstance(value, bool) or not isinstance(value, (int, float)):
-            raise InputError(f"recipe key {_where(path)}: must be {kind}, got {_show(value)}", key=_where(path))
+            raise InputError(f"{kind} key {_where(path)}: must be {what}, got {_show(value)}", key=_where(path))
         if self.integer and not isinstance(value, int):
             if float(value).is_integer():
                 value = int(value)
             else:
-                raise InputError(f"recipe key {_where(path)}: must be {kind}, got {_show(value)}", key=_where(path))
+                raise InputError(f"{kind} key {_where(path)}: must be {what}, got {_show(value)}", key=_where(path))
         try:
             finite = math.isfinite(value)
         except OverflowError:  # an integer too large for a float
             finite = False
         if not finite:
-            raise InputError(f"recipe key {_where(path)}: must be a finite number, got {_show(value)}", key=_where(path))
+            raise InputError(f"{kind} key {_where(path)}: must be a finite number, got {_show(value)}", key=_where(path))
         unit = f" {self.unit}" if self.unit else ""
         if self.minimum is not None and value < self.minimum:
-            raise InputError(f"recipe key {path}: must be >= {self.minimum}{unit}, got {value}", key=path)
+            raise InputError(f"{kind} key {path}: must be >= {self.minimum}{unit}, got {value}", key=path)
         if self.exclusive_minimum is not None and value <= self.exclusive_minimum:
-            raise InputError(f"recipe key {path}: must be > {self.exclusive_minimum}{unit}, got {value}", key=path)
+            raise InputError(f"{kind} key {path}: must be > {self.exclusive_minimum}{unit}, got {value}", key=path)
         if self.maximum is not None and value > self.maximum:
             hint = self.doc_hint_over if self.doc_hint_over else ""
-            raise InputError(f"recipe key {path}: must be <= {self.maximum}{unit}, got {value}{hint}", key=path)
+            raise InputError(f"{kind} key {path}: must be <= {self.maximum}{unit}, got {value}{hint}", key=path)
         return value if self.integer else float(value)  # 100 and 100.0 hash the same
 
     def json(self):
@@ -114,15 +116,15 @@ class Str(Node):
     pattern_doc: str = ""
     aliases: dict = field(default_factory=dict)  # accepted spelling -> the choice it stands for
 
-    def validate(self, value, path):
+    def validate(self, value, path, kind):
         if not isinstance(value, str) or not value.strip():
-            raise InputError(f"recipe key {_where(path)}: must be a non-empty string, got {_show(value)}", key=_where(path))
+            raise InputError(f"{kind} key {_where(path)}: must be a non-empty string, got {_show(value)}", key=_where(path))
         value = self.aliases.get(value, value)  # e.g. 'centered' is read as 'centred' (and hashes alike)
         if self.choices and value not in self.choices:
             hint = difflib.get_close_matches(value, self.choices, n=1)
             extra = f" (did you mean '{hint[0]}'?)" if hint else ""
             raise InputError(
-                f"recipe key {path}: must be one of {', '.join(self.choices)}, got {_show(value)}{extra}", key=path)
+                f"{kind} key {path}: must be one of {', '.join(self.choices)}, got {_show(value)}{extra}", key=path)
         return value
 
     def json(self):
@@ -134,9 +136,9 @@ class Str(Node):
 
 @dataclass
 class Bool(Node):
-    def validate(self, value, path):
+    def validate(self, value, path, kind):
         if not isinstance(value, bool):
-            raise InputError(f"recipe key {_where(path)}: must be true or false, got {_show(value)}", key=_where(path))
+            raise InputError(f"{kind} key {_where(path)}: must be true or false, got {_show(value)}", key=_where(path))
         return value
 
     def json(self):
@@ -150,16 +152,16 @@ class List(Node):
     max_items: int | None = None
     unique_key: str | None = None
 
-    def validate(self, value, path):
+    def validate(self, value, path, kind):
         if not isinstance(value, list):
-            raise InputError(f"recipe key {_where(path)}: must be a list, got {_show(value)}", key=_where(path))
+            raise InputError(f"{kind} key {_where(path)}: must be a list, got {_show(value)}", key=_where(path))
         if len(value) < self.min_items:
             raise InputError(
-                f"recipe key {_where(path)}: needs at least {self.min_items} item(s), got {len(value)}", key=_where(path))
+                f"{kind} key {_where(path)}: needs at least {self.min_items} item(s), got {len(value)}", key=_where(path))
         if self.max_items is not None and len(value) > self.max_items:
             raise InputError(
-                f"recipe key {_where(path)}: takes at most {self.max_items} item(s), got {len(value)}", key=_where(path))
-        out = [self.item.validate(v, f"{path}[{i}]") for i, v in enumerate(value)]
+                f"{kind} key {_where(path)}: takes at most {self.max_items} item(s), got {len(value)}", key=_where(path))
+        out = [self.item.validate(v, f"{path}[{i}]", kind) for i, v in enumerate(value)]
         if self.unique_key:
             seen = set()
             for i, v in enumerate(out):
@@ -169,7 +171,7 @@ class List(Node):
                 key = key.casefold() if isinstance(key, str) else key
                 if key in seen:
                     raise InputError(
-                        f"recipe key {path}[{i}].{self.unique_key}: duplicate name {_show(shown)} (names are compared without case); "
+                        f"{kind} key {path}[{i}].{self.unique_key}: duplicate name {_show(shown)} (names are compared without case); "
                         "give every entry its own name", key=f"{path}[{i}].{self.unique_key}")
                 seen.add(key)
         return out
@@ -190,38 +192,38 @@ class Obj(Node):
     fields: dict = field(default_factory=dict)
     one_of: tuple = ()  # groups of keys of which exactly one must be present
 
-    def validate(self, value, path):
+    def validate(self, value, path, kind):
         if value is None and not self.required:
             value = {}
         if not isinstance(value, dict):
-            raise InputError(f"recipe key {_where(path)}: must be a mapping of keys, got {_show(value)}", key=_where(path))
+            raise InputError(f"{kind} key {_where(path)}: must be a mapping of keys, got {_show(value)}", key=_where(path))
         for key in value:
             if not isinstance(key, str):
-                raise InputError(f"recipe key {_where(path)}: keys must be strings, got {_show(key)}", key=_where(path))
+                raise InputError(f"{kind} key {_where(path)}: keys must be strings, got {_show(key)}", key=_where(path))
             if key not in self.fields:
                 hint = difflib.get_close_matches(key, list(self.fields), n=1)
                 extra = f"; did you mean '{hint[0]}'?" if hint else f"; known keys: {', '.join(self.fields)}"
-                raise InputError(f"recipe key {_join(path, key)}: unknown key{extra}", key=f"{_join(path, key)}")
+                raise InputError(f"{kind} key {_join(path, key)}: unknown key{extra}", key=f"{_join(path, key)}")
         for group in self.one_of:
             present = [k for k in group if value.get(k) is not None]  # "constant_K:" left empty is absent
             if len(present) != 1:
                 got = ", ".join(present) if present else "none"
                 raise InputError(
-                    f"recipe key {_where(path)}: give exactly one of {', '.join(group)} (got {got})", key=_where(path))
+                    f"{kind} key {_where(path)}: give exactly one of {', '.join(group)} (got {got})", key=_where(path))
         out = {}
         for key, node in self.fields.items():
             sub = _join(path, key)
             if key in value and value[key] is not None:
-                out[key] = node.validate(value[key], sub)
+                out[key] = node.validate(value[key], sub, kind)
             # an optional key written empty ("physics:" with nothing below) is the same as absent
             elif node.required and not any(key in g for g in self.one_of):
-                raise InputError(f"recipe key {sub}: is required ({node.doc or 'see initgen schema'})", key=sub)
+                raise InputError(f"{kind} key {sub}: is required ({node.doc or 'see initgen schema'})", key=sub)
             elif not node.required:
                 default = node.default
                 if isinstance(node, Obj) and default is None:
                     out[key] = None
                 elif isinstance(default, (dict, list)):
-                    out[key] = node.validate(default, sub) if isinstance(node, Obj) else list(default)
+                    out[key] = node.validate(default, sub, kind) if isinstance(node, Obj) else list(default)
                 else:
                     out[key] = default
         return out
@@ -250,11 +252,11 @@ class AnyOf(Node):
     options: tuple = ()
     names: tuple = ()
 
-    def validate(self, value, path):
+    def validate(self, value, path, kind):
         errors = []
         for opt in self.options:
             try:
-                return opt.validate(value, path)
+                return opt.validate(value, path, kind)
             except InputError as exc:
                 errors.append(exc)
         forms = " or ".join(self.names) if self.names else "one of the documented forms"
@@ -262,7 +264,7 @@ class AnyOf(Node):
         for opt, err in zip(self.options, errors):
             if _type_matches(opt, value):
                 raise InputError(str(err), key=err.key)
-        raise InputError(f"recipe key {_where(path)}: must be {forms}, got {_show(value)}", key=_where(path))
+        raise InputError(f"{kind} key {_where(path)}: must be {forms}, got {_show(value)}", key=_where(path))
 
     def json(self):
         return self._base({"anyOf": [o.json() for o in self.options]})
