@@ -1,6 +1,6 @@
 """Ensembles: many perturbed starts from one recipe.
 
-A recipe's ``members`` section (see :func:`initgen.config.recipe.expand_members`) defines members that
+A recipe's ``members`` section (see :func:`initgen.config.members.expand_members`) defines members that
 differ only in how the shared anomaly is used: the change applied for a member is ::
 
     dT(z, x) = w(x) * f(z) * (sign * scale * A(x) + offset_K + noise(x))

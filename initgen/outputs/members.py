@@ -19,7 +19,8 @@ from pathlib import Path
 
 import numpy as np
 
-from initgen.config.recipe import Document, expand_members
+from initgen.config.members import expand_members
+from initgen.config.recipe import Document
 from initgen.engine import plan as plan_mod
 from initgen.errors import InputError
 from initgen.io.grid import open_model
