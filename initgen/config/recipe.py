@@ -18,6 +18,7 @@ import json
 import os
 import re
 from dataclasses import dataclass, replace
+from functools import cached_property
 from pathlib import Path
 from typing import Any
 
@@ -25,6 +26,7 @@ import yaml
 
 from initgen.config.members import expand_members
 from initgen.config.schema import AnyOf, Bool, List, Num, Obj, Str
+from initgen.config.views import RecipeView
 from initgen.errors import InputError
 
 RECIPE_VERSION = 1
@@ -377,6 +379,13 @@ class Document:
     @property
     def name(self) -> str:
         return self.data.get("name") or (self.path.stem if self.path else self.kind)
+
+    @cached_property
+    def view(self) -> RecipeView:
+        """The recipe as typed, frozen views (config/views.py), built once; ``data`` stays what is hashed."""
+        if self.kind != "recipe":
+            raise TypeError(f"a {self.kind} has no typed view; read its data")
+        return RecipeView.of(self.data)
 
 
 Recipe = Document
