@@ -125,18 +125,18 @@ class CheckResult:
         lines = [f"recipe '{self.recipe.name}' is valid", f"recipe sha256: {self.recipe.sha256}"]
         if self.layout is not None:
             lines.append(f"layout '{self.layout.name}' sha256: {self.layout.sha256}")
-        if self.recipe.data.get("members"):
+        if self.recipe.view.members is not None:
             names = [m.name for m in members_mod.members(self.recipe)]
             lines.append(f"members ({len(names)}): " + ", ".join(names))
-        phys = self.recipe.data.get("physics") or {}
-        if phys.get("mode", "none") != "none":
-            rule = phys.get("phase_rule", "change_driven")
-            lines.append(f"physics: mode {phys['mode']}, phase rule {rule} ("
+        phys = self.recipe.view.physics
+        if phys.active:
+            rule = phys.phase_rule
+            lines.append(f"physics: mode {phys.mode}, phase rule {rule} ("
                          + ("water changes phase only where the imposed change requires it"
                             if rule == "change_driven" else
                             "the liquid/ice split is put on the freezing curve, as a diagnosing model would") + ")")
             if self.model is not None:
-                src = plan_mod.soil_parameter_sources(self.plan.physics if self.plan else phys, self.model)
+                src = plan_mod.soil_parameter_sources(phys, self.model)
                 lines.append("soil parameters: " + "; ".join(f"{k.replace('_', ' ')} {v}" for k, v in src.items()))
         if self.model is not None:
             g = self.model.grid
@@ -244,7 +244,7 @@ def preview(recipe, input, layout=None, *, member: str | None = None, allow_outs
     Raises
     ------
     InputError
-        Any bad input.
+        Any bad input; nothing is written.
 
     Examples
     --------
@@ -330,8 +330,7 @@ def _refuse_unstorable_first(plan, store) -> None:
     (With a donor the run would close the donor's file; the refusal then comes while patching
     the temporary copy, which is removed: no output either way.)"""
 
-    if any(b.donor is not None for b in plan.blocks) or \
-            plan.recipe.data.get("limits", {}).get("packed_out_of_range") == "clip":
+    if any(b.donor is not None for b in plan.blocks) or plan.recipe.view.limits.packed_out_of_range == "clip":
         return
     roles = [plan.model.role(t) for t in plan.targets] + [plan.model.role(r) for r in
                                                           ("soil_liquid", "soil_ice", "soil_water_total",
@@ -399,7 +398,7 @@ def perturb(dataset, recipe, layout=None, *, allow_outside_paths: bool = False):
     Raises
     ------
     InputError
-        Any bad input.
+        Any bad input; ``dataset`` is left as it was.
 
     Examples
     --------

@@ -68,12 +68,16 @@ class View:
 
 @dataclass(frozen=True)
 class Box(View):
+    """A longitude/latitude box."""
+
     lon: tuple  # (west, east), degrees east
     lat: tuple  # (south, north), degrees north
 
 
 @dataclass(frozen=True)
 class Published(View):
+    """Regions of a region set that regionmask ships, by abbreviation."""
+
     set: str
     regions: tuple
 
@@ -96,6 +100,8 @@ class Shape(View):
 
 @dataclass(frozen=True)
 class Elevation(View):
+    """The elevation band: weight 0 below min_m (and above max_m), ramps of ramp_m and max_ramp_m."""
+
     min_m: float
     ramp_m: float
     max_m: float | None
@@ -119,6 +125,8 @@ class Region(View):
 
 @dataclass(frozen=True)
 class FieldAnomaly(View):
+    """An anomaly field (K) from a netCDF file, times scale."""
+
     file: str
     variable: str
     scale: float
@@ -126,6 +134,8 @@ class FieldAnomaly(View):
 
 @dataclass(frozen=True)
 class BiasAnomaly(View):
+    """A = -scale * (model climatology - reference climatology)."""
+
     model_file: str
     reference_file: str
     variable: str
@@ -135,6 +145,8 @@ class BiasAnomaly(View):
 
 @dataclass(frozen=True)
 class Donor(View):
+    """Blend the targets toward another restart file of the same model and grid."""
+
     file: str
 
 
@@ -212,6 +224,8 @@ class Physics(View):
 
 @dataclass(frozen=True)
 class Persistence(View):
+    """Report only (not hashed): the horizons and constants of the conduction estimate."""
+
     horizons_days: tuple
     conductivity_W_m_K: float | None
     heat_capacity_J_m3_K: float | None
@@ -219,21 +233,27 @@ class Persistence(View):
 
 @dataclass(frozen=True)
 class Limits(View):
+    """What to do where a change cannot be stored as asked."""
+
     packed_out_of_range: str
 
 
 @dataclass(frozen=True)
+class Noise(View):
+    """Spatially correlated noise added to A(x) per member."""
+
+    sigma_K: float
+    length_km: float
+
+
+@dataclass(frozen=True)
 class MemberSpec(View):
+    """One member of an explicit members list."""
+
     name: str
     scale: float
     sign: int
     offset_K: float
-
-
-@dataclass(frozen=True)
-class Noise(View):
-    sigma_K: float
-    length_km: float
 
 
 @dataclass(frozen=True)

@@ -11,6 +11,7 @@ from pathlib import Path
 import numpy as np
 
 from initgen.config.recipe import Document, resolve_path
+from initgen.config.views import Anomaly, Physics, Profile, Region, Shape
 from initgen.errors import InputError, InputWarning
 from initgen.io.atomic import sha256_file
 from initgen.io import readers
@@ -47,7 +48,7 @@ class Plan:
     recipe: Document
     model: ModelFile
     blocks: list
-    physics: dict
+    physics: Physics  # the recipe's physics section (recipe.view.physics)
     region: np.ndarray  # bool, window shape: any block's weight > 0
     window: tuple | None = None  # per horizontal dim, sorted file indices; None: the whole grid
     member_scale: float = 1.0
@@ -85,7 +86,7 @@ def _keyed(exc: InputError, key: str) -> InputError:
     return exc if exc.key is not None else InputError(f"recipe key {key}: {exc}", key=key)
 
 
-def shape_geometry(shape: dict, recipe: Document, key: str, allow_outside: bool):
+def shape_geometry(shape: Shape, recipe: Document, key: str, allow_outside: bool):
     try:
         return _shape_geometry(shape, recipe, key, allow_outside)
     except InputError as exc:
@@ -98,24 +99,23 @@ def shape_geometry(shape: dict, recipe: Document, key: str, allow_outside: bool)
 MAX_ABS_LON = 720.0  # two turns either way; beyond, wrapping a shape would take for ever
 
 
-def _shape_geometry(shape: dict, recipe: Document, key: str, allow_outside: bool):
-    if shape.get("geojson"):
-        path = resolve_shape_file(recipe, shape["geojson"], key + ".geojson", allow_outside)
+def _shape_geometry(shape: Shape, recipe: Document, key: str, allow_outside: bool):
+    if shape.geojson:
+        path = resolve_shape_file(recipe, shape.geojson, key + ".geojson", allow_outside)
         geom = readers.read_geojson(path)
         west, _, east, _ = geom.bounds
         if not (-MAX_ABS_LON <= west and east <= MAX_ABS_LON):
             raise InputError(f"recipe key {key}.geojson: {path.name} has longitudes {west:.6g}..{east:.6g}, beyond "
                              f"+-{MAX_ABS_LON:g} degrees; give longitude/latitude in degrees (EPSG:4326)", key=f"{key}.geojson")
         return geom
-    if shape.get("box"):
-        (w, e), (s, n) = shape["box"]["lon"], shape["box"]["lat"]
+    if shape.box:
+        (w, e), (s, n) = shape.box.lon, shape.box.lat
         if s >= n:
             raise InputError(f"recipe key {key}.box.lat: south ({s}) must be below north ({n})", key=f"{key}.box.lat")
         return regions_shapes.box(w, e, s, n)
-    if shape.get("vertices"):
-        return regions_shapes.polygon(shape["vertices"])
-    pub = shape["published"]
-    return regions_shapes.published(pub["set"], pub["regions"])
+    if shape.vertices:
+        return regions_shapes.polygon(shape.vertices)
+    return regions_shapes.published(shape.published.set, shape.published.regions)
 
 
 def resolve_shape_file(recipe: Document, rel: str, key: str, allow_outside: bool) -> Path:
@@ -139,51 +139,51 @@ def referenced_files(recipe: Document, allow_outside: bool = False) -> dict:
     cover what its text points to, so a changed outline or field shows in the provenance."""
 
     out = {}
-    for i, b in enumerate(recipe.data["perturbations"]):
+    for i, b in enumerate(recipe.view.perturbations):
         key = f"perturbations[{i}]"
         for part in ("include", "exclude"):
-            for j, shape in enumerate(b["region"][part]):
-                if shape.get("geojson"):
+            for j, shape in enumerate(getattr(b.region, part)):
+                if shape.geojson:
                     k = f"{key}.region.{part}[{j}].geojson"
-                    out[k] = resolve_shape_file(recipe, shape["geojson"], k, allow_outside)
-        anomaly = b["anomaly"]
+                    out[k] = resolve_shape_file(recipe, shape.geojson, k, allow_outside)
         for kind, names in (("field", ("file",)), ("bias", ("model_file", "reference_file")), ("donor", ("file",))):
+            source = getattr(b.anomaly, kind)
             for name in names:
-                if anomaly.get(kind):
+                if source is not None:
                     k = f"{key}.anomaly.{kind}.{name}"
-                    out[k] = resolve_path(recipe, anomaly[kind][name], k, allow_outside)
+                    out[k] = resolve_path(recipe, getattr(source, name), k, allow_outside)
     return {k: {"path": str(p), "sha256": sha256_file(p)} for k, p in out.items()}
 
 
-def region_geometry(region: dict, recipe: Document, key: str, allow_outside: bool):
-    inc = [shape_geometry(s, recipe, f"{key}.include[{i}]", allow_outside) for i, s in enumerate(region["include"])]
-    exc = [shape_geometry(s, recipe, f"{key}.exclude[{i}]", allow_outside) for i, s in enumerate(region["exclude"])]
+def region_geometry(region: Region, recipe: Document, key: str, allow_outside: bool):
+    inc = [shape_geometry(s, recipe, f"{key}.include[{i}]", allow_outside) for i, s in enumerate(region.include)]
+    exc = [shape_geometry(s, recipe, f"{key}.exclude[{i}]", allow_outside) for i, s in enumerate(region.exclude)]
     return regions_shapes.combine(inc, exc)
 
 
-def horizontal_weight(model: ModelFile, region: dict, geom, name: str, window: tuple,
+def horizontal_weight(model: ModelFile, region: Region, geom, name: str, window: tuple,
                       lon: np.ndarray, lat: np.ndarray, key: str = "region") -> np.ndarray:
     """w(x) = taper(x) * elevation ramp(x) * land weight(x) on the window; 0 where land data are missing."""
     grid = model.grid
-    if region["taper_km"] > 0:
-        w = regions_mask.taper_weight(lon, lat, geom, region["taper_km"], placement=region["taper_placement"])
+    if region.taper_km > 0:
+        w = regions_mask.taper_weight(lon, lat, geom, region.taper_km, placement=region.taper_placement)
     else:
         w = regions_mask.hard_mask(lon, lat, geom).astype(np.float64)
     if not np.any(w > 0):
         raise InputError(f"region '{name}' contains no grid point; the grid spans {grid.extent()}; check the "
                          "region's coordinates and longitude convention")
     regions_factors.check_coverage(w > 0, name, lon, lat)
-    elev = region.get("elevation")
+    elev = region.elevation
     if elev:
         role = model.require("surface_altitude", f"region '{name}' has an elevation band")
         z = read_window(model, role, window) * _metres_per(role, model)
-        w = w * regions_factors.elevation_ramp(z, elev["min_m"], elev["ramp_m"], elev.get("max_m"), elev["max_ramp_m"])
+        w = w * regions_factors.elevation_ramp(z, elev.min_m, elev.ramp_m, elev.max_m, elev.max_ramp_m)
     frac = model.role("land_fraction")
     mask = model.role("land_mask")
-    if frac is not None and region["use_land_fraction"]:
+    if frac is not None and region.use_land_fraction:
         w = w * regions_factors.land_weight(fraction=land_fraction(model, window))
     elif mask is not None:
-        w = w * regions_factors.land_weight(mask=read_window(model, mask, window), threshold=region["land_threshold"])
+        w = w * regions_factors.land_weight(mask=read_window(model, mask, window), threshold=region.land_threshold)
     # the last sliver of a taper (w < 1e-6, a micro-kelvin per kelvin of anomaly) cannot change a
     # stored value; counting it as region would only blur the ledger
     w = np.where(np.isfinite(w) & (w >= MIN_WEIGHT), w, 0.0)
@@ -319,7 +319,7 @@ def _interp_to_grid(dst: tuple, lon, lat, vals, key: str, weight: np.ndarray) ->
 MAX_ANOMALY_K = 60.0  # the bound of anomaly.constant_K in the recipe schema
 
 
-def block_anomaly(model: ModelFile, anomaly: dict, recipe: Document, key: str, weight: np.ndarray,
+def block_anomaly(model: ModelFile, anomaly: Anomaly, recipe: Document, key: str, weight: np.ndarray,
                   allow_outside: bool, dst: tuple):
     a, donor = _block_anomaly(model, anomaly, recipe, key, weight, allow_outside, dst)
     if a is not None:
@@ -327,34 +327,33 @@ def block_anomaly(model: ModelFile, anomaly: dict, recipe: Document, key: str, w
         big = region & ~(np.abs(a) <= MAX_ANOMALY_K)
         if np.any(big):
             worst = float(np.nanmax(np.abs(np.where(big, a, 0.0)))) if np.any(np.isfinite(a[big])) else float("nan")
-            kind = next(k for k in ("field", "bias") if anomaly.get(k))
+            kind = anomaly.kind  # field or bias: a constant is within the schema's bounds
             raise InputError(f"recipe key {key}.{kind}: the anomaly reaches {worst:.6g} K in {int(big.sum())} region "
                              f"cell(s), beyond +-{MAX_ANOMALY_K:g} K; check the file's units and variable, or the scale", key=f"{key}.{kind}")
     return a, donor
 
 
-def _block_anomaly(model: ModelFile, anomaly: dict, recipe: Document, key: str, weight: np.ndarray,
+def _block_anomaly(model: ModelFile, anomaly: Anomaly, recipe: Document, key: str, weight: np.ndarray,
                    allow_outside: bool, dst: tuple):
-    if anomaly.get("constant_K") is not None:
-        return np.full(weight.shape, float(anomaly["constant_K"])), None
-    if anomaly.get("field"):
-        f = anomaly["field"]
-        path = resolve_path(recipe, f["file"], f"{key}.field.file", allow_outside)
-        lon, lat, vals = read_field(path, f["variable"], f"{key}.field.variable")
-        return f["scale"] * _interp_to_grid(dst, lon, lat, vals, f"{key}.field", weight), None
-    if anomaly.get("bias"):
-        b = anomaly["bias"]
-        mpath = resolve_path(recipe, b["model_file"], f"{key}.bias.model_file", allow_outside)
-        rpath = resolve_path(recipe, b["reference_file"], f"{key}.bias.reference_file", allow_outside)
-        mlon, mlat, mvals = read_field(mpath, b["variable"], f"{key}.bias.variable")
-        rlon, rlat, rvals = read_field(rpath, b.get("reference_variable") or b["variable"],
+    if anomaly.constant_K is not None:
+        return np.full(weight.shape, float(anomaly.constant_K)), None
+    if anomaly.field:
+        f = anomaly.field
+        path = resolve_path(recipe, f.file, f"{key}.field.file", allow_outside)
+        lon, lat, vals = read_field(path, f.variable, f"{key}.field.variable")
+        return f.scale * _interp_to_grid(dst, lon, lat, vals, f"{key}.field", weight), None
+    if anomaly.bias:
+        b = anomaly.bias
+        mpath = resolve_path(recipe, b.model_file, f"{key}.bias.model_file", allow_outside)
+        rpath = resolve_path(recipe, b.reference_file, f"{key}.bias.reference_file", allow_outside)
+        mlon, mlat, mvals = read_field(mpath, b.variable, f"{key}.bias.variable")
+        rlon, rlat, rvals = read_field(rpath, b.reference_variable or b.variable,
                                        f"{key}.bias.reference_variable")
         mod = _interp_to_grid(dst, mlon, mlat, mvals, f"{key}.bias.model_file", weight)
         ref = _interp_to_grid(dst, rlon, rlat, rvals, f"{key}.bias.reference_file", weight)
-        return sources.bias_anomaly(mod, ref, b["scale"]), None
-    d = anomaly["donor"]
+        return sources.bias_anomaly(mod, ref, b.scale), None
 
-    path = resolve_path(recipe, d["file"], f"{key}.donor.file", allow_outside)
+    path = resolve_path(recipe, anomaly.donor.file, f"{key}.donor.file", allow_outside)
     donor_store = NetCDFStore(path)
     donor = open_model(donor_store, model.layout)
     if donor.grid.shape != model.grid.shape or donor.grid.lon_src.shape != model.grid.lon_src.shape \
@@ -366,21 +365,21 @@ def _block_anomaly(model: ModelFile, anomaly: dict, recipe: Document, key: str, 
     return None, donor
 
 
-def profile_factors(profile: dict, layers: Layers | None, key: str) -> tuple[np.ndarray | None, float]:
+def profile_factors(profile: Profile, layers: Layers | None, key: str) -> tuple[np.ndarray | None, float]:
     """f(z) per soil layer, and f at the surface (used for skin and snow temperatures)."""
-    kw = dict(efolding_m=profile.get("efolding_m"), zero_at_m=profile.get("zero_at_m"),
-              table=profile.get("table"), diffusivity_m2_s=profile.get("diffusivity_m2_s"),
-              period_s=None if profile.get("period_days") is None else profile["period_days"] * 86400.0,
-              max_depth_m=profile.get("max_depth_m"))
+    kw = dict(efolding_m=profile.efolding_m, zero_at_m=profile.zero_at_m,
+              table=profile.table, diffusivity_m2_s=profile.diffusivity_m2_s,
+              period_s=None if profile.period_days is None else profile.period_days * 86400.0,
+              max_depth_m=profile.max_depth_m)
     surface = Layers(np.array([0.0]), np.array([1e-9]), np.array([0.0]))
     try:
-        fsurf = float(profiles.factor(profile["kind"], surface, evaluate="node", **kw)[0])
+        fsurf = float(profiles.factor(profile.kind, surface, evaluate="node", **kw)[0])
         if layers is None:
-            if profile["kind"] != "uniform":
-                raise InputError(f"recipe key {key}.kind: profile '{profile['kind']}' needs soil layer depths, and "
+            if profile.kind != "uniform":
+                raise InputError(f"recipe key {key}.kind: profile '{profile.kind}' needs soil layer depths, and "
                                  "none were found; name roles.layer_node_depth (or interfaces/thickness) in the layout", key=f"{key}.kind")
             return None, fsurf
-        return np.asarray(profiles.factor(profile["kind"], layers, evaluate=profile["evaluate"], **kw), float), fsurf
+        return np.asarray(profiles.factor(profile.kind, layers, evaluate=profile.evaluate, **kw), float), fsurf
     except InputError as exc:
         if exc.key is not None:  # already names its recipe key
             raise exc from None

@@ -112,7 +112,7 @@ class Ledger:
         self.phase[key] = cur + per_layer
 
     def _phase_rule(self) -> str:
-        rule = self.plan.physics.get("phase_rule", "change_driven")
+        rule = self.plan.physics.phase_rule
         if getattr(self.plan.model, "phase_split_diagnosed", False):
             self.note("phase_rule", "the file keeps only total soil water, so its model diagnoses the liquid/ice "
                                     f"split from temperature: the equilibrium rule is used (the recipe says {rule})")
@@ -157,10 +157,10 @@ class Ledger:
             "variables": {},
             "clamps": dict(sorted(self.clamps.items())),
             "flags": dict(sorted(self.flags.items())),
-            "physics": {"mode": self.plan.physics["mode"],
+            "physics": {"mode": self.plan.physics.mode,
                         **({"phase_rule": self._phase_rule(),
                             "soil_parameters": self.soil_sources}
-                           if self.plan.physics["mode"] != "none" else {})},
+                           if self.plan.physics.active else {})},
             "member_factors": {"scale_times_sign": _num(self.plan.member_scale),
                                "offset_K": _num(self.plan.member_offset_K),
                                "noise": self.plan.noise is not None},
@@ -186,7 +186,7 @@ class Ledger:
             out["notes"] = dict(sorted(self.notes.items()))
         inv = self.invariants
         if inv.get("cells_checked"):
-            mode = self.plan.physics["mode"]
+            mode = self.plan.physics.mode
             rec = {"cells_checked": int(inv["cells_checked"]),
                    "water_change_region_kg": _num(inv["water_change_kg"]),
                    "water_change_relative": float(f"{inv['water_change_kg'] / inv['water_before_kg']:.3g}")
@@ -209,7 +209,7 @@ class Ledger:
                               + ("; the phase change paid by the imposed energy" if mode == "energy" else ""))
             out["physics"]["invariants"] = rec
         if self.input_shift:
-            rule = self.plan.physics.get("phase_rule", "change_driven")
+            rule = self.plan.physics.phase_rule
             s = self.input_shift
             out["input_phase_disequilibrium"] = {
                 "cells_per_layer": [int(v) for v in s["cells"]],

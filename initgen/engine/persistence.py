@@ -40,17 +40,17 @@ def _norm(name) -> str:
 
 def settings(plan) -> dict:
     """Decide once per plan where heat capacity and conductivity come from (or why not)."""
-    rec = plan.recipe.data.get("persistence") or {}
+    rec = plan.recipe.view.persistence
     phys = plan.physics
-    horizons = [float(h) for h in rec.get("horizons_days") or (7, 15, 30, 60)]
-    k_const, c_const = rec.get("conductivity_W_m_K"), rec.get("heat_capacity_J_m3_K")
+    horizons = [float(h) for h in rec.horizons_days]
+    k_const, c_const = rec.conductivity_W_m_K, rec.heat_capacity_J_m3_K
     out = {"horizons_days": horizons, "k": k_const, "C": c_const, "reason": None, "quartz": None,
            "coarse": False, "sand_role": False}
     model = plan.model
     if model.layers is None:
         out["reason"] = "the model's layer thicknesses are unknown (name the layer depths in the layout)"
         return out
-    state = phys.get("mode", "none") != "none"
+    state = phys.active
     if c_const is None and not state:
         out["reason"] = ("physics.mode is none, so the soil water is not read; give physics.mode, or "
                          "persistence.heat_capacity_J_m3_K and persistence.conductivity_W_m_K in the recipe")
@@ -68,13 +68,13 @@ def settings(plan) -> dict:
         out["sand_role"] = True
         out["conductivity_source"] = ("soil state, Johansen (1975), quartz fraction = the layout's sand fraction "
                                       f"(coarse Kersten relation where sand >= {COARSE_SAND_PCT:g} %)")
-    elif phys.get("sand_pct") is not None and model.role("porosity") is None:
-        out["quartz"] = phys["sand_pct"] / 100.0
-        out["coarse"] = phys["sand_pct"] >= COARSE_SAND_PCT
+    elif phys.sand_pct is not None and model.role("porosity") is None:
+        out["quartz"] = phys.sand_pct / 100.0
+        out["coarse"] = phys.sand_pct >= COARSE_SAND_PCT
         out["conductivity_source"] = (f"soil state, Johansen (1975), quartz fraction {out['quartz']:.2f} = "
                                       "physics.sand_pct / 100")
-    elif phys.get("texture") and model.role("porosity") is None:
-        key = _norm(phys["texture"])
+    elif phys.texture and model.role("porosity") is None:
+        key = _norm(phys.texture)
         out["quartz"] = conduction.QUARTZ_BY_TEXTURE.get(key)
         out["coarse"] = key in conduction.COARSE_TEXTURES
         out["conductivity_source"] = (f"soil state, Johansen (1975), quartz fraction {out['quartz']} for texture "
@@ -82,10 +82,10 @@ def settings(plan) -> dict:
     if out["quartz"] is None and not out["sand_role"]:
         out["reason"] = ("the quartz content Johansen's conductivity needs is unknown (the soil parameters come "
                          "from the layout or as constants); give persistence.conductivity_W_m_K in the recipe")
-    elif phys.get("organic_fraction"):
+    elif phys.organic_fraction:
         # the porosity in the conductivity is the blended one, the solids and dry conductivities the
         # mineral ones: said, not hidden
-        out["conductivity_source"] += (f"; physics.organic_fraction {phys['organic_fraction']:g} blends the "
+        out["conductivity_source"] += (f"; physics.organic_fraction {phys.organic_fraction:g} blends the "
                                        "porosity only, not the solids or dry conductivity (mineral values)")
     return out
 

@@ -6,6 +6,7 @@ from __future__ import annotations
 
 import numpy as np
 
+from initgen.config.views import Physics
 from initgen.engine.fields import Plan
 from initgen.engine.tiling import _bcast_h, _layer_col
 from initgen.errors import InputError
@@ -118,28 +119,28 @@ def _hydraulics(plan: Plan, store, hkey, shape, model=None):
         sand_ok, clay_ok = np.where(ok, sand, 40.0), np.where(ok, clay, 20.0)
         por, psi, b = (np.where(ok, x, np.nan) for x in soil_properties.cosby_1984(sand_ok, clay_ok))
         c_solid = np.where(ok, soil_properties.soil_solid_heat_capacity(sand_ok, clay_ok), np.nan)
-    elif phys.get("sand_pct") is not None and phys.get("clay_pct") is not None:
-        por, psi, b = soil_properties.cosby_1984(phys["sand_pct"], phys["clay_pct"])
-        c_solid = soil_properties.soil_solid_heat_capacity(phys["sand_pct"], phys["clay_pct"])
-    elif phys.get("texture"):
-        por, psi, b = soil_properties.hydraulics_from_texture(phys["texture"])
-        c_solid = soil_properties.texture_solid_heat_capacity(phys["texture"])
-    elif phys.get("porosity") and phys.get("psi_sat_m") and phys.get("clapp_b"):
-        por, psi, b = phys["porosity"], phys["psi_sat_m"], phys["clapp_b"]
+    elif phys.sand_pct is not None and phys.clay_pct is not None:
+        por, psi, b = soil_properties.cosby_1984(phys.sand_pct, phys.clay_pct)
+        c_solid = soil_properties.soil_solid_heat_capacity(phys.sand_pct, phys.clay_pct)
+    elif phys.texture:
+        por, psi, b = soil_properties.hydraulics_from_texture(phys.texture)
+        c_solid = soil_properties.texture_solid_heat_capacity(phys.texture)
+    elif phys.porosity and phys.psi_sat_m and phys.clapp_b:
+        por, psi, b = phys.porosity, phys.psi_sat_m, phys.clapp_b
     else:
         raise InputError("recipe key physics: a physics mode needs soil hydraulic parameters; give physics.texture, "
                          "physics.sand_pct and clay_pct, or porosity, psi_sat_m and clapp_b (or name them in the layout)", key="physics")
-    if phys.get("organic_fraction") is not None:
+    if phys.organic_fraction is not None:
         if named:
             raise InputError("recipe key physics.organic_fraction: the layout gives the model's own soil parameters "
                              f"({', '.join(named)}); blend organic soil into recipe parameters only (remove one)", key="physics.organic_fraction")
         (por, psi, b), c_solid = soil_properties.blend_organic(
-            (por, psi, b), constants.CV_SOLID_DEFAULT if c_solid is None else c_solid, phys["organic_fraction"])
+            (por, psi, b), constants.CV_SOLID_DEFAULT if c_solid is None else c_solid, phys.organic_fraction)
     out = tuple(np.broadcast_to(np.asarray(x, float), shape) for x in (por, psi, b))
     return out + (None if c_solid is None else np.broadcast_to(np.asarray(c_solid, float), shape),)
 
 
-def soil_parameter_sources(physics: dict, model: ModelFile) -> dict:
+def soil_parameter_sources(physics: Physics, model: ModelFile) -> dict:
     """Where the soil parameters of a physics mode come from, in words (for check and the ledger):
     the same order of precedence as :func:`_hydraulics`."""
     named = [r for r in ("porosity", "psi_sat", "clapp_b") if model.role(r) is not None]
@@ -150,19 +151,19 @@ def soil_parameter_sources(physics: dict, model: ModelFile) -> dict:
     elif model.role("sand") is not None and model.role("clay") is not None:
         hyd = "Cosby et al. (1984) Table 5 from the file's sand and clay"
         cs = "texture formula (de Vries 1963 values) from the file's sand and clay"
-    elif physics.get("sand_pct") is not None:
-        hyd = f"Cosby et al. (1984) Table 5 at sand {physics['sand_pct']:g} %, clay {physics['clay_pct']:g} %"
+    elif physics.sand_pct is not None:
+        hyd = f"Cosby et al. (1984) Table 5 at sand {physics.sand_pct:g} %, clay {physics.clay_pct:g} %"
         cs = "texture formula (de Vries 1963 values) at the same sand and clay"
-    elif physics.get("texture"):
-        sand, clay = soil_properties.TEXTURE_CLASS_CENTROID_PCT.get(physics["texture"], (None, None))
-        hyd = f"Clapp and Hornberger (1978) Table 2, {physics['texture']}"
+    elif physics.texture:
+        sand, clay = soil_properties.TEXTURE_CLASS_CENTROID_PCT.get(physics.texture, (None, None))
+        hyd = f"Clapp and Hornberger (1978) Table 2, {physics.texture}"
         cs = (f"texture formula at the class centroid (sand {sand:g} %, clay {clay:g} %)" if sand is not None
               else "texture formula at the class centroid")
     else:
         hyd, cs = "recipe constants porosity, psi_sat_m, clapp_b", default_cs
     out = {"hydraulics": hyd, "solids_heat_capacity": cs}
-    if physics.get("organic_fraction") is not None:
-        out["organic_fraction"] = (f"{physics['organic_fraction']:g}, blended linearly with the organic soil of "
+    if physics.organic_fraction is not None:
+        out["organic_fraction"] = (f"{physics.organic_fraction:g}, blended linearly with the organic soil of "
                                    "Lawrence and Slater (2008)")
     return out
 
@@ -372,12 +373,12 @@ def _one_sided_consistent(T, liq, ice, kw, tol=1e-9) -> np.ndarray:
     return soil_freezing.one_sided_consistent(T, liq, ice, kw["porosity"], kw["psi_sat_m"], kw["b"], tol=tol)
 
 
-def effective_phase_rule(physics: dict, water_spec) -> str:
+def effective_phase_rule(physics: Physics, water_spec) -> str:
     """The recipe's phase rule, except for a file that keeps only total water: its model
     diagnoses the liquid/ice split from temperature, which is the equilibrium rule."""
     if water_spec is not None and getattr(water_spec, "phase_split_diagnosed", False):
         return "equilibrium"
-    return physics.get("phase_rule", "change_driven")
+    return physics.phase_rule
 
 
 def _report_input_shift(T0, water, inside, led, area) -> None:

@@ -40,10 +40,9 @@ from initgen.science.soil import properties as soil_properties
 
 
 def needed_roles(recipe: Document) -> tuple:
-    need = set()
-    for block in recipe.data["perturbations"]:
-        need.update(block["targets"])
-    if recipe.data["physics"]["mode"] != "none" and "soil_temperature" in need:
+    view = recipe.view
+    need = set(view.targets)
+    if view.physics.active and "soil_temperature" in need:
         need.update(("soil_liquid", "soil_ice"))
     return tuple(sorted(need))
 
@@ -53,30 +52,31 @@ def needed_roles(recipe: Document) -> tuple:
 
 def build_plan(recipe: Document, model: ModelFile, *, allow_outside: bool = False) -> Plan:
     blocks = []
-    geoms = [region_geometry(b["region"], recipe, f"perturbations[{i}].region", allow_outside)
-             for i, b in enumerate(recipe.data["perturbations"])]
-    window = find_window(model, [(g, b["region"]["taper_km"]) for g, b in zip(geoms, recipe.data["perturbations"])])
+    view = recipe.view
+    geoms = [region_geometry(b.region, recipe, f"perturbations[{i}].region", allow_outside)
+             for i, b in enumerate(view.perturbations)]
+    window = find_window(model, [(g, b.region.taper_km) for g, b in zip(geoms, view.perturbations)])
     if any(w.size == 0 for w in window):
-        name = recipe.data["perturbations"][0]["name"]
+        name = view.perturbations[0].name
         raise InputError(f"region '{name}' contains no grid point; the grid spans {model.grid.extent()}; check the "
                          "region's coordinates and longitude convention")
     lon, lat, _ = model.grid.at(window)
     region_any = np.zeros(lon.shape, bool)
-    for i, (b, geom) in enumerate(zip(recipe.data["perturbations"], geoms)):
+    for i, (b, geom) in enumerate(zip(view.perturbations, geoms)):
         key = f"perturbations[{i}]"
-        w = horizontal_weight(model, b["region"], geom, b["name"], window, lon, lat, key=f"{key}.region")
-        anomaly, donor = block_anomaly(model, b["anomaly"], recipe, f"{key}.anomaly", w, allow_outside, (lon, lat))
-        factors, fsurf = profile_factors(b["profile"], model.layers, f"{key}.profile")
+        w = horizontal_weight(model, b.region, geom, b.name, window, lon, lat, key=f"{key}.region")
+        anomaly, donor = block_anomaly(model, b.anomaly, recipe, f"{key}.anomaly", w, allow_outside, (lon, lat))
+        factors, fsurf = profile_factors(b.profile, model.layers, f"{key}.profile")
         soil = model.role("soil_temperature")
         if factors is not None and soil is not None and soil.layered and soil.nlayers != factors.size:
             raise InputError(f"{model.store.describe()}: soil temperature has {soil.nlayers} layers but the layer "
                              f"depths describe {factors.size}; check the layout's depth role and snow_layers")
         if factors is None and soil is not None and soil.layered:
             factors = np.ones(soil.nlayers)
-        blocks.append(BlockPlan(b["name"], i, tuple(b["targets"]), w, anomaly, factors, fsurf, donor,
-                                b["snow_mass_mode"], b["snow_mass_change"], [str(geom.bounds)]))
+        blocks.append(BlockPlan(b.name, i, b.targets, w, anomaly, factors, fsurf, donor,
+                                b.snow_mass_mode, b.snow_mass_change, [str(geom.bounds)]))
         region_any |= w > 0
-    plan = Plan(recipe, model, blocks, dict(recipe.data["physics"]), region_any, window)
+    plan = Plan(recipe, model, blocks, view.physics, region_any, window)
     plan.files = referenced_files(recipe, allow_outside)
     if getattr(model, "grid_file", None):  # the layout's separate grid file: its hash goes into the provenance
 
@@ -92,15 +92,15 @@ def check_before_writing(plan: Plan) -> None:
         _check_units(plan, model)
     except InputError as exc:
         raise InputError(f"{model.store.describe()}: {exc}") from None
-    if plan.physics.get("texture"):
+    if plan.physics.texture:
         try:
-            soil_properties.hydraulics_from_texture(plan.physics["texture"])
+            soil_properties.hydraulics_from_texture(plan.physics.texture)
         except InputError as exc:
             raise _keyed(exc, "physics.texture") from None
     # the soil parameters the physics will use, read and range-checked where the region lies,
     # so that `check` and `apply` refuse them before anything is written
     soil_role = model.role("soil_temperature")
-    if plan.physics["mode"] != "none" and "soil_temperature" in plan.targets and soil_role is not None \
+    if plan.physics.active and "soil_temperature" in plan.targets and soil_role is not None \
             and model.layers is not None:
         for slab in slabs(plan):
             for hkey, _ in blocks_of(plan, slab):
@@ -117,7 +117,7 @@ def _check_units(plan: Plan, model: ModelFile) -> None:
                           f"attribute; assuming K (give it units, or set layout key units.{target})", InputWarning, stacklevel=2)
         if target in plan.targets and role is not None:
             soil_conversion.temperature_to_kelvin(np.zeros(1), role.units or "K", name=role.variables[0], key=f"units.{target}")
-    if plan.physics["mode"] != "none" and "soil_temperature" in plan.targets:
+    if plan.physics.active and "soil_temperature" in plan.targets:
         for rname in ("soil_liquid", "soil_ice"):
             role = model.role(rname)
             if role is not None:
@@ -128,11 +128,11 @@ def _check_units(plan: Plan, model: ModelFile) -> None:
 def run(plan: Plan, store, *, write: bool, progress=None) -> dict:
     """Apply the plan to ``store`` (writing only when ``write``) and return the ledger."""
     led = ledger_mod.Ledger(plan)
-    if plan.physics["mode"] != "none":
+    if plan.physics.active:
         led.soil_sources = soil_parameter_sources(plan.physics, plan.model)
     all_blocks = [b for s in slabs(plan) for b in blocks_of(plan, s)]
     limits = plan.model.limits
-    limits.reset(clip=(plan.recipe.data.get("limits") or {}).get("packed_out_of_range") == "clip")
+    limits.reset(clip=plan.recipe.view.limits.packed_out_of_range == "clip")
     for k, (hkey, widx) in enumerate(all_blocks):
         apply_block(plan, store, hkey, widx, led, write=write)
         if progress:
@@ -143,14 +143,13 @@ def run(plan: Plan, store, *, write: bool, progress=None) -> dict:
                 b.donor.store.close()
     _storable_or_refuse(plan, led)
     out = led.finish()
-    if plan.model.water is not None and plan.physics["mode"] != "none" and "soil_temperature" in plan.targets:
+    if plan.model.water is not None and plan.physics.active and "soil_temperature" in plan.targets:
         out["water"] = plan.model.water.record()
     out["data_blocks_read"] = len(all_blocks)
     odd = sum(out["flags"].get(k, 0) for k in ("realised_change_opposite_to_imposed",
                                                 "realised_change_larger_than_imposed",
                                                 "phase_change_against_imposed_change"))
-    source = plan.physics.get("texture") or ("sand/clay" if plan.physics.get("sand_pct") is not None else
-                                             "the given parameters")
+    source = plan.physics.texture or ("sand/clay" if plan.physics.sand_pct is not None else "the given parameters")
     shift = out.get("input_phase_disequilibrium")
     # the change-driven rule holds ice beside liquid below the curve as stable: warn only about
     # states it would not hold either; the equilibrium rule re-balances every cell counted
@@ -241,7 +240,7 @@ def apply_block(plan: Plan, store, hkey: dict, widx: tuple, led, *, write: bool)
         inside = np.broadcast_to(_bcast_h(inside_h, 2), T0.shape) & np.isfinite(T0)
         _check_no_undeclared_gaps(role, T0, np.broadcast_to(_bcast_h(inside_h, 2), T0.shape), store)
         T = T0.copy()
-        water = _read_water(plan, store, hkey, T0.shape) if phys["mode"] != "none" else None
+        water = _read_water(plan, store, hkey, T0.shape) if phys.active else None
         if water is not None:
             _report_input_shift(T0, water, inside, led, area)
         for b, w in zip(plan.blocks, weights):
@@ -261,17 +260,17 @@ def apply_block(plan: Plan, store, hkey: dict, widx: tuple, led, *, write: bool)
                         water[k] = np.where(sel, sources.donor_blend(water[k], dw[k], np.broadcast_to(wf, T.shape)),
                                             water[k])
                 if water is not None:
-                    _equilibrate_blend(T, water, sel, led, area, phys.get("phase_rule", "change_driven"))
+                    _equilibrate_blend(T, water, sel, led, area, phys.phase_rule)
                 continue
             dT = wf * _bcast_h(_anomaly(plan, b, hidx), 2)
             if water is None:
                 T = np.where(sel, T + dT, T)
             else:
                 T_before = T
-                T = _physics(T, T + dT, water, sel, phys, led, area, nh, mode=phys["mode"], dT=dT)
+                T = _physics(T, T + dT, water, sel, phys, led, area, nh, mode=phys.mode, dT=dT)
                 _flag_departures(led, T - T_before, np.where(sel, dT, 0.0), sel)
         T[inside], n_low, n_high = soil_limits.clamp_soil_temperature(
-            T[inside], phys["soil_temperature_min_K"], phys["soil_temperature_max_K"])
+            T[inside], phys.soil_temperature_min_K, phys.soil_temperature_max_K)
         led.clamp("soil_temperature_below_min", n_low)
         led.clamp("soil_temperature_above_max", n_high)
         T = np.where(inside, _temp_stored(role, T, layered), T)
@@ -355,7 +354,7 @@ def _surface_temperature(plan, store, hkey, widx, target, weights, inside_h, led
     melt = None
     if target == "snow_temperature":
         moved = inside & (T != T0)          # snow the recipe changed; other values stay as read
-        if plan.physics["mode"] == "energy" and np.any(moved & (T > T_FREEZE)):
+        if plan.physics.mode == "energy" and np.any(moved & (T > T_FREEZE)):
             T, melt = _melt_snow(T, moved, layer_mass, led, area)
         T[moved], n = soil_limits.clamp_snow_temperature(T[moved])
         led.clamp("snow_temperature_above_freezing", n)

@@ -62,7 +62,7 @@ def _manifest(recipe, layout, outdir, results, started, workers, scheduler) -> d
         "format": MANIFEST_FORMAT,
         "initgen_version": __version__,
         "recipe": {"name": recipe.name, "path": str(recipe.path) if recipe.path else None, "sha256": recipe.sha256,
-                   "seed": recipe.data["seed"]},
+                   "seed": recipe.view.seed},
         "layout": None if layout is None else {"name": layout.name, "sha256": layout.sha256},
         "output_folder": str(outdir.resolve()),
         "started_utc": started,
@@ -109,8 +109,7 @@ def preview(recipe, input_path, layout=None, *, names=None, allow_outside_paths:
         base = plan_mod.build_plan(recipe, model, allow_outside=allow_outside_paths)
         out = []
         for m in chosen:
-            p = configure(plan_mod.Plan(recipe, model, base.blocks, dict(recipe.data["physics"]), base.region,
-                                        base.window), m)
+            p = configure(plan_mod.Plan(recipe, model, base.blocks, recipe.view.physics, base.region, base.window), m)
             out.append((m, plan_mod.run(p, store, write=False)))
         return out
     finally:

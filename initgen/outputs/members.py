@@ -21,6 +21,7 @@ import numpy as np
 
 from initgen.config.members import expand_members
 from initgen.config.recipe import Document
+from initgen.config.views import Noise
 from initgen.engine import plan as plan_mod
 from initgen.errors import InputError
 from initgen.io.grid import open_model
@@ -36,7 +37,7 @@ class Member:
     sign: int
     offset_K: float
     seed: int
-    noise: dict | None  # {"sigma_K": ..., "length_km": ...}
+    noise: Noise | None
 
     @property
     def factor(self) -> float:
@@ -46,16 +47,16 @@ class Member:
     def record(self) -> dict:
         """What the provenance record and the manifest say about the member."""
         return {"name": self.name, "scale": self.scale, "sign": self.sign, "offset_K": self.offset_K,
-                "seed": self.seed, "noise": None if self.noise is None else dict(self.noise)}
+                "seed": self.seed, "noise": None if self.noise is None else self.noise.as_dict()}
 
 
 def members(recipe: Document) -> list[Member]:
     """The recipe's members, in recipe order ([] if it has no members section)."""
-    data = recipe.data
-    noise = (data.get("members") or {}).get("noise")
+    view = recipe.view
+    noise = view.members.noise if view.members is not None else None
     return [Member(m["name"], float(m["scale"]), int(m["sign"]), float(m["offset_K"]),
-                   sources.member_seed(int(data["seed"]), m["name"]), None if noise is None else dict(noise))
-            for m in expand_members(data)]
+                   sources.member_seed(int(view.seed), m["name"]), noise)
+            for m in expand_members(recipe.data)]
 
 
 def select(recipe: Document, names=None) -> list[Member]:
@@ -84,12 +85,12 @@ def member_noise(plan, member: Member) -> np.ndarray | None:
     The noise at a point does not depend on which other points are computed, so restricting the
     computation to the region changes nothing where it is used.
     """
-    if member.noise is None or member.noise["sigma_K"] == 0:
+    if member.noise is None or member.noise.sigma_K == 0:
         return None
     region = plan.region
     out = np.zeros(region.shape)
-    out[region] = sources.correlated_noise(plan.lon[region], plan.lat[region], member.noise["sigma_K"],
-                                           member.noise["length_km"], member.seed)
+    out[region] = sources.correlated_noise(plan.lon[region], plan.lat[region], member.noise.sigma_K,
+                                           member.noise.length_km, member.seed)
     return out
 
 
@@ -117,7 +118,7 @@ def input_stem(path: Path) -> str:
 
 
 def output_path(recipe: Document, outdir: Path, member: Member, input_path: Path) -> Path:
-    template = recipe.data["members"]["output_template"]
+    template = recipe.view.members.output_template
     rel = template.format(member=member.name, input_stem=input_stem(input_path), input_name=Path(input_path).name)
     return Path(outdir) / rel
 
@@ -190,7 +191,7 @@ def plan_on(recipe: Document, layout: Document | None, store, shared: Shared, me
     if tuple(model.grid.shape) != shared.shape:
         raise InputError(f"{store.describe()}: grid shape {model.grid.shape} differs from the shared plan's "
                          f"{shared.shape}")
-    p = plan_mod.Plan(recipe, model, shared.blocks, dict(recipe.data["physics"]), shared.region, shared.window)
+    p = plan_mod.Plan(recipe, model, shared.blocks, recipe.view.physics, shared.region, shared.window)
     return configure(p, member)
 
 

@@ -26,12 +26,12 @@ def _region_geoms(rec, allow_outside: bool) -> list:
     """(block name, shapely geometry) per perturbation block; None where the outline cannot be rebuilt."""
 
     out = []
-    for i, block in enumerate(rec.data["perturbations"]):
+    for i, block in enumerate(rec.view.perturbations):
         try:
-            geom = region_geometry(block["region"], rec, f"perturbations[{i}].region", allow_outside)
+            geom = region_geometry(block.region, rec, f"perturbations[{i}].region", allow_outside)
         except InputError:
             geom = None
-        out.append((block["name"], geom))
+        out.append((block.name, geom))
     return out
 
 
@@ -59,11 +59,11 @@ def _taper_edge(plan, rec, geoms: list) -> np.ndarray | None:
     """1 where any block's taper weight (the plan's own function on the plan's window) is above 0."""
 
     edge = None
-    for (name, geom), blk in zip(geoms, rec.data["perturbations"]):
-        reg = blk["region"]
-        if geom is None or reg["taper_km"] <= 0:
+    for (name, geom), blk in zip(geoms, rec.view.perturbations):
+        reg = blk.region
+        if geom is None or reg.taper_km <= 0:
             continue
-        t = regions_mask.taper_weight(plan.lon, plan.lat, geom, reg["taper_km"], placement=reg["taper_placement"]) \
+        t = regions_mask.taper_weight(plan.lon, plan.lat, geom, reg.taper_km, placement=reg.taper_placement) \
             >= MIN_WEIGHT
         edge = t if edge is None else edge | t
     return None if edge is None else plan.full(edge.astype(float))

@@ -108,18 +108,18 @@ def write_mask(recipe, input, layout, output, png=None, force=False, allow_outsi
             v.cell_measures = "area: cell_area"
         v.initgen_recipe_name = rec.name
         v.initgen_recipe_sha256 = rec.sha256
-        v.initgen_blocks = ", ".join(b["name"] for b in rec.data["perturbations"])
-        for i, blk in enumerate(rec.data["perturbations"]):
-            reg = blk["region"]
-            v.setncattr(f"initgen_block{i}_name", blk["name"])
-            v.setncattr(f"initgen_block{i}_taper_km", float(reg["taper_km"]))
-            v.setncattr(f"initgen_block{i}_taper_placement", reg["taper_placement"])
-            elev = reg.get("elevation")
+        v.initgen_blocks = ", ".join(b.name for b in rec.view.perturbations)
+        for i, blk in enumerate(rec.view.perturbations):
+            reg = blk.region
+            v.setncattr(f"initgen_block{i}_name", blk.name)
+            v.setncattr(f"initgen_block{i}_taper_km", float(reg.taper_km))
+            v.setncattr(f"initgen_block{i}_taper_placement", reg.taper_placement)
+            elev = reg.elevation
             if elev:
-                v.setncattr(f"initgen_block{i}_elevation_min_m", float(elev["min_m"]))
-                v.setncattr(f"initgen_block{i}_elevation_ramp_m", float(elev["ramp_m"]))
-                if elev.get("max_m") is not None:
-                    v.setncattr(f"initgen_block{i}_elevation_max_m", float(elev["max_m"]))
+                v.setncattr(f"initgen_block{i}_elevation_min_m", float(elev.min_m))
+                v.setncattr(f"initgen_block{i}_elevation_ramp_m", float(elev.ramp_m))
+                if elev.max_m is not None:
+                    v.setncattr(f"initgen_block{i}_elevation_max_m", float(elev.max_m))
         v[:] = np.clip(w, 0.0, 1.0)
 
     data = None
