@@ -305,23 +305,21 @@ def apply(recipe, input, output, layout=None, *, member: str | None = None, forc
     >>> record["ledger"]["region"]  # doctest: +SKIP
     """
 
-    rec = _recipe(recipe)
-    lay = _layout(layout, rec)
-    mem = _member(rec, member)
     input = Path(input)
     output = Path(output)
     # validate everything against the input, read-only, before a byte is written; the plan's
     # arrays depend only on the input, so the same plan then patches the copy
-    with open_plan(rec, input, lay, member=member, allow_outside_paths=allow_outside_paths) as p:
+    with open_plan(recipe, input, layout, member=member, allow_outside_paths=allow_outside_paths) as p:
         plan = p.plan
         _refuse_unstorable_first(plan, p.store)
 
     def patch(out_store):
         return plan_mod.run(plan, out_store, write=True, progress=progress)
 
-    return prov.write_perturbed(recipe=rec, layout=lay, input_path=input, output_path=output, patch=patch,
+    return prov.write_perturbed(recipe=p.recipe, layout=p.layout, input_path=input, output_path=output, patch=patch,
                                 force=force, allow_outside=allow_outside_paths,
-                                member=None if mem is None else mem.record(), repack=repack, files=plan.files)
+                                member=None if p.member is None else p.member.record(), repack=repack,
+                                files=plan.files)
 
 
 def _refuse_unstorable_first(plan, store) -> None:
