@@ -10,6 +10,7 @@ from __future__ import annotations
 import string
 from pathlib import Path
 
+from initgen.config.views import MemberSpec
 from initgen.errors import InputError
 
 MEMBER_TEMPLATE_FIELDS = ("member", "input_stem", "input_name")
@@ -17,8 +18,8 @@ MEMBER_TEMPLATE_FIELDS = ("member", "input_stem", "input_name")
 _NAME_OK = frozenset("abcdefghijklmnopqrstuvwxyzABCDEFGHIJKLMNOPQRSTUVWXYZ0123456789-_.+")
 
 
-def expand_members(data: dict) -> list[dict]:
-    """The recipe's members as dicts (name, scale, sign, offset_K), in order; [] without a members section.
+def expand_members(data: dict) -> list[MemberSpec]:
+    """The recipe's members (name, scale, sign, offset_K), in order; [] without a members section.
 
     A generated set (``scales`` x ``signs``) names each member ``<direction>-x<scale>``: the
     direction is ``warm``/``cold`` when every perturbation has a ``constant_K`` anomaly of one sign
@@ -64,7 +65,7 @@ def expand_members(data: dict) -> list[dict]:
                 where[name] = f"members.scales[{i}], members.signs[{j}]"
                 out.append({"name": name, "scale": float(sc), "sign": int(sg), "offset_K": 0.0})
     _check_template(mem["output_template"], len(out))
-    return out
+    return [MemberSpec.of(m) for m in out]
 
 
 def _check_member_name(name: str, key: str) -> None:

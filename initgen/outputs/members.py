@@ -54,9 +54,8 @@ def members(recipe: Document) -> list[Member]:
     """The recipe's members, in recipe order ([] if it has no members section)."""
     view = recipe.view
     noise = view.members.noise if view.members is not None else None
-    return [Member(m["name"], float(m["scale"]), int(m["sign"]), float(m["offset_K"]),
-                   sources.member_seed(int(view.seed), m["name"]), noise)
-            for m in expand_members(recipe.data)]
+    return [Member(m.name, float(m.scale), int(m.sign), float(m.offset_K), sources.member_seed(int(view.seed), m.name),
+                   noise) for m in expand_members(recipe.data)]
 
 
 def select(recipe: Document, names=None) -> list[Member]:
