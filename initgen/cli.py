@@ -25,6 +25,8 @@ import threading
 import warnings
 from pathlib import Path
 
+from tqdm import tqdm
+
 from initgen import api, demo
 from initgen._version import __version__
 from initgen.config.recipe import LAYOUT, RECIPE, load_recipe
@@ -183,19 +185,66 @@ def _warn_line(message, category, filename, lineno, file=None, line=None):
     return f"initgen: warning: {message}\n"
 
 
-def _progress_printer(quiet: bool):
+class _Bar(tqdm):
+    """tqdm without its monitor thread (a thread that would be alive when an ensemble forks its workers)."""
+
+    monitor_interval = 0
+
+
+def _terminal_size(stream) -> tuple[int, int]:
+    """Columns and rows of the terminal ``stream`` writes to; 80 x 24 where it reports none.
+
+    A pseudo-terminal whose size was never set reports 0 x 0; tqdm then takes -1 columns and -1
+    rows (one less than reported) and draws nothing at all, as no line fits in -1 rows."""
+    try:
+        cols, rows = os.get_terminal_size(stream.fileno())
+    except (AttributeError, OSError, ValueError):
+        cols, rows = 0, 0
+    return (cols if cols > 0 else 80), (rows if rows > 0 else 24)
+
+
+class _Progress:
+    """The one progress line (tqdm) for what the API reports as ``progress(done, total)`` (apply's
+    blocks) or ``progress(done, total, failed)`` (an ensemble's members): ``[####......] 3/10
+    blocks``, with ``, 1 failed`` once a member failed; a newline when all are done."""
+
+    def __init__(self, stream, unit: str):
+        self.stream, self.unit, self.bar = stream, unit, None
+
+    def __call__(self, done: int, total: int, failed: int = 0) -> None:
+        if self.bar is None:
+            cols, rows = _terminal_size(self.stream)
+            # ncols one short of the width (as tqdm does), so the line never wraps
+            self.bar = _Bar(total=total, file=self.stream, ncols=cols - 1, nrows=rows, ascii=".#", leave=True,
+                            bar_format="[{bar:30}] {n_fmt}/{total_fmt} " + self.unit + "{postfix}")
+        if failed:
+            self.bar.set_postfix_str(f"{failed} failed", refresh=False)
+        self.bar.update(done - self.bar.n)
+        if done >= total:
+            self.close(finished=True)
+
+    def close(self, finished: bool) -> None:
+        """Finished: the last state stays, with a newline. Stopped (an error or an interrupt): the
+        line is cleared, so the message that follows starts at the left margin."""
+        if self.bar is not None and not self.bar.disable:
+            self.bar.leave = finished
+            self.bar.close()
+            self.stream.flush()
+
+
+@contextlib.contextmanager
+def _progress(quiet: bool, unit: str):
+    """The progress callback for the API (None with ``-q`` or when stderr is not a terminal)."""
     if quiet or not sys.stderr.isatty():
-        return None
-
-    def show(done, total):
-        width = 30
-        n = int(width * done / max(total, 1))
-        sys.stderr.write(f"\r[{'#' * n}{'.' * (width - n)}] {done}/{total} blocks")
-        if done == total:
-            sys.stderr.write("\n")
-        sys.stderr.flush()
-
-    return show
+        yield None
+        return
+    shown = _Progress(sys.stderr, unit)
+    try:
+        yield shown
+    except BaseException:
+        shown.close(finished=False)
+        raise
+    shown.close(finished=True)
 
 
 def _show_warnings(caught, quiet: bool = False) -> None:
@@ -219,22 +268,6 @@ def _show_warnings(caught, quiet: bool = False) -> None:
             sys.stderr.write(warnings.formatwarning(w.message, w.category, w.filename, w.lineno))
     if quiet and shown:
         sys.stderr.write(f"initgen: {shown} warning(s) held back by -q; run without -q to read them\n")
-
-
-def _member_progress(quiet: bool):
-    if quiet or not sys.stderr.isatty():
-        return None
-
-    def show(done, total, failed):
-        width = 30
-        n = int(width * done / max(total, 1))
-        extra = f", {failed} failed" if failed else ""
-        sys.stderr.write(f"\r[{'#' * n}{'.' * (width - n)}] {done}/{total} members done{extra}")
-        if done == total:
-            sys.stderr.write("\n")
-        sys.stderr.flush()
-
-    return show
 
 
 def main(argv=None) -> int:
@@ -453,10 +486,10 @@ def _cmd_apply(args) -> int:
             raise InputError(f"--output {args.output}: the recipe has members, so the output is a folder; give a "
                              "folder name (or --member NAME to write one member to this file)")
 
-        res = api.apply_ensemble(recipe, args.input, args.output, args.layout, workers=args.workers,
-                                 scheduler=args.scheduler, force=args.force, resume=args.resume,
-                                 allow_outside_paths=args.allow_outside_paths,
-                                 progress=_member_progress(args.quiet))
+        with _progress(args.quiet, "members done") as progress:
+            res = api.apply_ensemble(recipe, args.input, args.output, args.layout, workers=args.workers,
+                                     scheduler=args.scheduler, force=args.force, resume=args.resume,
+                                     allow_outside_paths=args.allow_outside_paths, progress=progress)
         if not args.quiet:
             print(results_table(res))
         for r in res.failed:
@@ -466,9 +499,9 @@ def _cmd_apply(args) -> int:
         raise InputError(f"--output {args.output}: names a folder; give the output file's name")
     if len(args.input) != 1:
         raise InputError("--input: give one input file (several inputs need a recipe with a members section)")
-    rec = api.apply(recipe, args.input[0], args.output, args.layout, member=args.member, force=args.force,
-                    allow_outside_paths=args.allow_outside_paths, progress=_progress_printer(args.quiet),
-                    repack=args.repack)
+    with _progress(args.quiet, "blocks") as progress:
+        rec = api.apply(recipe, args.input[0], args.output, args.layout, member=args.member, force=args.force,
+                        allow_outside_paths=args.allow_outside_paths, progress=progress, repack=args.repack)
     if not args.quiet:
         print(api.ledger_text(rec["ledger"]))
         print(f"wrote {args.output} (sha256 {rec['output']['sha256']})")
