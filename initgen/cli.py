@@ -6,7 +6,7 @@ Exit codes: 0 done; 2 bad input (recipe, layout, file, arguments) with a one-lin
 130 interrupted (SIGINT, SIGTERM or SIGHUP; what was being written is removed, finished ensemble
 members are kept and ``--resume`` continues).
 
-Output policy, the same for every command (:func:`_check_outputs`): every path a command will
+Output policy, the same for every command (:func:`_check_outputs` over ``initgen.io.targets``): every path a command will
 write is checked before any work starts; an existing file is refused unless ``--force``; a
 missing or unwritable folder is refused naming it (exit 2); nothing is created before the checks
 pass, and every file is written through a temporary file and a rename. ``-q`` prints nothing but
@@ -33,7 +33,8 @@ from initgen.config.recipe import LAYOUT, RECIPE, load_recipe
 from initgen.engine.persistence import line as persistence_line
 from initgen.errors import InputError, InputWarning
 from initgen.io.atomic import check_output_path, write_atomic_text
-from initgen.outputs.collate import problems_text
+from initgen.io.targets import file_target, folder_target
+from initgen.outputs.collate import FILES as COLLATION_FILES, problems_text
 from initgen.outputs.ensemble import Interrupted
 from initgen.outputs.manifest import members_table, results_table
 from initgen.outputs.members import select
@@ -378,44 +379,6 @@ def _guard_outputs(args) -> None:
 # ---------------------------------------------------------------------------------------------
 
 
-def _writable_folder(folder: Path, what: str) -> None:
-    if not folder.is_dir():
-        raise InputError(f"{what}: the folder {folder} does not exist; create it first")
-    if not os.access(folder, os.W_OK | os.X_OK):
-        raise InputError(f"{what}: the folder {folder} is not writable; choose another folder")
-
-
-def _file_target(path, option: str, force: bool) -> None:
-    """A file the command writes: its folder exists and is writable; an existing file needs --force."""
-    p = Path(path)
-    what = f"{option} {p}" if option else str(p)
-    if p.is_dir():
-        raise InputError(f"{what}: is a folder; remove it or choose another file name")
-    parent = p.parent if str(p.parent) else Path(".")
-    if parent.exists() and not parent.is_dir():
-        raise InputError(f"{what}: {parent} is not a folder; give a path inside a folder")
-    _writable_folder(parent, what)
-    if p.exists() and not force:
-        raise InputError(f"{what}: exists; pass --force to replace it")
-
-
-def _folder_target(path, option: str, force: bool, files=(), any_file: bool = False) -> None:
-    """A folder the command writes into (created if missing, inside an existing writable folder);
-    ``files`` already there (or, with ``any_file``, anything at all) need --force."""
-    p = Path(path)
-    what = f"{option} {p}"
-    if p.exists() and not p.is_dir():
-        raise InputError(f"{what}: exists and is not a folder; give a folder")
-    if not p.exists():
-        _writable_folder(p.parent if str(p.parent) else Path("."), what)
-        return
-    _writable_folder(p, what)
-    taken = sorted(p.iterdir()) if any_file else [p / f for f in files if (p / f).exists()]
-    if taken and not force:
-        raise InputError(f"{what}: already holds {taken[0].name}" + (f" and {len(taken) - 1} more" if len(taken) > 1
-                         else "") + "; pass --force to replace, or choose another folder")
-
-
 def _targets_apply(args):
     if getattr(args, "_ensemble", False):  # the folder and its members: ensemble.check_output_folder
         return
@@ -423,54 +386,36 @@ def _targets_apply(args):
         raise InputError("--resume: finishes an ensemble written into a folder; this run writes one file "
                          "(to replace it, pass --force)")
     if args.member is not None:  # a bad member name is the first thing to hear about
-
         select(load_recipe(args.recipe), [args.member])
     if len(args.input) == 1:  # the writer's own check: never the input, then folder and --force
-
         check_output_path(Path(args.input[0]), Path(args.output), args.force)
-    _file_target(args.output, "--output", args.force)
-
-    _file_target(provenance_path(Path(args.output)), "--output", args.force)
-
-
-def _targets_preview(args):
-    if args.json:
-        _file_target(args.json, "--json", args.force)
-    if args.report:
-        _folder_target(args.report, "--report", args.force, files=("preview.md", "report.html"))
+    file_target(args.output, "--output", args.force)
+    file_target(provenance_path(Path(args.output)), "--output", args.force)
 
 
-def _targets_mask(args):
-    _file_target(args.output, "--output", args.force)
-    if args.png:
-        _file_target(args.png, "--png", args.force)
+FILE, ANY = "file", "any"  # a file; a folder that must be empty (else: the files in it that need --force)
 
-
-def _targets_compare(args):
-    if args.json:
-        _file_target(args.json, "--json", args.force)
-    if args.report:
-        _folder_target(args.report, "--report", args.force, files=("compare.md", "report.html"))
-
-
-def _targets_demo(args):
-    _folder_target(args.out, "--out", args.force, any_file=True)
-
-
-def _targets_collate(args):
-    _folder_target(args.out, "--out", args.force, files=("collation.csv", "collation.json", "collation.html"))
-
-
-# command -> the check of every path it writes (a new command that writes adds its entry here)
-OUTPUT_CHECKS = {"apply": _targets_apply, "preview": _targets_preview, "mask": _targets_mask,
-                 "compare": _targets_compare, "demo": _targets_demo, "collate": _targets_collate}
+# command -> every path it writes, in the order checked: (argument, option, FILE or the folder's
+# files that need --force, or ANY). apply's checks need more than a table: _targets_apply.
+OUTPUTS = {"preview": (("json", "--json", FILE), ("report", "--report", ("preview.md", "report.html"))),
+           "mask": (("output", "--output", FILE), ("png", "--png", FILE)),
+           "compare": (("json", "--json", FILE), ("report", "--report", ("compare.md", "report.html"))),
+           "demo": (("out", "--out", ANY),),
+           "collate": (("out", "--out", COLLATION_FILES),)}
 
 
 def _check_outputs(args) -> None:
-    """The output policy (module docstring): called before a command does any work."""
-    check = OUTPUT_CHECKS.get(args.command)
-    if check is not None:
-        check(args)
+    """The output policy (module docstring, io/targets.py): called before a command does any work."""
+    if args.command == "apply":
+        _targets_apply(args)
+    for name, option, kind in OUTPUTS.get(args.command, ()):
+        path = getattr(args, name)
+        if not path:
+            continue
+        if kind == FILE:
+            file_target(path, option, args.force)
+        else:
+            folder_target(path, option, args.force, files=() if kind == ANY else kind, any_file=kind == ANY)
 
 
 def _cmd_check(args) -> int:

@@ -27,18 +27,7 @@ import pytest
 
 from initgen.cli import _Progress, _progress
 from filemaker import read_raw, regular
-
-RECIPE = """\
-initgen_recipe: 1
-name: bar
-perturbations:
-  - name: blk
-    region:
-      include: [{box: {lon: [20, 80], lat: [10, 50]}}]
-      taper_km: 200
-    anomaly: {constant_K: -2}
-    profile: {kind: exponential, efolding_m: 0.5}
-"""
+from test_errors import RECIPE  # the error catalogue's small recipe: a box with a taper
 
 FULL = "[" + "#" * 30 + "]"
 
