@@ -37,7 +37,7 @@ from initgen.io.targets import file_target, folder_target
 from initgen.outputs.collate import FILES as COLLATION_FILES, problems_text
 from initgen.outputs.ensemble import Interrupted
 from initgen.outputs.manifest import members_table, results_table
-from initgen.outputs.members import select
+from initgen.outputs.members import input_stem, select
 from initgen.outputs.provenance import provenance_path
 from initgen.reports.compare import compare, compare_report, compare_text
 from initgen.reports.mask import write_mask
@@ -55,7 +55,8 @@ def _common(p, input_required=True, layout=True, many_inputs=False):
     p.add_argument("recipe", help="recipe YAML file")
     if many_inputs:
         p.add_argument("--input", "-i", required=True, nargs="+", metavar="FILE",
-                       help="restart / initial-condition netCDF file(s); several (start dates) for an ensemble")
+                       help="restart / initial-condition netCDF file(s); several (start dates) for an "
+                       "ensemble, or a model's tiles")
     elif input_required is not None:
         p.add_argument("--input", "-i", required=input_required, help="restart / initial-condition netCDF file")
     if layout:
@@ -88,7 +89,8 @@ def build_parser() -> argparse.ArgumentParser:
                        "(with members: every member for every input, into a folder)")
     _common(p, many_inputs=True)
     p.add_argument("--output", "-o", required=True, help="output netCDF file (never the input); for a recipe with "
-                   "members, the output folder (files named by members.output_template, plus manifest.json/.csv)")
+                   "members, the output folder (files named by members.output_template, plus manifest.json/.csv); for "
+                   "several inputs (tiles) without members, a folder or a template such as 'out/{input_stem}-p.nc'")
     p.add_argument("--member", metavar="NAME", help="write only this member, to the --output file")
     p.add_argument("--workers", type=int, metavar="N", help="local worker processes for members (default min(2, CPUs))")
     p.add_argument("--scheduler", metavar="ADDRESS", help="run members on this Dask distributed scheduler "
@@ -387,10 +389,39 @@ def _targets_apply(args):
                          "(to replace it, pass --force)")
     if args.member is not None:  # a bad member name is the first thing to hear about
         select(load_recipe(args.recipe), [args.member])
-    if len(args.input) == 1:  # the writer's own check: never the input, then folder and --force
-        check_output_path(Path(args.input[0]), Path(args.output), args.force)
+    if len(args.input) > 1:  # tiles: one output each, none of them any input
+        for _, out in _tile_outputs(args):
+            for inp in args.input:
+                check_output_path(Path(inp), out, args.force)
+            file_target(out, "--output", args.force)
+            file_target(provenance_path(out), "--output", args.force)
+        return
+    # the writer's own check: never the input, then folder and --force
+    check_output_path(Path(args.input[0]), Path(args.output), args.force)
     file_target(args.output, "--output", args.force)
     file_target(provenance_path(Path(args.output)), "--output", args.force)
+
+
+def _tile_outputs(args) -> list[tuple[Path, Path]]:
+    """A recipe without members and several inputs (a model stored as tiles): (input, output)
+    pairs, the output in the --output folder under the input's own name, or named by the --output
+    template ({input_stem}, {input_name}, as in members.output_template)."""
+    out = args.output
+    if "{" in out:
+        try:
+            names = [out.format(input_stem=input_stem(Path(i)), input_name=Path(i).name) for i in args.input]
+        except (KeyError, IndexError, ValueError):
+            raise InputError(f"--output {out}: a template for several inputs takes the fields {{input_stem}} and "
+                             "{input_name} only, e.g. 'out/{input_stem}-perturbed.nc'") from None
+    elif os.path.isdir(out) or out.endswith(("/", os.sep)):
+        names = [os.path.join(out, Path(i).name) for i in args.input]
+    else:
+        raise InputError(f"--output {out}: several inputs (a model stored as tiles) are written one output each; "
+                         "give an existing folder, or a template naming each, e.g. 'out/{input_stem}-perturbed.nc' "
+                         "(a recipe with a members section writes an ensemble instead)")
+    if len({os.path.abspath(n) for n in names}) < len(names):
+        raise InputError(f"--output {out}: gives the same output for two inputs; name each with {{input_stem}}")
+    return [(Path(i), Path(n)) for i, n in zip(args.input, names)]
 
 
 FILE, ANY = "file", "any"  # a file; a folder that must be empty (else: the files in it that need --force)
@@ -440,23 +471,33 @@ def _cmd_apply(args) -> int:
         for r in res.failed:
             sys.stderr.write(f"initgen: error: member {r['member']['name']} of {r['input']}: {r['message']}\n")
         return res.exit_code
-    if args.output.endswith(("/", os.sep)):
+    if len(args.input) > 1:
+        pairs = _tile_outputs(args)
+        for inp, _ in pairs:  # every tile fits the recipe (the whole plan, read-only) before one is written
+            api.check(recipe, args.layout, inp, allow_outside_paths=args.allow_outside_paths)
+    elif args.output.endswith(("/", os.sep)):
         raise InputError(f"--output {args.output}: names a folder; give the output file's name")
-    if len(args.input) != 1:
-        raise InputError("--input: give one input file (several inputs need a recipe with a members section)")
+    else:
+        pairs = [(args.input[0], args.output)]
+    for inp, out in pairs:
+        _apply_one(args, recipe, inp, out)
+    return 0
+
+
+def _apply_one(args, recipe, input, output) -> None:
+    """Write one perturbed copy and say what changed (the ledger) and what was written."""
     with _progress(args.quiet, "blocks") as progress:
-        rec = api.apply(recipe, args.input[0], args.output, args.layout, member=args.member, force=args.force,
+        rec = api.apply(recipe, input, output, args.layout, member=args.member, force=args.force,
                         allow_outside_paths=args.allow_outside_paths, progress=progress, repack=args.repack)
     if not args.quiet:
         print(api.ledger_text(rec["ledger"]))
-        print(f"wrote {args.output} (sha256 {rec['output']['sha256']})")
-        print(f"wrote {args.output}.provenance.json")
+        print(f"wrote {output} (sha256 {rec['output']['sha256']})")
+        print(f"wrote {output}.provenance.json")
     if args.verbose:
         io = rec.get("io", {})
         stages = ", ".join(f"{k[:-2]} {v:.2f} s" for k, v in io.get("timings_s", {}).items())
         print(f"timings: {stages}; {io.get('bytes_rewritten', 0):,} bytes rewritten; file size "
               f"{io.get('size_growth_bytes', 0):+,} bytes" + (" (repacked)" if io.get("repacked") else ""))
-    return 0
 
 
 def _cmd_preview(args) -> int:
