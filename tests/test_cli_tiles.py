@@ -17,10 +17,12 @@ import numpy as np
 import pytest
 
 from initgen.cli import main
+from initgen.io.shipped import shipped_dir
 import filemaker as fm
 from filemaker import read_raw
-from test_errors import refused
-from test_geometry import LAYOUTS, recipe
+from test_errors import recipe, refused, swap  # the error catalogue's recipe and refusal check
+
+LAYOUTS = shipped_dir("recipes") / "layouts"
 
 
 @pytest.fixture
@@ -33,7 +35,8 @@ def tiled(tmp_path):
     shutil.copy(LAYOUTS / "tiled-grid-files.yaml", tmp_path / "tiles.yaml")
     (tmp_path / "whole.yaml").write_text(Path(LAYOUTS / "separate-grid-file.yaml").read_text()
                                          .replace("path: grid.nc", "path: whole-grid.nc"))
-    recipe(tmp_path, boxlon="5, 30", taper=800)
+    # the catalogue's box, moved onto the tiles (lon -10 .. 58) with a taper wider than a tile
+    recipe(tmp_path, swap("taper_km: 200", "taper_km: 800", swap("lon: [20, 80]", "lon: [5, 30]")))
     (tmp_path / "out").mkdir()
     return tmp_path, [r for r, _ in parts]
 
