@@ -6,11 +6,11 @@ Exit codes: 0 done; 2 bad input (recipe, layout, file, arguments) with a one-lin
 130 interrupted (SIGINT, SIGTERM or SIGHUP; what was being written is removed, finished ensemble
 members are kept and ``--resume`` continues).
 
-Output policy, the same for every command (:func:`_check_outputs` over ``initgen.io.targets``): every path a command will
-write is checked before any work starts; an existing file is refused unless ``--force``; a
-missing or unwritable folder is refused naming it (exit 2); nothing is created before the checks
-pass, and every file is written through a temporary file and a rename. ``-q`` prints nothing but
-errors, and a count of the warnings held back.
+Output policy, the same for every command (:func:`_check_outputs`, over ``initgen.io.targets``):
+every path a command will write is checked before any work starts; an existing file is refused
+unless ``--force``; a missing or unwritable folder is refused naming it (exit 2); nothing is
+created before the checks pass, and every file is written through a temporary file and a rename.
+``-q`` prints nothing but errors, and a count of the warnings held back.
 """
 
 from __future__ import annotations
