@@ -6,11 +6,11 @@ Exit codes: 0 done; 2 bad input (recipe, layout, file, arguments) with a one-lin
 130 interrupted (SIGINT, SIGTERM or SIGHUP; what was being written is removed, finished ensemble
 members are kept and ``--resume`` continues).
 
-Output policy, the same for every command (:func:`_check_outputs`): every path a command will
-write is checked before any work starts; an existing file is refused unless ``--force``; a
-missing or unwritable folder is refused naming it (exit 2); nothing is created before the checks
-pass, and every file is written through a temporary file and a rename. ``-q`` prints nothing but
-errors, and a count of the warnings held back.
+Output policy, the same for every command (:func:`_check_outputs`, over ``initgen.io.targets``):
+every path a command will write is checked before any work starts; an existing file is refused
+unless ``--force``; a missing or unwritable folder is refused naming it (exit 2); nothing is
+created before the checks pass, and every file is written through a temporary file and a rename.
+``-q`` prints nothing but errors, and a count of the warnings held back.
 """
 
 from __future__ import annotations
@@ -25,16 +25,19 @@ import threading
 import warnings
 from pathlib import Path
 
+from tqdm import tqdm
+
 from initgen import api, demo
 from initgen._version import __version__
 from initgen.config.recipe import LAYOUT, RECIPE, load_recipe
 from initgen.engine.persistence import line as persistence_line
 from initgen.errors import InputError, InputWarning
 from initgen.io.atomic import check_output_path, write_atomic_text
-from initgen.outputs.collate import problems_text
+from initgen.io.targets import file_target, folder_target
+from initgen.outputs.collate import FILES as COLLATION_FILES, problems_text
 from initgen.outputs.ensemble import Interrupted
 from initgen.outputs.manifest import members_table, results_table
-from initgen.outputs.members import select
+from initgen.outputs.members import input_stem, select
 from initgen.outputs.provenance import provenance_path
 from initgen.reports.compare import compare, compare_report, compare_text
 from initgen.reports.mask import write_mask
@@ -52,7 +55,8 @@ def _common(p, input_required=True, layout=True, many_inputs=False):
     p.add_argument("recipe", help="recipe YAML file")
     if many_inputs:
         p.add_argument("--input", "-i", required=True, nargs="+", metavar="FILE",
-                       help="restart / initial-condition netCDF file(s); several (start dates) for an ensemble")
+                       help="restart / initial-condition netCDF file(s); several (start dates) for an "
+                       "ensemble, or a model's tiles")
     elif input_required is not None:
         p.add_argument("--input", "-i", required=input_required, help="restart / initial-condition netCDF file")
     if layout:
@@ -85,7 +89,8 @@ def build_parser() -> argparse.ArgumentParser:
                        "(with members: every member for every input, into a folder)")
     _common(p, many_inputs=True)
     p.add_argument("--output", "-o", required=True, help="output netCDF file (never the input); for a recipe with "
-                   "members, the output folder (files named by members.output_template, plus manifest.json/.csv)")
+                   "members, the output folder (files named by members.output_template, plus manifest.json/.csv); for "
+                   "several inputs (tiles) without members, a folder or a template such as 'out/{input_stem}-p.nc'")
     p.add_argument("--member", metavar="NAME", help="write only this member, to the --output file")
     p.add_argument("--workers", type=int, metavar="N", help="local worker processes for members (default min(2, CPUs))")
     p.add_argument("--scheduler", metavar="ADDRESS", help="run members on this Dask distributed scheduler "
@@ -183,19 +188,66 @@ def _warn_line(message, category, filename, lineno, file=None, line=None):
     return f"initgen: warning: {message}\n"
 
 
-def _progress_printer(quiet: bool):
+class _Bar(tqdm):
+    """tqdm without its monitor thread (a thread that would be alive when an ensemble forks its workers)."""
+
+    monitor_interval = 0
+
+
+def _terminal_size(stream) -> tuple[int, int]:
+    """Columns and rows of the terminal ``stream`` writes to; 80 x 24 where it reports none.
+
+    A pseudo-terminal whose size was never set reports 0 x 0; tqdm then takes -1 columns and -1
+    rows (one less than reported) and draws nothing at all, as no line fits in -1 rows."""
+    try:
+        cols, rows = os.get_terminal_size(stream.fileno())
+    except (AttributeError, OSError, ValueError):
+        cols, rows = 0, 0
+    return (cols if cols > 0 else 80), (rows if rows > 0 else 24)
+
+
+class _Progress:
+    """The one progress line (tqdm) for what the API reports as ``progress(done, total)`` (apply's
+    blocks) or ``progress(done, total, failed)`` (an ensemble's members): ``[####......] 3/10
+    blocks``, with ``, 1 failed`` once a member failed; a newline when all are done."""
+
+    def __init__(self, stream, unit: str):
+        self.stream, self.unit, self.bar = stream, unit, None
+
+    def __call__(self, done: int, total: int, failed: int = 0) -> None:
+        if self.bar is None:
+            cols, rows = _terminal_size(self.stream)
+            # ncols one short of the width (as tqdm does), so the line never wraps
+            self.bar = _Bar(total=total, file=self.stream, ncols=cols - 1, nrows=rows, ascii=".#", leave=True,
+                            bar_format="[{bar:30}] {n_fmt}/{total_fmt} " + self.unit + "{postfix}")
+        if failed:
+            self.bar.set_postfix_str(f"{failed} failed", refresh=False)
+        self.bar.update(done - self.bar.n)
+        if done >= total:
+            self.close(finished=True)
+
+    def close(self, finished: bool) -> None:
+        """Finished: the last state stays, with a newline. Stopped (an error or an interrupt): the
+        line is cleared, so the message that follows starts at the left margin."""
+        if self.bar is not None and not self.bar.disable:
+            self.bar.leave = finished
+            self.bar.close()
+            self.stream.flush()
+
+
+@contextlib.contextmanager
+def _progress(quiet: bool, unit: str):
+    """The progress callback for the API (None with ``-q`` or when stderr is not a terminal)."""
     if quiet or not sys.stderr.isatty():
-        return None
-
-    def show(done, total):
-        width = 30
-        n = int(width * done / max(total, 1))
-        sys.stderr.write(f"\r[{'#' * n}{'.' * (width - n)}] {done}/{total} blocks")
-        if done == total:
-            sys.stderr.write("\n")
-        sys.stderr.flush()
-
-    return show
+        yield None
+        return
+    shown = _Progress(sys.stderr, unit)
+    try:
+        yield shown
+    except BaseException:
+        shown.close(finished=False)
+        raise
+    shown.close(finished=True)
 
 
 def _show_warnings(caught, quiet: bool = False) -> None:
@@ -219,22 +271,6 @@ def _show_warnings(caught, quiet: bool = False) -> None:
             sys.stderr.write(warnings.formatwarning(w.message, w.category, w.filename, w.lineno))
     if quiet and shown:
         sys.stderr.write(f"initgen: {shown} warning(s) held back by -q; run without -q to read them\n")
-
-
-def _member_progress(quiet: bool):
-    if quiet or not sys.stderr.isatty():
-        return None
-
-    def show(done, total, failed):
-        width = 30
-        n = int(width * done / max(total, 1))
-        extra = f", {failed} failed" if failed else ""
-        sys.stderr.write(f"\r[{'#' * n}{'.' * (width - n)}] {done}/{total} members done{extra}")
-        if done == total:
-            sys.stderr.write("\n")
-        sys.stderr.flush()
-
-    return show
 
 
 def main(argv=None) -> int:
@@ -345,44 +381,6 @@ def _guard_outputs(args) -> None:
 # ---------------------------------------------------------------------------------------------
 
 
-def _writable_folder(folder: Path, what: str) -> None:
-    if not folder.is_dir():
-        raise InputError(f"{what}: the folder {folder} does not exist; create it first")
-    if not os.access(folder, os.W_OK | os.X_OK):
-        raise InputError(f"{what}: the folder {folder} is not writable; choose another folder")
-
-
-def _file_target(path, option: str, force: bool) -> None:
-    """A file the command writes: its folder exists and is writable; an existing file needs --force."""
-    p = Path(path)
-    what = f"{option} {p}" if option else str(p)
-    if p.is_dir():
-        raise InputError(f"{what}: is a folder; remove it or choose another file name")
-    parent = p.parent if str(p.parent) else Path(".")
-    if parent.exists() and not parent.is_dir():
-        raise InputError(f"{what}: {parent} is not a folder; give a path inside a folder")
-    _writable_folder(parent, what)
-    if p.exists() and not force:
-        raise InputError(f"{what}: exists; pass --force to replace it")
-
-
-def _folder_target(path, option: str, force: bool, files=(), any_file: bool = False) -> None:
-    """A folder the command writes into (created if missing, inside an existing writable folder);
-    ``files`` already there (or, with ``any_file``, anything at all) need --force."""
-    p = Path(path)
-    what = f"{option} {p}"
-    if p.exists() and not p.is_dir():
-        raise InputError(f"{what}: exists and is not a folder; give a folder")
-    if not p.exists():
-        _writable_folder(p.parent if str(p.parent) else Path("."), what)
-        return
-    _writable_folder(p, what)
-    taken = sorted(p.iterdir()) if any_file else [p / f for f in files if (p / f).exists()]
-    if taken and not force:
-        raise InputError(f"{what}: already holds {taken[0].name}" + (f" and {len(taken) - 1} more" if len(taken) > 1
-                         else "") + "; pass --force to replace, or choose another folder")
-
-
 def _targets_apply(args):
     if getattr(args, "_ensemble", False):  # the folder and its members: ensemble.check_output_folder
         return
@@ -390,54 +388,65 @@ def _targets_apply(args):
         raise InputError("--resume: finishes an ensemble written into a folder; this run writes one file "
                          "(to replace it, pass --force)")
     if args.member is not None:  # a bad member name is the first thing to hear about
-
         select(load_recipe(args.recipe), [args.member])
-    if len(args.input) == 1:  # the writer's own check: never the input, then folder and --force
-
-        check_output_path(Path(args.input[0]), Path(args.output), args.force)
-    _file_target(args.output, "--output", args.force)
-
-    _file_target(provenance_path(Path(args.output)), "--output", args.force)
-
-
-def _targets_preview(args):
-    if args.json:
-        _file_target(args.json, "--json", args.force)
-    if args.report:
-        _folder_target(args.report, "--report", args.force, files=("preview.md", "report.html"))
+    if len(args.input) > 1:  # tiles: one output each, none of them any input
+        for _, out in _tile_outputs(args):
+            for inp in args.input:
+                check_output_path(Path(inp), out, args.force)
+            file_target(out, "--output", args.force)
+            file_target(provenance_path(out), "--output", args.force)
+        return
+    # the writer's own check: never the input, then folder and --force
+    check_output_path(Path(args.input[0]), Path(args.output), args.force)
+    file_target(args.output, "--output", args.force)
+    file_target(provenance_path(Path(args.output)), "--output", args.force)
 
 
-def _targets_mask(args):
-    _file_target(args.output, "--output", args.force)
-    if args.png:
-        _file_target(args.png, "--png", args.force)
+def _tile_outputs(args) -> list[tuple[Path, Path]]:
+    """A recipe without members and several inputs (a model stored as tiles): (input, output)
+    pairs, the output in the --output folder under the input's own name, or named by the --output
+    template ({input_stem}, {input_name}, as in members.output_template)."""
+    out = args.output
+    if "{" in out:
+        try:
+            names = [out.format(input_stem=input_stem(Path(i)), input_name=Path(i).name) for i in args.input]
+        except (KeyError, IndexError, ValueError):
+            raise InputError(f"--output {out}: a template for several inputs takes the fields {{input_stem}} and "
+                             "{input_name} only, e.g. 'out/{input_stem}-perturbed.nc'") from None
+    elif os.path.isdir(out) or out.endswith(("/", os.sep)):
+        names = [os.path.join(out, Path(i).name) for i in args.input]
+    else:
+        raise InputError(f"--output {out}: several inputs (a model stored as tiles) are written one output each; "
+                         "give an existing folder, or a template naming each, e.g. 'out/{input_stem}-perturbed.nc' "
+                         "(a recipe with a members section writes an ensemble instead)")
+    if len({os.path.abspath(n) for n in names}) < len(names):
+        raise InputError(f"--output {out}: gives the same output for two inputs; name each with {{input_stem}}")
+    return [(Path(i), Path(n)) for i, n in zip(args.input, names)]
 
 
-def _targets_compare(args):
-    if args.json:
-        _file_target(args.json, "--json", args.force)
-    if args.report:
-        _folder_target(args.report, "--report", args.force, files=("compare.md", "report.html"))
+FILE, ANY = "file", "any"  # a file; a folder that must be empty (else: the files in it that need --force)
 
-
-def _targets_demo(args):
-    _folder_target(args.out, "--out", args.force, any_file=True)
-
-
-def _targets_collate(args):
-    _folder_target(args.out, "--out", args.force, files=("collation.csv", "collation.json", "collation.html"))
-
-
-# command -> the check of every path it writes (a new command that writes adds its entry here)
-OUTPUT_CHECKS = {"apply": _targets_apply, "preview": _targets_preview, "mask": _targets_mask,
-                 "compare": _targets_compare, "demo": _targets_demo, "collate": _targets_collate}
+# command -> every path it writes, in the order checked: (argument, option, FILE or the folder's
+# files that need --force, or ANY). apply's checks need more than a table: _targets_apply.
+OUTPUTS = {"preview": (("json", "--json", FILE), ("report", "--report", ("preview.md", "report.html"))),
+           "mask": (("output", "--output", FILE), ("png", "--png", FILE)),
+           "compare": (("json", "--json", FILE), ("report", "--report", ("compare.md", "report.html"))),
+           "demo": (("out", "--out", ANY),),
+           "collate": (("out", "--out", COLLATION_FILES),)}
 
 
 def _check_outputs(args) -> None:
-    """The output policy (module docstring): called before a command does any work."""
-    check = OUTPUT_CHECKS.get(args.command)
-    if check is not None:
-        check(args)
+    """The output policy (module docstring, io/targets.py): called before a command does any work."""
+    if args.command == "apply":
+        _targets_apply(args)
+    for name, option, kind in OUTPUTS.get(args.command, ()):
+        path = getattr(args, name)
+        if not path:
+            continue
+        if kind == FILE:
+            file_target(path, option, args.force)
+        else:
+            folder_target(path, option, args.force, files=() if kind == ANY else kind, any_file=kind == ANY)
 
 
 def _cmd_check(args) -> int:
@@ -453,32 +462,42 @@ def _cmd_apply(args) -> int:
             raise InputError(f"--output {args.output}: the recipe has members, so the output is a folder; give a "
                              "folder name (or --member NAME to write one member to this file)")
 
-        res = api.apply_ensemble(recipe, args.input, args.output, args.layout, workers=args.workers,
-                                 scheduler=args.scheduler, force=args.force, resume=args.resume,
-                                 allow_outside_paths=args.allow_outside_paths,
-                                 progress=_member_progress(args.quiet))
+        with _progress(args.quiet, "members done") as progress:
+            res = api.apply_ensemble(recipe, args.input, args.output, args.layout, workers=args.workers,
+                                     scheduler=args.scheduler, force=args.force, resume=args.resume,
+                                     allow_outside_paths=args.allow_outside_paths, progress=progress)
         if not args.quiet:
             print(results_table(res))
         for r in res.failed:
             sys.stderr.write(f"initgen: error: member {r['member']['name']} of {r['input']}: {r['message']}\n")
         return res.exit_code
-    if args.output.endswith(("/", os.sep)):
+    if len(args.input) > 1:
+        pairs = _tile_outputs(args)
+        for inp, _ in pairs:  # every tile fits the recipe (the whole plan, read-only) before one is written
+            api.check(recipe, args.layout, inp, allow_outside_paths=args.allow_outside_paths)
+    elif args.output.endswith(("/", os.sep)):
         raise InputError(f"--output {args.output}: names a folder; give the output file's name")
-    if len(args.input) != 1:
-        raise InputError("--input: give one input file (several inputs need a recipe with a members section)")
-    rec = api.apply(recipe, args.input[0], args.output, args.layout, member=args.member, force=args.force,
-                    allow_outside_paths=args.allow_outside_paths, progress=_progress_printer(args.quiet),
-                    repack=args.repack)
+    else:
+        pairs = [(args.input[0], args.output)]
+    for inp, out in pairs:
+        _apply_one(args, recipe, inp, out)
+    return 0
+
+
+def _apply_one(args, recipe, input, output) -> None:
+    """Write one perturbed copy and say what changed (the ledger) and what was written."""
+    with _progress(args.quiet, "blocks") as progress:
+        rec = api.apply(recipe, input, output, args.layout, member=args.member, force=args.force,
+                        allow_outside_paths=args.allow_outside_paths, progress=progress, repack=args.repack)
     if not args.quiet:
         print(api.ledger_text(rec["ledger"]))
-        print(f"wrote {args.output} (sha256 {rec['output']['sha256']})")
-        print(f"wrote {args.output}.provenance.json")
+        print(f"wrote {output} (sha256 {rec['output']['sha256']})")
+        print(f"wrote {output}.provenance.json")
     if args.verbose:
         io = rec.get("io", {})
         stages = ", ".join(f"{k[:-2]} {v:.2f} s" for k, v in io.get("timings_s", {}).items())
         print(f"timings: {stages}; {io.get('bytes_rewritten', 0):,} bytes rewritten; file size "
               f"{io.get('size_growth_bytes', 0):+,} bytes" + (" (repacked)" if io.get("repacked") else ""))
-    return 0
 
 
 def _cmd_preview(args) -> int:

@@ -30,11 +30,13 @@ import numpy as np
 
 from initgen.errors import InputError
 from initgen.io.atomic import sha256_file, write_atomic_text
+from initgen.io.targets import need_folder
 from initgen.outputs import provenance as prov
 
 BANDS_CM = ((0, 10), (10, 40), (40, 100), (100, 200))
 DEFAULT_THRESHOLD = 0.25
 RECORD_SUFFIX = ".provenance.json"
+FILES = ("collation.csv", "collation.json", "collation.html")  # what collate writes into its folder
 
 
 # ---------------------------------------------------------------------------------------------
@@ -408,12 +410,9 @@ def problems_text(col: dict) -> list[str]:
 def collate(paths, out_dir, labels=None, threshold: float = DEFAULT_THRESHOLD) -> dict:
     """Read, check and compare the records; write the three files into ``out_dir``."""
     out_dir = Path(out_dir)
-    if out_dir.exists() and not out_dir.is_dir():
-        raise InputError(f"--out {out_dir}: exists and is not a folder; give a folder for the collation")
+    need_folder(out_dir, f"--out {out_dir}", "give a folder for the collation")
     col = compare(collect(paths, labels), threshold)
-    texts = {"collation.csv": to_csv(col),
-             "collation.json": json.dumps(col, indent=2, allow_nan=False) + "\n",
-             "collation.html": to_html(col)}
+    texts = dict(zip(FILES, (to_csv(col), json.dumps(col, indent=2, allow_nan=False) + "\n", to_html(col))))
     out_dir.mkdir(parents=True, exist_ok=True)
     for name, text in texts.items():
         write_atomic_text(out_dir / name, text)
@@ -421,4 +420,4 @@ def collate(paths, out_dir, labels=None, threshold: float = DEFAULT_THRESHOLD) -
     return col
 
 
-__all__ = ["band_means", "collect", "compare", "collate", "to_csv", "to_html", "problems_text", "BANDS_CM"]
+__all__ = ["band_means", "collect", "compare", "collate", "to_csv", "to_html", "problems_text", "BANDS_CM", "FILES"]

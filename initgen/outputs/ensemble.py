@@ -42,6 +42,7 @@ from pathlib import Path
 from initgen.config.recipe import Document
 from initgen.errors import InputError
 from initgen.io.atomic import clean_stale_files, sha256_file
+from initgen.io.targets import need_folder, writable_folder
 from initgen.outputs import provenance as prov
 from initgen.outputs.manifest import EnsembleResult, _manifest, write_manifest
 from initgen.outputs.members import (STOP_NAME, Member, Task, _init_worker, _result, _run_in_worker, build_shared,
@@ -94,13 +95,8 @@ def check_output_folder(outdir: Path, *, force: bool = False, resume: bool = Fal
     """The ensemble's folder: refused when it is a file, when its parent is missing or it cannot be
     written, and when it already holds an ensemble (a manifest) unless ``resume`` or ``force``."""
     outdir = Path(outdir)
-    if outdir.exists() and not outdir.is_dir():
-        raise InputError(f"{outdir}: exists and is not a folder; an ensemble writes into a folder (--output DIR)")
-    target = outdir if outdir.is_dir() else outdir.parent if str(outdir.parent) else Path(".")
-    if not target.is_dir():
-        raise InputError(f"--output {outdir}: the folder {target} does not exist; create it first")
-    if not os.access(target, os.W_OK | os.X_OK):
-        raise InputError(f"--output {outdir}: the folder {target} is not writable; choose another folder")
+    need_folder(outdir, str(outdir), "an ensemble writes into a folder (--output DIR)")
+    writable_folder(outdir if outdir.is_dir() else outdir.parent, f"--output {outdir}")
     if outdir.is_dir() and (outdir / "manifest.json").exists() and not (force or resume):
         raise InputError(f"--output {outdir}: holds an ensemble already (manifest.json); pass --resume to keep its "
                          "finished members and write the rest, or --force to replace them")
