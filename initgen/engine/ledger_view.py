@@ -323,6 +323,16 @@ class Physics:
         """The quantity called ``name`` (e.g. ``sensible``), None when the ledger has none."""
         return next((q for q in self.quantities if q.name == name), None)
 
+    def region_total(self, name: str) -> float | None:
+        """The region total of quantity ``name`` (J or kg), None when the ledger has none."""
+        q = self.quantity(name)
+        return None if q is None else q.region_total
+
+    def column_per_m2(self, name: str) -> float | None:
+        """Quantity ``name`` summed over the layers, per m2 of region; None when the ledger has none."""
+        q = self.quantity(name)
+        return None if q is None or q.per_layer_m2 is None else float(sum(q.per_layer_m2))
+
 
 @dataclass(frozen=True)
 class MemberFactors:
