@@ -42,9 +42,7 @@ def _imposed_profile(plan) -> np.ndarray | None:
     for b in plan.blocks:
         if b.anomaly is None or b.factors is None or "soil_temperature" not in b.targets:
             continue
-        eff = b.anomaly * plan.member_scale + plan.member_offset_K
-        if plan.noise is not None:
-            eff = eff + plan.noise
+        eff = plan.effective_anomaly(b)
         wa = float(np.sum(np.where(b.weight > 0, b.weight * eff, 0.0)[plan.region] * a)) / total
         prof = np.asarray(b.factors, float) * wa
         out = prof if out is None else out + prof
@@ -325,10 +323,7 @@ def preview_report(recipe, input, layout, out_dir, ledger=None, allow_outside_pa
         if b.anomaly is None:
             donors.append(b.name)
             continue
-        a = b.anomaly * plan.member_scale + getattr(plan, "member_offset_K", 0.0)
-        if getattr(plan, "noise", None) is not None:
-            a = a + plan.noise
-        surf += plan.full(a * b.weight * b.surface_factor)  # as engine/plan.py applies it to skin and snow temperature
+        surf += plan.full(plan.effective_anomaly(b) * b.weight * b.surface_factor)  # as engine/plan.py applies it to skin and snow temperature
     who = f"recipe {rec.name}" + (f", member {member}" if member else "")
     coast = f" Grey: sea (no land); thin line: coastline ({land_what} 0.5, from the input)." if land is not None else ""
     mk = dict(land=land, land_what=land_what or "", taper_edge=edge)
