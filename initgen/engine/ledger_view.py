@@ -24,7 +24,7 @@ Examples
 from __future__ import annotations
 
 import re
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, fields
 from typing import Any, Mapping
 
 #: The soil variables whose per-layer rows carry the layer's node depth.
@@ -52,21 +52,41 @@ def _extra(d: Mapping, known) -> dict:
     return {k: v for k, v in d.items() if k not in known}
 
 
-@dataclass(frozen=True)
-class SoilLayer:
-    """One soil layer's geometry (m; None where not known) and where it came from."""
+class _Flat:
+    """A ledger section whose keys are the dataclass's fields, in the ledger's order, with the
+    values as the ledger holds them; an ``extra`` field keeps the keys this version does not know."""
 
-    top_m: float | None
-    bottom_m: float | None
-    node_m: float | None
-    source: str
+    _OMIT_NONE = False   # True: a field that is None is a key the ledger did not have
 
     @classmethod
-    def from_dict(cls, d: Mapping) -> "SoilLayer":
-        return cls(d.get("top_m"), d.get("bottom_m"), d.get("node_m"), d.get("source", ""))
+    def _names(cls) -> list[str]:
+        return [f.name for f in fields(cls) if f.name != "extra"]
+
+    @classmethod
+    def from_dict(cls, d: Mapping | None):
+        d = d or {}
+        names = cls._names()
+        kw = {k: d.get(k) for k in names}
+        if "extra" in {f.name for f in fields(cls)}:
+            kw["extra"] = _extra(d, names)
+        return cls(**kw)
 
     def to_dict(self) -> dict:
-        return {"top_m": self.top_m, "bottom_m": self.bottom_m, "node_m": self.node_m, "source": self.source}
+        out = {k: getattr(self, k) for k in self._names()}
+        if self._OMIT_NONE:
+            out = {k: v for k, v in out.items() if v is not None}
+        out.update(getattr(self, "extra", {}))
+        return out
+
+
+@dataclass(frozen=True)
+class SoilLayer(_Flat):
+    """One soil layer's geometry (m; None where not known) and where it came from."""
+
+    top_m: float | None = None
+    bottom_m: float | None = None
+    node_m: float | None = None
+    source: str | None = None
 
 
 @dataclass(frozen=True)
@@ -99,7 +119,7 @@ class Grid:
 
 
 @dataclass(frozen=True)
-class Region:
+class Region(_Flat):
     """The region: cells with weight > 0 and at full weight; its area (None without cell areas)."""
 
     cells_weight_above_0: int | None = None
@@ -107,17 +127,6 @@ class Region:
     area_m2: float | None = None
     area_is: str | None = None
     extra: Mapping = field(default_factory=dict)
-
-    KEYS = ("cells_weight_above_0", "cells_full_weight", "area_m2", "area_is")
-
-    @classmethod
-    def from_dict(cls, d: Mapping | None) -> "Region":
-        d = d or {}
-        return cls(*(d.get(k) for k in cls.KEYS), _extra(d, cls.KEYS))
-
-    def to_dict(self) -> dict:
-        return {"cells_weight_above_0": self.cells_weight_above_0, "cells_full_weight": self.cells_full_weight,
-                "area_m2": self.area_m2, "area_is": self.area_is, **self.extra}
 
 
 @dataclass(frozen=True)
@@ -204,7 +213,7 @@ class Variable:
 
 
 @dataclass(frozen=True)
-class Invariants:
+class Invariants(_Flat):
     """The physics' promises, measured on the changed soil layer-cells (None: not measured, or a
     record that predates the count)."""
 
@@ -219,19 +228,7 @@ class Invariants:
     cells_change_not_equal_to_imposed: int | None = None      # temperature mode
     meaning: str | None = None
 
-    KEYS = ("cells_checked", "water_change_region_kg", "water_change_relative", "cells_change_opposite_to_imposed",
-            "cells_made_inconsistent", "cells_change_beyond_imposed", "cells_phase_change_beyond_energy",
-            "max_energy_budget_rel_error", "cells_change_not_equal_to_imposed", "meaning")
-
-    @classmethod
-    def from_dict(cls, d: Mapping) -> "Invariants":
-        return cls(*(d.get(k) for k in cls.KEYS))
-
-    def to_dict(self) -> dict:
-        out: dict = {}
-        for k in self.KEYS:
-            _put(out, k, getattr(self, k))
-        return out
+    _OMIT_NONE = True
 
     def counts(self) -> list[tuple[str, Any]]:
         """(name, value) of every measured invariant, without the ``meaning`` sentence."""
@@ -335,19 +332,12 @@ class Physics:
 
 
 @dataclass(frozen=True)
-class MemberFactors:
+class MemberFactors(_Flat):
     """The ensemble member's factors the run used (scale x sign, offset, noise or not)."""
 
     scale_times_sign: float | None = None
     offset_K: float | None = None
     noise: bool | None = None
-
-    @classmethod
-    def from_dict(cls, d: Mapping) -> "MemberFactors":
-        return cls(d.get("scale_times_sign"), d.get("offset_K"), d.get("noise"))
-
-    def to_dict(self) -> dict:
-        return {"scale_times_sign": self.scale_times_sign, "offset_K": self.offset_K, "noise": self.noise}
 
 
 @dataclass(frozen=True)
