@@ -65,6 +65,15 @@ class Plan:
         if f is not None:
             self.area = self.area * np.clip(np.nan_to_num(f, nan=0.0), 0.0, 1.0)
 
+    def effective_anomaly(self, b: BlockPlan, index=Ellipsis) -> np.ndarray:
+        """The anomaly block ``b`` imposes for this plan's member (K, on the window, or at ``index``
+        of it): A(x) x the member's scale x sign, plus its offset, plus its noise. The one place it
+        is computed: the run applies it, the ledger summarises it, the preview report draws it."""
+        a = b.anomaly[index] * self.member_scale + self.member_offset_K
+        if self.noise is not None:
+            a = a + self.noise[index]
+        return a
+
     def full(self, arr: np.ndarray, fill: float = 0.0) -> np.ndarray:
         """A window-shaped array placed on the whole grid (for maps and mask files)."""
         out = np.full(self.model.grid.shape, fill, dtype=np.result_type(arr, np.float64))

@@ -88,12 +88,6 @@ class Ledger:
             self.vars[name] = {"role": role, "units": units, "layered": layered, "stats": _Stats(nlayers)}
         return self.vars[name]["stats"]
 
-    def _effective(self, b) -> np.ndarray:
-        """The anomaly a block imposes for this plan's member: scaled, offset and with noise."""
-        plan = self.plan
-        a = b.anomaly * plan.member_scale + plan.member_offset_K
-        return a + plan.noise if plan.noise is not None else a
-
     def clamp(self, rule: str, count: int) -> None:
         """Cells whose new value a limit changed, by rule."""
         if count:
@@ -152,7 +146,7 @@ class Ledger:
                         "cells_weight_above_0": int((b.weight > 0).sum()),
                         "layer_factors": None if b.factors is None else [_num(f) for f in b.factors],
                         "surface_factor": _num(b.surface_factor),
-                        "anomaly_K": None if b.anomaly is None else _anomaly_summary(self._effective(b), b.weight)}
+                        "anomaly_K": None if b.anomaly is None else _anomaly_summary(self.plan.effective_anomaly(b), b.weight)}
                        for b in self.plan.blocks],
             "variables": {},
             "clamps": dict(sorted(self.clamps.items())),

@@ -262,7 +262,7 @@ def apply_block(plan: Plan, store, hkey: dict, widx: tuple, led, *, write: bool)
                 if water is not None:
                     _equilibrate_blend(T, water, sel, led, area, phys.phase_rule)
                 continue
-            dT = wf * _bcast_h(_anomaly(plan, b, hidx), 2)
+            dT = wf * _bcast_h(plan.effective_anomaly(b, hidx), 2)
             if water is None:
                 T = np.where(sel, T + dT, T)
             else:
@@ -309,13 +309,6 @@ def apply_block(plan: Plan, store, hkey: dict, widx: tuple, led, *, write: bool)
         _snow_mass_write(plan, store, hkey, m0, m, inside_s, led, area, write)
 
 
-def _anomaly(plan: Plan, b: BlockPlan, hidx) -> np.ndarray:
-    a = b.anomaly[hidx] * plan.member_scale + plan.member_offset_K
-    if plan.noise is not None:
-        a = a + plan.noise[hidx]
-    return a
-
-
 def _surface_temperature(plan, store, hkey, widx, target, weights, inside_h, led, area, write, snow_mass=None,
                          follow=None):
     """Skin or snow temperature: moves with the surface factor, or (skin, physics modes) follows the
@@ -350,7 +343,7 @@ def _surface_temperature(plan, store, hkey, widx, target, weights, inside_h, led
             D = D if layered else D[:, None]
             T = np.where(sel, sources.donor_blend(T, D, np.broadcast_to(ww, T.shape)), T)
         else:
-            T = np.where(sel, T + ww * b.surface_factor * _bcast_h(_anomaly(plan, b, widx), 2), T)
+            T = np.where(sel, T + ww * b.surface_factor * _bcast_h(plan.effective_anomaly(b, widx), 2), T)
     melt = None
     if target == "snow_temperature":
         moved = inside & (T != T0)          # snow the recipe changed; other values stay as read

@@ -28,6 +28,7 @@ from pathlib import Path
 
 import numpy as np
 
+from initgen.engine.ledger_view import LedgerView
 from initgen.errors import InputError
 from initgen.io.atomic import sha256_file, write_atomic_text
 from initgen.io.targets import need_folder
@@ -130,7 +131,7 @@ def _output_beside(record_path: Path, rec: dict) -> Path | None:
 
 
 def _summary(record_path: Path, rec: dict, label: str) -> dict:
-    led = rec.get("ledger") or {}
+    led = LedgerView.from_dict(rec.get("ledger") or {})
     issues = []
     out_path = _output_beside(record_path, rec)
     integrity = "not checked: the output file is not present"
@@ -140,37 +141,36 @@ def _summary(record_path: Path, rec: dict, label: str) -> dict:
         else:
             integrity = "output changed since apply (sha256 differs from the record)"
             issues.append(f"its output {out_path} no longer matches the recorded sha256 (edited or replaced)")
-    region = led.get("region") or {}
-    area = region.get("area_m2")
-    soil = [v for v in (led.get("variables") or {}).values() if v.get("role") == "soil_temperature"]
-    layers = led.get("layers")
-    per_layer = [r.get("area_weighted_mean") for r in soil[0]["layers"]] if soil and soil[0].get("layers") else None
-    nodes = [r.get("node_depth_m") for r in soil[0]["layers"]] if soil and soil[0].get("layers") else None
-    if per_layer is not None and layers is None:
+    region = led.region
+    area = region.area_m2
+    soil = led.of_role("soil_temperature")
+    rows = soil[0].rows if soil and soil[0].layered and soil[0].rows else None
+    per_layer = None if rows is None else [r.area_weighted_mean for r in rows]
+    nodes = None if rows is None else soil[0].node_depths
+    if per_layer is not None and led.layers is None:
         issues.append("it holds no layer geometry (made by an initgen that did not record it); re-run apply")
         bands = [{"band_cm": list(b), "mean": None, "coverage": 0.0} for b in BANDS_CM]
     elif per_layer is not None:
-        bands = band_means(layers["top_m"], layers["bottom_m"], per_layer)
+        bands = band_means(led.layers.top_m, led.layers.bottom_m, per_layer)
     else:
         bands = [{"band_cm": list(b), "mean": None, "coverage": 0.0} for b in BANDS_CM]
-    phys = led.get("physics") or {}
-    per_m2 = (lambda k: float(sum(phys[k])) if isinstance(phys.get(k), list) else None)  # noqa: E731
-    sensible, latent = per_m2("sensible_per_layer_J_m2"), per_m2("latent_per_layer_J_m2")
-    frozen, melted = per_m2("frozen_per_layer_kg_m2"), per_m2("melted_per_layer_kg_m2")
-    pers = led.get("persistence") or {}
+    per_m2 = led.physics.column_per_m2
+    sensible, latent = per_m2("sensible"), per_m2("latent")
+    frozen, melted = per_m2("frozen"), per_m2("melted")
+    pers = led.persistence
     layout = rec.get("layout") or {}
     return {
         "label": label,
         "record": str(record_path),
         "layout": layout.get("name") or "none (roles from CF attributes)",
-        "grid_kind": (led.get("grid") or {}).get("kind"),
+        "grid_kind": led.grid.kind,
         "recipe_name": (rec.get("recipe") or {}).get("name"),
         "recipe_sha256": (rec.get("recipe") or {}).get("sha256"),
         "member": (rec.get("member") or {}).get("name"),
         "integrity": integrity,
         "region_area_km2": None if area is None else area / 1e6,
-        "region_area_is": region.get("area_is"),
-        "cell_area": (led.get("grid") or {}).get("cell_area"),
+        "region_area_is": region.area_is,
+        "cell_area": led.grid.cell_area,
         "bands": bands,
         "layer_node_depth_m": nodes,
         "layer_change_K": per_layer,
@@ -178,10 +178,11 @@ def _summary(record_path: Path, rec: dict, label: str) -> dict:
         "sensible_J_m2": sensible,
         "latent_J_m2": latent,
         "ice_change_kg_m2": None if frozen is None else frozen - (melted or 0.0),
-        "clamps": dict(led.get("clamps") or {}),
-        "flags": dict(led.get("flags") or {}),
-        "persistence_horizons_days": pers.get("horizons_days"),
-        "persistence_remaining_fraction": pers.get("remaining_fraction"),
+        "clamps": dict(led.clamps),
+        "flags": dict(led.flags),
+        "persistence_horizons_days": None if pers is None or pers.horizons_days is None else list(pers.horizons_days),
+        "persistence_remaining_fraction": None if pers is None or pers.remaining_fraction is None
+        else list(pers.remaining_fraction),
         "issues": issues,
         "band_flags": [],
     }
@@ -299,9 +300,20 @@ def _figures(col: dict) -> dict:
     from matplotlib.figure import Figure
 
     figs = {}
-    fig = Figure(figsize=(7.5, 5.0), dpi=100)
-    FigureCanvasAgg(fig)
-    ax = fig.subplots()
+
+    def axes(height: float):
+        fig = Figure(figsize=(7.5, height), dpi=100)
+        FigureCanvasAgg(fig)
+        return fig, fig.subplots()
+
+    def lines_done(name: str, fig, ax) -> None:  # a line plot: grid, legend when anything was drawn
+        ax.grid(alpha=0.3)
+        if ax.get_legend_handles_labels()[0]:
+            ax.legend(fontsize=8)
+        fig.tight_layout()
+        figs[name] = fig
+
+    fig, ax = axes(5.0)
     for r in col["submissions"]:
         if r["layer_change_K"] and r["layer_node_depth_m"]:
             pts = [(d * 100, v) for d, v in zip(r["layer_node_depth_m"], r["layer_change_K"])
@@ -315,14 +327,8 @@ def _figures(col: dict) -> dict:
     ax.set_xlabel("realised area-mean change of soil temperature (K)")
     ax.set_ylabel("layer node depth (cm)")
     ax.set_title("Realised change against depth (grey bars: band medians)")
-    ax.grid(alpha=0.3)
-    if ax.get_legend_handles_labels()[0]:
-        ax.legend(fontsize=8)
-    fig.tight_layout()
-    figs["profile"] = fig
-    fig = Figure(figsize=(7.5, 4.0), dpi=100)
-    FigureCanvasAgg(fig)
-    ax = fig.subplots()
+    lines_done("profile", fig, ax)
+    fig, ax = axes(4.0)
     labels = [r["label"] for r in col["submissions"]]
     heat = [r["heat_change_J_m2"] if r["heat_change_J_m2"] is not None else np.nan for r in col["submissions"]]
     ax.bar(range(len(labels)), [h / 1e6 for h in heat], color="tab:red")
@@ -333,9 +339,7 @@ def _figures(col: dict) -> dict:
     ax.set_title("Heat per m2 of region (sensible + latent; empty: no physics mode)")
     fig.tight_layout()
     figs["heat"] = fig
-    fig = Figure(figsize=(7.5, 4.0), dpi=100)
-    FigureCanvasAgg(fig)
-    ax = fig.subplots()
+    fig, ax = axes(4.0)
     for r in col["submissions"]:
         if r["persistence_horizons_days"] and r["persistence_remaining_fraction"]:
             ax.plot(r["persistence_horizons_days"], [f * 100 for f in r["persistence_remaining_fraction"]],
@@ -344,11 +348,7 @@ def _figures(col: dict) -> dict:
     ax.set_ylabel("heat anomaly left (%)")
     ax.set_ylim(0, 100)
     ax.set_title("Heat anomaly left: idealised conduction bound")
-    ax.grid(alpha=0.3)
-    if ax.get_legend_handles_labels()[0]:
-        ax.legend(fontsize=8)
-    fig.tight_layout()
-    figs["persistence"] = fig
+    lines_done("persistence", fig, ax)
     out = {}
     for name, fig in figs.items():
         buf = io.BytesIO()

@@ -23,6 +23,7 @@ from initgen.config.members import expand_members
 from initgen.config.recipe import Document
 from initgen.config.views import Noise
 from initgen.engine import plan as plan_mod
+from initgen.engine.ledger_view import LedgerView
 from initgen.errors import InputError
 from initgen.io.grid import open_model
 from initgen.io.stores import NetCDFStore
@@ -210,22 +211,20 @@ class Task:
     replace: bool = False  # --resume: an output that does not match its record is written again
 
 
-def ledger_summary(ledger: dict) -> dict:
-    """The manifest's short summary of a ledger: top soil layer change, phase change, clamps."""
-    top = None
-    for var in ledger.get("variables", {}).values():
-        if var["role"] == "soil_temperature":
-            row = (var.get("layers") or [var.get("field")])[0]
-            top = row.get("area_weighted_mean") if row else None
-            break
-    phys = ledger.get("physics", {})
+def ledger_summary(ledger) -> dict:
+    """The manifest's short summary of a ledger (dict or ``LedgerView``): top soil layer change,
+    phase change, clamps."""
+    led = LedgerView.from_dict(ledger)
+    soil = led.of_role("soil_temperature")
+    top = soil[0].rows[0].area_weighted_mean if soil and soil[0].rows else None
+    total = led.physics.region_total
     return {
         "top_soil_temperature_change_area_mean_K": top,
-        "frozen_kg": phys.get("frozen_region_total_kg"),
-        "melted_kg": phys.get("melted_region_total_kg"),
-        "latent_J": phys.get("latent_region_total_J"),
-        "sensible_J": phys.get("sensible_region_total_J"),
-        "clamped_cells": int(sum(ledger.get("clamps", {}).values())),
+        "frozen_kg": total("frozen"),
+        "melted_kg": total("melted"),
+        "latent_J": total("latent"),
+        "sensible_J": total("sensible"),
+        "clamped_cells": int(sum(led.clamps.values())),
     }
 
 

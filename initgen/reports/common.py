@@ -136,21 +136,3 @@ def _lon_arc(lons: np.ndarray) -> tuple[float, float]:
 
 def _is_layout_path(layout) -> bool:
     return layout is not None and not hasattr(layout, "data")
-
-
-def physics_tables(ledger: dict) -> tuple[list, list, list | None, list]:
-    """What the physics part of every report shows, read from the ledger once: the region totals
-    (``*_total_J``, ``*_total_kg``), the per-soil-layer series (``*_per_layer_*``), the soil
-    temperature's node depths (None when the ledger has none) and the per-snow-layer series
-    (``snow_*_per_layer_*``, which belong to snow layers, not soil layers). Renderers only
-    format them."""
-    phys = ledger.get("physics", {})
-    totals = [(k, v) for k, v in phys.items() if k.endswith("_total_J") or k.endswith("_total_kg")]
-    series = [(k, v) for k, v in phys.items() if "_per_layer_" in k and isinstance(v, list)]
-    per_layer = [(k, v) for k, v in series if not k.startswith("snow_")]
-    snow = [(k, v) for k, v in series if k.startswith("snow_")]
-    depths = None
-    for var in ledger.get("variables", {}).values():
-        if var.get("role") == "soil_temperature" and var.get("layers"):
-            depths = [r.get("node_depth_m") for r in var["layers"]]
-    return totals, per_layer, depths, snow

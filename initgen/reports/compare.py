@@ -8,8 +8,9 @@ HTML page, figures).
 from __future__ import annotations
 
 import warnings
+from contextlib import ExitStack, contextmanager
 from pathlib import Path
-from typing import Iterable
+from typing import Iterable, Iterator
 
 import numpy as np
 
@@ -69,6 +70,17 @@ class _ValueStats:
             "max_abs_change": self.max_abs,
             "area_weighted_mean_change": (self.wsum / self.w) if self.w > 0 else None,
         }
+
+
+@contextmanager
+def _both_open(a, b) -> Iterator[tuple[NetCDFStore, NetCDFStore]]:
+    """The two files open read-only; both closed again, also when the second cannot be opened."""
+    with ExitStack() as stack:
+        sa = NetCDFStore(a)
+        stack.callback(sa.close)
+        sb = NetCDFStore(b)
+        stack.callback(sb.close)
+        yield sa, sb
 
 
 def _find_grid(store: NetCDFStore, layout, notes: list):
@@ -194,17 +206,8 @@ def compare(a, b, allow: Iterable[str] = (), layout=None) -> dict:
     Values are read in blocks of at most :data:`BLOCK_ELEMENTS` elements per file.
     """
     allow = [str(v) for v in (allow or ())]
-    sa = NetCDFStore(a)
-    try:
-        sb = NetCDFStore(b)
-    except BaseException:
-        sa.close()
-        raise
-    try:
+    with _both_open(a, b) as (sa, sb):
         return _compare(sa, sb, allow, layout)
-    finally:
-        sa.close()
-        sb.close()
 
 
 def _compare(sa: NetCDFStore, sb: NetCDFStore, allow: list, layout) -> dict:
@@ -399,14 +402,8 @@ def _compare_fields(result: dict, layout) -> tuple:
     files one horizontal field at a time; (None, ...) without a grid.
     """
 
-    sa = NetCDFStore(result["a"])
-    try:
-        sb = NetCDFStore(result["b"])
-    except BaseException:
-        sa.close()
-        raise
     fields: dict = {}
-    try:
+    with _both_open(result["a"], result["b"]) as (sa, sb):
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
             try:
@@ -434,9 +431,6 @@ def _compare_fields(result: dict, layout) -> tuple:
             changed = ~same
             label = name + (f" {v['layer_dim']}[{layer}]" if v.get("layer_dim") else "")
             fields[name] = (np.where(changed, fb - fa, 0.0), changed, label, v.get("units") or "", row["cells_changed"])
-    finally:
-        sa.close()
-        sb.close()
     return grid, land, land_what, fields
 
 

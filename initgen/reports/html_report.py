@@ -12,8 +12,8 @@ import base64
 import html
 from pathlib import Path
 
+from initgen.engine.ledger_view import LedgerView
 from initgen.engine.persistence import line as persistence_line
-from initgen.reports.common import physics_tables
 from initgen.reports.figures import short_label
 
 STYLE = """
@@ -117,68 +117,67 @@ def _rules(counts: dict, texts: dict, none: str) -> str:
     return table(["rule", "cells", "what it means"], rows, {1})
 
 
-def persistence_section(ledger: dict) -> list[str]:
-    """The persistence estimate when the ledger has one; else a clearly marked empty place."""
+def persistence_section(ledger) -> list[str]:
+    """The persistence estimate when the ledger (dict or :class:`LedgerView`) has one; else a clearly
+    marked empty place."""
     out = ['<h2 id="persistence">Persistence estimate</h2>']
-    est = ledger.get("persistence")
+    est = LedgerView.from_dict(ledger).persistence
     if est is None:
         out.append('<p class="placeholder">PERSISTENCE ESTIMATE: not in this ledger (no "persistence" key); '
                    "it will be shown here when initgen computes one.</p>")
         return out
-    if isinstance(est, dict) and est.get("horizons_days") and est.get("remaining_fraction") is not None:
-        out.append(f"<p>{esc(persistence_line(est))}.</p>")  # the one wording of the estimate
-        per_layer = est.get("remaining_change_per_layer_K") or []
+    given = est.to_dict()
+    if est.estimated:
+        out.append(f"<p>{esc(persistence_line(given))}.</p>")  # the one wording of the estimate
+        per_layer = est.remaining_change_per_layer_K or []
         nl = max((len(r) for r in per_layer), default=0)
         head = ["after (days)", "heat anomaly left"] + [f"layer {i} change left (K)" for i in range(nl)]
         rows = []
-        for i, (h, f) in enumerate(zip(est["horizons_days"], est["remaining_fraction"])):
+        for i, (h, f) in enumerate(zip(est.horizons_days, est.remaining_fraction)):
             layer = per_layer[i] if i < len(per_layer) else []
             rows.append([num(h), f"{f * 100:.0f} %"] + [num(v) if v is not None else "-" for v in layer])
         out.append(table(head, rows))
-        src = [f"{k.replace('_', ' ')}: {est[k]}" for k in ("heat_capacity_source", "conductivity_source") if k in est]
+        src = [f"{k.replace('_', ' ')}: {given[k]}" for k in ("heat_capacity_source", "conductivity_source")
+               if k in given]
         if src:
             out.append(f"<p>{esc('; '.join(src))}.</p>")
-        if est.get("assumptions"):
-            out.append(f"<p><em>Assumptions:</em> {esc(est['assumptions'])}</p>")
+        if est.assumptions:
+            out.append(f"<p><em>Assumptions:</em> {esc(est.assumptions)}</p>")
         return out
-    if isinstance(est, dict) and "not_estimated" in est:
-        out.append(f"<p>{esc(persistence_line(est))}.</p>")
+    if "not_estimated" in given:
+        out.append(f"<p>{esc(persistence_line(given))}.</p>")
         return out
-    if isinstance(est, dict):
-        rows = []
-        for k, v in est.items():
-            if isinstance(v, float):
-                v = num(v)
-            elif isinstance(v, (list, tuple)):
-                v = ", ".join(num(x) if isinstance(x, float) else str(x) for x in v)
-            elif isinstance(v, dict):
-                v = "; ".join(f"{a}: {num(b) if isinstance(b, float) else b}" for a, b in v.items())
-            rows.append([k, v])
-        out.append(table(["quantity", "value"], rows))
-    else:
-        out.append(f"<p>{esc(est)}</p>")
+    rows = []   # a form of the estimate this version does not know: every quantity it holds
+    for k, v in given.items():
+        if isinstance(v, float):
+            v = num(v)
+        elif isinstance(v, (list, tuple)):
+            v = ", ".join(num(x) if isinstance(x, float) else str(x) for x in v)
+        elif isinstance(v, dict):
+            v = "; ".join(f"{a}: {num(b) if isinstance(b, float) else b}" for a, b in v.items())
+        rows.append([k, v])
+    out.append(table(["quantity", "value"], rows))
     return out
 
 
-def _ledger_tables(ledger: dict) -> list[str]:
+def _ledger_tables(ledger: LedgerView) -> list[str]:
     out = []
-    reg = ledger["region"]
-    out.append(f"<p>Region: {reg['cells_weight_above_0']} cells with weight &gt; 0 ({reg['cells_full_weight']} at "
-               f"full weight), " + (f"{esc(reg.get('area_is', 'area'))} {reg['area_m2'] / 1e6:,.0f} km2.</p>"
-                                    if reg.get("area_m2") is not None else
-                                    f"area {esc(reg.get('area_is', 'not known'))}: means use equal weights and "
+    reg = ledger.region
+    out.append(f"<p>Region: {reg.cells_weight_above_0} cells with weight &gt; 0 ({reg.cells_full_weight} at "
+               f"full weight), " + (f"{esc(reg.area_is or 'area')} {reg.area_m2 / 1e6:,.0f} km2.</p>"
+                                    if reg.area_m2 is not None else
+                                    f"area {esc(reg.area_is or 'not known')}: means use equal weights and "
                                     "totals in kg and J are left out.</p>"))
-    for name, var in ledger["variables"].items():
+    for name, var in ledger.variables.items():
         parts = name.split("+")
-        out.append(f"<h3>{esc(short_label(name))} ({esc(var['role'])}, change in {esc(var['units'])})</h3>")
-        rows = var.get("layers") or [var.get("field")]
+        out.append(f"<h3>{esc(short_label(name))} ({esc(var.role)}, change in {esc(var.units)})</h3>")
+        rows = var.rows
         per_layer = len(parts) == len(rows) and len(parts) > 1  # one variable per layer: name each in the table
         body = []
         for r in rows:
-            depth = r.get("node_depth_m")
-            body.append([r["layer"]] + ([parts[r["layer"]]] if per_layer else [])
-                        + [num(depth, ".3f"), r.get("cells_in_region", "-"), r["cells_changed"],
-                           num(r["area_weighted_mean"]), num(r["min"]), num(r["max"])])
+            body.append([r.layer] + ([parts[r.layer]] if per_layer else [])
+                        + [num(r.node_depth_m, ".3f"), "-" if r.cells_in_region is None else r.cells_in_region,
+                           r.cells_changed, num(r.area_weighted_mean), num(r.min), num(r.max)])
         k = 1 if per_layer else 0
         out.append(table(["layer"] + (["variable"] if per_layer else []) + ["node depth (m)", "cells in region",
                                                                            "cells changed", "mean over region",
@@ -188,35 +187,35 @@ def _ledger_tables(ledger: dict) -> list[str]:
     return out
 
 
-def _physics_tables(ledger: dict) -> list[str]:
-    phys = ledger.get("physics", {})
-    rule = (f", phase rule <code>{esc(phys['phase_rule'])}</code> ("
+def _physics_tables(ledger: LedgerView) -> list[str]:
+    phys = ledger.physics
+    rule = (f", phase rule <code>{esc(phys.phase_rule)}</code> ("
             + ("water changes phase only where the imposed change requires it"
-               if phys["phase_rule"] == "change_driven" else
+               if phys.phase_rule == "change_driven" else
                "the liquid/ice split is put on the freezing curve, as a model that diagnoses it would") + ")"
-            if phys.get("phase_rule") else "")
-    out = [f"<p>Mode: <code>{esc(phys.get('mode'))}</code>{rule}.</p>"]
-    if phys.get("soil_parameters"):
+            if phys.phase_rule else "")
+    out = [f"<p>Mode: <code>{esc(phys.mode)}</code>{rule}.</p>"]
+    if phys.soil_parameters:
         out.append(table(["soil parameter", "from"], [[k.replace("_", " "), v]
-                                                      for k, v in phys["soil_parameters"].items()]))
-    inv = phys.get("invariants")
-    if inv:
+                                                      for k, v in phys.soil_parameters.items()]))
+    inv = phys.invariants
+    if inv is not None and inv.to_dict():
         out.append("<p>Invariants, measured on the changed layer-cells (the physics' promises; a non-zero "
                    "count of cells is a defect to report):</p>")
         out.append(table(["invariant", "measured"], [[k.replace("_", " "), num(v) if isinstance(v, float) else v]
-                                                     for k, v in inv.items() if k != "meaning"], {1}))
-    shift = ledger.get("input_phase_disequilibrium")
-    if shift and sum(shift["cells_per_layer"]):
-        out.append(f"<p>Input off the freezing curve of the soil parameters used: {esc(shift['meaning'])}.</p>")
+                                                     for k, v in inv.counts()], {1}))
+    shift = ledger.input_phase_disequilibrium
+    if shift is not None and shift.cells:
+        out.append(f"<p>Input off the freezing curve of the soil parameters used: {esc(shift.meaning)}.</p>")
         rows = [[i, c, num(f), num(m)] for i, (c, f, m) in enumerate(zip(
-            shift["cells_per_layer"], shift["equilibrium_rule_would_freeze_kg_per_layer"],
-            shift["equilibrium_rule_would_melt_kg_per_layer"]))]
+            shift.cells_per_layer, shift.would_freeze_kg_per_layer, shift.would_melt_kg_per_layer))]
         out.append(table(["layer", "cells", "equilibrium rule would freeze (kg)", "would melt (kg)"], rows,
                          {0, 1, 2, 3}))
-    if ledger.get("notes"):
+    if ledger.notes:
         out.append(table(["what initgen inferred", "how"], [[k.replace("_", " "), v]
-                                                            for k, v in ledger["notes"].items()]))
-    totals, per_layer, depths, snow = physics_tables(ledger)
+                                                            for k, v in ledger.notes.items()]))
+    totals, per_layer, snow = phys.totals, phys.per_layer(), phys.per_layer(snow=True)
+    depths = ledger.soil_node_depths
     if snow:   # per snow layer, not per soil layer
         out.append(table(["snow layer"] + [k for k, _ in snow],
                          [[i] + [num(v[i]) if i < len(v) else "-" for _, v in snow]
@@ -229,19 +228,21 @@ def _physics_tables(ledger: dict) -> list[str]:
                 + [num(v[i]) if i < len(v) else "-" for _, v in per_layer] for i in range(n)]
         out.append("<p>Per layer, per m2 of region:</p>")
         out.append(table(["layer", "node depth (m)"] + [k for k, _ in per_layer], rows, set(range(n + 2))))
-    if ledger.get("cells_not_in_phase_equilibrium_before"):
-        out.append(f"<p>{ledger['cells_not_in_phase_equilibrium_before']} region layer-cells were not in phase "
+    if ledger.cells_not_in_phase_equilibrium_before:
+        out.append(f"<p>{ledger.cells_not_in_phase_equilibrium_before} region layer-cells were not in phase "
                    "equilibrium before the change.</p>")
     return out
 
 
-def preview_page(*, rec, lay, input, input_sha256: str, grid, ledger: dict, member: dict | None,
+def preview_page(*, rec, lay, input, input_sha256: str, grid, ledger, member: dict | None,
                  blocks: list, figures: list, sentences: list, caution: str, version: str) -> str:
     """The preview report page.
 
-    ``blocks``: rows of the perturbation-block table; ``figures``: (png bytes, caption);
-    ``sentences``: plain sentences for single-valued layers (shown instead of a histogram bar).
+    ``ledger``: a dict or :class:`LedgerView`; ``blocks``: rows of the perturbation-block table;
+    ``figures``: (png bytes, caption); ``sentences``: plain sentences for single-valued layers (shown
+    instead of a histogram bar).
     """
+    ledger = LedgerView.from_dict(ledger)
     title = f"initgen preview: {rec.name}" + (f", member {member['name']}" if member else "")
     B = [f"<h1>{esc(title)}</h1>"]
     if rec.data.get("description"):
@@ -265,9 +266,9 @@ def preview_page(*, rec, lay, input, input_sha256: str, grid, ledger: dict, memb
     B.append("<h2>What would change (the ledger)</h2>")
     B += _ledger_tables(ledger)
     B.append("<h2>Clamps</h2>")
-    B.append(_rules(ledger.get("clamps") or {}, CLAMP_TEXT, "No value was clamped."))
+    B.append(_rules(ledger.clamps, CLAMP_TEXT, "No value was clamped."))
     B.append("<h2>Flags</h2>")
-    B.append(_rules(ledger.get("flags") or {}, FLAG_TEXT, "No cell was flagged."))
+    B.append(_rules(ledger.flags, FLAG_TEXT, "No cell was flagged."))
     B.append("<h2>Physics: energy and phase change</h2>")
     B += _physics_tables(ledger)
     B += persistence_section(ledger)

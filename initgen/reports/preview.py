@@ -16,10 +16,11 @@ import numpy as np
 from initgen import api
 from initgen._version import __version__
 from initgen.engine import plan as plan_mod
+from initgen.engine.ledger_view import SOIL_ROLES, LedgerView
 from initgen.engine.persistence import line as persistence_line
 from initgen.errors import InputError
 from initgen.io.atomic import sha256_file, write_atomic_bytes, write_atomic_text
-from initgen.reports.common import CAUTION, physics_tables
+from initgen.reports.common import CAUTION
 from initgen.reports.figures import histogram_figure, profile_figure, short_label
 from initgen.reports.html_report import CLAMP_TEXT, FLAG_TEXT, MEAN_REGION, preview_page
 from initgen.reports.maps import _area_units, _land_for_map, _map_figure, _region_geoms, _taper_edge
@@ -41,9 +42,7 @@ def _imposed_profile(plan) -> np.ndarray | None:
     for b in plan.blocks:
         if b.anomaly is None or b.factors is None or "soil_temperature" not in b.targets:
             continue
-        eff = b.anomaly * plan.member_scale + plan.member_offset_K
-        if plan.noise is not None:
-            eff = eff + plan.noise
+        eff = plan.effective_anomaly(b)
         wa = float(np.sum(np.where(b.weight > 0, b.weight * eff, 0.0)[plan.region] * a)) / total
         prof = np.asarray(b.factors, float) * wa
         out = prof if out is None else out + prof
@@ -59,7 +58,7 @@ class _ChangeCapture:
     smallest and largest change of a changed cell, and the change of the top layer on the grid.
     """
 
-    def __init__(self, inner, model, ledger: dict, plan, bins: int = 240):
+    def __init__(self, inner, model, ledger, plan, bins: int = 240):
         self.inner = inner
         self.bytes_written = 0
         self.hist: dict = {}
@@ -73,11 +72,10 @@ class _ChangeCapture:
             for j, v in enumerate(role.views):
                 axis = v.info.dims.index(v.layer_dim) if v.layer_dim else None
                 self._where[v.info.name] = (label, axis, j if len(role.views) > 1 else None)
-        for name, var in ledger.get("variables", {}).items():
-            rows = var.get("layers") or [var.get("field")]
+        for name, var in LedgerView.from_dict(ledger).variables.items():
             edges = []
-            for r in rows:
-                lo, hi = (r or {}).get("min"), (r or {}).get("max")
+            for r in var.rows:
+                lo, hi = r.min, r.max
                 if lo is None or hi is None:
                     edges.append(None)
                     continue
@@ -87,7 +85,7 @@ class _ChangeCapture:
             n = len(edges)
             self.hist[name] = {"edges": edges, "area": [None if e is None else np.zeros(bins) for e in edges],
                                "cells": np.zeros(n, np.int64), "area_sum": np.zeros(n),
-                               "lo": np.full(n, np.inf), "hi": np.full(n, -np.inf), "units": var.get("units", "")}
+                               "lo": np.full(n, np.inf), "hi": np.full(n, -np.inf), "units": var.units or ""}
 
     def __getattr__(self, name):
         return getattr(self.inner, name)
@@ -149,26 +147,26 @@ class _ChangeCapture:
         return n
 
 
-def _histogram_panels(capture: "_ChangeCapture", ledger: dict, roles: tuple, grid) -> tuple[list, list]:
+def _histogram_panels(capture: "_ChangeCapture", ledger: LedgerView, roles: tuple, grid) -> tuple[list, list]:
     """(panels, sentences): a panel per layer with several values of change, a sentence per single-valued one."""
 
     div, unit = _area_units(grid)
     panels, sentences = [], []
-    for name, var in ledger.get("variables", {}).items():
-        if var.get("role") not in roles or name not in capture.hist:
+    for name, var in ledger.variables.items():
+        if var.role not in roles or name not in capture.hist:
             continue
         h = capture.hist[name]
-        rows = var.get("layers") or [var.get("field")]
-        layered = bool(var.get("layers"))
+        rows = var.rows
+        layered = var.layered and bool(rows)
         for i, (e, a) in enumerate(zip(h["edges"], h["area"])):
             if a is None or h["cells"][i] == 0:
                 continue
-            depth = rows[i].get("node_depth_m") if i < len(rows) and rows[i] else None
+            depth = rows[i].node_depth_m if i < len(rows) else None
             title = short_label(name) + (f" layer {i + 1}" if layered else "") + \
                 (f" ({depth:.3g} m)" if depth is not None else "")
             lo, hi = h["lo"][i], h["hi"][i]
             if hi - lo <= 1e-9 * max(1.0, abs(hi)):
-                sentences.append(f"{title}: every one of the {rows[i]['cells_changed']} changed cells (ledger) "
+                sentences.append(f"{title}: every one of the {rows[i].cells_changed} changed cells (ledger) "
                                  f"changed by {lo:.4g} "
                                  f"{h['units']} ({h['area_sum'][i] / div:,.4g} {unit.split(',')[0]}).")
                 continue
@@ -195,23 +193,22 @@ def _coarsen(edges: np.ndarray, area: np.ndarray, most: int = 40) -> tuple[np.nd
     return e, a
 
 
-def _profile_panels(ledger: dict, model, imposed) -> list:
+def _profile_panels(ledger: LedgerView, model, imposed) -> list:
     """Per layered soil variable of the ledger: layer extents, realised means and (for temperature) the target."""
 
     layers = model.layers
     if layers is None:
         return []
     out = []
-    for name, var in ledger.get("variables", {}).items():
-        rows = var.get("layers")
-        if not rows or var.get("role") not in ("soil_temperature", "soil_liquid", "soil_ice") \
-                or len(rows) != len(layers.top_m):
+    for name, var in ledger.variables.items():
+        rows = var.rows if var.layered else ()
+        if not rows or var.role not in SOIL_ROLES or len(rows) != len(layers.top_m):
             continue
-        imp = imposed if var["role"] == "soil_temperature" and imposed is not None \
+        imp = imposed if var.role == "soil_temperature" and imposed is not None \
             and len(imposed) == len(rows) else None
-        out.append({"label": f"{short_label(name)} ({var['role']})", "units": var.get("units", ""),
+        out.append({"label": f"{short_label(name)} ({var.role})", "units": var.units or "",
                     "top_m": layers.top_m, "bottom_m": layers.bottom_m, "node_m": layers.node_m,
-                    "realised": [r.get("area_weighted_mean") for r in rows],
+                    "realised": [r.area_weighted_mean for r in rows],
                     "imposed": None if imp is None else list(imp)})
     return out
 
@@ -222,44 +219,42 @@ def _md_table(header: list, rows: list) -> list[str]:
     return out
 
 
-def _ledger_markdown(ledger: dict) -> list[str]:
+def _ledger_markdown(ledger: LedgerView) -> list[str]:
     """The ledger tables, with the numbers formatted as ``api.ledger_text`` formats them."""
 
     out = []
-    reg = ledger["region"]
-    out.append(f"Region: {reg['cells_weight_above_0']} cells with weight > 0 ({reg['cells_full_weight']} at full "
-               f"weight), " + (f"area {reg['area_m2'] / 1e6:,.0f} km2." if reg.get("area_m2") is not None
-                             else f"area {reg.get('area_is', 'not known')}."))
+    reg = ledger.region
+    out.append(f"Region: {reg.cells_weight_above_0} cells with weight > 0 ({reg.cells_full_weight} at full "
+               f"weight), " + (f"area {reg.area_m2 / 1e6:,.0f} km2." if reg.area_m2 is not None
+                             else f"area {reg.area_is or 'not known'}."))
     out.append("")
-    for name, var in ledger["variables"].items():
+    for name, var in ledger.variables.items():
         label = short_label(name)
-        out.append(f"**{label}** ({var['role']}, change in {var['units']})" + (f"; variables {name}" if label != name
-                                                                                 else ""))
+        out.append(f"**{label}** ({var.role}, change in {var.units})" + (f"; variables {name}" if label != name
+                                                                           else ""))
         out.append("")
-        rows = var.get("layers") or [var.get("field")]
         body = []
-        for r in rows:
-            depth = r.get("node_depth_m")
-            am = r["area_weighted_mean"]
-            body.append([r["layer"], f"{depth:.3f}" if depth is not None else "-", r["cells_changed"],
-                         f"{am:.4g}" if am is not None else "-", value_or_dash(r["min"]), value_or_dash(r["max"])])
+        for r in var.rows:
+            depth, am = r.node_depth_m, r.area_weighted_mean
+            body.append([r.layer, f"{depth:.3f}" if depth is not None else "-", r.cells_changed,
+                         f"{am:.4g}" if am is not None else "-", value_or_dash(r.min), value_or_dash(r.max)])
         out += _md_table(["layer", "depth_m", "changed", "mean over region", "min", "max"], body)
         out.append("")
     out += [MEAN_REGION + ".", ""]
     return out
 
 
-def _block_rows(ledger: dict, rec) -> list:
+def _block_rows(ledger: LedgerView, rec) -> list:
     """One row per perturbation block (the ledger's numbers, the recipe's taper), for the Markdown
     and the HTML page alike."""
     rows = []
-    for b, blk in zip(ledger.get("blocks", []), rec.data["perturbations"]):
-        an = b.get("anomaly_K") or {}
-        factors = b.get("layer_factors")
-        rows.append([b["name"], ", ".join(b["targets"]), b["cells_weight_above_0"],
+    for b, blk in zip(ledger.blocks, rec.data["perturbations"]):
+        an = b.anomaly_K or {}
+        factors = b.layer_factors
+        rows.append([b.name, ", ".join(b.targets), b.cells_weight_above_0,
                      f"{blk['region']['taper_km']:g} km {blk['region']['taper_placement']}",
                      f"{value_or_dash(an.get('min'))}..{value_or_dash(an.get('max'))}" if an else "donor",
-                     value_or_dash(b.get("surface_factor")),
+                     value_or_dash(b.surface_factor),
                      ", ".join(f"{f:.3g}" for f in factors) if factors else "-"])
     return rows
 
@@ -312,6 +307,7 @@ def preview_report(recipe, input, layout, out_dir, ledger=None, allow_outside_pa
         raise InputError(f"{out_dir}: exists and is not a folder; give a folder for the report")
     if ledger is None:   # the same ledger apply would write (a run closes a donor file: its own plan)
         ledger = api.preview(recipe, input, layout, member=member, allow_outside_paths=allow_outside_paths)
+    ledger = LedgerView.from_dict(ledger)
     with api.open_plan(recipe, input, layout, member=member, allow_outside_paths=allow_outside_paths) as p:
         rec, lay, store, model, plan, mem = p.recipe, p.layout, p.store, p.model, p.plan, p.member
         grid = model.grid
@@ -327,10 +323,7 @@ def preview_report(recipe, input, layout, out_dir, ledger=None, allow_outside_pa
         if b.anomaly is None:
             donors.append(b.name)
             continue
-        a = b.anomaly * plan.member_scale + getattr(plan, "member_offset_K", 0.0)
-        if getattr(plan, "noise", None) is not None:
-            a = a + plan.noise
-        surf += plan.full(a * b.weight * b.surface_factor)  # as engine/plan.py applies it to skin and snow temperature
+        surf += plan.full(plan.effective_anomaly(b) * b.weight * b.surface_factor)  # as engine/plan.py applies it to skin and snow temperature
     who = f"recipe {rec.name}" + (f", member {member}" if member else "")
     coast = f" Grey: sea (no land); thin line: coastline ({land_what} 0.5, from the input)." if land is not None else ""
     mk = dict(land=land, land_what=land_what or "", taper_edge=edge)
@@ -345,17 +338,17 @@ def preview_report(recipe, input, layout, out_dir, ledger=None, allow_outside_pa
             grid, np.where(w > 0, surf, 0.0), w, geoms, f"Imposed surface anomaly: {who}", "K", cmap="RdBu_r", **mk)
         captions["surface_anomaly.png"] = ("Imposed surface anomaly: anomaly x weight x surface factor, summed over "
                                            "the blocks (from the plan), on a scale centred on zero." + coast)
-    for name, var in ledger.get("variables", {}).items():
+    for name, var in ledger.variables.items():
         field = capture.maps.get(name)
         if field is None:
             continue
         field = plan.full(field)
         fname = f"change_{short_label(name).replace('..', '-').replace('+', '_').replace(' ', '')}.png"
-        top = " top layer" if var.get("layers") else ""
+        top = " top layer" if var.layered and var.rows else ""
         figures[fname] = _map_figure(grid, np.where(w > 0, field, 0.0), w, geoms,
-                                     f"Change of {short_label(name)}{top} ({var['role']}): {who}",
-                                     f"change ({var.get('units', '')})", cmap="RdBu_r", **mk)
-        captions[fname] = (f"Change of {short_label(name)}{top} ({var['role']}) as apply would write it (after physics and "
+                                     f"Change of {short_label(name)}{top} ({var.role}): {who}",
+                                     f"change ({var.units or ''})", cmap="RdBu_r", **mk)
+        captions[fname] = (f"Change of {short_label(name)}{top} ({var.role}) as apply would write it (after physics and "
                            "limits), on a scale centred on zero." + coast)
 
     imposed = _imposed_profile(plan)
@@ -421,21 +414,21 @@ def _preview_markdown(rec, lay, input, grid, ledger, figures, captions, donors, 
     L += ["", "## What would change (the ledger)", ""]
     L += _ledger_markdown(ledger)
     L += ["## Clamps", ""]
-    if ledger.get("clamps"):
+    if ledger.clamps:
         L += _md_table(["rule", "cells", "what it means"],
-                       [[k, v, CLAMP_TEXT.get(k, "-")] for k, v in ledger["clamps"].items()])
+                       [[k, v, CLAMP_TEXT.get(k, "-")] for k, v in ledger.clamps.items()])
     else:
         L.append("No value was clamped.")
     L += ["", "## Flags", ""]
-    if ledger.get("flags"):
+    if ledger.flags:
         L += _md_table(["rule", "cells", "what it means"],
-                       [[k, v, FLAG_TEXT.get(k, "-")] for k, v in ledger["flags"].items()])
+                       [[k, v, FLAG_TEXT.get(k, "-")] for k, v in ledger.flags.items()])
     else:
         L.append("No cell was flagged.")
     L += ["", "## Physics: energy and phase change", ""]
-    phys = ledger.get("physics", {})
-    L.append(f"Mode: `{phys.get('mode')}`.")
-    totals, per_layer, depths, _snow = physics_tables(ledger)
+    phys = ledger.physics
+    L.append(f"Mode: `{phys.mode}`.")
+    totals, per_layer, depths = phys.totals, phys.per_layer(), ledger.soil_node_depths
     if totals:
         L += [""] + _md_table(["quantity (region total)", "value"], [[k, f"{v:.4g}"] for k, v in totals])
     if per_layer:
@@ -447,15 +440,15 @@ def _preview_markdown(rec, lay, input, grid, ledger, figures, captions, donors, 
                         [f"{v[i]:.4g}" if i < len(v) else "-" for _, v in per_layer])
         L += ["", "Per layer, per m2 of region:", ""]
         L += _md_table(["layer", "depth_m"] + [k for k, _ in per_layer], rows)
-    if ledger.get("cells_not_in_phase_equilibrium_before"):
-        L += ["", f"Note: {ledger['cells_not_in_phase_equilibrium_before']} region layer-cells were not in phase "
+    if ledger.cells_not_in_phase_equilibrium_before:
+        L += ["", f"Note: {ledger.cells_not_in_phase_equilibrium_before} region layer-cells were not in phase "
                   "equilibrium before the change."]
     L += ["", "## Persistence estimate", ""]
-    est = ledger.get("persistence")
+    est = ledger.persistence
     if est is None:
         L.append("PERSISTENCE ESTIMATE: not in this ledger (no `persistence` key).")
     else:
-        L.append(persistence_line(est) + ".")  # persistence.py words the estimate once
+        L.append(persistence_line(est.to_dict()) + ".")  # persistence.py words the estimate once
     L += ["", "## Figures", ""]
     for fname in figures:
         L += [f"![{captions.get(fname, fname)}]({fname})", "", captions.get(fname, ""), ""]
