@@ -119,7 +119,24 @@ TEXTURE_CLASS_CENTROID_PCT = {
 ORGANIC_LAWRENCE_SLATER_2008 = {"porosity": 0.9, "psi_sat_m": 0.0103, "b": 2.7, "c_solid": 2.5e6}
 
 
-def _texture_key(name):
+def texture_key(name):
+    """A texture class name as the tables of this module spell it.
+
+    Parameters
+    ----------
+    name : str
+        Texture class in any case, with blanks, underscores or hyphens between words.
+
+    Returns
+    -------
+    str
+        Lower case, words separated by single blanks.
+
+    Examples
+    --------
+    >>> texture_key(' Silty_Clay-Loam ')
+    'silty clay loam'
+    """
     return " ".join(str(name).strip().lower().replace("_", " ").replace("-", " ").split())
 
 
@@ -144,7 +161,7 @@ def texture_solid_heat_capacity(name):
        class definitions).
     """
     hydraulics_from_texture(name)                       # validates the name
-    sand, clay = TEXTURE_CLASS_CENTROID_PCT[_texture_key(name)]
+    sand, clay = TEXTURE_CLASS_CENTROID_PCT[texture_key(name)]
     return float(soil_solid_heat_capacity(sand, clay))
 
 
@@ -214,8 +231,7 @@ def hydraulics_from_texture(name):
     .. [1] Clapp, R. B., and Hornberger, G. M. (1978). *Water Resources Research* 14(4),
        601-604, Table 2.
     """
-    key = " ".join(str(name).strip().lower().replace("_", " ").replace("-", " ").split())
-    row = CLAPP_HORNBERGER_1978.get(key)
+    row = CLAPP_HORNBERGER_1978.get(texture_key(name))
     if row is None:
         raise InputError(
             f"texture {name!r} is not a Clapp and Hornberger (1978) class; use one of: "
