@@ -151,8 +151,8 @@ def settle_one_sided(T, liq, ice, porosity, psi_sat_m, b):
     below = T < T_FREEZE
     with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
         phi = _f64(porosity)
-        lmax = np.minimum(phi, _liq_max_below(np.where(below, T, T_FREEZE - 1.0), phi, np.abs(_f64(psi_sat_m)),
-                                              _f64(b)))   # the curve is capped at the porosity
+        lmax = _liq_max_below(np.where(below, T, T_FREEZE - 1.0), phi, np.abs(_f64(psi_sat_m)), _f64(b),
+                              cap=phi)   # the curve is capped at the porosity
     stays = np.where(below, np.minimum(liq, lmax), liq)
     above = T > T_FREEZE
     liq1 = np.where(above, liq + ice, stays)
@@ -207,7 +207,7 @@ def _freezable(T, liq, phi, psi, b):
     disequilibrium: it is reported by the caller and kept as it is, not acted on.
     Returns ``(W_eligible, kept)`` with ``W_eligible + kept == liq``.
     """
-    lmax0 = np.where(T < T_FREEZE, np.minimum(phi, _liq_max_below(np.minimum(T, T_FREEZE), phi, psi, b)), np.inf)
+    lmax0 = np.where(T < T_FREEZE, _liq_max_below(np.minimum(T, T_FREEZE), phi, psi, b, cap=phi), np.inf)
     elig = np.where(T >= T_FREEZE, liq, np.minimum(liq, lmax0))
     return elig, liq - elig
 
@@ -258,7 +258,7 @@ def _temperature_block_change_driven(T, liq, ice, dT, dz, phi, psi, b, cs, touch
     cool = (dT < 0) & (T1 < T_FREEZE)
     if cool.any():
         elig, kept = _freezable(T, liq, phi, psi, b)
-        lmax1 = np.minimum(phi, _liq_max_below(np.where(cool, T1, T_FREEZE - 1.0), phi, psi, b))
+        lmax1 = _liq_max_below(np.where(cool, T1, T_FREEZE - 1.0), phi, psi, b, cap=phi)
         stays = np.minimum(elig, lmax1)
         liq1 = np.where(cool, stays + kept, liq1)
         ice1 = np.where(cool, ice + (elig - stays), ice1)

@@ -165,8 +165,7 @@ def _solve_block(Hd, W, phi, psi, b, Cfix, T_guess, max_iter):
         liq = np.minimum(np.maximum(Hd * (1.0 / _LV), lk), W)
         # keep branch-3 states exactly on the curve despite round-off at the kink (fmin: the
         # cap is NaN or inf at and above T_f, where it does not apply)
-        x = (LATENT_HEAT_FUSION / GRAVITY) * (T_FREEZE - T) / (T * psi)
-        liq = np.fmin(liq, phi * np.exp(-np.log(x) / b))
+        liq = np.fmin(liq, _liq_max_below(T, phi, psi, b))
     idx = np.flatnonzero(Hd < Llk - Ck * sk)      # branch 4: colder than the kink
     if idx.size:
         phi4, psi4, b4, W4 = phi.take(idx), psi.take(idx), b.take(idx), W.take(idx)
@@ -189,7 +188,7 @@ def _settle_on_curve(T, h, W, phi, psi, b, K):
     """
     lk = np.minimum(W, phi)
     s = T_FREEZE - T
-    lc = np.minimum(lk, _liq_max_below(T, phi, psi, b))
+    lc = _liq_max_below(T, phi, psi, b, cap=lk)
     le = (h + K * s) / (_LV - _DCV * s)
     i = np.flatnonzero(le > lc)                     # cells on the cold side of the root
     for _ in range(16):                             # (Halley leaves T within a few steps)
@@ -197,7 +196,7 @@ def _settle_on_curve(T, h, W, phi, psi, b, K):
             break
         Ti = np.nextafter(T[i], np.inf)
         si = T_FREEZE - Ti
-        lci = np.minimum(lk[i], _liq_max_below(Ti, phi[i], psi[i], b[i]))
+        lci = _liq_max_below(Ti, phi[i], psi[i], b[i], cap=lk[i])
         lei = (h[i] + K[i] * si) / (_LV - _DCV * si)
         T[i], lc[i], le[i] = Ti, lci, lei
         i = i[lei > lci]
