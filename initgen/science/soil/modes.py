@@ -12,7 +12,7 @@ import numpy as np
 from initgen.errors import InputError
 from initgen.science.constants import CV_SOLID_DEFAULT, CV_WATER, RHO_WATER, T_FREEZE
 from initgen.science.soil.freezing import _liq_max_below, equilibrate_phase
-from initgen.science.soil.properties import _CV_ICE_WE, _DCV, _LV, _f64
+from initgen.science.soil.properties import _CV_ICE_WE, _DCV, _LV, _capacity, _enthalpy_density, _f64
 from initgen.science.soil.solver import _flat_blocks, _solve_block
 
 
@@ -106,7 +106,7 @@ def _finish(T0, liq0, ice0, T1, liq1, ice1, touched, H0d, Csol, dz):
         T1 = np.where(touched, T1, T0)
         liq1 = np.where(touched, liq1, liq0)
         ice1 = np.where(touched, ice1, ice0)
-    H1d = (Csol + CV_WATER * liq1 + _CV_ICE_WE * ice1) * (T1 - T_FREEZE) + _LV * liq1
+    H1d = _enthalpy_density(_capacity(Csol, liq1, ice1), T1, liq1)
     dl = liq1 - liq0
     latent = _LV * dl * dz
     sensible = (H1d - H0d) * dz - latent
@@ -171,7 +171,7 @@ def _below_resolution(T, liq, ice, dT, phi, cs):
     """Cells whose imposed enthalpy change is below the round-off of their enthalpy (a factor of
     1e-26 deep in a profile): the solver cannot resolve it, so the cell is left as it is rather
     than moved by one float64 step of T, possibly against the imposed sign."""
-    C0 = (1.0 - phi) * cs + CV_WATER * liq + _CV_ICE_WE * ice
+    C0 = _capacity((1.0 - phi) * cs, liq, ice)
     scale = np.abs(C0 * (T - T_FREEZE)) + _LV * (liq + ice) + C0
     return np.abs(C0 * dT) <= 8.0 * np.finfo(np.float64).eps * scale
 
@@ -181,8 +181,8 @@ def _energy_block(T, liq, ice, dT, dz, phi, psi, b, cs, touched):
     liq, ice = _diagnosed_start(T, liq, ice, phi, psi, b, touched)
     W = liq + ice
     Csol = (1.0 - phi) * cs
-    C0 = Csol + CV_WATER * liq + _CV_ICE_WE * ice
-    H0d = C0 * (T - T_FREEZE) + _LV * liq                  # J m-3
+    C0 = _capacity(Csol, liq, ice)
+    H0d = _enthalpy_density(C0, T, liq)                    # J m-3
     target = H0d + C0 * dT
     target[~touched] = np.nan                              # untouched cells are not solved
     T1, liq1 = _solve_block(target, W, phi, psi, b, Csol, T, 40)
@@ -192,7 +192,7 @@ def _energy_block(T, liq, ice, dT, dz, phi, psi, b, cs, touched):
 def _temperature_block(T, liq, ice, dT, dz, phi, psi, b, cs, touched):
     liq, ice = _diagnosed_start(T, liq, ice, phi, psi, b, touched)
     Csol = (1.0 - phi) * cs
-    H0d = (Csol + CV_WATER * liq + _CV_ICE_WE * ice) * (T - T_FREEZE) + _LV * liq
+    H0d = _enthalpy_density(_capacity(Csol, liq, ice), T, liq)
     T1 = T + dT
     liq1, ice1 = equilibrate_phase(T1, liq, ice, phi, psi, b)
     return _finish(T, liq, ice, T1, liq1, ice1, touched, H0d, Csol, dz)
@@ -215,8 +215,8 @@ def _freezable(T, liq, phi, psi, b):
 def _energy_block_change_driven(T, liq, ice, dT, dz, phi, psi, b, cs, touched):
     touched = touched & ~_below_resolution(T, liq, ice, dT, phi, cs)
     Csol = (1.0 - phi) * cs
-    C0 = Csol + CV_WATER * liq + _CV_ICE_WE * ice
-    H0d = C0 * (T - T_FREEZE) + _LV * liq                  # J m-3
+    C0 = _capacity(Csol, liq, ice)
+    H0d = _enthalpy_density(C0, T, liq)                    # J m-3
     e = C0 * dT                                            # imposed enthalpy change, J m-3
     T1 = T + dT
     liq1, ice1 = liq.copy(), ice.copy()
@@ -237,7 +237,7 @@ def _energy_block_change_driven(T, liq, ice, dT, dz, phi, psi, b, cs, touched):
     if cool.any():
         elig, kept = _freezable(T, liq, phi, psi, b)
         Cfix = Csol + _CV_ICE_WE * ice + CV_WATER * kept
-        target = np.where(cool, (Cfix + CV_WATER * elig) * (T - T_FREEZE) + _LV * elig + e, np.nan)
+        target = np.where(cool, _enthalpy_density(Cfix + CV_WATER * elig, T, elig) + e, np.nan)
         Tc, lc = _solve_block(target, elig, phi, psi, b, Cfix, T, 40)
         T1 = np.where(cool, Tc, T1)
         liq1 = np.where(cool, lc + kept, liq1)
@@ -247,7 +247,7 @@ def _energy_block_change_driven(T, liq, ice, dT, dz, phi, psi, b, cs, touched):
 
 def _temperature_block_change_driven(T, liq, ice, dT, dz, phi, psi, b, cs, touched):
     Csol = (1.0 - phi) * cs
-    H0d = (Csol + CV_WATER * liq + _CV_ICE_WE * ice) * (T - T_FREEZE) + _LV * liq
+    H0d = _enthalpy_density(_capacity(Csol, liq, ice), T, liq)
     T1 = T + dT
     W = liq + ice
     # warming melts ice only where the temperature rises from at or below T_f to above it

@@ -26,6 +26,50 @@ def _f64(x):
     return np.asarray(x, dtype=np.float64)
 
 
+def _capacity(c_fixed, liq, ice):
+    """Volumetric heat capacity ``c_fixed + rho_w c_w theta_liq + rho_w c_i theta_ice``, J m-3 K-1.
+
+    The one home of the de Vries (1963) mixing sum (see :func:`heat_capacity`) on float64 arrays,
+    used by :func:`heat_capacity` and by the mode steps of :mod:`initgen.science.soil.modes`.
+
+    Parameters
+    ----------
+    c_fixed : numpy.ndarray
+        Capacity of what is not soil water, J m-3 K-1: the solids ``(1 - phi) c_s``.
+    liq, ice : numpy.ndarray
+        Liquid and ice (liquid-equivalent) contents, m3 m-3.
+
+    Returns
+    -------
+    numpy.ndarray
+        C, J m-3 K-1.
+    """
+    return c_fixed + CV_WATER * liq + _CV_ICE_WE * ice
+
+
+def _enthalpy_density(C, T, liq):
+    """Enthalpy per unit volume, ``C (T - T_f) + rho_w L_f theta_liq``, J m-3.
+
+    :func:`enthalpy` divided by the thickness: the mode steps work on it per cell and multiply by
+    the thickness once at the end.
+
+    Parameters
+    ----------
+    C : numpy.ndarray
+        Volumetric heat capacity, J m-3 K-1 (:func:`_capacity`).
+    T : numpy.ndarray
+        Temperature, K.
+    liq : numpy.ndarray
+        Liquid content, m3 m-3.
+
+    Returns
+    -------
+    numpy.ndarray
+        H / dz, J m-3, relative to all water frozen at T_f.
+    """
+    return C * (T - T_FREEZE) + _LV * liq
+
+
 class ClappHornberger(NamedTuple):
     """One row of Clapp and Hornberger (1978), Table 2, in the published units.
 
@@ -395,7 +439,7 @@ def heat_capacity(theta_liq, theta_ice, porosity, c_solid=None, sand_pct=None, c
     """
     cs = _solid_capacity(c_solid, sand_pct, clay_pct)
     phi = _f64(porosity)
-    return (1.0 - phi) * cs + CV_WATER * _f64(theta_liq) + _CV_ICE_WE * _f64(theta_ice)
+    return _capacity((1.0 - phi) * cs, _f64(theta_liq), _f64(theta_ice))
 
 
 def enthalpy(T, theta_liq, theta_ice, dz, porosity, c_solid=None):
