@@ -13,7 +13,7 @@ from initgen.errors import InputError
 from initgen.science.constants import CV_SOLID_DEFAULT, CV_WATER, RHO_WATER, T_FREEZE
 from initgen.science.soil.freezing import _liq_max_below, equilibrate_phase
 from initgen.science.soil.properties import _CV_ICE_WE, _DCV, _LV, _capacity, _enthalpy_density, _f64
-from initgen.science.soil.solver import _flat_blocks, _solve_block
+from initgen.science.soil.solver import _broadcast, _map_blocks, _solve_block
 
 
 class SoilChange(NamedTuple):
@@ -45,10 +45,8 @@ class SoilChange(NamedTuple):
 
 
 def _mode_inputs(T, liq, ice, dT, dz, porosity, psi_sat_m, b, c_solid):
-    arrs = [_f64(a) for a in (T, liq, ice, dT, dz, porosity, psi_sat_m, b,
-                              CV_SOLID_DEFAULT if c_solid is None else c_solid)]
-    shape = np.broadcast_shapes(*(a.shape for a in arrs))
-    return shape, [np.broadcast_to(a, shape) for a in arrs]
+    return _broadcast([_f64(a) for a in (T, liq, ice, dT, dz, porosity, psi_sat_m, b,
+                                         CV_SOLID_DEFAULT if c_solid is None else c_solid)])
 
 
 _CHECKS = (  # (argument index, test of validity, what is wrong, what to do)
@@ -90,14 +88,8 @@ def _touched(args, where):
 
 
 def _run_mode(block_fn, shape, views, where):
-    out = [np.empty(shape) for _ in range(7)]
     with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
-        for sl, flat in _flat_blocks(shape, views):
-            res = block_fn(*flat, _touched(flat, where))
-            bshape = out[0][sl].shape
-            for o, r in zip(out, res):
-                o[sl] = r.reshape(bshape)
-    return SoilChange(*out)
+        return SoilChange(*_map_blocks(lambda flat: block_fn(*flat, _touched(flat, where)), shape, views, 7))
 
 
 def _finish(T0, liq0, ice0, T1, liq1, ice1, touched, H0d, Csol, dz):

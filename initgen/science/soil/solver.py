@@ -118,18 +118,30 @@ def solve_enthalpy(H_target, total_water, dz, porosity, psi_sat_m, b, c_solid=No
     args = [H, W, dz, phi, psi, b, cs]
     if T_guess is not None:
         args.append(_f64(T_guess))
-    shape = np.broadcast_shapes(*(a.shape for a in args))
-    views = [np.broadcast_to(a, shape) for a in args]
-    out = [np.empty(shape) for _ in range(3)]
-    for sl, flat in _flat_blocks(shape, views):
+
+    def block(flat):
         Hb, Wb, dzb, phib, psib, bb, csb = flat[:7]
         Tb, lb = _solve_block(Hb / dzb, Wb, phib, psib, bb, (1.0 - phib) * csb,
                               flat[7] if T_guess is not None else None, max_iter)
-        bshape = out[0][sl].shape
-        out[0][sl] = Tb.reshape(bshape)
-        out[1][sl] = lb.reshape(bshape)
-        out[2][sl] = (Wb - lb).reshape(bshape)
-    return tuple(out)
+        return Tb, lb, Wb - lb
+
+    return tuple(_map_blocks(block, *_broadcast(args), 3))
+
+
+def _broadcast(arrays):
+    """The common shape of ``arrays`` and a read-only view of each at that shape.
+
+    Parameters
+    ----------
+    arrays : list of numpy.ndarray
+
+    Returns
+    -------
+    (tuple, list of numpy.ndarray)
+        ``(shape, views)``.
+    """
+    shape = np.broadcast_shapes(*(a.shape for a in arrays))
+    return shape, [np.broadcast_to(a, shape) for a in arrays]
 
 
 def _flat_blocks(shape, views):
@@ -139,6 +151,38 @@ def _flat_blocks(shape, views):
         return
     for sl in _blocks(shape):
         yield sl, [np.ascontiguousarray(v[sl]).reshape(-1) for v in views]
+
+
+def _map_blocks(fn, shape, views, n_out):
+    """Apply a per-block function to same-shape views, block by block (:func:`_blocks`).
+
+    The one loop of the soil functions over blocks: :func:`solve_enthalpy` and the mode steps
+    of :mod:`initgen.science.soil.modes` both run through it, so results do not depend on the
+    block size.
+
+    Parameters
+    ----------
+    fn : callable
+        ``fn(flat) -> sequence of n_out 1-D arrays``, where ``flat`` holds a contiguous 1-D copy
+        of each view's block (see :func:`_flat_blocks`).
+    shape : tuple
+        Shape of every view.
+    views : list of numpy.ndarray
+    n_out : int
+        Number of outputs of ``fn``.
+
+    Returns
+    -------
+    list of numpy.ndarray
+        ``n_out`` float64 arrays of ``shape``.
+    """
+    out = [np.empty(shape) for _ in range(n_out)]
+    for sl, flat in _flat_blocks(shape, views):
+        res = fn(flat)
+        bshape = out[0][sl].shape
+        for o, r in zip(out, res):
+            o[sl] = r.reshape(bshape)
+    return out
 
 
 def _solve_block(Hd, W, phi, psi, b, Cfix, T_guess, max_iter):
