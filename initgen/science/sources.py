@@ -49,13 +49,11 @@ def _float_array(values, name: str) -> np.ndarray:
 def _unit_vectors(lon_deg: np.ndarray, lat_deg: np.ndarray) -> np.ndarray:
     """Cartesian unit vectors, shape ``lon.shape + (3,)``, of points on the sphere.
 
-    ``(cos(lat) cos(lon), cos(lat) sin(lon), sin(lat))``; longitudes are first wrapped to
-    [-180, 180) so that both conventions give the same vector.
+    :func:`initgen.science.geodesy.lonlat_to_unit` of the longitudes wrapped first to
+    [-180, 180), so that both longitude conventions give the same vector to the last bit (the
+    nearest source point must not depend on how a file writes its longitudes).
     """
-    lon = np.radians(np.mod(lon_deg + 180.0, 360.0) - 180.0)
-    lat = np.radians(lat_deg)
-    clat = np.cos(lat)
-    return np.stack([clat * np.cos(lon), clat * np.sin(lon), np.sin(lat)], axis=-1)
+    return geodesy.lonlat_to_unit(np.mod(lon_deg + 180.0, 360.0) - 180.0, lat_deg)
 
 
 def _check_dst(dst_lon, dst_lat) -> tuple[np.ndarray, np.ndarray]:
