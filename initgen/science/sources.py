@@ -123,7 +123,7 @@ def _prepare_lon(src_lon: np.ndarray) -> tuple[np.ndarray, np.ndarray, bool]:
     n = lon_s.size
     if n < 2:
         raise InputError("src_lon_1d: need at least two distinct longitudes")
-    gaps = np.concatenate([np.diff(lon_s), [lon_s[0] + 360.0 - lon_s[-1]]])
+    gaps = geodesy.circular_gaps(lon_s, lon_s)
     k = int(np.argmax(gaps))
     start = (k + 1) % n
     idx = np.roll(np.arange(n), -start)
