@@ -13,7 +13,8 @@ from initgen.errors import InputError
 from initgen.science.constants import CV_SOLID_DEFAULT, CV_WATER, RHO_WATER, T_FREEZE
 from initgen.science.soil.freezing import _liq_max_below, equilibrate_phase
 from initgen.science.soil.properties import _CV_ICE_WE, _DCV, _LV, _capacity, _enthalpy_density, _f64
-from initgen.science.soil.solver import _broadcast, _map_blocks, _solve_block
+from initgen.science.soil.solver import (_broadcast, _map_blocks, _solve_block, _valid_porosity, _valid_psi,
+                                         _valid_thickness)
 
 
 class SoilChange(NamedTuple):
@@ -57,11 +58,11 @@ _CHECKS = (  # (argument index, test of validity, what is wrong, what to do)
      "fix negative water in the input, or check the fill value"),
     (1, lambda v: v <= 1.0, "liquid water above 1 m3 m-3", "check the water units"),
     (2, lambda v: v <= 1.0, "ice above 1 m3 m-3", "check the water units"),
-    (4, lambda v: (v > 0) & (v < np.inf), "layer thickness dz not finite and > 0 m",
+    (4, _valid_thickness, "layer thickness dz not finite and > 0 m",
      "check the layer geometry"),
-    (5, lambda v: (v > 0) & (v <= 1), "porosity outside (0, 1] m3 m-3",
+    (5, _valid_porosity, "porosity outside (0, 1] m3 m-3",
      "check the porosity variable or the texture"),
-    (6, lambda v: np.isfinite(v) & (v != 0), "psi_sat_m zero or missing",
+    (6, _valid_psi, "psi_sat_m zero or missing",
      "check psi_sat (a suction magnitude in m) or the texture"),
     (7, lambda v: (v > 0) & (v < np.inf), "Clapp-Hornberger b not finite and > 0",
      "check clapp_b or the texture"),

@@ -31,13 +31,28 @@ def _blocks(shape, target=None):
         yield (slice(None),) * ax + (slice(i, min(i + step, n)),)
 
 
+def _valid_thickness(dz):
+    """Where a layer thickness is usable: finite and > 0 m (float64 arrays, elementwise)."""
+    return (dz > 0) & (dz < np.inf)
+
+
+def _valid_porosity(phi):
+    """Where a porosity is usable: in (0, 1] m3 m-3 (NaN is not)."""
+    return (phi > 0) & (phi <= 1)
+
+
+def _valid_psi(psi):
+    """Where a saturated suction is usable: finite and non-zero, m (either sign)."""
+    return np.isfinite(psi) & (psi != 0)
+
+
 def _validate_params(dz, porosity, b, where, psi=None):
-    if psi is not None and not np.all(np.isfinite(psi) & (psi != 0)):
+    if psi is not None and not np.all(_valid_psi(psi)):
         raise InputError(f"{where}: psi_sat_m must be finite and non-zero (a suction magnitude in m); "
                          "check psi_sat or the texture")
-    if not np.all(np.isfinite(dz) & (dz > 0)):
+    if not np.all(_valid_thickness(dz)):
         raise InputError(f"{where}: layer thickness dz must be finite and > 0 m; check the layer geometry")
-    if not np.all((porosity > 0) & (porosity <= 1)):
+    if not np.all(_valid_porosity(porosity)):
         raise InputError(f"{where}: porosity must lie in (0, 1] m3 m-3; check the porosity or texture")
     if not np.all(b > 0):
         raise InputError(f"{where}: Clapp-Hornberger b must be > 0; check clapp_b or the texture")
