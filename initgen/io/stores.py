@@ -275,7 +275,9 @@ def netcdf3_data_end(path: Path) -> int | None:
             name()
             dimids = [count() for _ in range(count())]
             attributes()
-            nc_type, _vsize, begin = read(">I"), count(), read(offset_fmt)
+            nc_type = read(">I")
+            count()                                  # vsize: recomputed below from the shape
+            begin = read(offset_fmt)
             lengths = [dims[d] for d in dimids]
             is_rec = bool(lengths) and lengths[0] == 0
             n = _NC3_SIZES[nc_type]

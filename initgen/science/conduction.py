@@ -13,6 +13,7 @@ from __future__ import annotations
 import numpy as np
 
 from initgen.errors import InputError
+from initgen.science.soil.properties import _f64
 
 K_QUARTZ = 7.7  # W m-1 K-1, Johansen (1975)
 K_OTHER_MINERALS = 2.0  # quartz fraction > 0.2
@@ -31,10 +32,6 @@ QUARTZ_BY_TEXTURE = {
 }
 # Johansen's "coarse" Kersten relation is for sands; these classes use it.
 COARSE_TEXTURES = ("sand", "loamy sand")
-
-
-def _f64(x):
-    return np.asarray(x, dtype=np.float64)
 
 
 def dry_conductivity(porosity):

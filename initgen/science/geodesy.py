@@ -17,6 +17,7 @@ from initgen.science.constants import EARTH_RADIUS_M
 __all__ = [
     "EARTH_RADIUS_KM",
     "smallest_lon_arc",
+    "circular_gaps",
     "wrap_lon",
     "great_circle_km",
     "lonlat_to_unit",
@@ -328,6 +329,31 @@ def spherical_polygon_area_m2(lon_corners, lat_corners, radius_km=None):
     return r_m * r_m * np.abs(omega(a, b, c) + omega(a, c, d))
 
 
+def circular_gaps(lo, hi):
+    """Gaps between longitude intervals sorted by their west ends, and the gap across the wrap.
+
+    Parameters
+    ----------
+    lo : numpy.ndarray
+        West ends, degrees east, sorted ascending within one 360 degree span.
+    hi : numpy.ndarray
+        East ends in the same order, each at least the east ends before it (a running maximum);
+        for points, ``hi = lo``.
+
+    Returns
+    -------
+    numpy.ndarray
+        ``n`` gaps in degrees: ``lo[i + 1] - hi[i]`` for ``i < n - 1``, then
+        ``lo[0] + 360 - hi[-1]``, the gap from the last interval round to the first.
+
+    Examples
+    --------
+    >>> circular_gaps(np.array([0.0, 90.0, 300.0]), np.array([10.0, 100.0, 310.0])).tolist()
+    [80.0, 200.0, 50.0]
+    """
+    return np.append(lo[1:] - hi[:-1], lo[0] + 360.0 - hi[-1])
+
+
 def smallest_lon_arc(lo, hi):
     """The smallest circular longitude arc covering intervals [lo_i, hi_i] (degrees, one 360
     degree span, hi_i >= lo_i): the complement of the largest gap between them.
@@ -346,8 +372,7 @@ def smallest_lon_arc(lo, hi):
     lo, hi = np.asarray(lo, float), np.asarray(hi, float)
     order = np.argsort(lo)
     lo, hi = lo[order], np.maximum.accumulate(hi[order])
-    # gaps between merged intervals, plus the gap across the wrap point
-    gaps = np.append(lo[1:] - hi[:-1], lo[0] + 360.0 - hi[-1])
+    gaps = circular_gaps(lo, hi)    # between merged intervals, plus the gap across the wrap point
     k = int(np.argmax(gaps))
     if gaps[k] <= 0.0:
         return -180.0, 360.0

@@ -141,13 +141,30 @@ def _to_depth_m(values, units: str, positive: str | None, name: str) -> np.ndarr
 MAX_DEPTH_M = 1000.0
 
 
+def _first_not_increasing(arr: np.ndarray) -> int | None:
+    """The first index at which a 1-D array does not strictly increase.
+
+    Parameters
+    ----------
+    arr : numpy.ndarray
+        1-D values (depths), any length.
+
+    Returns
+    -------
+    int or None
+        The smallest ``i >= 1`` with ``arr[i] <= arr[i - 1]``; None when the array strictly
+        increases (or has fewer than two values).
+    """
+    bad = np.flatnonzero(np.diff(arr) <= 0.0)
+    return int(bad[0]) + 1 if bad.size else None
+
+
 def _check_increasing(arr: np.ndarray, name: str, what: str = "depth") -> None:
     """Raise InputError naming the first index where `arr` does not strictly increase."""
     if arr.size < 2:
         return
-    bad = np.flatnonzero(np.diff(arr) <= 0.0)
-    if bad.size:
-        i = int(bad[0]) + 1
+    i = _first_not_increasing(arr)
+    if i is not None:
         raise InputError(
             f"{name}: {what} at index {i} ({arr[i]:g} m) is not below the {what} at index "
             f"{i - 1} ({arr[i - 1]:g} m); give {what}s strictly increasing downward "

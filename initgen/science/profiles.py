@@ -35,7 +35,7 @@ from numbers import Real
 import numpy as np
 
 from initgen.errors import InputError
-from initgen.science.layers import Layers
+from initgen.science.layers import Layers, _first_not_increasing
 
 __all__ = ["KINDS", "EVALUATE", "damping_depth_m", "factor"]
 
@@ -138,9 +138,8 @@ def _parse_table(table) -> tuple[np.ndarray, np.ndarray]:
     if bad.size:
         raise InputError(f"table: entry {int(bad[0])} is not finite ({arr[bad[0]].tolist()})")
     depth, val = arr[:, 0], arr[:, 1]
-    dec = np.flatnonzero(np.diff(depth) <= 0.0)
-    if dec.size:
-        i = int(dec[0]) + 1
+    i = _first_not_increasing(depth)
+    if i is not None:
         raise InputError(
             f"table: depth at entry {i} ({depth[i]:g} m) is not below the depth at entry "
             f"{i - 1} ({depth[i - 1]:g} m); list the pairs with depths strictly increasing"

@@ -46,16 +46,26 @@ def _float_array(values, name: str) -> np.ndarray:
         raise InputError(f"{name}: must be an array of numbers") from None
 
 
+def _is_number(value, kind=Real) -> bool:
+    """True for a number of ``kind`` (``numbers.Real`` or ``numbers.Integral``, or a tuple of
+    types), False for anything else, booleans included (``True`` is no seed or distance)."""
+    return not isinstance(value, bool) and isinstance(value, kind)
+
+
+def _check_lat(lat: np.ndarray, name: str) -> None:
+    """Raise InputError naming ``name`` when a finite latitude lies outside [-90, 90] degrees."""
+    if np.any(np.abs(lat[np.isfinite(lat)]) > 90.0):
+        raise InputError(f"{name}: latitudes must lie within [-90, 90] degrees north")
+
+
 def _unit_vectors(lon_deg: np.ndarray, lat_deg: np.ndarray) -> np.ndarray:
     """Cartesian unit vectors, shape ``lon.shape + (3,)``, of points on the sphere.
 
-    ``(cos(lat) cos(lon), cos(lat) sin(lon), sin(lat))``; longitudes are first wrapped to
-    [-180, 180) so that both conventions give the same vector.
+    :func:`initgen.science.geodesy.lonlat_to_unit` of the longitudes wrapped first to
+    [-180, 180), so that both longitude conventions give the same vector to the last bit (the
+    nearest source point must not depend on how a file writes its longitudes).
     """
-    lon = np.radians(np.mod(lon_deg + 180.0, 360.0) - 180.0)
-    lat = np.radians(lat_deg)
-    clat = np.cos(lat)
-    return np.stack([clat * np.cos(lon), clat * np.sin(lon), np.sin(lat)], axis=-1)
+    return geodesy.lonlat_to_unit(np.mod(lon_deg + 180.0, 360.0) - 180.0, lat_deg)
 
 
 def _check_dst(dst_lon, dst_lat) -> tuple[np.ndarray, np.ndarray]:
@@ -66,8 +76,7 @@ def _check_dst(dst_lon, dst_lat) -> tuple[np.ndarray, np.ndarray]:
             f"dst_lon, dst_lat: must have the same shape, got {lon.shape} and {lat.shape}; "
             "for a regular destination grid pass the 2-D mesh (numpy.meshgrid)"
         )
-    if np.any(np.abs(lat[np.isfinite(lat)]) > 90.0):
-        raise InputError("dst_lat: latitudes must lie within [-90, 90] degrees north")
+    _check_lat(lat, "dst_lat")
     return lon, lat
 
 
@@ -114,7 +123,7 @@ def _prepare_lon(src_lon: np.ndarray) -> tuple[np.ndarray, np.ndarray, bool]:
     n = lon_s.size
     if n < 2:
         raise InputError("src_lon_1d: need at least two distinct longitudes")
-    gaps = np.concatenate([np.diff(lon_s), [lon_s[0] + 360.0 - lon_s[-1]]])
+    gaps = geodesy.circular_gaps(lon_s, lon_s)
     k = int(np.argmax(gaps))
     start = (k + 1) % n
     idx = np.roll(np.arange(n), -start)
@@ -290,8 +299,7 @@ def interp_points(src_lon, src_lat, values, dst_lon, dst_lat, *, max_distance_km
             f"src_lon, src_lat, values: must have the same number of points, got {slon.size}, "
             f"{slat.size} and {sval.size}"
         )
-    if np.any(np.abs(slat[np.isfinite(slat)]) > 90.0):
-        raise InputError("src_lat: latitudes must lie within [-90, 90] degrees north")
+    _check_lat(slat, "src_lat")
     dlon, dlat = _check_dst(dst_lon, dst_lat)
     nearest = _NearestValid(slon, slat, sval, "values")
     if max_distance_km is None:
@@ -301,9 +309,7 @@ def interp_points(src_lon, src_lat, values, dst_lon, dst_lat, *, max_distance_km
         else:
             max_d = math.inf
     else:
-        if isinstance(max_distance_km, bool) or not isinstance(max_distance_km, Real) or not (
-            max_distance_km > 0
-        ):
+        if not (_is_number(max_distance_km) and max_distance_km > 0):
             raise InputError(f"max_distance_km: must be a number > 0, got {max_distance_km!r}")
         max_d = float(max_distance_km)
     flat_lon, flat_lat = dlon.reshape(-1), dlat.reshape(-1)
@@ -337,9 +343,7 @@ def bias_anomaly(model_clim, reference_clim, scale=1.0):
     numpy.ndarray
         Float64 anomaly, the broadcast shape; NaN where either input is NaN.
     """
-    if isinstance(scale, bool) or not isinstance(scale, (Real, np.floating, np.integer)) or not (
-        math.isfinite(float(scale))
-    ):
+    if not (_is_number(scale, (Real, np.floating, np.integer)) and math.isfinite(float(scale))):
         raise InputError(f"scale: must be a finite number, got {scale!r}")
     m = _float_array(model_clim, "model_clim")
     r = _float_array(reference_clim, "reference_clim")
@@ -413,7 +417,7 @@ def member_seed(recipe_seed, member_name: str) -> int:
     -------
     int
     """
-    if isinstance(recipe_seed, bool) or not isinstance(recipe_seed, Integral) or recipe_seed < 0:
+    if not (_is_number(recipe_seed, Integral) and recipe_seed >= 0):
         raise InputError(f"seed: must be a non-negative integer, got {recipe_seed!r}")
     if not isinstance(member_name, str) or not member_name:
         raise InputError(f"member name: must be a non-empty string, got {member_name!r}")
@@ -478,24 +482,19 @@ def correlated_noise(lon, lat, sigma_K, length_km, seed, *, n_features: int = DE
     is bit-identical run to run on one machine; across machines it may differ in the last
     bits because ``cos`` and ``sin`` come from the platform's maths library.
     """
-    if isinstance(sigma_K, bool) or not isinstance(sigma_K, Real) or not (
-        math.isfinite(sigma_K) and sigma_K >= 0
-    ):
+    if not (_is_number(sigma_K) and math.isfinite(sigma_K) and sigma_K >= 0):
         raise InputError(f"sigma_K: noise standard deviation must be a finite number >= 0, got {sigma_K!r}")
-    if isinstance(length_km, bool) or not isinstance(length_km, Real) or not (
-        math.isfinite(length_km) and length_km > 0
-    ):
+    if not (_is_number(length_km) and math.isfinite(length_km) and length_km > 0):
         raise InputError(f"length_km: correlation length must be a finite number > 0, got {length_km!r}")
-    if isinstance(seed, bool) or not isinstance(seed, Integral) or seed < 0:
+    if not (_is_number(seed, Integral) and seed >= 0):
         raise InputError(f"seed: must be a non-negative integer, got {seed!r}")
-    if isinstance(n_features, bool) or not isinstance(n_features, Integral) or n_features < 1:
+    if not (_is_number(n_features, Integral) and n_features >= 1):
         raise InputError(f"n_features: must be a positive integer, got {n_features!r}")
     lon_a = _float_array(lon, "lon")
     lat_a = _float_array(lat, "lat")
     if lon_a.shape != lat_a.shape:
         raise InputError(f"lon, lat: must have the same shape, got {lon_a.shape} and {lat_a.shape}")
-    if np.any(np.abs(lat_a[np.isfinite(lat_a)]) > 90.0):
-        raise InputError("lat: latitudes must lie within [-90, 90] degrees north")
+    _check_lat(lat_a, "lat")
 
     m = int(n_features)
     rng = np.random.Generator(np.random.PCG64(int(seed)))

@@ -19,6 +19,7 @@ import functools
 import re
 
 from initgen.errors import InputError
+from initgen.science.constants import RHO_WATER
 
 __all__ = ["parse", "temperature_scale_offset", "metres_per", "pascal_per", "water_amount", "fraction_per",
            "percent_content"]
@@ -108,8 +109,8 @@ def water_amount(units) -> tuple[str, float] | None:
         return "mass", float(u.convert(1.0, _parse("kg m-2")))
     if _convertible(u, "m"):
         m = float(u.convert(1.0, _parse("m")))
-        # a depth of liquid water, in m, cm or mm (x 1000 kg m-3); a furlong of soil water is a unit slip
-        return ("mass", m * 1000.0) if 1e-3 - 1e-12 <= m <= 1.0 + 1e-12 else None
+        # a depth of liquid water, in m, cm or mm (x RHO_WATER, 1000 kg m-3); a furlong of soil water is a unit slip
+        return ("mass", m * RHO_WATER) if 1e-3 - 1e-12 <= m <= 1.0 + 1e-12 else None
     if u.is_dimensionless() and not _MASS_WORD.search(str(units).lower()):
         f = float(u.convert(1.0, _parse("1")))
         # percent is refused: of the soil volume, or of saturation? (the layout says which)

@@ -10,7 +10,7 @@ import warnings
 import numpy as np
 
 from initgen.errors import InputError, InputWarning
-from initgen.science.regions.mask import _raised_cosine_rise
+from initgen.science.regions.mask import _float_arg, _raised_cosine_rise
 from initgen.text import number
 
 
@@ -47,10 +47,7 @@ def elevation_ramp(elevation_m, min_m, ramp_m=0.0, max_m=None, max_ramp_m=0.0):
     def num(name, v, allow_none=False):
         if v is None and allow_none:
             return None
-        try:
-            v = float(v)
-        except (TypeError, ValueError):
-            raise InputError(f"elevation {name} must be a number, got {v!r}")
+        v = _float_arg(v, f"elevation {name}")
         if not math.isfinite(v):
             raise InputError(f"elevation {name} must be finite, got {number(v)}")
         return v
@@ -107,10 +104,7 @@ def land_weight(fraction=None, mask=None, threshold=0.5):
                 raise InputError(f"land fraction reaches {number(np.nanmax(f))}, above 1; if "
                                  f"it is in percent, divide by 100")
         return np.where(np.isnan(f), 0.0, np.clip(f, 0.0, 1.0))
-    try:
-        threshold = float(threshold)
-    except (TypeError, ValueError):
-        raise InputError(f"land mask threshold must be a number, got {threshold!r}")
+    threshold = _float_arg(threshold, "land mask threshold")
     m = np.asarray(mask, dtype=np.float64)
     with np.errstate(invalid="ignore"):
         return (m >= threshold).astype(np.float64)

@@ -204,11 +204,33 @@ def _spacing_km(max_km):
     return float(min(2.0, max(0.25, round(max_km / 150.0, 2))))
 
 
-def _check_max_km(max_km):
+def _float_arg(value, label):
+    """``float(value)``, or an InputError ``'<label> must be a number, got <value!r>'``.
+
+    Parameters
+    ----------
+    value : object
+        A scalar argument of a region function (a distance, width, elevation or threshold).
+    label : str
+        How the message names the argument, e.g. ``'taper width_km'``.
+
+    Returns
+    -------
+    float
+
+    Raises
+    ------
+    InputError
+        If ``float(value)`` fails.
+    """
     try:
-        max_km = float(max_km)
+        return float(value)
     except (TypeError, ValueError):
-        raise InputError(f"max_km must be a number, got {max_km!r}")
+        raise InputError(f"{label} must be a number, got {value!r}")
+
+
+def _check_max_km(max_km):
+    max_km = _float_arg(max_km, "max_km")
     if not max_km >= 0.0:
         raise InputError(f"max_km must be >= 0, got {number(max_km)}")
     return max_km
@@ -343,10 +365,7 @@ def taper_weight(lon, lat, geom, width_km, placement="outside", regular=False):
     Harris, F. J. (1978). On the use of windows for harmonic analysis with the discrete
     Fourier transform. Proceedings of the IEEE 66(1), 51-83 (Tukey, cosine-tapered window).
     """
-    try:
-        width = float(width_km)
-    except (TypeError, ValueError):
-        raise InputError(f"taper width_km must be a number, got {width_km!r}")
+    width = _float_arg(width_km, "taper width_km")
     if not (width >= 0.0 and math.isfinite(width)):
         raise InputError(f"taper width_km must be a finite number >= 0, got {number(width)}; "
                          f"use 0 for a hard edge")

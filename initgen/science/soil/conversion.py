@@ -10,6 +10,7 @@ import numpy as np
 from initgen.errors import InputError
 from initgen.science.constants import RHO_ICE, RHO_WATER
 from initgen.science.soil.properties import _f64
+from initgen.science.soil.solver import _valid_porosity, _valid_thickness
 from initgen.science.units import temperature_scale_offset, water_amount
 
 
@@ -120,7 +121,7 @@ def _water_kind(units, name):
 
 def _check_thickness(thickness_m, name):
     dz = _f64(thickness_m)
-    if not np.all(np.isfinite(dz) & (dz > 0)):
+    if not np.all(_valid_thickness(dz)):
         raise InputError(f"variable '{name}': layer thickness must be finite and > 0 m; "
                          "check the layer geometry (interfaces or thicknesses) in the layout")
     return dz
@@ -131,7 +132,7 @@ def _check_porosity(porosity, name):
         raise InputError(f"variable '{name}': units '{SATURATION_FRACTION}' need the porosity; "
                          "give a porosity (layout role 'porosity', recipe physics.porosity or texture)")
     phi = _f64(porosity)
-    if not np.all((phi > 0) & (phi <= 1)):
+    if not np.all(_valid_porosity(phi)):
         raise InputError(f"variable '{name}': porosity must lie in (0, 1] m3 m-3; "
                          "check the porosity variable or recipe value")
     return phi

@@ -11,10 +11,42 @@ from initgen.science.constants import GRAVITY, LATENT_HEAT_FUSION, T_FREEZE
 from initgen.science.soil.properties import _LV, _f64, enthalpy
 
 
-def _liq_max_below(T, phi, psi_abs, b):
-    """Niu-Yang limit for T < T_f (not capped, no branch), vectorised internal helper."""
-    x = (LATENT_HEAT_FUSION / GRAVITY) * (T_FREEZE - T) / (T * psi_abs)
-    return phi * np.exp(-np.log(x) / b)
+def _liq_max_below(T, phi, psi_abs, b, T_f=T_FREEZE, cap=None):
+    """The Niu-Yang supercooled limit below freezing, the one place its formula is written.
+
+    .. math:: \\theta_s \\left(\\frac{L_f\\,(T_f - T)}{g\\,T\\,|\\psi_s|}\\right)^{-1/b}
+
+    No branch and no error state: meaningful for 0 < T < T_f only (NaN or inf elsewhere; the
+    callers choose what applies there). :func:`supercooled_liquid_max` is the public form.
+
+    Parameters
+    ----------
+    T : numpy.ndarray
+        Temperature, K.
+    phi : numpy.ndarray
+        Porosity theta_s, m3 m-3.
+    psi_abs : numpy.ndarray
+        Saturated matric suction magnitude |psi_s|, m (already made positive).
+    b : numpy.ndarray
+        Clapp-Hornberger exponent.
+    T_f : float
+        Freezing point, K.
+    cap : numpy.ndarray, optional
+        Upper bound applied with ``numpy.minimum(cap, limit)`` (the porosity, or the water
+        that may stay liquid); None for the bare formula.
+
+    Returns
+    -------
+    numpy.ndarray
+        theta_liq_max, m3 m-3.
+
+    References
+    ----------
+    .. [1] Niu, G.-Y., and Yang, Z.-L. (2006). *Journal of Hydrometeorology* 7, 937-952.
+    """
+    x = (LATENT_HEAT_FUSION / GRAVITY) * (T_f - T) / (T * psi_abs)
+    lim = phi * np.exp(-np.log(x) / b)
+    return lim if cap is None else np.minimum(cap, lim)
 
 
 def supercooled_liquid_max(T, porosity, psi_sat_m, b, T_f=T_FREEZE):
@@ -63,8 +95,7 @@ def supercooled_liquid_max(T, porosity, psi_sat_m, b, T_f=T_FREEZE):
     T = _f64(T)
     phi = _f64(porosity)
     with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
-        x = (LATENT_HEAT_FUSION / GRAVITY) * (T_f - T) / (T * np.abs(_f64(psi_sat_m)))
-        lim = phi * np.exp(-np.log(x) / _f64(b))
+        lim = _liq_max_below(T, phi, np.abs(_f64(psi_sat_m)), _f64(b), T_f)
     below = T < T_f
     return np.where(below, np.minimum(lim, phi), np.where(T >= T_f, phi, np.nan))
 

@@ -12,8 +12,9 @@ import numpy as np
 from initgen.errors import InputError
 from initgen.science.constants import CV_SOLID_DEFAULT, CV_WATER, RHO_WATER, T_FREEZE
 from initgen.science.soil.freezing import _liq_max_below, equilibrate_phase
-from initgen.science.soil.properties import _CV_ICE_WE, _DCV, _LV, _f64
-from initgen.science.soil.solver import _flat_blocks, _solve_block
+from initgen.science.soil.properties import _CV_ICE_WE, _DCV, _LV, _capacity, _enthalpy_density, _f64
+from initgen.science.soil.solver import (_broadcast, _map_blocks, _solve_block, _valid_porosity, _valid_psi,
+                                         _valid_thickness)
 
 
 class SoilChange(NamedTuple):
@@ -45,10 +46,8 @@ class SoilChange(NamedTuple):
 
 
 def _mode_inputs(T, liq, ice, dT, dz, porosity, psi_sat_m, b, c_solid):
-    arrs = [_f64(a) for a in (T, liq, ice, dT, dz, porosity, psi_sat_m, b,
-                              CV_SOLID_DEFAULT if c_solid is None else c_solid)]
-    shape = np.broadcast_shapes(*(a.shape for a in arrs))
-    return shape, [np.broadcast_to(a, shape) for a in arrs]
+    return _broadcast([_f64(a) for a in (T, liq, ice, dT, dz, porosity, psi_sat_m, b,
+                                         CV_SOLID_DEFAULT if c_solid is None else c_solid)])
 
 
 _CHECKS = (  # (argument index, test of validity, what is wrong, what to do)
@@ -59,11 +58,11 @@ _CHECKS = (  # (argument index, test of validity, what is wrong, what to do)
      "fix negative water in the input, or check the fill value"),
     (1, lambda v: v <= 1.0, "liquid water above 1 m3 m-3", "check the water units"),
     (2, lambda v: v <= 1.0, "ice above 1 m3 m-3", "check the water units"),
-    (4, lambda v: (v > 0) & (v < np.inf), "layer thickness dz not finite and > 0 m",
+    (4, _valid_thickness, "layer thickness dz not finite and > 0 m",
      "check the layer geometry"),
-    (5, lambda v: (v > 0) & (v <= 1), "porosity outside (0, 1] m3 m-3",
+    (5, _valid_porosity, "porosity outside (0, 1] m3 m-3",
      "check the porosity variable or the texture"),
-    (6, lambda v: np.isfinite(v) & (v != 0), "psi_sat_m zero or missing",
+    (6, _valid_psi, "psi_sat_m zero or missing",
      "check psi_sat (a suction magnitude in m) or the texture"),
     (7, lambda v: (v > 0) & (v < np.inf), "Clapp-Hornberger b not finite and > 0",
      "check clapp_b or the texture"),
@@ -90,14 +89,8 @@ def _touched(args, where):
 
 
 def _run_mode(block_fn, shape, views, where):
-    out = [np.empty(shape) for _ in range(7)]
     with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
-        for sl, flat in _flat_blocks(shape, views):
-            res = block_fn(*flat, _touched(flat, where))
-            bshape = out[0][sl].shape
-            for o, r in zip(out, res):
-                o[sl] = r.reshape(bshape)
-    return SoilChange(*out)
+        return SoilChange(*_map_blocks(lambda flat: block_fn(*flat, _touched(flat, where)), shape, views, 7))
 
 
 def _finish(T0, liq0, ice0, T1, liq1, ice1, touched, H0d, Csol, dz):
@@ -106,7 +99,7 @@ def _finish(T0, liq0, ice0, T1, liq1, ice1, touched, H0d, Csol, dz):
         T1 = np.where(touched, T1, T0)
         liq1 = np.where(touched, liq1, liq0)
         ice1 = np.where(touched, ice1, ice0)
-    H1d = (Csol + CV_WATER * liq1 + _CV_ICE_WE * ice1) * (T1 - T_FREEZE) + _LV * liq1
+    H1d = _enthalpy_density(_capacity(Csol, liq1, ice1), T1, liq1)
     dl = liq1 - liq0
     latent = _LV * dl * dz
     sensible = (H1d - H0d) * dz - latent
@@ -151,8 +144,8 @@ def settle_one_sided(T, liq, ice, porosity, psi_sat_m, b):
     below = T < T_FREEZE
     with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
         phi = _f64(porosity)
-        lmax = np.minimum(phi, _liq_max_below(np.where(below, T, T_FREEZE - 1.0), phi, np.abs(_f64(psi_sat_m)),
-                                              _f64(b)))   # the curve is capped at the porosity
+        lmax = _liq_max_below(np.where(below, T, T_FREEZE - 1.0), phi, np.abs(_f64(psi_sat_m)), _f64(b),
+                              cap=phi)   # the curve is capped at the porosity
     stays = np.where(below, np.minimum(liq, lmax), liq)
     above = T > T_FREEZE
     liq1 = np.where(above, liq + ice, stays)
@@ -171,7 +164,7 @@ def _below_resolution(T, liq, ice, dT, phi, cs):
     """Cells whose imposed enthalpy change is below the round-off of their enthalpy (a factor of
     1e-26 deep in a profile): the solver cannot resolve it, so the cell is left as it is rather
     than moved by one float64 step of T, possibly against the imposed sign."""
-    C0 = (1.0 - phi) * cs + CV_WATER * liq + _CV_ICE_WE * ice
+    C0 = _capacity((1.0 - phi) * cs, liq, ice)
     scale = np.abs(C0 * (T - T_FREEZE)) + _LV * (liq + ice) + C0
     return np.abs(C0 * dT) <= 8.0 * np.finfo(np.float64).eps * scale
 
@@ -181,8 +174,8 @@ def _energy_block(T, liq, ice, dT, dz, phi, psi, b, cs, touched):
     liq, ice = _diagnosed_start(T, liq, ice, phi, psi, b, touched)
     W = liq + ice
     Csol = (1.0 - phi) * cs
-    C0 = Csol + CV_WATER * liq + _CV_ICE_WE * ice
-    H0d = C0 * (T - T_FREEZE) + _LV * liq                  # J m-3
+    C0 = _capacity(Csol, liq, ice)
+    H0d = _enthalpy_density(C0, T, liq)                    # J m-3
     target = H0d + C0 * dT
     target[~touched] = np.nan                              # untouched cells are not solved
     T1, liq1 = _solve_block(target, W, phi, psi, b, Csol, T, 40)
@@ -192,7 +185,7 @@ def _energy_block(T, liq, ice, dT, dz, phi, psi, b, cs, touched):
 def _temperature_block(T, liq, ice, dT, dz, phi, psi, b, cs, touched):
     liq, ice = _diagnosed_start(T, liq, ice, phi, psi, b, touched)
     Csol = (1.0 - phi) * cs
-    H0d = (Csol + CV_WATER * liq + _CV_ICE_WE * ice) * (T - T_FREEZE) + _LV * liq
+    H0d = _enthalpy_density(_capacity(Csol, liq, ice), T, liq)
     T1 = T + dT
     liq1, ice1 = equilibrate_phase(T1, liq, ice, phi, psi, b)
     return _finish(T, liq, ice, T1, liq1, ice1, touched, H0d, Csol, dz)
@@ -207,7 +200,7 @@ def _freezable(T, liq, phi, psi, b):
     disequilibrium: it is reported by the caller and kept as it is, not acted on.
     Returns ``(W_eligible, kept)`` with ``W_eligible + kept == liq``.
     """
-    lmax0 = np.where(T < T_FREEZE, np.minimum(phi, _liq_max_below(np.minimum(T, T_FREEZE), phi, psi, b)), np.inf)
+    lmax0 = np.where(T < T_FREEZE, _liq_max_below(np.minimum(T, T_FREEZE), phi, psi, b, cap=phi), np.inf)
     elig = np.where(T >= T_FREEZE, liq, np.minimum(liq, lmax0))
     return elig, liq - elig
 
@@ -215,8 +208,8 @@ def _freezable(T, liq, phi, psi, b):
 def _energy_block_change_driven(T, liq, ice, dT, dz, phi, psi, b, cs, touched):
     touched = touched & ~_below_resolution(T, liq, ice, dT, phi, cs)
     Csol = (1.0 - phi) * cs
-    C0 = Csol + CV_WATER * liq + _CV_ICE_WE * ice
-    H0d = C0 * (T - T_FREEZE) + _LV * liq                  # J m-3
+    C0 = _capacity(Csol, liq, ice)
+    H0d = _enthalpy_density(C0, T, liq)                    # J m-3
     e = C0 * dT                                            # imposed enthalpy change, J m-3
     T1 = T + dT
     liq1, ice1 = liq.copy(), ice.copy()
@@ -237,7 +230,7 @@ def _energy_block_change_driven(T, liq, ice, dT, dz, phi, psi, b, cs, touched):
     if cool.any():
         elig, kept = _freezable(T, liq, phi, psi, b)
         Cfix = Csol + _CV_ICE_WE * ice + CV_WATER * kept
-        target = np.where(cool, (Cfix + CV_WATER * elig) * (T - T_FREEZE) + _LV * elig + e, np.nan)
+        target = np.where(cool, _enthalpy_density(Cfix + CV_WATER * elig, T, elig) + e, np.nan)
         Tc, lc = _solve_block(target, elig, phi, psi, b, Cfix, T, 40)
         T1 = np.where(cool, Tc, T1)
         liq1 = np.where(cool, lc + kept, liq1)
@@ -247,7 +240,7 @@ def _energy_block_change_driven(T, liq, ice, dT, dz, phi, psi, b, cs, touched):
 
 def _temperature_block_change_driven(T, liq, ice, dT, dz, phi, psi, b, cs, touched):
     Csol = (1.0 - phi) * cs
-    H0d = (Csol + CV_WATER * liq + _CV_ICE_WE * ice) * (T - T_FREEZE) + _LV * liq
+    H0d = _enthalpy_density(_capacity(Csol, liq, ice), T, liq)
     T1 = T + dT
     W = liq + ice
     # warming melts ice only where the temperature rises from at or below T_f to above it
@@ -258,7 +251,7 @@ def _temperature_block_change_driven(T, liq, ice, dT, dz, phi, psi, b, cs, touch
     cool = (dT < 0) & (T1 < T_FREEZE)
     if cool.any():
         elig, kept = _freezable(T, liq, phi, psi, b)
-        lmax1 = np.minimum(phi, _liq_max_below(np.where(cool, T1, T_FREEZE - 1.0), phi, psi, b))
+        lmax1 = _liq_max_below(np.where(cool, T1, T_FREEZE - 1.0), phi, psi, b, cap=phi)
         stays = np.minimum(elig, lmax1)
         liq1 = np.where(cool, stays + kept, liq1)
         ice1 = np.where(cool, ice + (elig - stays), ice1)

@@ -26,6 +26,50 @@ def _f64(x):
     return np.asarray(x, dtype=np.float64)
 
 
+def _capacity(c_fixed, liq, ice):
+    """Volumetric heat capacity ``c_fixed + rho_w c_w theta_liq + rho_w c_i theta_ice``, J m-3 K-1.
+
+    The one home of the de Vries (1963) mixing sum (see :func:`heat_capacity`) on float64 arrays,
+    used by :func:`heat_capacity` and by the mode steps of :mod:`initgen.science.soil.modes`.
+
+    Parameters
+    ----------
+    c_fixed : numpy.ndarray
+        Capacity of what is not soil water, J m-3 K-1: the solids ``(1 - phi) c_s``.
+    liq, ice : numpy.ndarray
+        Liquid and ice (liquid-equivalent) contents, m3 m-3.
+
+    Returns
+    -------
+    numpy.ndarray
+        C, J m-3 K-1.
+    """
+    return c_fixed + CV_WATER * liq + _CV_ICE_WE * ice
+
+
+def _enthalpy_density(C, T, liq):
+    """Enthalpy per unit volume, ``C (T - T_f) + rho_w L_f theta_liq``, J m-3.
+
+    :func:`enthalpy` divided by the thickness: the mode steps work on it per cell and multiply by
+    the thickness once at the end.
+
+    Parameters
+    ----------
+    C : numpy.ndarray
+        Volumetric heat capacity, J m-3 K-1 (:func:`_capacity`).
+    T : numpy.ndarray
+        Temperature, K.
+    liq : numpy.ndarray
+        Liquid content, m3 m-3.
+
+    Returns
+    -------
+    numpy.ndarray
+        H / dz, J m-3, relative to all water frozen at T_f.
+    """
+    return C * (T - T_FREEZE) + _LV * liq
+
+
 class ClappHornberger(NamedTuple):
     """One row of Clapp and Hornberger (1978), Table 2, in the published units.
 
@@ -119,7 +163,24 @@ TEXTURE_CLASS_CENTROID_PCT = {
 ORGANIC_LAWRENCE_SLATER_2008 = {"porosity": 0.9, "psi_sat_m": 0.0103, "b": 2.7, "c_solid": 2.5e6}
 
 
-def _texture_key(name):
+def texture_key(name):
+    """A texture class name as the tables of this module spell it.
+
+    Parameters
+    ----------
+    name : str
+        Texture class in any case, with blanks, underscores or hyphens between words.
+
+    Returns
+    -------
+    str
+        Lower case, words separated by single blanks.
+
+    Examples
+    --------
+    >>> texture_key(' Silty_Clay-Loam ')
+    'silty clay loam'
+    """
     return " ".join(str(name).strip().lower().replace("_", " ").replace("-", " ").split())
 
 
@@ -144,7 +205,7 @@ def texture_solid_heat_capacity(name):
        class definitions).
     """
     hydraulics_from_texture(name)                       # validates the name
-    sand, clay = TEXTURE_CLASS_CENTROID_PCT[_texture_key(name)]
+    sand, clay = TEXTURE_CLASS_CENTROID_PCT[texture_key(name)]
     return float(soil_solid_heat_capacity(sand, clay))
 
 
@@ -214,8 +275,7 @@ def hydraulics_from_texture(name):
     .. [1] Clapp, R. B., and Hornberger, G. M. (1978). *Water Resources Research* 14(4),
        601-604, Table 2.
     """
-    key = " ".join(str(name).strip().lower().replace("_", " ").replace("-", " ").split())
-    row = CLAPP_HORNBERGER_1978.get(key)
+    row = CLAPP_HORNBERGER_1978.get(texture_key(name))
     if row is None:
         raise InputError(
             f"texture {name!r} is not a Clapp and Hornberger (1978) class; use one of: "
@@ -379,7 +439,7 @@ def heat_capacity(theta_liq, theta_ice, porosity, c_solid=None, sand_pct=None, c
     """
     cs = _solid_capacity(c_solid, sand_pct, clay_pct)
     phi = _f64(porosity)
-    return (1.0 - phi) * cs + CV_WATER * _f64(theta_liq) + _CV_ICE_WE * _f64(theta_ice)
+    return _capacity((1.0 - phi) * cs, _f64(theta_liq), _f64(theta_ice))
 
 
 def enthalpy(T, theta_liq, theta_ice, dz, porosity, c_solid=None):

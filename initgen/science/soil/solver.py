@@ -31,13 +31,28 @@ def _blocks(shape, target=None):
         yield (slice(None),) * ax + (slice(i, min(i + step, n)),)
 
 
+def _valid_thickness(dz):
+    """Where a layer thickness is usable: finite and > 0 m (float64 arrays, elementwise)."""
+    return (dz > 0) & (dz < np.inf)
+
+
+def _valid_porosity(phi):
+    """Where a porosity is usable: in (0, 1] m3 m-3 (NaN is not)."""
+    return (phi > 0) & (phi <= 1)
+
+
+def _valid_psi(psi):
+    """Where a saturated suction is usable: finite and non-zero, m (either sign)."""
+    return np.isfinite(psi) & (psi != 0)
+
+
 def _validate_params(dz, porosity, b, where, psi=None):
-    if psi is not None and not np.all(np.isfinite(psi) & (psi != 0)):
+    if psi is not None and not np.all(_valid_psi(psi)):
         raise InputError(f"{where}: psi_sat_m must be finite and non-zero (a suction magnitude in m); "
                          "check psi_sat or the texture")
-    if not np.all(np.isfinite(dz) & (dz > 0)):
+    if not np.all(_valid_thickness(dz)):
         raise InputError(f"{where}: layer thickness dz must be finite and > 0 m; check the layer geometry")
-    if not np.all((porosity > 0) & (porosity <= 1)):
+    if not np.all(_valid_porosity(porosity)):
         raise InputError(f"{where}: porosity must lie in (0, 1] m3 m-3; check the porosity or texture")
     if not np.all(b > 0):
         raise InputError(f"{where}: Clapp-Hornberger b must be > 0; check clapp_b or the texture")
@@ -118,18 +133,30 @@ def solve_enthalpy(H_target, total_water, dz, porosity, psi_sat_m, b, c_solid=No
     args = [H, W, dz, phi, psi, b, cs]
     if T_guess is not None:
         args.append(_f64(T_guess))
-    shape = np.broadcast_shapes(*(a.shape for a in args))
-    views = [np.broadcast_to(a, shape) for a in args]
-    out = [np.empty(shape) for _ in range(3)]
-    for sl, flat in _flat_blocks(shape, views):
+
+    def block(flat):
         Hb, Wb, dzb, phib, psib, bb, csb = flat[:7]
         Tb, lb = _solve_block(Hb / dzb, Wb, phib, psib, bb, (1.0 - phib) * csb,
                               flat[7] if T_guess is not None else None, max_iter)
-        bshape = out[0][sl].shape
-        out[0][sl] = Tb.reshape(bshape)
-        out[1][sl] = lb.reshape(bshape)
-        out[2][sl] = (Wb - lb).reshape(bshape)
-    return tuple(out)
+        return Tb, lb, Wb - lb
+
+    return tuple(_map_blocks(block, *_broadcast(args), 3))
+
+
+def _broadcast(arrays):
+    """The common shape of ``arrays`` and a read-only view of each at that shape.
+
+    Parameters
+    ----------
+    arrays : list of numpy.ndarray
+
+    Returns
+    -------
+    (tuple, list of numpy.ndarray)
+        ``(shape, views)``.
+    """
+    shape = np.broadcast_shapes(*(a.shape for a in arrays))
+    return shape, [np.broadcast_to(a, shape) for a in arrays]
 
 
 def _flat_blocks(shape, views):
@@ -139,6 +166,38 @@ def _flat_blocks(shape, views):
         return
     for sl in _blocks(shape):
         yield sl, [np.ascontiguousarray(v[sl]).reshape(-1) for v in views]
+
+
+def _map_blocks(fn, shape, views, n_out):
+    """Apply a per-block function to same-shape views, block by block (:func:`_blocks`).
+
+    The one loop of the soil functions over blocks: :func:`solve_enthalpy` and the mode steps
+    of :mod:`initgen.science.soil.modes` both run through it, so results do not depend on the
+    block size.
+
+    Parameters
+    ----------
+    fn : callable
+        ``fn(flat) -> sequence of n_out 1-D arrays``, where ``flat`` holds a contiguous 1-D copy
+        of each view's block (see :func:`_flat_blocks`).
+    shape : tuple
+        Shape of every view.
+    views : list of numpy.ndarray
+    n_out : int
+        Number of outputs of ``fn``.
+
+    Returns
+    -------
+    list of numpy.ndarray
+        ``n_out`` float64 arrays of ``shape``.
+    """
+    out = [np.empty(shape) for _ in range(n_out)]
+    for sl, flat in _flat_blocks(shape, views):
+        res = fn(flat)
+        bshape = out[0][sl].shape
+        for o, r in zip(out, res):
+            o[sl] = r.reshape(bshape)
+    return out
 
 
 def _solve_block(Hd, W, phi, psi, b, Cfix, T_guess, max_iter):
@@ -165,8 +224,7 @@ def _solve_block(Hd, W, phi, psi, b, Cfix, T_guess, max_iter):
         liq = np.minimum(np.maximum(Hd * (1.0 / _LV), lk), W)
         # keep branch-3 states exactly on the curve despite round-off at the kink (fmin: the
         # cap is NaN or inf at and above T_f, where it does not apply)
-        x = (LATENT_HEAT_FUSION / GRAVITY) * (T_FREEZE - T) / (T * psi)
-        liq = np.fmin(liq, phi * np.exp(-np.log(x) / b))
+        liq = np.fmin(liq, _liq_max_below(T, phi, psi, b))
     idx = np.flatnonzero(Hd < Llk - Ck * sk)      # branch 4: colder than the kink
     if idx.size:
         phi4, psi4, b4, W4 = phi.take(idx), psi.take(idx), b.take(idx), W.take(idx)
@@ -189,7 +247,7 @@ def _settle_on_curve(T, h, W, phi, psi, b, K):
     """
     lk = np.minimum(W, phi)
     s = T_FREEZE - T
-    lc = np.minimum(lk, _liq_max_below(T, phi, psi, b))
+    lc = _liq_max_below(T, phi, psi, b, cap=lk)
     le = (h + K * s) / (_LV - _DCV * s)
     i = np.flatnonzero(le > lc)                     # cells on the cold side of the root
     for _ in range(16):                             # (Halley leaves T within a few steps)
@@ -197,7 +255,7 @@ def _settle_on_curve(T, h, W, phi, psi, b, K):
             break
         Ti = np.nextafter(T[i], np.inf)
         si = T_FREEZE - Ti
-        lci = np.minimum(lk[i], _liq_max_below(Ti, phi[i], psi[i], b[i]))
+        lci = _liq_max_below(Ti, phi[i], psi[i], b[i], cap=lk[i])
         lei = (h[i] + K[i] * si) / (_LV - _DCV * si)
         T[i], lc[i], le[i] = Ti, lci, lei
         i = i[lei > lci]
