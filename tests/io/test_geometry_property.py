@@ -24,7 +24,7 @@ from scipy.integrate import quad
 import filemaker as fm
 from initgen import api
 
-ROOT = Path(__file__).resolve().parents[1]
+ROOT = Path(__file__).resolve().parents[2]
 LAYOUTS = ROOT / "recipes" / "layouts"
 
 RECIPE = """initgen_recipe: 1

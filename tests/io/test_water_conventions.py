@@ -28,7 +28,7 @@ from initgen.science.soil.conversion import water_equivalent_to_ice_volume
 from initgen.errors import InputError
 from filemaker import read_raw as raw
 
-ROOT = Path(__file__).resolve().parents[1]
+ROOT = Path(__file__).resolve().parents[2]
 LAYOUTS = ROOT / "recipes" / "layouts"
 RHO_W, RHO_I = 1000.0, 917.0  # kg m-3: liquid water and ice at 0 C (common practice)
 

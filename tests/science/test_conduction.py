@@ -289,7 +289,7 @@ def test_preview_json_and_text_show_persistence(demo, tmp_path, capsys):
     assert led["layers"]["bottom_m"][-1] == pytest.approx(INTERFACES[-1], rel=1e-6)
 
 
-SHIPPED = sorted(p.name for p in (Path(__file__).resolve().parents[1] / "recipes").glob("*.yaml"))
+SHIPPED = sorted(p.name for p in (Path(__file__).resolve().parents[2] / "recipes").glob("*.yaml"))
 
 
 @pytest.mark.parametrize("name", SHIPPED)

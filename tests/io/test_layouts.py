@@ -11,7 +11,7 @@ import pytest
 from initgen import api
 from filemaker import read_raw as raw
 
-ROOT = Path(__file__).resolve().parents[1]
+ROOT = Path(__file__).resolve().parents[2]
 LAYOUTS = ROOT / "recipes" / "layouts"
 RECIPE = """initgen_recipe: 1
 name: layout-test

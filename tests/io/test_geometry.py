@@ -27,7 +27,7 @@ from initgen import api
 from initgen.science import geodesy
 from initgen.errors import InputError, InputWarning
 
-ROOT = Path(__file__).resolve().parents[1]
+ROOT = Path(__file__).resolve().parents[2]
 LAYOUTS = ROOT / "recipes" / "layouts"
 R_M = geodesy.EARTH_RADIUS_KM * 1.0e3
 
@@ -344,7 +344,7 @@ def test_every_shipped_layout_is_valid_listed_in_readme_and_tested():
     from initgen.config.recipe import load_layout
 
     readme = (ROOT / "README.md").read_text()
-    tests = "".join(p.read_text() for p in (ROOT / "tests").glob("test_*.py"))
+    tests = "".join(p.read_text() for p in (ROOT / "tests").rglob("test_*.py"))
     for path in sorted(LAYOUTS.glob("*.yaml")):
         load_layout(path)
         assert f"`{path.name}`" in readme, f"{path.name} not listed in the README's layout section"

@@ -39,7 +39,7 @@ from initgen.errors import InputError
 from filemaker import curvilinear, points, read_raw, regular
 from filemaker import sha
 
-RECIPE = Path(__file__).resolve().parents[1] / "recipes" / "demo-cold-highland.yaml"
+RECIPE = Path(__file__).resolve().parents[2] / "recipes" / "demo-cold-highland.yaml"
 
 BOX = """
 initgen_recipe: 1

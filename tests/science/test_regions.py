@@ -38,7 +38,7 @@ from initgen.science.geodesy import EARTH_RADIUS_KM as R
 # regionmask 0.13 uses affine "*" internally; not ours to fix
 pytestmark = pytest.mark.filterwarnings("ignore:Use `@` matmul:PendingDeprecationWarning")
 
-DATA = Path(__file__).parent / "data"
+DATA = Path(__file__).parents[1] / "data"
 WGS84 = Geod(ellps="WGS84")
 SPHERE = Geod(a=R * 1e3, f=0.0)
 

@@ -270,7 +270,7 @@ def test_persistence_is_shown_when_the_ledger_has_it(tmp_path):
 def test_clamps_and_flags_are_explained_in_a_sentence():
     from initgen.reports.html_report import CLAMP_TEXT, FLAG_TEXT
 
-    src = Path(__file__).resolve().parents[1] / "initgen"
+    src = Path(__file__).resolve().parents[2] / "initgen"
     code = "\n".join(p.read_text() for p in src.rglob("*.py"))
     import re
 
