@@ -13,7 +13,7 @@ from pathlib import Path
 import netCDF4
 
 import filemaker as fm
-from test_errors import refused
+from filemaker import refused
 
 ROOT = Path(__file__).resolve().parents[1]
 LAYOUTS = ROOT / "recipes" / "layouts"

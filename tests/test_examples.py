@@ -8,7 +8,6 @@ import numpy as np
 import pytest
 
 from initgen import api
-from initgen.demo import run_demo
 from filemaker import read_raw as raw
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -16,10 +15,9 @@ EXAMPLES = sorted(p.name for p in (ROOT / "recipes").glob("*.yaml"))
 
 
 @pytest.fixture(scope="module")
-def demo(tmp_path_factory):
-    out = tmp_path_factory.mktemp("demo")
-    run_demo(out)
-    return out
+def demo(demo_copy):
+    """The demo, made once per session (conftest); this module writes recipes into its copy."""
+    return demo_copy
 
 
 @pytest.mark.parametrize("name", EXAMPLES)

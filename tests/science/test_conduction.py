@@ -15,11 +15,11 @@ import scipy.linalg
 
 from initgen import api
 from initgen.science import conduction as c
-from initgen.demo import INTERFACES, run_demo
+from initgen.demo import INTERFACES
 from initgen.engine.persistence import MAX_STEP_DAYS, STEPS_PER_INTERVAL
 from initgen.config.recipe import canonical_hash, load_recipe
 
-from test_errors import recipe, refused, swap, work  # noqa: F401  (the error-catalogue helpers)
+from filemaker import recipe, refused, swap  # the error catalogue's helpers
 
 # de Vries (1963) constituents as tabulated in Moene and van Dam (2014), Table 2.2 (REFERENCES.md,
 # confirmed): volumetric heat capacities, J m-3 K-1
@@ -194,10 +194,9 @@ def test_default_time_steps_are_accurate_enough(days):
 
 
 @pytest.fixture(scope="module")
-def demo(tmp_path_factory):
-    out = tmp_path_factory.mktemp("demo")
-    run_demo(out)
-    return out
+def demo(demo_copy):
+    """The demo, made once per session (conftest); this module writes recipes into its copy."""
+    return demo_copy
 
 
 BOX = """\
@@ -268,7 +267,7 @@ def test_persistence_settings_do_not_change_the_recipe_hash(tmp_path):
     assert rb.data["persistence"]["horizons_days"] == [3, 9]
 
 
-def test_horizons_must_increase(work, capsys):  # noqa: F811
+def test_horizons_must_increase(work, capsys):
     text = swap("    profile: {kind: exponential, efolding_m: 0.5}\n",
                 "    profile: {kind: exponential, efolding_m: 0.5}\npersistence: {horizons_days: [30, 7]}\n")
     rec = recipe(work, text)
