@@ -28,15 +28,18 @@ NODES = np.array([0.05, 0.15, 0.35, 0.75, 1.5])
 FILL = np.float32(1.0e20)
 
 
-def cf_lonlat(ds, lon, lat):
-    """CF longitude and latitude coordinate variables on the existing dims 'lon' and 'lat'."""
-    v = ds.createVariable("lon", "f8", ("lon",))
-    v.units, v.standard_name = "degrees_east", "longitude"
-    v[:] = lon
-    w = ds.createVariable("lat", "f8", ("lat",))
-    w.units, w.standard_name = "degrees_north", "latitude"
-    w[:] = lat
-    return v, w
+def cf_lonlat(ds, lon, lat, names=("lon", "lat"), dims=None):
+    """CF longitude and latitude variables (float64, degrees_east and degrees_north) named ``names``
+    on existing dims: each on its own dim by default (a regular grid), or both on ``dims``
+    (``("y", "x")`` for a curvilinear grid, ``("column",)`` for a list of points)."""
+    made = []
+    for name, values, units, std in zip(names, (lon, lat), ("degrees_east", "degrees_north"),
+                                        ("longitude", "latitude")):
+        v = ds.createVariable(name, "f8", dims or (name,))
+        v.units, v.standard_name = units, std
+        v[:] = values
+        made.append(v)
+    return tuple(made)
 
 
 def _temps(shape_h, nlay=NODES.size, seed=0):
@@ -109,12 +112,7 @@ def curvilinear(path: Path, lon2d, lat2d, T=None):
     ds.createDimension("y", ny)
     ds.createDimension("x", nx)
     ds.createDimension("lev", NODES.size)
-    v = ds.createVariable("nav_lon", "f8", ("y", "x"))
-    v.units, v.standard_name = "degrees_east", "longitude"
-    v[:] = lon2d
-    v = ds.createVariable("nav_lat", "f8", ("y", "x"))
-    v.units, v.standard_name = "degrees_north", "latitude"
-    v[:] = lat2d
+    cf_lonlat(ds, lon2d, lat2d, ("nav_lon", "nav_lat"), ("y", "x"))
     v = ds.createVariable("lev", "f4", ("lev",))
     v.units, v.positive = "m", "down"
     v[:] = NODES
@@ -130,12 +128,7 @@ def points(path: Path, lon, lat, T=None, depth_units="m"):
     ds = netCDF4.Dataset(path, "w")
     ds.createDimension("column", n)
     ds.createDimension("lev", NODES.size)
-    v = ds.createVariable("clon", "f8", ("column",))
-    v.units, v.standard_name = "degrees_east", "longitude"
-    v[:] = lon
-    v = ds.createVariable("clat", "f8", ("column",))
-    v.units, v.standard_name = "degrees_north", "latitude"
-    v[:] = lat
+    cf_lonlat(ds, lon, lat, ("clon", "clat"), ("column",))
     v = ds.createVariable("lev", "f4", ("lev",))
     v.units, v.positive = depth_units, "down"
     v[:] = NODES * (100.0 if depth_units == "cm" else 1.0)
@@ -465,10 +458,7 @@ def second_model(path: Path, *, step: int = 2):
     ds.createDimension("column", n)
     ds.createDimension("depth", nl)
     ds.createDimension("nv", 2)
-    for name, vals, units, std in (("clon", lon, "degrees_east", "longitude"), ("clat", lat, "degrees_north", "latitude")):
-        v = ds.createVariable(name, "f8", ("column",))
-        v.units, v.standard_name = units, std
-        v[:] = vals
+    cf_lonlat(ds, lon, lat, ("clon", "clat"), ("column",))
     v = ds.createVariable("depth", "f8", ("depth",))
     v.units, v.positive, v.bounds = "m", "down", "depth_bnds"
     v[:] = node
@@ -644,12 +634,7 @@ def curvilinear_corners(path: Path, *, ny=6, nx=8, corners=True, lon0=-20.0, lat
     ds = netCDF4.Dataset(path, "w")
     for d, n in (("y", ny), ("x", nx), ("nv4", 4), ("lev", 4), ("nv2", 2)):
         ds.createDimension(d, n)
-    v = ds.createVariable("nav_lon", "f8", ("y", "x"))
-    v.units, v.standard_name = "degrees_east", "longitude"
-    v[:] = clon
-    w = ds.createVariable("nav_lat", "f8", ("y", "x"))
-    w.units, w.standard_name = "degrees_north", "latitude"
-    w[:] = clat
+    v, w = cf_lonlat(ds, clon, clat, ("nav_lon", "nav_lat"), ("y", "x"))
     if corners:
         v.bounds, w.bounds = "lon_corners", "lat_corners"
         ccw = lambda a: np.stack([a[:-1, :-1], a[:-1, 1:], a[1:, 1:], a[1:, :-1]], axis=-1)  # noqa: E731
@@ -676,12 +661,7 @@ def points_dateline(path: Path, n=40, water=False):
     ds = netCDF4.Dataset(path, "w")
     for d, k in (("column", n), ("lev", 4), ("nv2", 2)):
         ds.createDimension(d, k)
-    v = ds.createVariable("clon", "f8", ("column",))
-    v.units, v.standard_name = "degrees_east", "longitude"
-    v[:] = lon
-    v = ds.createVariable("clat", "f8", ("column",))
-    v.units, v.standard_name = "degrees_north", "latitude"
-    v[:] = lat
+    cf_lonlat(ds, lon, lat, ("clon", "clat"), ("column",))
     v = ds.createVariable("lev", "f4", ("lev",))
     v.units, v.positive, v.bounds = "m", "down", "lev_bnds"
     v[:] = 0.5 * (GEOM_INTERFACES[1:] + GEOM_INTERFACES[:-1])
