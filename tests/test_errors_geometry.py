@@ -14,9 +14,7 @@ import netCDF4
 
 import filemaker as fm
 from filemaker import refused
-
-ROOT = Path(__file__).resolve().parents[1]
-LAYOUTS = ROOT / "recipes" / "layouts"
+from filemaker import LAYOUTS
 
 RECIPE = """initgen_recipe: 1
 name: cat-geometry

@@ -5,7 +5,6 @@ from __future__ import annotations
 import hashlib
 import json
 import re
-from pathlib import Path
 
 import netCDF4
 import numpy as np
@@ -13,7 +12,8 @@ import numpy as np
 from initgen.config.recipe import RECIPE
 from initgen.config.schema import walk_reference
 
-ROOT = Path(__file__).resolve().parents[1]
+from filemaker import ROOT
+
 README = (ROOT / "README.md").read_text()
 
 

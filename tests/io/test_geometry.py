@@ -23,12 +23,11 @@ import pytest
 from scipy.integrate import quad
 
 import filemaker as fm
+from filemaker import LAYOUTS, ROOT
 from initgen import api
 from initgen.science import geodesy
 from initgen.errors import InputError, InputWarning
 
-ROOT = Path(__file__).resolve().parents[2]
-LAYOUTS = ROOT / "recipes" / "layouts"
 R_M = geodesy.EARTH_RADIUS_KM * 1.0e3
 
 RECIPE = """initgen_recipe: 1

@@ -22,10 +22,8 @@ from hypothesis import strategies as st
 from scipy.integrate import quad
 
 import filemaker as fm
+from filemaker import LAYOUTS
 from initgen import api
-
-ROOT = Path(__file__).resolve().parents[2]
-LAYOUTS = ROOT / "recipes" / "layouts"
 
 RECIPE = """initgen_recipe: 1
 name: measured-geometry

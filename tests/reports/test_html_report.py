@@ -34,6 +34,7 @@ from filemaker import add_land_fraction, curvilinear, points, regular
 from filemaker import sha
 from filemaker import box_recipe_text
 from filemaker import recipe as write_recipe
+from filemaker import ROOT
 
 PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"  # W3C PNG specification (2003), section 5.2
 
@@ -250,7 +251,7 @@ def test_persistence_is_shown_when_the_ledger_has_it(tmp_path):
 def test_clamps_and_flags_are_explained_in_a_sentence():
     from initgen.reports.html_report import CLAMP_TEXT, FLAG_TEXT
 
-    src = Path(__file__).resolve().parents[2] / "initgen"
+    src = ROOT / "initgen"
     code = "\n".join(p.read_text() for p in src.rglob("*.py"))
     import re
 

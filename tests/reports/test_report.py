@@ -40,8 +40,9 @@ from filemaker import curvilinear, points, read_raw, regular
 from filemaker import sha
 from filemaker import box_recipe_text
 from filemaker import recipe as write_recipe
+from filemaker import RECIPES
 
-RECIPE = Path(__file__).resolve().parents[2] / "recipes" / "demo-cold-highland.yaml"
+RECIPE = RECIPES / "demo-cold-highland.yaml"
 
 def box_recipe(folder: Path, w=20, e=80, s=10, n=50, taper=0) -> Path:
     return write_recipe(folder, box_recipe_text(w, e, s, n, taper_km=taper), "box.yaml")

@@ -7,7 +7,6 @@ solution of Carslaw and Jaeger (1959), or scipy as a reference library.
 from __future__ import annotations
 
 import json
-from pathlib import Path
 
 import numpy as np
 import pytest
@@ -20,6 +19,7 @@ from initgen.engine.persistence import MAX_STEP_DAYS, STEPS_PER_INTERVAL
 from initgen.config.recipe import canonical_hash, load_recipe
 
 from filemaker import recipe, refused, swap  # the error catalogue's helpers
+from filemaker import RECIPES
 
 # de Vries (1963) constituents as tabulated in Moene and van Dam (2014), Table 2.2 (REFERENCES.md,
 # confirmed): volumetric heat capacities, J m-3 K-1
@@ -288,7 +288,7 @@ def test_preview_json_and_text_show_persistence(demo, tmp_path, capsys):
     assert led["layers"]["bottom_m"][-1] == pytest.approx(INTERFACES[-1], rel=1e-6)
 
 
-SHIPPED = sorted(p.name for p in (Path(__file__).resolve().parents[2] / "recipes").glob("*.yaml"))
+SHIPPED = sorted(p.name for p in RECIPES.glob("*.yaml"))
 
 
 @pytest.mark.parametrize("name", SHIPPED)
