@@ -6,6 +6,7 @@ live in ``tests/filemaker.py``, which the test modules import; the fixtures belo
 
 from __future__ import annotations
 
+import os
 import shutil
 
 import pytest
@@ -13,6 +14,11 @@ import pytest
 from initgen.demo import run_demo
 
 import filemaker
+
+# The processes the tests start (``python -m initgen.cli``, the fault tests' runners) import the
+# same initgen as the tests: the checkout's, ahead of any installed copy (pyproject.toml's
+# ``pythonpath`` does this for the tests' own process).
+os.environ["PYTHONPATH"] = os.pathsep.join(p for p in (str(filemaker.ROOT), os.environ.get("PYTHONPATH")) if p)
 
 
 @pytest.fixture
