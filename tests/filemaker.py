@@ -144,12 +144,12 @@ def sha(path) -> str:
     return hashlib.sha256(Path(path).read_bytes()).hexdigest()
 
 
-def read_raw(path, name):
-    """A variable's values as stored (no unpacking, no masking)."""
+def read_raw(path, name, dtype=None):
+    """A variable's values as stored (no unpacking, no masking); as ``dtype`` if given."""
     with netCDF4.Dataset(path) as ds:
         v = ds.variables[name]
         v.set_auto_maskandscale(False)
-        return np.array(v[:])
+        return np.array(v[:], dtype=dtype)
 
 
 # =============================================================================================

@@ -49,10 +49,7 @@ def recipe(folder, anom=-2.0, efold=0.5, taper=0, boxlon="-180, 180", extra=""):
 
 
 def raw(path, name):
-    with netCDF4.Dataset(path) as ds:
-        v = ds[name]
-        v.set_auto_maskandscale(False)
-        return np.array(v[:], dtype=np.float64)
+    return fm.read_raw(path, name, np.float64)
 
 
 def quad_mean(efold, top, bottom):
