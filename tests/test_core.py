@@ -5,6 +5,7 @@ from __future__ import annotations
 import hashlib
 import json
 import math
+from contextlib import nullcontext
 
 import netCDF4
 import numpy as np
@@ -19,28 +20,12 @@ from initgen.config.recipe import load_recipe
 
 from filemaker import FILL, NODES, curvilinear, points, read_raw, regular
 from filemaker import sha
-
-
-def write_recipe(tmp_path, text, name="r.yaml"):
-    p = tmp_path / name
-    p.write_text(text)
-    return p
-
-
-BOX = """
-initgen_recipe: 1
-name: test-box
-perturbations:
-  - name: box
-    region:
-      include: [{{box: {{lon: [{w}, {e}], lat: [{s}, {n}]}}}}]
-    anomaly: {{constant_K: {a}}}
-    profile: {{kind: {kind}{extra}}}
-"""
+from filemaker import box_recipe_text
+from filemaker import recipe as write_recipe
 
 
 def box_recipe(tmp_path, w=20, e=80, s=10, n=50, a=-2.0, kind="uniform", extra=""):
-    return write_recipe(tmp_path, BOX.format(w=w, e=e, s=s, n=n, a=a, kind=kind, extra=extra))
+    return write_recipe(tmp_path, box_recipe_text(w, e, s, n, anomaly_K=a, profile=f"kind: {kind}{extra}"))
 
 
 def test_regular_grid_changes_only_land_cells_in_box(tmp_path):
@@ -171,7 +156,7 @@ def test_three_grid_kinds_give_same_change(tmp_path):
     outs = {}
     for name, f in (("reg", src), ("cur", cur), ("pts", pts)):
         outs[name] = tmp_path / f"{name}.out.nc"
-        with pytest.warns(UserWarning) if name != "reg" else _nullwarn():
+        with pytest.warns(UserWarning) if name != "reg" else nullcontext():
             api.apply(rec, f, outs[name])
     dreg = (read_raw(outs["reg"], "tsoil") - read_raw(src, "tsoil"))[0]
     dcur = read_raw(outs["cur"], "tsoil") - read_raw(cur, "tsoil")
@@ -179,14 +164,6 @@ def test_three_grid_kinds_give_same_change(tmp_path):
     assert np.count_nonzero(dreg) > 0
     np.testing.assert_array_equal(dreg, dcur)
     np.testing.assert_array_equal(dreg.reshape(dreg.shape[0], -1), dpts.T)
-
-
-class _nullwarn:
-    def __enter__(self):
-        return self
-
-    def __exit__(self, *a):
-        return False
 
 
 def test_longitude_conventions_give_same_result(tmp_path):

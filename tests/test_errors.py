@@ -15,7 +15,6 @@ import json
 import os
 import subprocess
 import sys
-import warnings
 from pathlib import Path
 
 import netCDF4
@@ -27,95 +26,11 @@ from initgen.demo import write_demo_restart
 
 from filemaker import NODES, curvilinear, points, regular
 from filemaker import sha
+from filemaker import CATALOGUE_RECIPE as RECIPE
+from filemaker import listing, recipe, refused, run, swap
 
-# ---------------------------------------------------------------------------------------------
-# Helpers
-# ---------------------------------------------------------------------------------------------
-
-_QUIET = (DeprecationWarning, PendingDeprecationWarning, ImportWarning, ResourceWarning)
-
-
-def listing(folder: Path) -> dict:
-    """Every file under ``folder`` with its sha256 (folders by name only)."""
-    out = {}
-    for p in sorted(Path(folder).rglob("*")):
-        out[str(p.relative_to(folder))] = sha(p) if p.is_file() else "<dir>"
-    return out
-
-
-def run(argv):
-    """Run the CLI; return (exit code, stdout, stderr lines incl. warnings shown to the user)."""
-    with warnings.catch_warnings(record=True) as caught:
-        warnings.simplefilter("always")
-        try:
-            rc = main([str(a) for a in argv])
-        except SystemExit as exc:  # argparse errors
-            rc = exc.code
-    shown = [f"initgen: warning: {w.message}" for w in caught if not issubclass(w.category, _QUIET)]
-    return rc, shown
-
-
-def refused(capsys, argv, *phrases, folder: Path, watch=()):
-    """Assert the CLI refuses ``argv`` the way the README promises; return the message line.
-
-    ``folder`` is the test's working folder: nothing in it may change (no output, no record,
-    no temporary), and every file in it keeps its sha256. ``watch`` adds files elsewhere.
-    """
-    folder = Path(folder)
-    before = listing(folder)
-    watched = {Path(p): sha(p) for p in watch}
-    capsys.readouterr()
-    rc, shown = run(argv)
-    cap = capsys.readouterr()
-    lines = shown + cap.err.splitlines()
-    assert rc == 2, f"exit {rc}, stderr: {cap.err!r}, stdout: {cap.out!r}"
-    assert len(lines) == 1, f"expected one stderr line, got {lines!r}"
-    line = lines[0]
-    assert line.startswith("initgen: error: "), line
-    assert "Traceback" not in cap.err + cap.out
-    for phrase in phrases:
-        assert phrase in line, f"{phrase!r} not in {line!r}"
-    after = listing(folder)
-    assert not [k for k in after if k.endswith(".initgen-tmp")], after
-    assert after == before, f"files changed: {set(after) ^ set(before)}"
-    for p, h in watched.items():
-        assert sha(p) == h, f"{p} changed"
-    return line
-
-
-# ---------------------------------------------------------------------------------------------
-# Inputs
-# ---------------------------------------------------------------------------------------------
-
-RECIPE = """\
-initgen_recipe: 1
-name: cat
-perturbations:
-  - name: blk
-    region:
-      include: [{box: {lon: [20, 80], lat: [10, 50]}}]
-      taper_km: 200
-    anomaly: {constant_K: -2}
-    profile: {kind: exponential, efolding_m: 0.5}
-"""
-
-
-def recipe(folder: Path, text: str = RECIPE, name: str = "r.yaml") -> Path:
-    p = Path(folder) / name
-    p.write_text(text)
-    return p
-
-
-def swap(old: str, new: str, text: str = RECIPE) -> str:
-    assert old in text, old
-    return text.replace(old, new)
-
-
-@pytest.fixture
-def work(tmp_path):
-    """A folder with a small regular input file ``in.nc`` (10-degree global grid, CF names)."""
-    regular(tmp_path / "in.nc")
-    return tmp_path
+# The helpers (listing, run, refused, recipe, swap) are in filemaker.py, the ``work`` fixture (a
+# folder with a small regular input ``in.nc``) in conftest.py: other test modules use them too.
 
 
 def apply_argv(work, rec, *extra, output="out.nc"):

@@ -1,8 +1,8 @@
 """The error catalogue, continued: layer geometry, CF roles, records and grid files (issue 14).
 
-Same promise as ``tests/test_errors.py`` (whose helpers these tests use): exit 2, one line on
-stderr naming the file, variable or layout key and what to do, no traceback, nothing written,
-the input unchanged.
+Same promise as ``tests/test_errors.py``, checked by the same ``filemaker.refused``: exit 2, one
+line on stderr naming the file, variable or layout key and what to do, no traceback, nothing
+written, the input unchanged.
 """
 
 from __future__ import annotations
@@ -13,10 +13,8 @@ from pathlib import Path
 import netCDF4
 
 import filemaker as fm
-from test_errors import refused
-
-ROOT = Path(__file__).resolve().parents[1]
-LAYOUTS = ROOT / "recipes" / "layouts"
+from filemaker import refused
+from filemaker import LAYOUTS
 
 RECIPE = """initgen_recipe: 1
 name: cat-geometry

@@ -2,24 +2,20 @@
 
 from __future__ import annotations
 
-from pathlib import Path
-
 import numpy as np
 import pytest
 
 from initgen import api
-from initgen.demo import run_demo
 from filemaker import read_raw as raw
+from filemaker import RECIPES, ROOT
 
-ROOT = Path(__file__).resolve().parents[1]
 EXAMPLES = sorted(p.name for p in (ROOT / "recipes").glob("*.yaml"))
 
 
 @pytest.fixture(scope="module")
-def demo(tmp_path_factory):
-    out = tmp_path_factory.mktemp("demo")
-    run_demo(out)
-    return out
+def demo(demo_copy):
+    """The demo, made once per session (conftest); this module writes recipes into its copy."""
+    return demo_copy
 
 
 @pytest.mark.parametrize("name", EXAMPLES)
@@ -170,7 +166,7 @@ def test_mismatched_soil_parameters_are_reported_not_acted_on(demo, tmp_path):
     assert sum(plain["input_phase_disequilibrium"]["cells_per_layer"]) == 0
 
 
-SHIPPED = sorted(p.name for p in (Path(__file__).resolve().parents[1] / "recipes").glob("demo-*.yaml"))
+SHIPPED = sorted(p.name for p in RECIPES.glob("demo-*.yaml"))
 
 
 @pytest.mark.parametrize("name", SHIPPED)

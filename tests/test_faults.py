@@ -33,18 +33,9 @@ from initgen.cli import main
 
 from filemaker import regular
 from filemaker import sha
+from filemaker import tapered_recipe_text
 
-RECIPE = """\
-initgen_recipe: 1
-name: faults
-perturbations:
-  - name: blk
-    region:
-      include: [{box: {lon: [20, 80], lat: [10, 50]}}]
-      taper_km: 200
-    anomaly: {constant_K: -2}
-    profile: {kind: exponential, efolding_m: 0.5}
-"""
+RECIPE = tapered_recipe_text("faults")
 
 # The CLI, with initgen.engine.plan.apply_block slowed down: after the first block it writes, the
 # process touches MARKER and waits (up to 60 s) for GO to exist. SIGTERM/SIGINT interrupt the wait.
@@ -74,11 +65,11 @@ def names(folder) -> set:
 
 
 @pytest.fixture
-def work(tmp_path):
-    regular(tmp_path / "in.nc")
-    (tmp_path / "r.yaml").write_text(RECIPE)
-    (tmp_path / "runner.py").write_text(RUNNER)
-    return tmp_path
+def work(work):
+    """conftest's folder with a small input ``in.nc``, plus the recipe and the slowed CLI."""
+    (work / "r.yaml").write_text(RECIPE)
+    (work / "runner.py").write_text(RUNNER)
+    return work
 
 
 def start(work, tag, *cli):

@@ -5,16 +5,15 @@ from __future__ import annotations
 import hashlib
 import json
 import re
-from pathlib import Path
 
 import netCDF4
 import numpy as np
 
-from initgen.demo import run_demo
 from initgen.config.recipe import RECIPE
 from initgen.config.schema import walk_reference
 
-ROOT = Path(__file__).resolve().parents[1]
+from filemaker import ROOT
+
 README = (ROOT / "README.md").read_text()
 
 
@@ -44,11 +43,10 @@ def test_recipe_reference_keys_exist_in_schema():
             assert full in known, f"README names {full}, which the schema does not have"
 
 
-def test_demo_changes_only_recipe_variables_inside_region(tmp_path):
-    run_demo(tmp_path)
-    src = tmp_path / "demo-restart.nc"
-    out = tmp_path / "demo-restart.cold-highland.nc"
-    prov = json.loads((tmp_path / "demo-restart.cold-highland.nc.provenance.json").read_text())
+def test_demo_changes_only_recipe_variables_inside_region(demo_folder):
+    src = demo_folder / "demo-restart.nc"
+    out = demo_folder / "demo-restart.cold-highland.nc"
+    prov = json.loads((demo_folder / "demo-restart.cold-highland.nc.provenance.json").read_text())
     assert prov["input"]["sha256"] == hashlib.sha256(src.read_bytes()).hexdigest()
     assert prov["output"]["sha256"] == hashlib.sha256(out.read_bytes()).hexdigest()
     changed_vars = set(prov["ledger"]["variables"])
@@ -70,4 +68,4 @@ def test_demo_changes_only_recipe_variables_inside_region(tmp_path):
     assert led["physics"]["mode"] == "energy"
     assert led["physics"]["frozen_region_total_kg"] > 0
     assert led["physics"]["latent_region_total_J"] < 0
-    assert (tmp_path / "summary.txt").read_text().startswith("initgen demo")
+    assert (demo_folder / "summary.txt").read_text().startswith("initgen demo")

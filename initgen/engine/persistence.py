@@ -22,7 +22,7 @@ from initgen.science import conduction, units
 from initgen.science.soil import properties as soil_properties
 
 STEPS_PER_INTERVAL = 16  # at least this many backward-Euler steps between horizons ...
-MAX_STEP_DAYS = 1.0  # ... each at most a day (time error < 0.005 in the fraction, tests/test_conduction.py)
+MAX_STEP_DAYS = 1.0  # ... each at most a day (time error < 0.005 in the fraction, tests/science/test_conduction.py)
 COARSE_SAND_PCT = 70.0  # sand_pct at or above which Johansen's coarse (sand) Kersten relation is used
 
 ASSUMPTIONS = ("pure heat conduction of the realised soil temperature change in the model's own layers; "

@@ -140,7 +140,7 @@ CLAPP_HORNBERGER_1978 = {
 #: ``(sand, clay)``: the mean over the class's area in the triangle, computed from the class
 #: definitions of the Soil Survey Manual (Soil Science Division Staff 2017, USDA Handbook 18;
 #: the class limits are a fact of the trade) on a 0.1 % grid and rounded to 0.1 %. Used to give
-#: a texture class the solids heat capacity of the texture formula; tests/test_phase_rules.py
+#: a texture class the solids heat capacity of the texture formula; tests/science/test_phase_rules.py
 #: recomputes it from the definitions.
 TEXTURE_CLASS_CENTROID_PCT = {
     "sand": (91.6, 3.3),

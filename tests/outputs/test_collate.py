@@ -12,10 +12,9 @@ import pytest
 from initgen import api
 from initgen.cli import main
 from initgen.outputs.collate import band_means, compare
-from initgen.demo import run_demo
 
 import filemaker
-from test_errors import listing, refused
+from filemaker import listing, refused
 
 
 def test_band_overlap_hand_computed():
@@ -44,12 +43,12 @@ def test_band_flags_against_the_median():
 
 
 @pytest.fixture(scope="module")
-def two_models(tmp_path_factory):
+def two_models(tmp_path_factory, demo_folder):
     """The demo's output (regular 0.5-degree grid, 8 layers to 3.1 m) and the same recipe applied
     to a second invented model (unstructured columns, 6 layers to 1 m)."""
     root = tmp_path_factory.mktemp("collate")
     demo = root / "model-a"
-    run_demo(demo)
+    shutil.copytree(demo_folder, demo)  # the demo, made once per session (conftest)
     b = root / "model-b"
     b.mkdir()
     filemaker.second_model(b / "restart.nc")

@@ -2,17 +2,14 @@
 
 from __future__ import annotations
 
-from pathlib import Path
-
 import netCDF4
 import numpy as np
 import pytest
 
 from initgen import api
 from filemaker import read_raw as raw
+from filemaker import LAYOUTS
 
-ROOT = Path(__file__).resolve().parents[1]
-LAYOUTS = ROOT / "recipes" / "layouts"
 RECIPE = """initgen_recipe: 1
 name: layout-test
 perturbations:

@@ -10,12 +10,11 @@ from initgen.cli import main
 from initgen.reports.compare import compare
 
 from filemaker import read_raw, regular
-from test_core import box_recipe
 
 
-def test_compressed_patch_reports_growth_and_repack_keeps_values_and_encodings(tmp_path, capsys):
+def test_compressed_patch_reports_growth_and_repack_keeps_values_and_encodings(tmp_path, capsys, make_recipe):
     src = regular(tmp_path / "in.nc", nlon=72, nlat=36, chunked=True)
-    rec = box_recipe(tmp_path, w=-40, e=120, s=-50, n=60, a=-3.0)
+    rec = make_recipe(-40, 120, -50, 60, anomaly_K=-3.0)
     plain = api.apply(rec, src, tmp_path / "plain.nc")
     io = plain["io"]
     assert io["bytes_rewritten"] > 0 and io["repacked"] is False

@@ -13,6 +13,7 @@ import math
 import struct
 import subprocess
 import sys
+from contextlib import nullcontext
 from html.parser import HTMLParser
 from pathlib import Path
 
@@ -31,28 +32,16 @@ from initgen.config.recipe import load_recipe
 
 from filemaker import add_land_fraction, curvilinear, points, regular
 from filemaker import sha
+from filemaker import box_recipe_text
+from filemaker import recipe as write_recipe
+from filemaker import ROOT
 
 PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"  # W3C PNG specification (2003), section 5.2
 
-RECIPE = """
-initgen_recipe: 1
-name: test-box
-perturbations:
-  - name: box
-    region:
-      include: [{{box: {{lon: [{w}, {e}], lat: [{s}, {n}]}}}}]
-      taper_km: {taper}
-      taper_placement: {placement}
-    anomaly: {{constant_K: -2.0}}
-    profile: {{kind: {profile}}}
-"""
-
-
 def recipe(folder: Path, w=20, e=80, s=10, n=50, taper=0, placement="outside", profile="uniform") -> Path:
-    p = folder / "box.yaml"
-    prof = profile if profile == "uniform" else "exponential, efolding_m: 0.5"
-    p.write_text(RECIPE.format(w=w, e=e, s=s, n=n, taper=taper, placement=placement, profile=prof))
-    return p
+    prof = "kind: uniform" if profile == "uniform" else "kind: exponential, efolding_m: 0.5"
+    return write_recipe(folder, box_recipe_text(w, e, s, n, taper_km=taper, placement=placement, profile=prof),
+                        "box.yaml")
 
 
 class Page(HTMLParser):
@@ -137,7 +126,7 @@ def test_preview_page_is_self_contained_with_every_figure_type(tmp_path, kind):
     src = grid_file(tmp_path, kind)
     rec = recipe(tmp_path, taper=500, profile="exponential")
     before = sha(src)
-    with pytest.warns(Warning) if kind != "regular" else _nothing():  # no cell areas: equal weights, warned
+    with pytest.warns(Warning) if kind != "regular" else nullcontext():  # no cell areas: equal weights, warned
         md = preview_report(rec, src, None, tmp_path / "rep")
     assert sha(src) == before
     page_path = md.parent / "report.html"
@@ -163,14 +152,6 @@ def test_preview_page_is_self_contained_with_every_figure_type(tmp_path, kind):
     # every PNG written beside the page is embedded in it, byte for byte
     on_disk = sorted(p.read_bytes() for p in md.parent.glob("*.png"))
     assert sorted(imgs) == on_disk
-
-
-class _nothing:
-    def __enter__(self):
-        return self
-
-    def __exit__(self, *exc):
-        return False
 
 
 def test_histogram_area_is_the_spherical_zone_and_single_value_is_a_sentence(tmp_path):
@@ -270,7 +251,7 @@ def test_persistence_is_shown_when_the_ledger_has_it(tmp_path):
 def test_clamps_and_flags_are_explained_in_a_sentence():
     from initgen.reports.html_report import CLAMP_TEXT, FLAG_TEXT
 
-    src = Path(__file__).resolve().parents[1] / "initgen"
+    src = ROOT / "initgen"
     code = "\n".join(p.read_text() for p in src.rglob("*.py"))
     import re
 

@@ -9,7 +9,6 @@ External references used (each named beside its check):
 
 import json
 import warnings
-from pathlib import Path
 
 import numpy as np
 import pytest
@@ -35,10 +34,11 @@ from initgen.science.regions.mask import taper_weight
 from initgen.errors import InputError, InputWarning
 from initgen.science.geodesy import EARTH_RADIUS_KM as R
 
+from filemaker import DATA
+
 # regionmask 0.13 uses affine "*" internally; not ours to fix
 pytestmark = pytest.mark.filterwarnings("ignore:Use `@` matmul:PendingDeprecationWarning")
 
-DATA = Path(__file__).parent / "data"
 WGS84 = Geod(ellps="WGS84")
 SPHERE = Geod(a=R * 1e3, f=0.0)
 

@@ -10,8 +10,6 @@ densities of ice at 0 C and of water, common practice; the constants of initgen.
 
 from __future__ import annotations
 
-from pathlib import Path
-
 import netCDF4
 import numpy as np
 import pytest
@@ -27,9 +25,8 @@ from initgen.science.soil.conversion import total_from_phases
 from initgen.science.soil.conversion import water_equivalent_to_ice_volume
 from initgen.errors import InputError
 from filemaker import read_raw as raw
+from filemaker import LAYOUTS
 
-ROOT = Path(__file__).resolve().parents[1]
-LAYOUTS = ROOT / "recipes" / "layouts"
 RHO_W, RHO_I = 1000.0, 917.0  # kg m-3: liquid water and ice at 0 C (common practice)
 
 RECIPE = """initgen_recipe: 1

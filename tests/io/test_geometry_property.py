@@ -22,10 +22,8 @@ from hypothesis import strategies as st
 from scipy.integrate import quad
 
 import filemaker as fm
+from filemaker import LAYOUTS
 from initgen import api
-
-ROOT = Path(__file__).resolve().parents[1]
-LAYOUTS = ROOT / "recipes" / "layouts"
 
 RECIPE = """initgen_recipe: 1
 name: measured-geometry
@@ -106,10 +104,7 @@ def _make(source, folder: Path, icm: np.ndarray, frac: float):
 
 
 def _raw(path, name):
-    with netCDF4.Dataset(path) as ds:
-        v = ds[name]
-        v.set_auto_maskandscale(False)
-        return np.array(v[:], dtype=np.float64)
+    return fm.read_raw(path, name, np.float64)
 
 
 @pytest.mark.parametrize("source", SOURCES)

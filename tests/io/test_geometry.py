@@ -23,12 +23,11 @@ import pytest
 from scipy.integrate import quad
 
 import filemaker as fm
+from filemaker import LAYOUTS, ROOT
 from initgen import api
 from initgen.science import geodesy
 from initgen.errors import InputError, InputWarning
 
-ROOT = Path(__file__).resolve().parents[1]
-LAYOUTS = ROOT / "recipes" / "layouts"
 R_M = geodesy.EARTH_RADIUS_KM * 1.0e3
 
 RECIPE = """initgen_recipe: 1
@@ -50,10 +49,7 @@ def recipe(folder, anom=-2.0, efold=0.5, taper=0, boxlon="-180, 180", extra=""):
 
 
 def raw(path, name):
-    with netCDF4.Dataset(path) as ds:
-        v = ds[name]
-        v.set_auto_maskandscale(False)
-        return np.array(v[:], dtype=np.float64)
+    return fm.read_raw(path, name, np.float64)
 
 
 def quad_mean(efold, top, bottom):
@@ -344,7 +340,7 @@ def test_every_shipped_layout_is_valid_listed_in_readme_and_tested():
     from initgen.config.recipe import load_layout
 
     readme = (ROOT / "README.md").read_text()
-    tests = "".join(p.read_text() for p in (ROOT / "tests").glob("test_*.py"))
+    tests = "".join(p.read_text() for p in (ROOT / "tests").rglob("test_*.py"))
     for path in sorted(LAYOUTS.glob("*.yaml")):
         load_layout(path)
         assert f"`{path.name}`" in readme, f"{path.name} not listed in the README's layout section"

@@ -363,7 +363,7 @@ def states(draw, equilibrium=None):
 
 def _run(mode, s):
     """The equilibrium rule (the change-driven default has its own properties in
-    tests/test_phase_rules.py)."""
+    tests/science/test_phase_rules.py)."""
     fn = apply_energy_mode if mode == "energy" else apply_temperature_mode
     return fn(s["T"], s["liq"], s["ice"], s["dT"], s["dz"], s["phi"], s["psi"], s["b"], s["cs"], rule="equilibrium")
 

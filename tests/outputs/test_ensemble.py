@@ -19,7 +19,6 @@ from initgen.outputs import members as members_mod
 from initgen.engine import plan as plan_mod
 from initgen.science import sources
 from initgen.cli import main
-from initgen.demo import write_demo_restart
 from initgen.errors import InputError
 from initgen.config.recipe import RECIPE, load_recipe
 from initgen.io.atomic import sha256_file
@@ -66,9 +65,9 @@ def recipe_file(tmp_path, members: dict, base=BASE, name="r.yaml") -> Path:
 
 
 @pytest.fixture(scope="module")
-def demo(tmp_path_factory) -> Path:
-    d = tmp_path_factory.mktemp("demo")
-    return write_demo_restart(d / "demo-restart.nc")
+def demo(demo_folder) -> Path:
+    """The demo restart, made once per session (conftest); read only."""
+    return demo_folder / "demo-restart.nc"
 
 
 @pytest.fixture(scope="module")

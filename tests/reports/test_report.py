@@ -38,26 +38,14 @@ from initgen.errors import InputError
 
 from filemaker import curvilinear, points, read_raw, regular
 from filemaker import sha
+from filemaker import box_recipe_text
+from filemaker import recipe as write_recipe
+from filemaker import RECIPES
 
-RECIPE = Path(__file__).resolve().parents[1] / "recipes" / "demo-cold-highland.yaml"
-
-BOX = """
-initgen_recipe: 1
-name: test-box
-perturbations:
-  - name: box
-    region:
-      include: [{{box: {{lon: [{w}, {e}], lat: [{s}, {n}]}}}}]
-      taper_km: {taper}
-    anomaly: {{constant_K: -2.0}}
-    profile: {{kind: uniform}}
-"""
-
+RECIPE = RECIPES / "demo-cold-highland.yaml"
 
 def box_recipe(folder: Path, w=20, e=80, s=10, n=50, taper=0) -> Path:
-    p = folder / "box.yaml"
-    p.write_text(BOX.format(w=w, e=e, s=s, n=n, taper=taper))
-    return p
+    return write_recipe(folder, box_recipe_text(w, e, s, n, taper_km=taper), "box.yaml")
 
 
 def listing(folder: Path) -> set:
@@ -504,8 +492,8 @@ def test_provenance_records_referenced_files_and_verify_names_a_changed_one(tmp_
     (tmp_path / "shape.geojson").write_text(json.dumps({"type": "Polygon", "coordinates": [
         [[175, 33], [188, 33], [188, 44], [175, 44], [175, 33]]]}))
     rec = tmp_path / "r.yaml"
-    rec.write_text(BOX.replace("[{{box: {{lon: [{w}, {e}], lat: [{s}, {n}]}}}}]", "[{{geojson: shape.geojson}}]")
-                   .format(taper=0))
+    rec.write_text(box_recipe_text(taper_km=0).replace("[{box: {lon: [20, 80], lat: [10, 50]}}]",
+                                                       "[{geojson: shape.geojson}]"))
     record = api.apply(rec, tmp_path / "in.nc", tmp_path / "out.nc")
     files = record["recipe"]["files"]
     key = "perturbations[0].region.include[0].geojson"
