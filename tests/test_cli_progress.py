@@ -27,7 +27,7 @@ import pytest
 
 from initgen.cli import _Progress, _progress
 from filemaker import read_raw, regular
-from test_errors import RECIPE  # the error catalogue's small recipe: a box with a taper
+from filemaker import CATALOGUE_RECIPE as RECIPE  # the error catalogue's small recipe: a box with a taper
 
 FULL = "[" + "#" * 30 + "]"
 

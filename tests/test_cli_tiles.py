@@ -20,7 +20,7 @@ from initgen.cli import main
 from initgen.io.shipped import shipped_dir
 import filemaker as fm
 from filemaker import read_raw
-from test_errors import recipe, refused, swap  # the error catalogue's recipe and refusal check
+from filemaker import recipe, refused, swap  # the error catalogue's recipe and refusal check
 
 LAYOUTS = shipped_dir("recipes") / "layouts"
 

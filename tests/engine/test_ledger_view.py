@@ -7,7 +7,6 @@ from __future__ import annotations
 import copy
 import json
 import shutil
-from pathlib import Path
 
 import pytest
 
@@ -16,15 +15,17 @@ from initgen.demo import write_demo_extras, write_demo_restart
 from initgen.engine.ledger_view import LedgerView
 from initgen.io.shipped import shipped_file
 
-ROOT = Path(__file__).resolve().parents[1]
-SHIPPED = sorted(p.name for p in (ROOT / "recipes").glob("demo-*.yaml"))
+from filemaker import RECIPES
+
+SHIPPED = sorted(p.name for p in RECIPES.glob("demo-*.yaml"))
+assert SHIPPED, f"no shipped demo recipes in {RECIPES}"
 
 
 @pytest.fixture(scope="module")
 def demo(tmp_path_factory):
     out = tmp_path_factory.mktemp("ledger-view-demo")
     for name in SHIPPED:
-        shutil.copy(ROOT / "recipes" / name, out / name)
+        shutil.copy(RECIPES / name, out / name)
     shutil.copy(shipped_file("masks", "demo-highland.geojson"), out / "demo-highland.geojson")
     write_demo_restart(out / "demo-restart.nc")
     write_demo_extras(out)
