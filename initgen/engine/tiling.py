@@ -7,8 +7,9 @@ from __future__ import annotations
 import numpy as np
 
 from initgen.engine.fields import Plan
+from initgen.science.blocks import APPLY_BLOCK_ELEMENTS
 
-BLOCK_ELEMENTS = 250_000  # values per variable per block (2 MB as float64): memory stays flat
+BLOCK_ELEMENTS = APPLY_BLOCK_ELEMENTS  # values per variable per block; the reason stands in science/blocks.py
 
 
 def _runs(flags: np.ndarray, min_gap: int, idx_file: np.ndarray) -> list[tuple[int, int]]:

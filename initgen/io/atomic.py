@@ -23,8 +23,6 @@ from concurrent.futures import ThreadPoolExecutor
 from pathlib import Path
 from typing import Any, Callable, Iterator
 
-import numpy as np
-
 from initgen.errors import InputError
 
 try:  # netCDF4 is a hard dependency; import lazily-failing for a clear message
@@ -32,6 +30,7 @@ try:  # netCDF4 is a hard dependency; import lazily-failing for a clear message
 except ImportError as exc:  # pragma: no cover
     raise ImportError("initgen needs the netCDF4 package: pip install netCDF4") from exc
 from initgen.io.stores import NetCDFStore
+from initgen.science.blocks import REPACK_BLOCK_ELEMENTS, slab_blocks
 
 TMP_TAG = ".initgen-tmp"
 
@@ -350,13 +349,13 @@ def _size(path: Path) -> int:
         return 0
 
 
-def repack(src: Path, dst: Path, block_elements: int = 4_000_000) -> None:
+def repack(src: Path, dst: Path, block_elements: int = REPACK_BLOCK_ELEMENTS) -> None:
     """Rewrite a netCDF file whole into ``dst``: the same format, dimensions, variables, attributes
     and encodings (chunking, compression, shuffle, checksums, endianness, fill values), with every
     chunk compressed afresh and the file laid out without the holes an in-place patch can leave.
 
-    Values are copied raw (no unpacking), block by block along the first dimension, so memory
-    stays bounded. Files with groups are refused.
+    Values are copied raw (no unpacking), block by block (:func:`initgen.science.blocks.slab_blocks`), so
+    memory stays bounded. Files with groups are refused.
     """
     with netCDF4.Dataset(src) as ds_in:
         if ds_in.groups:
@@ -388,10 +387,8 @@ def repack(src: Path, dst: Path, block_elements: int = 4_000_000) -> None:
                 if var.ndim == 0:
                     out.assignValue(var.getValue())
                     continue
-                row = int(np.prod(var.shape[1:])) if var.ndim > 1 else 1
-                step = max(1, block_elements // max(row, 1))
-                for i in range(0, var.shape[0], step):
-                    out[i:i + step] = var[i:i + step]
+                for key in slab_blocks(var.shape, block_elements):
+                    out[key] = var[key]
         finally:
             ds_out.close()
 

@@ -1,18 +1,16 @@
-"""What every report shares: JSON-safe values, number formatting, attribute diffs, the block iterator
-of compare, the longitude arc of a set of points and the caution line of every report.
+"""What every report shares: JSON-safe values, number formatting, attribute diffs, the longitude arc
+of a set of points and the caution line of every report.
 """
 
 from __future__ import annotations
 
 import math
-from typing import Any, Iterator
+from typing import Any
 
 import numpy as np
 
 from initgen.io.stores import NetCDFStore
 from initgen.science import geodesy
-
-BLOCK_ELEMENTS = 2_000_000
 
 
 #: The global attribute that every initgen run changes; always allowed to differ.
@@ -88,30 +86,6 @@ def _encoding(store: NetCDFStore, name: str) -> dict:
         except Exception:  # netCDF3 files have no chunking or filters; old libraries lack some calls
             enc[key] = None
     return enc
-
-
-def _blocks(shape: tuple, limit: int | None = None) -> Iterator[tuple]:
-    """Index tuples (of slices) that cover an array of ``shape`` in pieces of at most ~``limit`` elements.
-
-    Pieces are slabs along the first dimension; when one index of the first dimension alone is
-    larger than ``limit``, the next dimension is split too, and so on.
-    """
-    limit = BLOCK_ELEMENTS if limit is None else limit
-    if len(shape) == 0:
-        yield ()
-        return
-    if any(s == 0 for s in shape):
-        return
-    k = 0
-    while k < len(shape) - 1 and int(np.prod(shape[k + 1:])) > limit:
-        k += 1
-    inner = int(np.prod(shape[k + 1:])) if k + 1 < len(shape) else 1
-    step = max(1, limit // max(inner, 1))
-    rest = (slice(None),) * (len(shape) - k - 1)
-    for outer in np.ndindex(*shape[:k]):
-        head = tuple(slice(i, i + 1) for i in outer)
-        for start in range(0, shape[k], step):
-            yield head + (slice(start, min(shape[k], start + step)),) + rest
 
 
 def _lon_arc(lons: np.ndarray) -> tuple[float, float]:

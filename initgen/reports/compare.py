@@ -21,9 +21,10 @@ from initgen.io.atomic import sha256_file, write_atomic_text
 from initgen.io.coding import unpack
 from initgen.io.grid import open_model
 from initgen.io.stores import NetCDFStore
-from initgen.reports.common import (HISTORY, _attr_diffs, _attr_equal, _blocks, _encoding, _is_layout_path, _lon_arc,
+from initgen.reports.common import (HISTORY, _attr_diffs, _attr_equal, _encoding, _is_layout_path, _lon_arc,
                                     _py, _short)
 from initgen.reports.figures import histogram_figure
+from initgen.science import blocks
 from initgen.reports.html_report import compare_page
 from initgen.reports.maps import _area_units, _land_for_map, _map_figure
 from initgen.text import value_or_dash
@@ -121,7 +122,7 @@ def _value_diff(sa: NetCDFStore, sb: NetCDFStore, name: str, grid) -> dict:
     nlay = ia.shape[dims.index(layer_dim)] if layer_dim else 0
     per_layer = [_ValueStats() for _ in range(nlay)]
     changed_h = np.zeros(grid.shape, bool) if hdims else None
-    for key in _blocks(ia.shape):
+    for key in blocks.slab_blocks(ia.shape, blocks.COMPARE_BLOCK_ELEMENTS):
         if key == ():  # a scalar variable
             ra, rb = np.asarray(sa.read_raw(name)).reshape(()), np.asarray(sb.read_raw(name)).reshape(())
         else:
@@ -203,7 +204,8 @@ def compare(a, b, allow: Iterable[str] = (), layout=None) -> dict:
     -----
     Cells are compared on the raw stored values (no masking or unpacking): byte-identical
     values, equal values and NaN against NaN count as equal, so fill against fill is equal.
-    Values are read in blocks of at most :data:`BLOCK_ELEMENTS` elements per file.
+    Values are read in blocks of at most :data:`initgen.science.blocks.COMPARE_BLOCK_ELEMENTS` elements per
+    file.
     """
     allow = [str(v) for v in (allow or ())]
     with _both_open(a, b) as (sa, sb):

@@ -23,7 +23,6 @@ import pytest
 from initgen import api
 from initgen.reports import figures
 from initgen.io.stores import NetCDFStore
-from initgen.reports.common import _blocks
 from initgen.reports.common import _lon_arc
 from initgen.reports.compare import compare
 from initgen.reports.compare import compare_markdown
@@ -31,7 +30,7 @@ from initgen.reports.compare import compare_text
 from initgen.reports.preview import preview_report
 from initgen.reports.verify import verify
 from initgen.reports.mask import write_mask
-from initgen.reports import common
+from initgen.science import blocks
 from initgen.cli import main
 from initgen.demo import write_demo_restart
 from initgen.errors import InputError
@@ -157,22 +156,13 @@ def test_compare_reads_in_blocks_and_gets_the_same_answer(tmp_path, monkeypatch)
         seen.append((name, np.asarray(out).size))
         return out
 
-    monkeypatch.setattr(common, "BLOCK_ELEMENTS", 50)
+    monkeypatch.setattr(blocks, "COMPARE_BLOCK_ELEMENTS", 50)
     monkeypatch.setattr(NetCDFStore, "read_raw", spy)
     blocked = compare(a, b)
     assert blocked["variables"]["tsoil"] == whole["variables"]["tsoil"]
     assert whole["variables"]["tsoil"]["cells_changed"] == expected
     # no read of the 3-D variables exceeds the block limit (the grid's coordinates are read whole)
     assert max(n for name, n in seen if name in ("tsoil", "other")) <= 50
-
-
-def test_blocks_cover_the_array_once():
-    for shape in [(), (7,), (3, 5), (2, 3, 4, 5), (1, 1, 200)]:
-        count = np.zeros(shape, int)
-        for key in _blocks(shape, limit=7):
-            count[key] += 1
-            assert count[key].size <= 7 or len(shape) == 0
-        assert np.all(count == 1)
 
 
 def test_compare_nan_and_fill_are_equal_and_structure_differences_are_found(tmp_path):

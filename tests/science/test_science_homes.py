@@ -12,6 +12,7 @@ from hypothesis import strategies as st
 from initgen.errors import InputError
 from initgen.science import geodesy
 from initgen.science.layers import _first_not_increasing
+from initgen.science import blocks
 from initgen.science.soil import solver
 from initgen.science.soil.freezing import _liq_max_below, supercooled_liquid_max
 from initgen.science.soil.properties import (CLAPP_HORNBERGER_1978, _capacity, _enthalpy_density, enthalpy,
@@ -71,14 +72,14 @@ def test_enthalpy_density_times_thickness_is_the_enthalpy(T, liq, ice, phi, cs, 
 # ---------------------------------------------------------------- block loop
 
 def test_map_blocks_results_do_not_depend_on_the_block_size(monkeypatch):
-    # the documented promise of solver.BLOCK_CELLS: "results do not depend on it"
+    # the documented promise of blocks.SOIL_BLOCK_ELEMENTS: "results do not depend on it"
     rng = np.random.default_rng(5)
     n = 5000
     H = rng.uniform(-4e6, 2e6, n)
     W = rng.uniform(0.0, 0.5, n)
     args = (H, W, 0.1, 0.45, 0.3, 5.0)
     whole = solver.solve_enthalpy(*args)
-    monkeypatch.setattr(solver, "BLOCK_CELLS", 7)
+    monkeypatch.setattr(blocks, "SOIL_BLOCK_ELEMENTS", 7)
     small = solver.solve_enthalpy(*args)
     for a, b in zip(whole, small):
         np.testing.assert_array_equal(a, b)

@@ -38,7 +38,7 @@ from initgen.science.soil.freezing import supercooled_liquid_max
 from initgen.science.soil.conversion import temperature_to_kelvin
 from initgen.science.soil.conversion import volumetric_to_water
 from initgen.science.soil.conversion import water_to_volumetric
-from initgen.science.soil import solver
+from initgen.science import blocks
 from initgen.science.constants import CV_SOLID_DEFAULT, LATENT_HEAT_FUSION, RHO_WATER, T_FREEZE
 from initgen.errors import InputError
 
@@ -466,7 +466,7 @@ def test_broadcast_matches_cell_by_cell(mode):
 def test_results_do_not_depend_on_block_size(mode, monkeypatch):
     args = _random_field((5, 400))
     ref = mode(*args)
-    monkeypatch.setattr(solver, "BLOCK_CELLS", 37)
+    monkeypatch.setattr(blocks, "SOIL_BLOCK_ELEMENTS", 37)
     small = mode(*args)
     for a, c in zip(ref, small):
         np.testing.assert_array_equal(a, c)

@@ -7,29 +7,10 @@ from __future__ import annotations
 import numpy as np
 
 from initgen.errors import InputError
+from initgen.science import blocks
 from initgen.science.constants import CV_SOLID_DEFAULT, GRAVITY, LATENT_HEAT_FUSION, T_FREEZE
 from initgen.science.soil.freezing import _liq_max_below
 from initgen.science.soil.properties import _CV_ICE_WE, _DCV, _LV, _f64
-
-#: Elements per block: the mode functions work through large arrays in blocks of about this
-#: many cells so that temporaries stay in the CPU cache (results do not depend on it).
-BLOCK_CELLS = 1 << 15
-
-
-def _blocks(shape, target=None):
-    """Index tuples that tile ``shape`` in blocks of about ``target`` (default
-    ``BLOCK_CELLS``) elements, cut along the longest axis."""
-    target = BLOCK_CELLS if target is None else target
-    if len(shape) == 0:
-        yield ()
-        return
-    ax = int(np.argmax(shape))
-    n = shape[ax]
-    other = int(np.prod(shape)) // max(n, 1)
-    step = max(1, target // max(other, 1))
-    for i in range(0, n, step):
-        yield (slice(None),) * ax + (slice(i, min(i + step, n)),)
-
 
 def _valid_thickness(dz):
     """Where a layer thickness is usable: finite and > 0 m (float64 arrays, elementwise)."""
@@ -164,12 +145,12 @@ def _flat_blocks(shape, views):
     if shape == ():
         yield (), [np.reshape(np.array(v, dtype=np.float64), (1,)) for v in views]
         return
-    for sl in _blocks(shape):
+    for sl in blocks.slab_blocks(shape, blocks.SOIL_BLOCK_ELEMENTS):
         yield sl, [np.ascontiguousarray(v[sl]).reshape(-1) for v in views]
 
 
 def _map_blocks(fn, shape, views, n_out):
-    """Apply a per-block function to same-shape views, block by block (:func:`_blocks`).
+    """Apply a per-block function to same-shape views, block by block (:func:`initgen.science.blocks.slab_blocks`).
 
     The one loop of the soil functions over blocks: :func:`solve_enthalpy` and the mode steps
     of :mod:`initgen.science.soil.modes` both run through it, so results do not depend on the
