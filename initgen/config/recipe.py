@@ -28,6 +28,7 @@ from initgen.config.members import expand_members
 from initgen.config.schema import AnyOf, Bool, List, Num, Obj, Str
 from initgen.config.views import RecipeView
 from initgen.errors import InputError
+from initgen.science.soil.properties import texture_key
 
 RECIPE_VERSION = 1
 LAYOUT_VERSION = 1
@@ -585,7 +586,7 @@ def _check_semantics(data: dict, source: str) -> None:
         raise InputError(f"{source}: recipe key physics: give both sand_pct and clay_pct, or neither")
     if phys.get("texture"):
         # one spelling per class, so 'sandy_loam' and 'Sandy loam' hash the same
-        phys["texture"] = " ".join(phys["texture"].strip().lower().replace("_", " ").replace("-", " ").split())
+        phys["texture"] = texture_key(phys["texture"])
     if data.get("members"):
         try:
             expand_members(data)

@@ -34,10 +34,6 @@ ASSUMPTIONS = ("pure heat conduction of the realised soil temperature change in 
                "heat|. An idealised bound, not a forecast of the model.")
 
 
-def _norm(name) -> str:
-    return " ".join(str(name).strip().lower().replace("_", " ").replace("-", " ").split())
-
-
 def settings(plan) -> dict:
     """Decide once per plan where heat capacity and conductivity come from (or why not)."""
     rec = plan.recipe.view.persistence
@@ -74,7 +70,7 @@ def settings(plan) -> dict:
         out["conductivity_source"] = (f"soil state, Johansen (1975), quartz fraction {out['quartz']:.2f} = "
                                       "physics.sand_pct / 100")
     elif phys.texture and model.role("porosity") is None:
-        key = _norm(phys.texture)
+        key = soil_properties.texture_key(phys.texture)
         out["quartz"] = conduction.QUARTZ_BY_TEXTURE.get(key)
         out["coarse"] = key in conduction.COARSE_TEXTURES
         out["conductivity_source"] = (f"soil state, Johansen (1975), quartz fraction {out['quartz']} for texture "
