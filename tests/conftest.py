@@ -1,7 +1,8 @@
 """Fixtures shared by the test folders (pytest finds them here; nothing imports this file).
 
-Plain helpers (file makers, the tests' recipes, ``sha``, ``read_raw``, the CLI's ``refused``)
-live in ``tests/filemaker.py``, which the test modules import; the fixtures below build on them.
+Plain helpers live in ``tests/filemaker.py`` (the file makers) and ``tests/clikit.py`` (the tests'
+recipes, ``sha``, ``read_raw``, the CLI's ``refused``), which the test modules import; the fixtures
+below build on them.
 """
 
 from __future__ import annotations
@@ -13,12 +14,13 @@ import pytest
 
 from initgen.demo import run_demo
 
+import clikit
 import filemaker
 
 # The processes the tests start (``python -m initgen.cli``, the fault tests' runners) import the
 # same initgen as the tests: the checkout's, ahead of any installed copy (pyproject.toml's
 # ``pythonpath`` does this for the tests' own process).
-os.environ["PYTHONPATH"] = os.pathsep.join(p for p in (str(filemaker.ROOT), os.environ.get("PYTHONPATH")) if p)
+os.environ["PYTHONPATH"] = os.pathsep.join(p for p in (str(clikit.ROOT), os.environ.get("PYTHONPATH")) if p)
 
 
 @pytest.fixture
@@ -31,10 +33,10 @@ def work(tmp_path):
 @pytest.fixture
 def make_recipe(tmp_path):
     """The recipe factory: ``make_recipe(w, e, s, n, **keys)`` writes
-    :func:`filemaker.box_recipe_text` to ``tmp_path`` (``file=`` names it; ``r.yaml`` by default)."""
+    :func:`clikit.box_recipe_text` to ``tmp_path`` (``file=`` names it; ``r.yaml`` by default)."""
 
     def make(*box, file="r.yaml", **keys):
-        return filemaker.recipe(tmp_path, filemaker.box_recipe_text(*box, **keys), file)
+        return clikit.recipe(tmp_path, clikit.box_recipe_text(*box, **keys), file)
 
     return make
 

@@ -26,8 +26,9 @@ import numpy as np
 import pytest
 
 from initgen.cli import _Progress, _progress
-from filemaker import read_raw, regular
-from filemaker import CATALOGUE_RECIPE as RECIPE  # the error catalogue's small recipe: a box with a taper
+from filemaker import regular
+from clikit import read_raw
+from clikit import CATALOGUE_RECIPE as RECIPE  # the error catalogue's small recipe: a box with a taper
 
 FULL = "[" + "#" * 30 + "]"
 

@@ -19,8 +19,8 @@ import pytest
 from initgen.cli import main
 from initgen.io.shipped import shipped_dir
 import filemaker as fm
-from filemaker import read_raw
-from filemaker import recipe, refused, swap  # the error catalogue's recipe and refusal check
+from clikit import read_raw
+from clikit import recipe, refused, swap  # the error catalogue's recipe and refusal check
 
 LAYOUTS = shipped_dir("recipes") / "layouts"
 

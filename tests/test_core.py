@@ -18,10 +18,11 @@ from initgen.science import geodesy
 from initgen.cli import main
 from initgen.config.recipe import load_recipe
 
-from filemaker import FILL, NODES, curvilinear, points, read_raw, regular
-from filemaker import sha
-from filemaker import box_recipe_text
-from filemaker import recipe as write_recipe
+from filemaker import FILL, NODES, curvilinear, points, regular
+from clikit import read_raw
+from clikit import sha
+from clikit import box_recipe_text
+from clikit import recipe as write_recipe
 
 
 def box_recipe(tmp_path, w=20, e=80, s=10, n=50, a=-2.0, kind="uniform", extra=""):

@@ -25,9 +25,9 @@ from initgen.cli import main
 from initgen.demo import write_demo_restart
 
 from filemaker import NODES, curvilinear, points, regular
-from filemaker import sha
-from filemaker import CATALOGUE_RECIPE as RECIPE
-from filemaker import listing, recipe, refused, run, swap
+from clikit import sha
+from clikit import CATALOGUE_RECIPE as RECIPE
+from clikit import listing, recipe, refused, run, swap
 
 # The helpers (listing, run, refused, recipe, swap) are in filemaker.py, the ``work`` fixture (a
 # folder with a small regular input ``in.nc``) in conftest.py: other test modules use them too.

@@ -1,6 +1,6 @@
 """The error catalogue, continued: layer geometry, CF roles, records and grid files (issue 14).
 
-Same promise as ``tests/test_errors.py``, checked by the same ``filemaker.refused``: exit 2, one
+Same promise as ``tests/test_errors.py``, checked by the same ``clikit.refused``: exit 2, one
 line on stderr naming the file, variable or layout key and what to do, no traceback, nothing
 written, the input unchanged.
 """
@@ -13,8 +13,8 @@ from pathlib import Path
 import netCDF4
 
 import filemaker as fm
-from filemaker import refused
-from filemaker import LAYOUTS
+from clikit import refused
+from clikit import LAYOUTS
 
 RECIPE = """initgen_recipe: 1
 name: cat-geometry

@@ -6,8 +6,8 @@ import numpy as np
 import pytest
 
 from initgen import api
-from filemaker import read_raw as raw
-from filemaker import RECIPES, ROOT
+from clikit import read_raw as raw
+from clikit import RECIPES, ROOT
 
 EXAMPLES = sorted(p.name for p in (ROOT / "recipes").glob("*.yaml"))
 

@@ -32,8 +32,8 @@ from initgen.io.atomic import _pid_alive
 from initgen.cli import main
 
 from filemaker import regular
-from filemaker import sha
-from filemaker import tapered_recipe_text
+from clikit import sha
+from clikit import tapered_recipe_text
 
 RECIPE = tapered_recipe_text("faults")
 

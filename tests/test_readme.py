@@ -12,7 +12,7 @@ import numpy as np
 from initgen.config.recipe import RECIPE
 from initgen.config.schema import walk_reference
 
-from filemaker import ROOT
+from clikit import ROOT
 
 README = (ROOT / "README.md").read_text()
 

@@ -31,7 +31,7 @@ from initgen.config.recipe import LAYOUT, RECIPE, load_layout, load_recipe
 from initgen.config.schema import walk_reference
 
 from filemaker import regular
-from filemaker import sha
+from clikit import sha
 
 SCALE = float(os.environ.get("INITGEN_FUZZ_SCALE", "1"))  # e.g. 20 for a long hunt before a release
 

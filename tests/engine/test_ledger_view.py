@@ -15,7 +15,7 @@ from initgen.demo import write_demo_extras, write_demo_restart
 from initgen.engine.ledger_view import LedgerView
 from initgen.io.shipped import shipped_file
 
-from filemaker import RECIPES
+from clikit import RECIPES
 
 SHIPPED = sorted(p.name for p in RECIPES.glob("demo-*.yaml"))
 assert SHIPPED, f"no shipped demo recipes in {RECIPES}"

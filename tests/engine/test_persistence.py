@@ -17,8 +17,8 @@ from initgen.science import conduction as c
 from initgen.demo import INTERFACES
 from initgen.config.recipe import canonical_hash, load_recipe
 
-from filemaker import recipe, refused, swap  # the error catalogue's helpers
-from filemaker import RECIPES
+from clikit import recipe, refused, swap  # the error catalogue's helpers
+from clikit import RECIPES
 
 
 # ---------------------------------------------------------------------------------------------

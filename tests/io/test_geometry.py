@@ -23,7 +23,7 @@ import pytest
 from scipy.integrate import quad
 
 import filemaker as fm
-from filemaker import LAYOUTS, ROOT
+from clikit import LAYOUTS, ROOT, read_raw
 from initgen import api
 from initgen.science import geodesy
 from initgen.errors import InputError, InputWarning
@@ -49,7 +49,7 @@ def recipe(folder, anom=-2.0, efold=0.5, taper=0, boxlon="-180, 180", extra=""):
 
 
 def raw(path, name):
-    return fm.read_raw(path, name, np.float64)
+    return read_raw(path, name, np.float64)
 
 
 def quad_mean(efold, top, bottom):

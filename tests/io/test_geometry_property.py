@@ -22,7 +22,7 @@ from hypothesis import strategies as st
 from scipy.integrate import quad
 
 import filemaker as fm
-from filemaker import LAYOUTS
+from clikit import LAYOUTS, read_raw
 from initgen import api
 
 RECIPE = """initgen_recipe: 1
@@ -104,7 +104,7 @@ def _make(source, folder: Path, icm: np.ndarray, frac: float):
 
 
 def _raw(path, name):
-    return fm.read_raw(path, name, np.float64)
+    return read_raw(path, name, np.float64)
 
 
 @pytest.mark.parametrize("source", SOURCES)

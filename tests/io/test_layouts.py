@@ -7,8 +7,8 @@ import numpy as np
 import pytest
 
 from initgen import api
-from filemaker import read_raw as raw
-from filemaker import LAYOUTS
+from clikit import read_raw as raw
+from clikit import LAYOUTS
 
 RECIPE = """initgen_recipe: 1
 name: layout-test

@@ -9,7 +9,8 @@ from initgen import api
 from initgen.cli import main
 from initgen.reports.compare import compare
 
-from filemaker import read_raw, regular
+from filemaker import regular
+from clikit import read_raw
 
 
 def test_compressed_patch_reports_growth_and_repack_keeps_values_and_encodings(tmp_path, capsys, make_recipe):

@@ -24,8 +24,8 @@ from initgen.science.soil.conversion import phases_from_total
 from initgen.science.soil.conversion import total_from_phases
 from initgen.science.soil.conversion import water_equivalent_to_ice_volume
 from initgen.errors import InputError
-from filemaker import read_raw as raw
-from filemaker import LAYOUTS
+from clikit import read_raw as raw
+from clikit import LAYOUTS
 
 RHO_W, RHO_I = 1000.0, 917.0  # kg m-3: liquid water and ice at 0 C (common practice)
 

@@ -14,7 +14,7 @@ from initgen.cli import main
 from initgen.outputs.collate import band_means, compare
 
 import filemaker
-from filemaker import listing, refused
+from clikit import listing, refused
 
 
 def test_band_overlap_hand_computed():

@@ -31,10 +31,10 @@ from initgen.reports.figures import FIG_PIXELS, short_label
 from initgen.config.recipe import load_recipe
 
 from filemaker import add_land_fraction, curvilinear, points, regular
-from filemaker import sha
-from filemaker import box_recipe_text
-from filemaker import recipe as write_recipe
-from filemaker import ROOT
+from clikit import sha
+from clikit import box_recipe_text
+from clikit import recipe as write_recipe
+from clikit import ROOT
 
 PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"  # W3C PNG specification (2003), section 5.2
 

@@ -35,11 +35,12 @@ from initgen.cli import main
 from initgen.demo import write_demo_restart
 from initgen.errors import InputError
 
-from filemaker import curvilinear, points, read_raw, regular
-from filemaker import sha
-from filemaker import box_recipe_text
-from filemaker import recipe as write_recipe
-from filemaker import RECIPES
+from filemaker import curvilinear, points, regular
+from clikit import read_raw
+from clikit import sha
+from clikit import box_recipe_text
+from clikit import recipe as write_recipe
+from clikit import RECIPES
 
 RECIPE = RECIPES / "demo-cold-highland.yaml"
 

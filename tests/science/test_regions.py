@@ -34,7 +34,7 @@ from initgen.science.regions.mask import taper_weight
 from initgen.errors import InputError, InputWarning
 from initgen.science.geodesy import EARTH_RADIUS_KM as R
 
-from filemaker import DATA
+from clikit import DATA
 
 # regionmask 0.13 uses affine "*" internally; not ours to fix
 pytestmark = pytest.mark.filterwarnings("ignore:Use `@` matmul:PendingDeprecationWarning")
