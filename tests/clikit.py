@@ -80,11 +80,47 @@ def swap(old: str, new: str, text: str = CATALOGUE_RECIPE) -> str:
     return text.replace(old, new)
 
 
+def field_recipe(folder, file="anom.nc", variable="anom"):
+    """The catalogue's recipe with its anomaly read from a field file (``filemaker.field_file``)."""
+    return recipe(folder, swap("anomaly: {constant_K: -2}",
+                               f"anomaly: {{field: {{file: {file}, variable: {variable}}}}}"))
+
+
+def geo_recipe(folder, name="shape.geojson"):
+    """The catalogue's recipe with its box replaced by the GeoJSON file ``name``."""
+    return recipe(folder, swap("{box: {lon: [20, 80], lat: [10, 50]}}", f"{{geojson: {name}}}"))
+
+
+#: The error catalogue's layout, for the small regular file of the ``work`` fixture (lev: 5 layers).
+CATALOGUE_LAYOUT = """\
+initgen_layout: 1
+name: test-model
+roles:
+  longitude: lon
+  latitude: lat
+  soil_temperature: tsoil
+  land_fraction: landfrac
+  layer_node_depth: {values: [0.05, 0.15, 0.35, 0.75, 1.5], units: m}
+"""
+
+
+def layout(folder, text=CATALOGUE_LAYOUT):
+    """Write a layout ``text`` to ``folder/layout.yaml``."""
+    p = Path(folder) / "layout.yaml"
+    p.write_text(text)
+    return p
+
+
 # =============================================================================================
 # The command line's refusal, as the README promises it (exit 2, one line, nothing written)
 # =============================================================================================
 
 _QUIET = (DeprecationWarning, PendingDeprecationWarning, ImportWarning, ResourceWarning)
+
+
+def apply_argv(work, rec, *extra, output="out.nc"):
+    """``initgen apply`` of recipe ``rec`` on ``work/in.nc`` to ``work/output``, then ``extra``."""
+    return ["apply", rec, "--input", work / "in.nc", "--output", work / output, *extra]
 
 
 def listing(folder: Path) -> dict:

@@ -129,6 +129,24 @@ def points(path: Path, lon, lat, T=None, depth_units="m"):
     return path
 
 
+
+def field_file(path, lon, lat, values=None, name="anom"):
+    """A 2-D anomaly field (K) on a lon/lat grid: -1.5 K everywhere unless ``values`` are given."""
+    lon, lat = np.asarray(lon, float), np.asarray(lat, float)
+    with netCDF4.Dataset(path, "w") as ds:
+        ds.createDimension("lon", lon.size)
+        ds.createDimension("lat", lat.size)
+        v = ds.createVariable("lon", "f8", ("lon",))
+        v.units = "degrees_east"
+        v[:] = lon
+        v = ds.createVariable("lat", "f8", ("lat",))
+        v.units = "degrees_north"
+        v[:] = lat
+        v = ds.createVariable(name, "f4", ("lat", "lon"))
+        v.units = "K"
+        v[:] = np.full((lat.size, lon.size), -1.5) if values is None else values
+    return Path(path)
+
 # =============================================================================================
 # Water conventions and packed temperatures (files shaped like the models' own restarts)
 # =============================================================================================
