@@ -9,6 +9,7 @@ in ``tests/conftest.py``. Importable from every test folder (pyproject.toml's ``
 from __future__ import annotations
 
 import hashlib
+import time
 import warnings
 from pathlib import Path
 
@@ -169,3 +170,33 @@ def refused(capsys, argv, *phrases, folder: Path, watch=()):
     for p, h in watched.items():
         assert sha(p) == h, f"{p} changed"
     return line
+
+
+def one_error_line(capsys):
+    """The one line the CLI printed on stderr, which must be an error; for the tests that check
+    more than :func:`refused` does (what was kept, what the fault left)."""
+    err = capsys.readouterr().err.splitlines()
+    assert len(err) == 1 and err[0].startswith("initgen: error: "), err
+    return err[0]
+
+
+# =============================================================================================
+# Real processes (the fault and interrupt tests): a folder's names, a marker a process touches
+# =============================================================================================
+
+
+def names(folder) -> set:
+    """The names in ``folder`` (not recursive)."""
+    return {p.name for p in Path(folder).iterdir()}
+
+
+def wait_for(path: Path, proc, timeout=60.0):
+    """Wait until ``path`` exists (a marker the stalled process touches); fail if ``proc`` ends
+    first or after ``timeout`` seconds."""
+    deadline = time.monotonic() + timeout
+    while not path.exists():
+        if proc.poll() is not None:
+            out, err = proc.communicate()
+            raise AssertionError(f"process ended early ({proc.returncode}): {err}")
+        assert time.monotonic() < deadline, "timed out waiting for the marker"
+        time.sleep(0.01)
