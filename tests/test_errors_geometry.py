@@ -1,8 +1,9 @@
 """The error catalogue, continued: layer geometry, CF roles, records and grid files (issue 14).
 
-Same promise as ``tests/test_errors.py``, checked by the same ``clikit.refused``: exit 2, one
-line on stderr naming the file, variable or layout key and what to do, no traceback, nothing
-written, the input unchanged.
+Same promise as the rest of the catalogue (``config/test_errors_recipe.py``,
+``io/test_errors_files.py``, ``test_errors_cli.py``), checked by the same ``clikit.refused``: exit
+2, one line on stderr naming the file, variable or layout key and what to do, no traceback,
+nothing written, the input unchanged.
 """
 
 from __future__ import annotations

@@ -3,7 +3,7 @@
 The promise checked is README.md's "one output policy": every path a command writes is checked
 before any work starts; a path of the wrong kind, a missing or unwritable folder, or an existing
 file without --force is refused with an InputError that names the path, and nothing is created.
-The CLI side (every command's targets, exit 2) is the catalogue in tests/test_errors.py; here
+The CLI side (every command's targets, exit 2) is the catalogue in tests/test_errors_cli.py; here
 are the Python entry points that share the checks: ``api.collate`` and the ensemble's folder
 (an unwritable folder is in the catalogue, which can make one even for root).
 """

@@ -7,11 +7,11 @@ Run from the repository root::
 
 The input is ``tests/filemaker.regular`` on a fine global grid (5 soil layers, float32), sized to
 about ``--mb`` MB. The members 8 and 9 stall at their first block (the slow-down hook of
-tests/test_faults.py); once both stall, with 7 members done, the parent gets SIGTERM. The script
-checks what tests/test_faults.py checks on a small file (exit 130 and one line; 'ok' rows are
-exactly the member files on disk, with matching sha256; no temporaries, locks or stop file; the
-workers gone), then runs ``--resume`` and checks the manifest is complete and the 7 finished
-members were kept untouched. Prints ``name: value`` lines (sizes, seconds).
+tests/outputs/test_ensemble_interrupts.py); once both stall, with 7 members done, the parent
+gets SIGTERM. The script checks what that test checks on a small file (exit 130 and one line;
+'ok' rows are exactly the member files on disk, with matching sha256; no temporaries, locks or
+stop file; the workers gone), then runs ``--resume`` and checks the manifest is complete and the
+7 finished members were kept untouched. Prints ``name: value`` lines (sizes, seconds).
 """
 
 from __future__ import annotations
