@@ -51,12 +51,11 @@ DEPTH_ROLES = ("layer_node_depth", "layer_interface_depth", "layer_thickness")
 
 
 @dataclass(frozen=True)
-class Roles(_ByRole, View):
-    """``roles``: role -> variable name; a layered role may be a tuple of per-layer 2-D variables
-    (top first), a depth role a :class:`DepthValues`. None: the layout does not name it."""
+class _EachRole(_ByRole, View):
+    """One attribute per role a variable holds, in the format's order; the sections keyed by role
+    (``roles``, ``units``) build on it. None: the layout gives nothing for that role."""
 
-    NESTED: ClassVar[dict] = {r: DepthValues for r in DEPTH_ROLES}
-    # layered: one variable with a layer axis, or a tuple of 2-D variables, one per layer
+    # layered: one variable with a layer axis, or (in roles) a tuple of 2-D variables, one per layer
     soil_temperature: str | tuple | None = None
     soil_liquid: str | tuple | None = None
     soil_ice: str | tuple | None = None
@@ -83,6 +82,14 @@ class Roles(_ByRole, View):
     clapp_b: str | None = None
     sand: str | None = None
     clay: str | None = None
+
+
+@dataclass(frozen=True)
+class Roles(_EachRole):
+    """``roles``: role -> variable name; a layered role may be a tuple of per-layer 2-D variables
+    (top first), a depth role a :class:`DepthValues`. None: the layout does not name it."""
+
+    NESTED: ClassVar[dict] = {r: DepthValues for r in DEPTH_ROLES}
     # layer geometry: a variable or values
     layer_node_depth: str | DepthValues | None = None
     layer_interface_depth: str | DepthValues | None = None
@@ -94,33 +101,8 @@ NO_ROLES = Roles()
 
 
 @dataclass(frozen=True)
-class Units(_ByRole, View):
-    """``units``: role -> units to assume where the role's variable has no units attribute."""
-
-    soil_temperature: str | None = None
-    soil_liquid: str | None = None
-    soil_ice: str | None = None
-    snow_temperature: str | None = None
-    snow_layer_mass: str | None = None
-    soil_water_total: str | None = None
-    soil_frozen_fraction: str | None = None
-    soil_unfrozen_fraction: str | None = None
-    longitude: str | None = None
-    latitude: str | None = None
-    land_fraction: str | None = None
-    land_mask: str | None = None
-    surface_altitude: str | None = None
-    skin_temperature: str | None = None
-    snow_mass: str | None = None
-    snow_depth: str | None = None
-    snow_layer_count: str | None = None
-    snow_cover_fraction: str | None = None
-    cell_area: str | None = None
-    porosity: str | None = None
-    psi_sat: str | None = None
-    clapp_b: str | None = None
-    sand: str | None = None
-    clay: str | None = None
+class Units(_EachRole):
+    """``units``: role -> units (a str) to assume where the role's variable has no units attribute."""
 
 
 @dataclass(frozen=True)
