@@ -28,6 +28,8 @@ from initgen.config.members import expand_members
 from initgen.config.schema import AnyOf, Bool, List, Num, Obj, Str
 from initgen.config.views import RecipeView
 from initgen.errors import InputError
+from initgen.io.layout import DEPTH_ROLES
+from initgen.io.layout import Layout as LayoutView
 from initgen.science.soil.properties import texture_key
 
 RECIPE_VERSION = 1
@@ -255,7 +257,6 @@ WATER_ROLES = ("soil_water_total", "soil_frozen_fraction", "soil_unfrozen_fracti
 PLAIN_ROLES = ("longitude", "latitude", "land_fraction", "land_mask", "surface_altitude",
                "skin_temperature", "snow_mass", "snow_depth", "snow_layer_count", "snow_cover_fraction", "cell_area",
                "porosity", "psi_sat", "clapp_b", "sand", "clay")
-DEPTH_ROLES = ("layer_node_depth", "layer_interface_depth", "layer_thickness")
 
 _VARNAME = Str(doc="variable name in the file")
 _LAYERED = AnyOf(options=(Str(), List(item=Str(), min_items=1)), default=None,
@@ -382,11 +383,10 @@ class Document:
         return self.data.get("name") or (self.path.stem if self.path else self.kind)
 
     @cached_property
-    def view(self) -> RecipeView:
-        """The recipe as typed, frozen views (config/views.py), built once; ``data`` stays what is hashed."""
-        if self.kind != "recipe":
-            raise TypeError(f"a {self.kind} has no typed view; read its data")
-        return RecipeView.of(self.data)
+    def view(self) -> RecipeView | LayoutView:
+        """The document as typed, frozen views, built once; ``data`` stays what is hashed. A recipe's
+        is a :class:`RecipeView` (config/views.py), a layout's an :class:`initgen.io.layout.Layout`."""
+        return LayoutView.of(self.data) if self.kind == "layout" else RecipeView.of(self.data)
 
 
 Recipe = Document

@@ -10,57 +10,18 @@ lists: nothing downstream can change the experiment after it was hashed.
 A member or any other override of the recipe makes a new validated dict and so a new view; a view
 is never edited.
 
-The recipe's inline layout stays a dict (``Document.data["layout"]``, loaded by
-:func:`initgen.config.recipe.inline_layout`): the layout is read by :mod:`initgen.io`, a floor
-below the config, which cannot import a view class from here.
+The base class, :class:`initgen.io.frozen.View`, is shared with the layout's views
+(:mod:`initgen.io.layout`): io, a floor below the config, reads the layout and cannot import a
+class from here. The recipe's inline layout is read as a layout document of its own
+(:func:`initgen.config.recipe.inline_layout`), whose view is an :class:`initgen.io.layout.Layout`.
 """
 
 from __future__ import annotations
 
-from dataclasses import dataclass, fields
-from typing import Any, ClassVar
+from dataclasses import dataclass
+from typing import ClassVar
 
-
-def _freeze(value: Any) -> Any:
-    """Lists (and lists of lists) as tuples, so that a view holds nothing mutable."""
-    if isinstance(value, (list, tuple)):
-        return tuple(_freeze(v) for v in value)
-    return value
-
-
-def _thaw(value: Any) -> Any:
-    if isinstance(value, View):
-        return value.as_dict()
-    if isinstance(value, tuple):
-        return [_thaw(v) for v in value]
-    return value
-
-
-@dataclass(frozen=True)
-class View:
-    """Base of the views: built from the validated mapping of one schema node (``of``)."""
-
-    # recipe key -> the view class of its value (of each item, for a list); other values are kept
-    # as validated, lists as tuples
-    NESTED: ClassVar[dict] = {}
-
-    @classmethod
-    def of(cls, data: dict | None):
-        """The view of one validated mapping (None stays None: an optional section left out)."""
-        if data is None:
-            return None
-        values = {}
-        for f in fields(cls):
-            value = data[f.name]  # validated: every key of the node is there, defaults filled
-            sub = cls.NESTED.get(f.name)
-            if sub is not None and value is not None:
-                value = tuple(sub.of(v) for v in value) if isinstance(value, list) else sub.of(value)
-            values[f.name] = _freeze(value)
-        return cls(**values)
-
-    def as_dict(self) -> dict:
-        """The mapping again, as validated (tuples as lists), e.g. for a record written as JSON."""
-        return {f.name: _thaw(getattr(self, f.name)) for f in fields(self)}
+from initgen.io.frozen import View
 
 
 # --- regions -----------------------------------------------------------------------------------

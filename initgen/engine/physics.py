@@ -174,7 +174,7 @@ def _water_spec(plan: Plan, model: ModelFile):
     if model.water is not None:
         return model.water
     lay = plan.model.layout
-    return water_mod.resolve(model.roles, lay.data if lay is not None else None, model.store.describe(), True)
+    return water_mod.resolve(model.roles, lay.view if lay is not None else None, model.store.describe(), True)
 
 
 def _water_values(spec, rname: str, raw: np.ndarray, dz, por, name: str) -> np.ndarray:

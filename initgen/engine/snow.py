@@ -34,8 +34,7 @@ def _active_snow_layers(plan, store, hkey, shape, snow_mass, led):
     has_snow = None if snow_now is None else np.broadcast_to((np.isfinite(snow_now) & (snow_now > 0))[:, None], shape)
     cnt_role = model.role("snow_layer_count")
     if cnt_role is not None:
-        layout = model.layout
-        which = layout.data.get("snow_layer_count_active") if layout is not None else None
+        which = model.layout.view.snow_layer_count_active if model.layout is not None else None
         if which not in ("first", "last"):
             raise InputError(f"layout: roles.snow_layer_count names '{cnt_role.variables[0]}' but the layout does not "
                              "say which snow layers it counts; set snow_layer_count_active: first or last (along "

@@ -24,6 +24,7 @@ import numpy as np
 from initgen.errors import InputError, InputWarning
 from initgen.io import water as water_mod
 from initgen.io.cf import _LENGTH_UNITS, CF_ROLES, _cf_role, _per_layer_depths, _record_dims
+from initgen.io.layout import NO_ROLES, DepthValues, GridFile, Layout
 from initgen.io.model import LAYERED_ROLES, Grid, ModelFile, Role, View
 from initgen.io.stores import NetCDFStore, Store, VarInfo, find_coordinate
 from initgen.science import geodesy
@@ -135,11 +136,12 @@ def _layer_dim_of(info: VarInfo, hdims: tuple, given: str | None, store: Store, 
                      "say which is the layer axis with layer_dimension in the layout")
 
 
-def _bind(store, role, spec, hdims, layout_data, where) -> Role:
+def _bind(store, role, spec, hdims, layout: Layout | None, where) -> Role:
     layered_role = role in LAYERED_ROLES
-    names = spec if isinstance(spec, list) else [spec]
+    per_layer = isinstance(spec, (list, tuple))  # 2-D variables, one per layer (a layout's tuple, CF's list)
+    names = list(spec) if per_layer else [spec]
     views = []
-    nsnow = int(layout_data.get("snow_layers") or 0) if layout_data else 0
+    nsnow = layout.snow_layers if layout is not None else 0
     for n in names:
         info = _var(store, n, role, where)
         missing = [d for d in hdims if d not in info.dims]
@@ -149,7 +151,7 @@ def _bind(store, role, spec, hdims, layout_data, where) -> Role:
         ldim = None
         sel = slice(None)
         if layered_role and len(names) == 1:
-            given = layout_data.get("layer_dimension") if layout_data else None
+            given = layout.layer_dimension if layout is not None else None
             ldim = _layer_dim_of(info, hdims, given, store, where)
             if given and ldim is None and role.startswith("snow_"):
                 ldim = _layer_dim_of(info, hdims, None, store, where)   # snow layers on an axis of their own
@@ -159,7 +161,7 @@ def _bind(store, role, spec, hdims, layout_data, where) -> Role:
             if ldim and nsnow:
                 sel = slice(0, nsnow) if role.startswith("snow_") else slice(nsnow, None)
         views.append(View(info, hdims, ldim, sel))
-    layered = layered_role and (isinstance(spec, list) or views[0].layer_dim is not None)
+    layered = layered_role and (per_layer or views[0].layer_dim is not None)
     def big(info):  # axes of length 1 (a per-layer depth axis, a single record) may differ by name
         return [(d, n) for d, n in zip(info.dims, info.shape) if n > 1]
 
@@ -167,14 +169,13 @@ def _bind(store, role, spec, hdims, layout_data, where) -> Role:
         if big(v.info) != big(views[0].info):
             raise InputError(f"{store.describe()}: per-layer variables of role {role} differ in dims "
                              f"({views[0].info.name}{views[0].info.dims} vs {v.info.name}{v.info.dims})")
-    fallback = ((layout_data or {}).get("units") or {}).get(role) or ""
-    return Role(role, views, layered, fallback)
+    return Role(role, views, layered, layout.units_of(role) if layout is not None else "")
 
 
 def _depth_values(store: Store, spec, role: str, soil: Role | None, key: str):
     """A layout depth role (values or a variable) as (values, units, positive)."""
-    if isinstance(spec, dict):
-        return np.asarray(spec["values"], float), spec["units"], spec["positive"]
+    if isinstance(spec, DepthValues):
+        return np.asarray(spec.values, float), spec.units, spec.positive
     info = _var(store, spec, role, key.rsplit(": roles.", 1)[0])
     vals = store.read(spec)
     if vals.ndim > 1:
@@ -193,7 +194,7 @@ def _depth_values(store: Store, spec, role: str, soil: Role | None, key: str):
     return vals, info.units or "m", str(info.attrs.get("positive", "down"))
 
 
-def _depth_layers(store: Store, layout_data: dict | None, soil: Role | None, where: str):
+def _depth_layers(store: Store, layout: Layout | None, soil: Role | None, where: str):
     """Soil layer geometry from every source the layout and the file give (layers.resolve_layers).
 
     Sources: the layout's depth roles (node depths, interfaces, thicknesses); the layer axis'
@@ -202,9 +203,8 @@ def _depth_layers(store: Store, layout_data: dict | None, soil: Role | None, whe
     names or long_names. Sources that disagree are refused naming both; interfaces are never put
     halfway between nodes unless the layout says ``interfaces: midpoints_between_nodes``.
     """
-    data = layout_data or {}
-    roles = data.get("roles") or {}
-    nsnow = int(data.get("snow_layers") or 0)
+    roles = layout.roles if layout is not None else NO_ROLES
+    nsnow = layout.snow_layers if layout is not None else 0
     nsoil = soil.nlayers if soil is not None and soil.layered else None
     cands = []
     kinds = {"layer_node_depth": "node", "layer_interface_depth": "interface", "layer_thickness": "thickness"}
@@ -242,7 +242,7 @@ def _depth_layers(store: Store, layout_data: dict | None, soil: Role | None, whe
                           f"the layer axis coordinate '{ldim}'"))
     if soil is not None and (len(soil.views) > 1 or (soil.layered and soil.views[0].layer_dim is None)):
         cands.extend(_per_layer_depths(store, [v.info for v in soil.views]))
-    midpoints = data.get("interfaces") == "midpoints_between_nodes"
+    midpoints = layout is not None and layout.interfaces == "midpoints_between_nodes"
     if not cands:
         if midpoints:
             raise InputError(f"{where}: interfaces: midpoints_between_nodes needs node depths, and none were found; "
@@ -295,19 +295,18 @@ def _check_per_layer_depths(store: Store, bound: dict, soil, layer_geom) -> None
                                       name=f"{store.describe()}: role {name}")
 
 
-def _grid_store(layout, where: str, store: Store):
-    """The separate grid file a layout names (``grid_file``), opened read-only, or None."""
-    data = layout.data if layout is not None else None
-    spec = (data or {}).get("grid_file")
-    if not spec:
-        return None, {}
+def _grid_store(spec: GridFile | None, layout_path, where: str, store: Store):
+    """The separate grid file a layout names (``grid_file``, relative to the layout's folder), opened
+    read-only, or None."""
+    if spec is None:
+        return None
 
-    text = str(spec["path"])
+    text = str(spec.path)
     if "{tile}" in text:
         # one grid file per tile: the tile comes from the restart's own file name
 
         name = Path(getattr(store, "label", None) or store.path or "").name
-        pattern = spec.get("tile_pattern") or r"tile(\d+)"
+        pattern = spec.tile_pattern or r"tile(\d+)"
         try:
             m = re.search(pattern, name)
         except re.error as exc:
@@ -318,29 +317,33 @@ def _grid_store(layout, where: str, store: Store):
         text = text.replace("{tile}", m.group(1))
     path = Path(text)
     if not path.is_absolute():
-        base = Path(layout.path).parent if getattr(layout, "path", None) else Path.cwd()
+        base = Path(layout_path).parent if layout_path else Path.cwd()
         path = base / path
     if not path.is_file():
         raise InputError(f"{where}: grid_file.path '{text}' does not exist ({path}); give the file holding "
                          "the grid's longitude and latitude")
-    return NetCDFStore(path), spec
+    return NetCDFStore(path)
 
 
 def open_model(store: Store, layout=None, needed: tuple = ()) -> ModelFile:
-    """Resolve roles, grid and soil layers of ``store`` from ``layout`` (a Document) and CF attributes.
+    """Resolve roles, grid and soil layers of ``store`` from ``layout`` and CF attributes.
 
-    A layout overrides the roles it names; every other role is found by CF attributes, and
-    ``role_sources`` says which came from where.
+    ``layout`` is a layout document (config/recipe: read through its ``view``, an
+    :class:`initgen.io.layout.Layout`; its ``path`` and ``name`` name it), or None for CF
+    attributes only. A layout overrides the roles it names; every other role is found by CF
+    attributes, and ``role_sources`` says which came from where.
     """
-    data = layout.data if layout is not None else None
+    lay: Layout | None = layout.view if layout is not None else None
     where = str(layout.path) if layout is not None and layout.path else ("layout" if layout else "CF detection")
-    roles_spec = dict((data or {}).get("roles") or {})
-    gstore, gspec = _grid_store(layout, where, store)
+    roles_spec = lay.roles if lay is not None else NO_ROLES
+    gspec = lay.grid_file if lay is not None else None
+    gstore = _grid_store(gspec, layout.path if layout is not None else None, where, store)
     sources = {}
     try:
         cstore = gstore or store
-        lon_name = gspec.get("longitude") or roles_spec.get("longitude") or find_coordinate(cstore, "lon")
-        lat_name = gspec.get("latitude") or roles_spec.get("latitude") or find_coordinate(cstore, "lat")
+        grid_lon, grid_lat = (gspec.longitude, gspec.latitude) if gspec is not None else (None, None)
+        lon_name = grid_lon or roles_spec.longitude or find_coordinate(cstore, "lon")
+        lat_name = grid_lat or roles_spec.latitude or find_coordinate(cstore, "lat")
         if lon_name and lon_name not in cstore.variables:
             _var(cstore, lon_name, "longitude", where)
         if lat_name and lat_name not in cstore.variables:
@@ -349,11 +352,11 @@ def open_model(store: Store, layout=None, needed: tuple = ()) -> ModelFile:
             raise InputError(f"{cstore.describe()}: no longitude/latitude variables found; give them standard_name "
                              "longitude/latitude or name roles.longitude and roles.latitude in a layout")
         if gstore is not None:
-            area_name = gspec.get("cell_area")
+            area_name = gspec.cell_area
             if area_name:
                 _var(gstore, area_name, "cell_area", where)
         else:
-            area_name = roles_spec.get("cell_area")
+            area_name = roles_spec.cell_area
             if area_name:
                 _var(store, area_name, "cell_area", where)
                 sources["cell_area"] = "layout roles.cell_area"
@@ -374,9 +377,9 @@ def open_model(store: Store, layout=None, needed: tuple = ()) -> ModelFile:
                 if n:
                     sources[r] = f"grid_file {gstore.describe()} variable {n}"
         else:
-            sources.setdefault("longitude", "layout roles.longitude" if roles_spec.get("longitude") else
+            sources.setdefault("longitude", "layout roles.longitude" if roles_spec.longitude else
                                "CF attributes (find_coordinate)")
-            sources.setdefault("latitude", "layout roles.latitude" if roles_spec.get("latitude") else
+            sources.setdefault("latitude", "layout roles.latitude" if roles_spec.latitude else
                                "CF attributes (find_coordinate)")
     finally:
         if gstore is not None:
@@ -395,19 +398,19 @@ def open_model(store: Store, layout=None, needed: tuple = ()) -> ModelFile:
             if found is None:
                 continue
             spec, how = found
-        bound[role] = _bind(store, role, spec, grid.dims, data, where)
+        bound[role] = _bind(store, role, spec, grid.dims, lay, where)
         sources[role] = how
 
     # the physics' liquid and ice may come from any water convention (io/water.py): checked there
     water_needed = any(r in needed for r in ("soil_liquid", "soil_ice"))
     missing = [r for r in needed if r not in bound and not (water_needed and r in water_mod.WATER_ROLES)]
     if missing:
-        how = "the layout or CF standard_name attributes" if data else "CF standard_name attributes"
+        how = "the layout or CF standard_name attributes" if lay is not None else "CF standard_name attributes"
         raise InputError(f"{store.describe()}: could not find role(s) {', '.join(missing)} by {how}; "
                          f"map them under roles: in a layout (--layout)")
     _check_records(store, bound)
     soil = bound.get("soil_temperature")
-    layer_geom = _depth_layers(store, data, soil, where)
+    layer_geom = _depth_layers(store, lay, soil, where)
     if layer_geom is not None and layer_geom.interfaces_known:
         _check_per_layer_depths(store, bound, soil, layer_geom)
     ldim = soil.views[0].layer_dim if soil is not None and soil.layered else None
@@ -418,6 +421,6 @@ def open_model(store: Store, layout=None, needed: tuple = ()) -> ModelFile:
                       grid_file=None if gstore is None else str(gstore.path), layout=layout)
     for r in bound.values():
         r.limits = model.limits
-    model.water = water_mod.resolve(bound, data, f"{store.describe()} ({where})" if data else store.describe(),
-                                    required=water_needed)
+    water_where = f"{store.describe()} ({where})" if lay is not None else store.describe()
+    model.water = water_mod.resolve(bound, lay, water_where, required=water_needed)
     return model

@@ -32,6 +32,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 from initgen.errors import InputError
+from initgen.io.layout import Layout, WaterSection
 from initgen.science.soil import conversion as soil_conversion
 from initgen.science.units import fraction_per
 
@@ -128,23 +129,24 @@ def _units_of(role, rname: str, where: str, override: str | None = None) -> str:
     return u
 
 
-def resolve(roles: dict, layout_data: dict | None, where: str, required: bool) -> WaterSpec | None:
-    """The water convention of a file from its bound ``roles`` and the layout's ``water`` section.
+def resolve(roles: dict, layout: Layout | None, where: str, required: bool) -> WaterSpec | None:
+    """The water convention of a file from its bound ``roles`` and the ``water`` section of its
+    ``layout`` (None: no layout, CF attributes only).
 
     ``required``: a physics mode needs the water; without it, a file whose water initgen cannot
     read gives None (nothing reads it then), and a bad layout ``water`` section is still refused.
     """
-    if not required and not (layout_data or {}).get("water"):
+    section = layout.water if layout is not None else None
+    if not required and section is None:
         try:
-            return _resolve(roles, layout_data, where, required)
+            return _resolve(roles, section, where, required)
         except InputError:
             return None
-    return _resolve(roles, layout_data, where, required)
+    return _resolve(roles, section, where, required)
 
 
-def _resolve(roles: dict, layout_data: dict | None, where: str, required: bool) -> WaterSpec | None:
-    section = (layout_data or {}).get("water") or {}
-    given = section.get("convention")
+def _resolve(roles: dict, section: WaterSection | None, where: str, required: bool) -> WaterSpec | None:
+    given = section.convention if section is not None else None
     if given:
         conv, source = given, "layout key water.convention"
         missing = [r for r in CONVENTIONS[conv] if r not in roles]
@@ -162,7 +164,7 @@ def _resolve(roles: dict, layout_data: dict | None, where: str, required: bool) 
                              "soil_water_total with soil_liquid, soil_frozen_fraction or soil_unfrozen_fraction, or "
                              "soil_water_total alone; name them under roles in the layout (and water.convention)")
     need = CONVENTIONS[conv]
-    overrides = {r: u for r, u in (section.get("units") or {}).items() if u}
+    overrides = dict(section.units.items()) if section is not None and section.units is not None else {}
     stray = [r for r in overrides if r not in need]
     if stray:
         raise InputError(f"{where}: layout key water.units.{stray[0]} sets units for a role the convention {conv} "
@@ -170,7 +172,7 @@ def _resolve(roles: dict, layout_data: dict | None, where: str, required: bool) 
     units = {r: _units_of(roles[r], r, where, overrides.get(r)) for r in need}
     kept = tuple(f"{r} '{'+'.join(roles[r].variables)}'" for r in WATER_ROLES if r in roles and r not in need)
     ice_role = "soil_ice" if conv == "liquid_and_ice" else "soil_water_total"
-    declared = section.get("volumetric_ice")
+    declared = section.volumetric_ice if section is not None else None
     if soil_conversion.water_units_are_mass(units[ice_role]):
         if declared:
             raise InputError(f"{where}: layout key water.volumetric_ice is {declared}, but the ice of this file "

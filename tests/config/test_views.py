@@ -18,7 +18,8 @@ from initgen.config.recipe import BLOCK, PHYSICS, RECIPE, load_layout, load_reci
 from initgen.config.schema import AnyOf, List, Obj
 
 # keys of the format that have no view attribute, and why
-NOT_IN_VIEW = {"layout": "the inline layout stays a dict: io (a floor below config) reads it"}
+NOT_IN_VIEW = {"layout": "the inline layout is a layout document of its own (recipe.inline_layout), whose view "
+                        "is io's Layout (tests/io/test_layout_view.py)"}
 
 SHAPE_BOX = {"box": {"lon": [10, 20], "lat": [0, 10]}}
 MINIMAL = {
@@ -158,7 +159,7 @@ def test_views_name_the_form_given():
     assert load_recipe(copy.deepcopy(MINIMAL)).view.perturbations[0].anomaly.kind == "constant_K"
 
 
-def test_a_layout_has_no_view():
+def test_a_layout_has_its_own_view():
+    # a layout's view is io's (tests/io/test_layout_view.py walks its format), never a recipe's
     lay = load_layout({"initgen_layout": 1, "roles": {"soil_temperature": "t"}})
-    with pytest.raises(TypeError, match="a layout has no typed view"):
-        lay.view  # noqa: B018
+    assert not isinstance(lay.view, views.RecipeView) and lay.view.roles.soil_temperature == "t"
