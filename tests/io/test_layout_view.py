@@ -14,7 +14,7 @@ import dataclasses
 
 import pytest
 
-from filemaker import LAYOUTS
+from clikit import LAYOUTS
 from initgen.config.recipe import LAYOUT, inline_layout, load_layout, load_recipe
 from initgen.config.schema import AnyOf, List, Obj
 from initgen.io import layout as layout_mod
