@@ -116,7 +116,7 @@ class Ledger:
 
     def _phase_rule(self) -> str:
         rule = self.plan.physics.phase_rule
-        if getattr(self.plan.model, "phase_split_diagnosed", False):
+        if self.plan.model.phase_split_diagnosed:
             self.note("phase_rule", "the file keeps only total soil water, so its model diagnoses the liquid/ice "
                                     f"split from temperature: the equilibrium rule is used (the recipe says {rule})")
             return "equilibrium"

@@ -145,7 +145,7 @@ class Accumulator:
 def add_block(plan, led, T0, T, water, inside, area, store=None, hkey=None) -> None:
     """Add one block's perturbed columns. T0, T: (E, L, *h) in K; inside: same shape (bool);
     area: (*h) land area in m2; water: the physics-mode dict (after the change) or None."""
-    acc = getattr(led, "persistence", None)
+    acc = led.persistence
     nl = T.shape[1]
     if acc is None:
         acc = led.persistence = Accumulator(settings(plan), nl)
