@@ -1,10 +1,11 @@
 """The ledger as typed, read-only values: the one place that knows the ledger's shape.
 
-:meth:`initgen.engine.ledger.Ledger.finish` (with ``plan.run``) writes the ledger as a nested
-dict; that dict is what the provenance record stores as JSON and what ``api.preview`` returns.
-:meth:`LedgerView.from_dict` reads it into frozen dataclasses, and :meth:`LedgerView.to_dict`
-gives the same dict back, key for key and in the same order, so the JSON of a record stays
-byte-identical. A record written by an earlier initgen still reads: a key it lacks becomes None
+:meth:`initgen.engine.ledger.Ledger.finish` builds a :class:`LedgerView` from these dataclasses
+(``plan.run`` adds ``water`` and ``data_blocks_read`` with :func:`dataclasses.replace`), and
+:meth:`LedgerView.to_dict` is the dict the provenance record stores as JSON and ``api.preview``
+returns: the writer spells no key of its own. :meth:`LedgerView.from_dict` reads such a dict back
+into the same view, and ``to_dict`` of that gives it again, key for key and in the same order, so
+the JSON of a record stays byte-identical. A record written by an earlier initgen still reads: a key it lacks becomes None
 (or an empty tuple or mapping), and :meth:`to_dict` leaves it out again. Keys this module does
 not know are kept in ``extra`` and written back after the known ones.
 

@@ -18,6 +18,8 @@ from __future__ import annotations
 
 import numpy as np
 
+from initgen.engine.ledger_view import Persistence
+
 from initgen.science import conduction, units
 from initgen.science.soil import properties as soil_properties
 
@@ -118,30 +120,32 @@ class Accumulator:
         self.k_sum += (k * area[:, None]).sum(axis=0)
         self.c_sum += (C * area[:, None]).sum(axis=0)
 
-    def finish(self) -> dict:
+    def finish(self) -> Persistence:
+        """The ledger's ``persistence`` section: the estimate, or why there is none."""
         cfg = self.cfg
-        out = {"horizons_days": [float(h) for h in cfg["horizons_days"]]}
+        horizons = tuple(float(h) for h in cfg["horizons_days"])
         if cfg.get("reason"):
-            return {**out, "remaining_fraction": None, "not_estimated": cfg["reason"]}
+            return Persistence(horizons, None, cfg["reason"])
         if self.columns == 0 or self.abs_heat0 <= 0 or self.area <= 0:
-            return {**out, "remaining_fraction": None, "not_estimated": "no perturbed soil column changed"}
+            return Persistence(horizons, None, "no perturbed soil column changed")
         r = lambda v: float(np.round(float(v), 6))  # noqa: E731
-        return {**out,
-                "remaining_fraction": [r(v / self.abs_heat0) for v in self.heat_left],
-                "remaining_change_per_layer_K": [[r(v / self.area) for v in row] for row in self.change],
-                "columns": int(self.columns),
-                "columns_left_out": int(self.skipped),
-                "conductivity_source": cfg.get("conductivity_source"),
-                "heat_capacity_source": cfg.get("heat_capacity_source"),
-                "mean_conductivity_per_layer_W_m_K": [r(v / self.area) for v in self.k_sum],
-                "mean_heat_capacity_per_layer_J_m3_K": [float(np.round(v / self.area, 1)) for v in self.c_sum],
-                "assumptions": ASSUMPTIONS.format(steps=STEPS_PER_INTERVAL, maxstep=MAX_STEP_DAYS)}
+        return Persistence(
+            horizons_days=horizons,
+            remaining_fraction=tuple(r(v / self.abs_heat0) for v in self.heat_left),
+            remaining_change_per_layer_K=tuple(tuple(r(v / self.area) for v in row) for row in self.change),
+            columns=int(self.columns),
+            columns_left_out=int(self.skipped),
+            conductivity_source=cfg.get("conductivity_source"),
+            heat_capacity_source=cfg.get("heat_capacity_source"),
+            mean_conductivity_per_layer_W_m_K=tuple(r(v / self.area) for v in self.k_sum),
+            mean_heat_capacity_per_layer_J_m3_K=tuple(float(np.round(v / self.area, 1)) for v in self.c_sum),
+            assumptions=ASSUMPTIONS.format(steps=STEPS_PER_INTERVAL, maxstep=MAX_STEP_DAYS))
 
 
 def add_block(plan, led, T0, T, water, inside, area, store=None, hkey=None) -> None:
     """Add one block's perturbed columns. T0, T: (E, L, *h) in K; inside: same shape (bool);
     area: (*h) land area in m2; water: the physics-mode dict (after the change) or None."""
-    acc = getattr(led, "persistence", None)
+    acc = led.persistence
     nl = T.shape[1]
     if acc is None:
         acc = led.persistence = Accumulator(settings(plan), nl)

@@ -15,6 +15,7 @@ netCDF file being patched in place or an in-memory xarray dataset.
 from __future__ import annotations
 
 import warnings
+from dataclasses import replace
 
 import numpy as np
 
@@ -126,7 +127,8 @@ def _check_units(plan: Plan, model: ModelFile) -> None:
 
 
 def run(plan: Plan, store, *, write: bool, progress=None) -> dict:
-    """Apply the plan to ``store`` (writing only when ``write``) and return the ledger."""
+    """Apply the plan to ``store`` (writing only when ``write``) and return the ledger
+    (``LedgerView.to_dict()``: the dict a provenance record stores)."""
     led = ledger_mod.Ledger(plan)
     if plan.physics.active:
         led.soil_sources = soil_parameter_sources(plan.physics, plan.model)
@@ -142,26 +144,26 @@ def run(plan: Plan, store, *, write: bool, progress=None) -> dict:
             if b.donor:
                 b.donor.store.close()
     _storable_or_refuse(plan, led)
-    out = led.finish()
+    view = led.finish()
     if plan.model.water is not None and plan.physics.active and "soil_temperature" in plan.targets:
-        out["water"] = plan.model.water.record()
-    out["data_blocks_read"] = len(all_blocks)
-    odd = sum(out["flags"].get(k, 0) for k in ("realised_change_opposite_to_imposed",
-                                                "realised_change_larger_than_imposed",
-                                                "phase_change_against_imposed_change"))
+        view = replace(view, water=plan.model.water.record())
+    view = replace(view, data_blocks_read=len(all_blocks))
+    odd = sum(view.flags.get(k, 0) for k in ("realised_change_opposite_to_imposed",
+                                              "realised_change_larger_than_imposed",
+                                              "phase_change_against_imposed_change"))
     source = plan.physics.texture or ("sand/clay" if plan.physics.sand_pct is not None else "the given parameters")
-    shift = out.get("input_phase_disequilibrium")
+    shift = view.input_phase_disequilibrium
     # the change-driven rule holds ice beside liquid below the curve as stable: warn only about
     # states it would not hold either; the equilibrium rule re-balances every cell counted
-    warn_cells = (sum(shift["cells_per_layer"]) if shift and shift["acted_on"] else
-                  sum(shift["cells_inconsistent_with_one_sided_rule_per_layer"]) if shift else 0)
+    warn_cells = (shift.cells if shift and shift.acted_on else
+                  sum(shift.inconsistent_per_layer) if shift else 0)
     if warn_cells:
-        fr = sum(shift["equilibrium_rule_would_freeze_kg_per_layer"])
-        me = sum(shift["equilibrium_rule_would_melt_kg_per_layer"])
+        fr = sum(shift.would_freeze_kg_per_layer)
+        me = sum(shift.would_melt_kg_per_layer)
         warnings.warn(f"{warn_cells} region layer-cell(s) of the input are not in phase equilibrium "
                       f"for the soil parameters used ({source}): the equilibrium rule would freeze {fr:.3g} kg and "
                       f"melt {me:.3g} kg of water there; "
-                      + ("physics.phase_rule equilibrium re-balances them" if shift["acted_on"] else
+                      + ("physics.phase_rule equilibrium re-balances them" if shift.acted_on else
                          "the change-driven rule leaves them as they are")
                       + "; check that physics matches your model (or give its parameters in the layout)",
                       InputWarning, stacklevel=2)
@@ -171,7 +173,7 @@ def run(plan: Plan, store, *, write: bool, progress=None) -> dict:
                       f"not in phase equilibrium for the soil parameters used ({source}), so water froze or melted on "
                       "its own; check that physics matches your model (or give its parameters in the layout)",
                       InputWarning, stacklevel=2)
-    return out
+    return view.to_dict()
 
 
 def _storable_or_refuse(plan: Plan, led) -> None:

@@ -15,7 +15,8 @@ from initgen.demo import write_demo_extras, write_demo_restart
 from initgen.engine.ledger_view import LedgerView
 from initgen.io.shipped import shipped_file
 
-from clikit import RECIPES
+import filemaker as fm
+from clikit import RECIPES, box_recipe_text
 
 SHIPPED = sorted(p.name for p in RECIPES.glob("demo-*.yaml"))
 assert SHIPPED, f"no shipped demo recipes in {RECIPES}"
@@ -89,3 +90,70 @@ def test_record_of_an_earlier_version_reads_with_newer_keys_missing(demo):
     empty = LedgerView.from_dict({})
     assert empty.variables == {} and empty.blocks == () and empty.physics.totals == []
     assert LedgerView.from_dict({"future_key": [1, 2]}).to_dict()["future_key"] == [1, 2]
+
+
+# --- the writer builds the view: water-file runs, and the sections a run leaves out ------------------
+
+WATER_RECIPE = """initgen_recipe: 1
+name: ledger-water
+perturbations:
+  - name: b
+    region: {{include: [{{box: {{lon: [-25, 25], lat: [-15, 15]}}}}], taper_km: 500}}
+    anomaly: {{constant_K: {dT}}}
+    profile: {{kind: exponential, efolding_m: 0.5}}
+physics: {{mode: {mode}, phase_rule: {rule}, texture: loam}}
+"""
+RUNS = [("energy", 2.0), ("energy", -3.0), ("temperature", 4.0), ("none", 1.0)]
+
+
+def _same_json(led: dict) -> LedgerView:
+    """The ledger a run returns is the view's dict: read back, it gives the same JSON text
+    (RFC 8259, serialised by the standard library's ``json``, key order included)."""
+    view = LedgerView.from_dict(led)
+    assert json.dumps(view.to_dict(), indent=2, allow_nan=False) == json.dumps(led, indent=2, allow_nan=False)
+    assert LedgerView.from_dict(view.to_dict()) == view
+    return view
+
+
+@pytest.mark.filterwarnings("ignore::UserWarning")
+@pytest.mark.parametrize("units", ["kg m-2", "m3 m-3"])
+@pytest.mark.parametrize("convention", sorted(fm.WATER_VARS))
+def test_round_trip_is_exact_for_water_file_runs(tmp_path, convention, units):
+    f = fm.water_file(tmp_path / "in.nc", convention, units)
+    lay = fm.water_layout(tmp_path / "layout.yaml", convention, units)
+    for mode, dT in RUNS:
+        for rule in ("change_driven", "equilibrium"):
+            rec = tmp_path / f"{mode}{dT:+g}{rule}.yaml"
+            rec.write_text(WATER_RECIPE.format(dT=dT, mode=mode, rule=rule))
+            out = tmp_path / f"{rec.stem}.nc"
+            record = api.apply(rec, f, out, lay)
+            stored = json.loads(out.with_name(out.name + ".provenance.json").read_text())["ledger"]
+            assert stored == record["ledger"]
+            view = _same_json(stored)
+            # the sections a run makes or leaves out: left out, never written as null
+            active = mode != "none"
+            assert ("water" in stored) == active and ("phase_rule" in stored["physics"]) == active
+            assert ("input_phase_disequilibrium" in stored) == active
+            assert view.data_blocks_read == stored["data_blocks_read"] >= 1
+            if active:
+                assert view.water["convention"] == convention
+                if convention != "total_only":  # (total_only: the phase rule is diagnosed, see physics.phase_rule)
+                    assert view.input_phase_disequilibrium.acted_on == (rule == "equilibrium")
+                    assert view.physics.phase_rule == rule
+                assert ("cells_change_beyond_imposed" in stored["physics"]["invariants"]) == (mode == "energy")
+            else:   # no soil water read: persistence says why, in three keys
+                assert list(stored["persistence"]) == ["horizons_days", "remaining_fraction", "not_estimated"]
+                assert stored["persistence"]["remaining_fraction"] is None
+
+
+@pytest.mark.filterwarnings("ignore::UserWarning")
+def test_round_trip_is_exact_without_cell_areas(tmp_path):
+    """Points without cell areas: the area is null (a key the ledger keeps), the totals are absent."""
+    src = fm.points_dateline(tmp_path / "p.nc", water=True)
+    rec = tmp_path / "r.yaml"
+    rec.write_text(box_recipe_text(160, -160, -40, 40) + "physics: {mode: energy, texture: loam}\n")
+    led = api.preview(rec, src)
+    view = _same_json(led)
+    assert "area_m2" in led["region"] and led["region"]["area_m2"] is None
+    assert view.physics.totals == [] and view.physics.totals_left_out.startswith("no cell areas")
+    assert [k for k in led["physics"] if "_per_layer_" in k] == [q.per_layer_key for q in view.physics.quantities]
