@@ -15,6 +15,7 @@ from initgen.engine import plan as plan_mod
 from initgen.engine.ledger_view import LedgerView
 from initgen.engine.persistence import line as persistence_line
 from initgen.engine.persistence import settings
+from initgen.errors import InputError
 from initgen.io.coding import storable_range
 from initgen.io.grid import open_model
 from initgen.io.model import ModelFile
@@ -321,6 +322,79 @@ def apply(recipe, input, output, layout=None, *, member: str | None = None, forc
                                 force=force, allow_outside=allow_outside_paths,
                                 member=None if p.member is None else p.member.record(), repack=repack,
                                 files=plan.files)
+
+
+def apply_tiles(recipe, inputs, outputs, layout=None, *, force: bool = False, allow_outside_paths: bool = False,
+                progress=None, repack: bool = False, on_written=None) -> list:
+    """Write the perturbed copies of a model stored as tiles, all of them or none.
+
+    Every tile is first run read-only (:func:`preview`: the whole plan, every value check), so a
+    tile the recipe cannot be applied to is refused before the first output is written. The
+    tiles are then written one by one (:func:`apply`); if one fails or the run is interrupted,
+    the outputs and provenance records this call already wrote are removed, so a tile set is
+    never left half written.
+
+    Parameters
+    ----------
+    recipe : str, os.PathLike, dict or Document
+        A recipe without a members section (with members, see :func:`apply_ensemble`).
+    inputs : sequence of str or os.PathLike
+        The tiles' restart files; never modified.
+    outputs : sequence of str or os.PathLike
+        One output per input, in the same order.
+    layout : str, os.PathLike, dict or Document, optional
+        Where the model keeps each quantity (``grid_file`` may name each tile's grid file).
+    force : bool
+        Replace existing outputs. An output replaced before a later tile failed is removed too.
+    allow_outside_paths : bool
+        Let the recipe read files outside its own folder.
+    progress : callable, optional
+        Called as ``progress(done, total)`` after each block of each tile.
+    repack : bool
+        Rewrite each output whole with the same encodings.
+    on_written : callable, optional
+        Called as ``on_written(output, record)`` after each tile is written (e.g. to print it).
+
+    Returns
+    -------
+    list of dict
+        The provenance records, in the order of ``inputs``.
+
+    Raises
+    ------
+    InputError
+        A tile the recipe cannot be applied to (nothing written), or a failure while writing
+        (what was written removed; the message says how many tiles that was).
+
+    Examples
+    --------
+    >>> records = initgen.api.apply_tiles("r.yaml", ["t1.nc", "t2.nc"], ["o/t1.nc", "o/t2.nc"])  # doctest: +SKIP
+    """
+    pairs = [(Path(i), Path(o)) for i, o in zip(inputs, outputs)]
+    if len(pairs) != len(list(inputs)) or len(pairs) != len(list(outputs)):
+        raise InputError("--output: give one output per input tile")
+    for inp, _ in pairs:  # every tile, the whole plan read-only, before one is written
+        preview(recipe, inp, layout, allow_outside_paths=allow_outside_paths)
+    records, written = [], []
+    try:
+        for inp, out in pairs:
+            rec = apply(recipe, inp, out, layout, force=force, allow_outside_paths=allow_outside_paths,
+                        progress=progress, repack=repack)
+            written.append(out)
+            records.append(rec)
+            if on_written is not None:
+                on_written(out, rec)
+    except BaseException as exc:
+        for out in written:
+            for path in (out, prov.provenance_path(out)):
+                with contextlib.suppress(FileNotFoundError):
+                    path.unlink()
+        if written and isinstance(exc, InputError):
+            raise InputError(f"{exc} (the {len(written)} tile(s) written before it were removed: tiles are "
+                             "written all together or not at all)", key=exc.key, variable=exc.variable,
+                             file=exc.file) from None
+        raise
+    return records
 
 
 def _refuse_unstorable_first(plan, store) -> None:

@@ -217,14 +217,18 @@ class _Progress:
     def __call__(self, done: int, total: int, failed: int = 0) -> None:
         if self.bar is None:
             cols, rows = _terminal_size(self.stream)
+            # the counts always show: on a narrow terminal the bar (30 cells at most) gives way first
+            tail = f" {total}/{total} {self.unit}" + (f", {total} failed" if self.unit == "members done" else "")
+            width = max(1, min(30, cols - 1 - 2 - len(tail)))
             # ncols one short of the width (as tqdm does), so the line never wraps
             self.bar = _Bar(total=total, file=self.stream, ncols=cols - 1, nrows=rows, ascii=".#", leave=True,
-                            bar_format="[{bar:30}] {n_fmt}/{total_fmt} " + self.unit + "{postfix}")
+                            bar_format="[{bar:%d}] {n_fmt}/{total_fmt} " % width + self.unit + "{postfix}")
         if failed:
             self.bar.set_postfix_str(f"{failed} failed", refresh=False)
         self.bar.update(done - self.bar.n)
-        if done >= total:
+        if done >= total:  # a new bar for whatever comes next (the next tile of a tile set)
             self.close(finished=True)
+            self.bar = None
 
     def close(self, finished: bool) -> None:
         """Finished: the last state stays, with a newline. Stopped (an error or an interrupt): the
@@ -384,6 +388,9 @@ def _guard_outputs(args) -> None:
 def _targets_apply(args):
     if getattr(args, "_ensemble", False):  # the folder and its members: ensemble.check_output_folder
         return
+    if args.resume and len(args.input) > 1:
+        raise InputError("--resume: finishes an ensemble written into a folder; tiles are written all together "
+                         "or not at all, so run the same command again without --resume")
     if args.resume:
         raise InputError("--resume: finishes an ensemble written into a folder; this run writes one file "
                          "(to replace it, pass --force)")
@@ -471,24 +478,24 @@ def _cmd_apply(args) -> int:
         for r in res.failed:
             sys.stderr.write(f"initgen: error: member {r['member']['name']} of {r['input']}: {r['message']}\n")
         return res.exit_code
-    if len(args.input) > 1:
+    if len(args.input) > 1:  # tiles: all written, or none (api.apply_tiles)
         pairs = _tile_outputs(args)
-        for inp, _ in pairs:  # every tile fits the recipe (the whole plan, read-only) before one is written
-            api.check(recipe, args.layout, inp, allow_outside_paths=args.allow_outside_paths)
-    elif args.output.endswith(("/", os.sep)):
+        with _progress(args.quiet, "blocks") as progress:
+            api.apply_tiles(recipe, [i for i, _ in pairs], [o for _, o in pairs], args.layout, force=args.force,
+                            allow_outside_paths=args.allow_outside_paths, progress=progress, repack=args.repack,
+                            on_written=lambda out, rec: _say_written(args, out, rec))
+        return 0
+    if args.output.endswith(("/", os.sep)):
         raise InputError(f"--output {args.output}: names a folder; give the output file's name")
-    else:
-        pairs = [(args.input[0], args.output)]
-    for inp, out in pairs:
-        _apply_one(args, recipe, inp, out)
+    with _progress(args.quiet, "blocks") as progress:
+        rec = api.apply(recipe, args.input[0], args.output, args.layout, member=args.member, force=args.force,
+                        allow_outside_paths=args.allow_outside_paths, progress=progress, repack=args.repack)
+    _say_written(args, args.output, rec)
     return 0
 
 
-def _apply_one(args, recipe, input, output) -> None:
-    """Write one perturbed copy and say what changed (the ledger) and what was written."""
-    with _progress(args.quiet, "blocks") as progress:
-        rec = api.apply(recipe, input, output, args.layout, member=args.member, force=args.force,
-                        allow_outside_paths=args.allow_outside_paths, progress=progress, repack=args.repack)
+def _say_written(args, output, rec) -> None:
+    """Say what changed (the ledger) and what was written."""
     if not args.quiet:
         print(api.ledger_text(rec["ledger"]))
         print(f"wrote {output} (sha256 {rec['output']['sha256']})")

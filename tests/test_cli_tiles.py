@@ -16,10 +16,12 @@ import netCDF4
 import numpy as np
 import pytest
 
+from initgen import api
 from initgen.cli import main
+from initgen.errors import InputError
 from initgen.io.shipped import shipped_dir
 import filemaker as fm
-from clikit import read_raw
+from clikit import read_raw, sha
 from clikit import recipe, refused, swap  # the error catalogue's recipe and refusal check
 
 LAYOUTS = shipped_dir("recipes") / "layouts"
@@ -80,3 +82,40 @@ def test_a_tile_that_does_not_fit_stops_the_run_before_any_is_written(tiled, cap
 def test_tiles_never_overwrite_an_input(tiled, capsys):
     work, tiles = tiled
     refused(capsys, _tiles_argv(work, tiles, work), "output is the input file", folder=work)
+
+
+def test_a_tile_refused_on_its_values_stops_the_run_before_any_is_written(tiled, capsys):
+    """The third tile holds Celsius numbers in a variable the layout reads as kelvin (13 'K' in the
+    region): the value check is part of the read-only run every tile gets first, so nothing is
+    written, not even the first two tiles (the rule: no half-written output)."""
+    work, tiles = tiled
+    with netCDF4.Dataset(tiles[2], "a") as ds:
+        ds["tsoil"][:] = ds["tsoil"][:] - 273.15
+    refused(capsys, _tiles_argv(work, tiles, work / "out"), "not a temperature", folder=work)
+    assert list((work / "out").iterdir()) == []
+
+
+@pytest.mark.parametrize("fault", [KeyboardInterrupt, InputError], ids=["interrupt", "write-error"])
+def test_a_tile_set_stopped_while_writing_leaves_nothing(tiled, capsys, monkeypatch, fault):
+    """The second tile fails while being written (an interrupt, a disk error): the first tile's
+    output and record, already published, are removed too; the inputs are unchanged."""
+    work, tiles = tiled
+    before = {t: sha(t) for t in tiles}
+    real, calls = api.apply, []
+
+    def second_fails(*a, **k):
+        calls.append(a[1])
+        if len(calls) == 2:
+            raise fault("stopped while writing the second tile")
+        return real(*a, **k)
+
+    monkeypatch.setattr(api, "apply", second_fails)
+    code = main(_tiles_argv(work, tiles, work / "out"))
+    assert code == (130 if fault is KeyboardInterrupt else 2)
+    assert len(calls) == 2
+    assert list((work / "out").iterdir()) == []
+    assert {t: sha(t) for t in tiles} == before
+    err = capsys.readouterr().err
+    assert err.count("\n") == 1  # one line
+    if fault is InputError:  # says what became of the tile already written
+        assert "the 1 tile(s) written before it were removed" in err
