@@ -229,7 +229,7 @@ class Ledger:
         s = self.input_shift
         if not s:
             return None
-        rule = self.plan.physics.phase_rule
+        rule = self._phase_rule()  # the rule the physics applied (equilibrium where the file diagnoses the split)
         return Disequilibrium(
             cells_per_layer=tuple(int(v) for v in s["cells"]),
             would_freeze_kg_per_layer=tuple(_num(v) for v in s["freeze_kg"]),
