@@ -588,6 +588,8 @@ def ledger_text(ledger) -> str:
     elif led.cells_not_in_phase_equilibrium_before:
         lines.append(f"note: {led.cells_not_in_phase_equilibrium_before} region layer-cells were not in phase "
                      "equilibrium before the change (left as they were outside the region)")
+    for key, said in led.notes.items():  # what was inferred or guessed: printed, not only stored
+        lines.append(f"inferred ({key}): {said}")
     return "\n".join(lines)
 
 

@@ -110,12 +110,18 @@ def check_before_writing(plan: Plan) -> None:
                 _hydraulics(plan, model.store, hkey, shape)
 
 
+def _temperatures_without_units(plan: Plan, model: ModelFile) -> list:
+    """(target, role) of every temperature the plan changes whose variable has no units (taken as K)."""
+    return [(t, model.role(t)) for t in ("soil_temperature", "skin_temperature", "snow_temperature")
+            if t in plan.targets and model.role(t) is not None and not model.role(t).units]
+
+
 def _check_units(plan: Plan, model: ModelFile) -> None:
+    for target, role in _temperatures_without_units(plan, model):
+        warnings.warn(f"{model.store.describe()}: variable '{role.variables[0]}' ({target}) has no units "
+                      f"attribute; assuming K (give it units, or set layout key units.{target})", InputWarning, stacklevel=2)
     for target in ("soil_temperature", "skin_temperature", "snow_temperature"):
         role = model.role(target)
-        if target in plan.targets and role is not None and not role.units:
-            warnings.warn(f"{model.store.describe()}: variable '{role.variables[0]}' ({target}) has no units "
-                          f"attribute; assuming K (give it units, or set layout key units.{target})", InputWarning, stacklevel=2)
         if target in plan.targets and role is not None:
             soil_conversion.temperature_to_kelvin(np.zeros(1), role.units or "K", name=role.variables[0], key=f"units.{target}")
     if plan.physics.active and "soil_temperature" in plan.targets:
@@ -130,6 +136,9 @@ def run(plan: Plan, store, *, write: bool, progress=None) -> dict:
     """Apply the plan to ``store`` (writing only when ``write``) and return the ledger
     (``LedgerView.to_dict()``: the dict a provenance record stores)."""
     led = ledger_mod.Ledger(plan)
+    for target, role in _temperatures_without_units(plan, plan.model):  # a guess: the ledger says so too
+        led.note(f"units.{target}", f"variable '{role.variables[0]}' has no units attribute; its values were taken "
+                                    f"as K (a guess: give it units, or set layout key units.{target})")
     if plan.physics.active:
         led.soil_sources = soil_parameter_sources(plan.physics, plan.model)
     all_blocks = [b for s in slabs(plan) for b in blocks_of(plan, s)]
