@@ -18,63 +18,45 @@ from dataclasses import dataclass
 import numpy as np
 
 from initgen.errors import InputError
+from initgen.science import units as units_mod
 
 __all__ = ["Layers", "resolve_layers", "depth_range_in_text", "split_snow_soil", "units_to_metres"]
 
 #: Spellings accepted for the ``units`` argument, mapped to the factor that converts to metres.
-_UNIT_FACTORS = {
-    "m": 1.0,
-    "meter": 1.0,
-    "meters": 1.0,
-    "metre": 1.0,
-    "metres": 1.0,
-    "cm": 1.0e-2,
-    "centimeter": 1.0e-2,
-    "centimeters": 1.0e-2,
-    "centimetre": 1.0e-2,
-    "centimetres": 1.0e-2,
-    "km": 1.0e3,
-    "kilometer": 1.0e3,
-    "kilometers": 1.0e3,
-    "kilometre": 1.0e3,
-    "kilometres": 1.0e3,
-    "mm": 1.0e-3,
-    "millimeter": 1.0e-3,
-    "millimeters": 1.0e-3,
-    "millimetre": 1.0e-3,
-    "millimetres": 1.0e-3,
-}
-
-
 def units_to_metres(units: str, *, name: str = "units") -> float:
     """Return the factor that converts a length in `units` to metres.
 
     Parameters
     ----------
     units : str
-        ``'m'``, ``'cm'``, ``'mm'`` or ``'km'``, or a spelling such as ``'meters'``, ``'metres'``,
-        ``'centimeters'`` (case and surrounding blanks are ignored).
+        Any length unit UDUNITS-2 knows (``'m'``, ``'cm'``, ``'mm'``, ``'km'``, ``'ft'`` ...), in any
+        of its spellings (``'meters'``, ``'centimetres'``; case and surrounding blanks are ignored),
+        parsed by :func:`initgen.science.units.metres_per`, the one unit parser of initgen.
     name : str, optional
         Name of the argument or variable the units belong to, used in error messages.
 
     Returns
     -------
     float
-        Metres per unit (1.0, 0.01 or 0.001).
+        Metres per unit (1.0, 0.01, 0.001, 0.3048 ...).
 
     Raises
     ------
     InputError
-        If the spelling is not recognised.
+        If the units are not a length.
+
+    Examples
+    --------
+    >>> units_to_metres("centimetres")
+    0.01
     """
-    key = str(units).strip().lower() if units is not None else ""
-    try:
-        return _UNIT_FACTORS[key]
-    except KeyError:
+    factor = units_mod.metres_per(units)
+    if factor is None or not factor > 0:
         raise InputError(
-            f"{name}: unknown depth units {units!r}; use 'm', 'cm' or 'mm' "
+            f"{name}: unknown depth units {units!r}; use a length such as 'm', 'cm' or 'mm' "
             "(or a spelling such as 'meters', 'centimetres')"
-        ) from None
+        )
+    return factor
 
 
 def _as_1d(values, name: str) -> np.ndarray:

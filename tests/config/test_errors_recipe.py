@@ -475,9 +475,10 @@ def test_layer_depths_absurdly_deep(work, capsys):
 
 
 def test_layer_depths_in_unknown_units(work, capsys):
+    # any UDUNITS length converts (ft, even fathoms); units that are no length are refused
     rec = recipe(work)
-    lay = layout(work, LAYOUT.replace("units: m}", "units: fathoms}"))
-    refused(capsys, apply_argv(work, rec, "--layout", lay), "roles.layer_node_depth", "fathoms", "'m'",
+    lay = layout(work, LAYOUT.replace("units: m}", "units: degrees}"))
+    refused(capsys, apply_argv(work, rec, "--layout", lay), "roles.layer_node_depth", "degrees", "'m'",
             folder=work)
 
 

@@ -68,8 +68,17 @@ def test_units(units, scale):
 
 
 def test_unknown_units_names_argument():
-    with pytest.raises(InputError, match=r"soil_depth: unknown depth units 'ft'"):
-        Layers.from_nodes([1.0, 2.0], units="ft", name="soil_depth")
+    with pytest.raises(InputError, match=r"soil_depth: unknown depth units 'kg'; use a length"):
+        Layers.from_nodes([1.0, 2.0], units="kg", name="soil_depth")
+    with pytest.raises(InputError, match=r"soil_depth: unknown depth units 'm2'"):
+        Layers.from_nodes([1.0, 2.0], units="m2", name="soil_depth")
+
+
+def test_any_udunits_length_converts():
+    # the international foot is exactly 0.3048 m (NIST SP 811, 2008, appendix B.8; the value
+    # UDUNITS-2 carries): a depth in feet is converted, not refused, as the CF conventions read units
+    assert Layers.from_nodes([1.0, 2.0], units="ft").node_m.tolist() == pytest.approx([0.3048, 0.6096], rel=1e-15)
+    assert units_to_metres("kilometres") == 1000.0 and units_to_metres(" Millimeters ") == 0.001
 
 
 def test_positive_up_and_autodetect():
