@@ -11,6 +11,7 @@ from initgen.errors import InputError
 from initgen.io.model import LAYERED_ROLES
 from initgen.io.stores import Store, VarInfo
 from initgen.science import layers as layers_mod
+from initgen.science import units as units_mod
 
 CF_ROLES = {
     "soil_temperature": ("soil_temperature",),
@@ -34,7 +35,12 @@ CF_ROLES = {
     "soil_unfrozen_fraction": ("mass_fraction_of_unfrozen_water_in_soil_moisture",),
     "soil_frozen_fraction": (),
 }
-_LENGTH_UNITS = ("m", "meter", "meters", "metre", "metres", "cm", "centimeter", "centimeters", "mm")
+
+
+def is_length(units) -> bool:
+    """Whether ``units`` is a length (any UDUNITS length: a depth coordinate's units), by the one
+    unit parser, :func:`initgen.science.units.metres_per`."""
+    return units_mod.metres_per(units) is not None
 
 
 def _cf_candidates(store: Store, role: str) -> list:
@@ -72,10 +78,10 @@ def _scalar_depth(store: Store, info: VarInfo):
         c = store.variables.get(cname)
         if c is None or int(np.prod(c.shape)) != 1:
             continue
-        if c.units.lower() not in _LENGTH_UNITS and str(c.attrs.get("standard_name", "")) != "depth":
+        if not is_length(c.units) and str(c.attrs.get("standard_name", "")) != "depth":
             continue
         units = c.units or "m"
-        if c.units.lower() not in _LENGTH_UNITS:
+        if not is_length(c.units):
             raise InputError(f"{store.describe()}: depth coordinate '{cname}' of '{info.name}' has units "
                              f"'{c.units}'; give it a length unit (m, cm or mm)")
         pos = c.attrs.get("positive", "down")

@@ -23,7 +23,7 @@ import numpy as np
 
 from initgen.errors import InputError, InputWarning
 from initgen.io import water as water_mod
-from initgen.io.cf import _LENGTH_UNITS, CF_ROLES, _cf_role, _per_layer_depths, _record_dims
+from initgen.io.cf import CF_ROLES, _cf_role, _per_layer_depths, _record_dims, is_length
 from initgen.io.layout import NO_ROLES, DepthValues, GridFile, Layout
 from initgen.io.model import LAYERED_ROLES, Grid, ModelFile, Role, View
 from initgen.io.stores import NetCDFStore, Store, VarInfo, find_coordinate
@@ -129,7 +129,7 @@ def _layer_dim_of(info: VarInfo, hdims: tuple, given: str | None, store: Store, 
         return big[0]
     if not big:
         return rest[-1]
-    depthish = [d for d in big if d in store.variables and store.variables[d].units.lower() in _LENGTH_UNITS]
+    depthish = [d for d in big if d in store.variables and is_length(store.variables[d].units)]
     if len(depthish) == 1:
         return depthish[0]
     raise InputError(f"{where}: variable '{info.name}' has several non-horizontal dims {tuple(big)}; "
@@ -221,7 +221,7 @@ def _depth_layers(store: Store, layout: Layout | None, soil: Role | None, where:
     if soil is not None and soil.layered and soil.views[0].layer_dim and len(soil.views) == 1:
         ldim = soil.views[0].layer_dim
         info = store.variables.get(ldim)
-        if info is not None and (info.units.lower() in _LENGTH_UNITS or str(info.attrs.get("standard_name", "")) == "depth"):
+        if info is not None and (is_length(info.units) or str(info.attrs.get("standard_name", "")) == "depth"):
             units = info.units or "m"
             pos = str(info.attrs.get("positive", "down"))
             bounds = info.attrs.get("bounds")
