@@ -30,7 +30,7 @@ from initgen.config.views import RecipeView
 from initgen.errors import InputError
 from initgen.io.layout import DEPTH_ROLES
 from initgen.io.layout import Layout as LayoutView
-from initgen.science.soil.properties import texture_key
+from initgen.science.soil.properties import hydraulics_from_texture, texture_key
 
 RECIPE_VERSION = 1
 LAYOUT_VERSION = 1
@@ -300,7 +300,9 @@ WATER = Obj(
 LAYOUT = Obj(
     doc="where one model keeps each quantity",
     fields={
-        "initgen_layout": Num(integer=True, minimum=1, maximum=LAYOUT_VERSION, doc="layout format version"),
+        "initgen_layout": Num(integer=True, minimum=1, maximum=LAYOUT_VERSION, doc="layout format version",
+                              doc_hint_over=f" (this initgen reads layout format {LAYOUT_VERSION}; a newer initgen wrote this "
+                                            "layout: upgrade initgen)"),
         "name": Str(default=None, doc="a name for this layout (model or file kind)"),
         "roles": Obj(doc="role -> variable name(s)", fields={
             **{r: replace(_LAYERED) for r in LIST_ROLES + WATER_ROLES},
@@ -334,7 +336,9 @@ LAYOUT = Obj(
 RECIPE = Obj(
     doc="an initgen experiment recipe",
     fields={
-        "initgen_recipe": Num(integer=True, minimum=1, maximum=RECIPE_VERSION, doc="recipe format version"),
+        "initgen_recipe": Num(integer=True, minimum=1, maximum=RECIPE_VERSION, doc="recipe format version",
+                              doc_hint_over=f" (this initgen reads recipe format {RECIPE_VERSION}; a newer initgen wrote this "
+                                            "recipe: upgrade initgen)"),
         "name": Str(doc="name of the experiment"),
         "description": Str(default=None, doc="free text"),
         "seed": Num(integer=True, minimum=0, maximum=2**63 - 1, default=0, unit="1",
@@ -587,6 +591,11 @@ def _check_semantics(data: dict, source: str) -> None:
     if phys.get("texture"):
         # one spelling per class, so 'sandy_loam' and 'Sandy loam' hash the same
         phys["texture"] = texture_key(phys["texture"])
+        try:  # a class the tables know: refused with the recipe's name, before any file is opened
+            hydraulics_from_texture(phys["texture"])
+        except InputError as exc:
+            raise InputError(f"{source}: recipe key physics.texture: {exc}", key="physics.texture",
+                             file=str(source)) from None
     if data.get("members"):
         try:
             expand_members(data)

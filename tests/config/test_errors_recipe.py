@@ -487,3 +487,16 @@ def test_layer_depths_with_nan(work, capsys):
     lay = layout(work, LAYOUT.replace("[0.05, 0.15, 0.35, 0.75, 1.5]", "[0.05, .nan, 0.35, 0.75, 1.5]"))
     refused(capsys, apply_argv(work, rec, "--layout", lay), "roles.layer_node_depth", folder=work)
 
+
+
+def test_recipe_from_a_newer_format(work, capsys):
+    rec = recipe(work, swap("initgen_recipe: 1", "initgen_recipe: 2"))
+    refused(capsys, ["check", rec], "r.yaml", "recipe key initgen_recipe", "got 2", "reads recipe format 1",
+            "upgrade initgen", folder=work)
+
+
+def test_unknown_texture_refused_when_the_recipe_is_read(work, capsys):
+    # no input file needed: the class is checked against Clapp and Hornberger (1978), Table 2, on load
+    rec = recipe(work, RECIPE + "physics: {mode: energy, texture: lome}\n")
+    refused(capsys, ["check", rec], "r.yaml", "recipe key physics.texture", "'lome'", "use one of", "silty clay loam",
+            folder=work)
