@@ -12,8 +12,6 @@ import numpy as np
 
 from initgen.config.recipe import Document, inline_layout, load_layout, load_recipe
 from initgen.engine import plan as plan_mod
-from initgen.engine.ledger_view import LedgerView
-from initgen.engine.persistence import line as persistence_line
 from initgen.engine.persistence import settings
 from initgen.errors import InputError
 from initgen.io.coding import storable_range
@@ -24,6 +22,7 @@ from initgen.outputs import collate as collate_mod
 from initgen.outputs import ensemble, manifest
 from initgen.outputs import members as members_mod
 from initgen.outputs import provenance as prov
+from initgen.outputs.ledger_text import ledger_text
 from initgen.outputs.members import configure, select
 
 
@@ -104,7 +103,25 @@ def open_plan(recipe, input, layout=None, *, member: str | None = None, allow_ou
 
 
 def layer_lines(layers) -> list:
-    """One line per soil layer: top, bottom, thickness, node and where they came from."""
+    """One line per soil layer: top, bottom, thickness, node and where they came from (what
+    ``check`` prints).
+
+    Parameters
+    ----------
+    layers : initgen.science.layers.Layers or None
+        The model file's soil layers (``model.layers``); None when no depths were found.
+
+    Returns
+    -------
+    list of str
+        A header and one line per layer, or one line saying which layout keys give depths.
+
+    Examples
+    --------
+    >>> from initgen.science.layers import Layers
+    >>> layer_lines(Layers.from_interfaces([0.0, 0.1, 0.3]))[1]
+    '  layer 0: 0..0.1, 0.1, node 0.05; interfaces from interfaces; node at the layer middle'
+    """
     if layers is None:
         return ["soil layers: no depths found (name roles.layer_interface_depth, layer_thickness or "
                 "layer_node_depth in a layout)"]
@@ -427,12 +444,55 @@ def apply_ensemble(recipe, inputs, output_dir, layout=None, *, members=None, wor
     """Write every member (or those named in ``members``) for every input into ``output_dir``.
 
     Outputs are named by the recipe's ``members.output_template``; ``manifest.json`` and
-    ``manifest.csv`` list them. Runs on ``workers`` local processes (default min(2, CPUs)) or on
-    the Dask scheduler at ``scheduler``. Returns an ``EnsembleResult`` (``exit_code``
-    is 0 when every member was written, 2 when the failures were bad input, else 1).
-    ``resume`` finishes an interrupted or partly failed ensemble: members whose output and
-    provenance record exist and match are kept, the others are written. A signal (SIGINT,
-    SIGTERM, SIGHUP) stops it cleanly and raises ``ensemble.Interrupted`` (a KeyboardInterrupt).
+    ``manifest.csv`` list them and are rewritten atomically after every member, so they are true
+    at every moment. ``resume`` finishes an interrupted or partly failed ensemble: members whose
+    output and provenance record exist and match are kept, the others are written.
+
+    Parameters
+    ----------
+    recipe : str, os.PathLike, dict or Document
+        The recipe: a YAML file, an already-parsed mapping or a loaded document.
+    inputs : sequence of str or os.PathLike
+        The restart files (start dates); never modified.
+    output_dir : str or os.PathLike
+        The ensemble's folder (created if its parent exists).
+    layout : str, os.PathLike, dict or Document, optional
+        Where the model keeps each quantity; without one, roles are found from CF attributes
+        (or the recipe's inline layout).
+    members : sequence of str, optional
+        Only these members (default: every member of the recipe).
+    workers : int, optional
+        Local worker processes (default min(2, CPUs)); ignored with ``scheduler``.
+    scheduler : str, optional
+        Address of a Dask scheduler (the ``dask`` extra) to run the members on.
+    force : bool
+        Replace an existing ensemble in ``output_dir``.
+    resume : bool
+        Keep the members already written and matching their records; write the rest.
+    allow_outside_paths : bool
+        Let the recipe read files outside its own folder (``--allow-outside-paths``).
+    progress : callable, optional
+        Called as ``progress(done, total, failed)`` after each member.
+
+    Returns
+    -------
+    EnsembleResult
+        ``manifest`` (the dict written as manifest.json), ``outdir``, ``results`` (one dict per
+        member and input, with ``status``) and ``exit_code``: 0 when every member was written, 2
+        when the failures were bad input, else 1.
+
+    Raises
+    ------
+    InputError
+        Bad input found before any member is written (recipe, layout, inputs, the folder).
+    initgen.outputs.ensemble.Interrupted
+        A signal (SIGINT, SIGTERM, SIGHUP) stopped the run: workers stopped, temporaries removed,
+        finished members kept (a KeyboardInterrupt).
+
+    Examples
+    --------
+    >>> res = initgen.api.apply_ensemble("pairs.yaml", ["start1.nc", "start2.nc"], "ens")  # doctest: +SKIP
+    >>> res.exit_code, len(res.results)  # doctest: +SKIP
     """
 
     rec = _recipe(recipe)
@@ -442,7 +502,37 @@ def apply_ensemble(recipe, inputs, output_dir, layout=None, *, members=None, wor
 
 
 def preview_members(recipe, input, layout=None, *, members=None, allow_outside_paths: bool = False) -> list:
-    """The ledger of every member (or those named) for one input, writing nothing: [(Member, ledger)]."""
+    """The ledger of every member (or those named) for one input, writing nothing.
+
+    Parameters
+    ----------
+    recipe : str, os.PathLike, dict or Document
+        The recipe: a YAML file, an already-parsed mapping or a loaded document.
+    input : str or os.PathLike
+        One restart file, opened read-only.
+    layout : str, os.PathLike, dict or Document, optional
+        Where the model keeps each quantity; without one, roles are found from CF attributes
+        (or the recipe's inline layout).
+    members : sequence of str, optional
+        Only these members (default: every member of the recipe).
+    allow_outside_paths : bool
+        Let the recipe read files outside its own folder (``--allow-outside-paths``).
+
+    Returns
+    -------
+    list of (Member, dict)
+        Each member and its ledger (as :func:`preview` returns it).
+
+    Raises
+    ------
+    InputError
+        Bad input (recipe, layout, file, an unknown member name); nothing is written either way.
+
+    Examples
+    --------
+    >>> for member, ledger in initgen.api.preview_members("pairs.yaml", "start1.nc"):  # doctest: +SKIP
+    ...     print(member.name, ledger["region"])
+    """
 
     rec = _recipe(recipe)
     return manifest.preview(rec, input, _layout(layout, rec), names=members, allow_outside_paths=allow_outside_paths)
@@ -491,7 +581,38 @@ def perturb(dataset, recipe, layout=None, *, allow_outside_paths: bool = False):
 
 
 def weights(recipe, input, layout=None, *, allow_outside_paths: bool = False):
-    """The combined horizontal weight field max_i w_i(x) and the grid, for maps and mask files."""
+    """The combined horizontal weight field max_i w_i(x) and the grid, for maps and mask files.
+
+    Parameters
+    ----------
+    recipe : str, os.PathLike, dict or Document
+        The recipe: a YAML file, an already-parsed mapping or a loaded document.
+    input : str or os.PathLike
+        The restart file, opened read-only.
+    layout : str, os.PathLike, dict or Document, optional
+        Where the model keeps each quantity; without one, roles are found from CF attributes
+        (or the recipe's inline layout).
+    allow_outside_paths : bool
+        Let the recipe read files outside its own folder (``--allow-outside-paths``).
+
+    Returns
+    -------
+    weight : numpy.ndarray
+        max over the recipe's blocks of w(x) in [0, 1], on the file's whole horizontal grid.
+    grid : initgen.io.model.Grid
+        The file's horizontal grid (longitudes, latitudes, cell areas where known).
+    plan : initgen.engine.fields.Plan
+        The plan the weights come from.
+
+    Raises
+    ------
+    InputError
+        Bad input (recipe, layout or file).
+
+    Examples
+    --------
+    >>> w, grid, plan = initgen.api.weights("recipe.yaml", "restart.nc")  # doctest: +SKIP
+    """
     with open_plan(recipe, input, layout, allow_outside_paths=allow_outside_paths) as p:
         w = p.plan.full(np.max([b.weight for b in p.plan.blocks], axis=0))
         return w, p.model.grid, p.plan
@@ -499,99 +620,38 @@ def weights(recipe, input, layout=None, *, allow_outside_paths: bool = False):
 
 def collate(records, out_dir, labels=None, threshold: float = 0.25) -> dict:
     """Collate provenance records (files, folders, manifests) into ``out_dir``: collation.csv,
-    collation.json and collation.html; returns the collation (``ok`` False when any record differs)."""
+    collation.json and collation.html, side by side per depth band.
+
+    Parameters
+    ----------
+    records : sequence of str or os.PathLike
+        Provenance records, folders holding them, or ensemble manifests.
+    out_dir : str or os.PathLike
+        Folder for the three files (its parent must exist).
+    labels : sequence of str, optional
+        A label per record, in order (default: the model or file name).
+    threshold : float
+        Relative difference of band means above which records are said to differ.
+
+    Returns
+    -------
+    dict
+        The collation as written to collation.json, with ``ok`` (False when any record differs
+        from the others beyond ``threshold``) and ``written`` (the three paths).
+
+    Raises
+    ------
+    InputError
+        An unreadable record or an unwritable ``out_dir``; nothing half-written.
+
+    Examples
+    --------
+    >>> col = initgen.api.collate(["a/out.nc.provenance.json", "b/"], "collation")  # doctest: +SKIP
+    >>> col["ok"]  # doctest: +SKIP
+    """
 
     return collate_mod.collate(records, out_dir, labels=labels, threshold=threshold)
 
 
-def ledger_text(ledger) -> str:
-    """A compact plain-text table of a ledger (what the terminal shows).
-
-    Parameters
-    ----------
-    ledger : dict or LedgerView
-        What :func:`preview` returns, or ``record["ledger"]`` of a provenance record.
-
-    Returns
-    -------
-    str
-        The region, per changed variable and layer the cells changed and the mean, min and max
-        change, clamps, flags, the physics, the persistence estimate and the invariants.
-
-    Examples
-    --------
-    >>> print(initgen.api.ledger_text(initgen.preview("recipe.yaml", "restart.nc")))  # doctest: +SKIP
-    """
-    led = LedgerView.from_dict(ledger)
-    lines = []
-    reg = led.region
-    if reg.area_m2 is None:
-        lines.append(f"region: {reg.cells_weight_above_0} cells with weight > 0 "
-                     f"({reg.cells_full_weight} at full weight); area {reg.area_is or 'not known'}")
-    else:
-        lines.append(f"region: {reg.cells_weight_above_0} cells with weight > 0 "
-                     f"({reg.cells_full_weight} at full weight), {reg.area_is or 'area'} "
-                     f"{reg.area_m2 / 1e6:,.0f} km2; means and totals below are over this area")
-    for name, var in led.variables.items():
-        lines.append(f"{name} ({var.role}, change in {var.units}; mean_region: mean over region, area-weighted over the region's valid cells, unchanged ones as 0):")
-        lines.append(f"  {'layer':>5} {'depth_m':>8} {'changed':>8} {'mean_region':>11} {'min':>9} {'max':>9}")
-        for r in var.rows:
-            depth = r.node_depth_m
-            dtext = f"{depth:8.3f}" if depth is not None else f"{'-':>8}"
-            fmt = (lambda v: f"{v:9.4g}" if v is not None else f"{'-':>9}")
-            am = r.area_weighted_mean
-            lines.append(f"  {r.layer:>5} {dtext} {r.cells_changed:>8} "
-                         f"{(f'{am:11.4g}' if am is not None else '-'.rjust(11))} {fmt(r.min)} {fmt(r.max)}")
-    if led.clamps:
-        lines.append("clamps: " + ", ".join(f"{k} {v}" for k, v in led.clamps.items()))
-    else:
-        lines.append("clamps: none")
-    if led.flags:
-        lines.append("flags: " + ", ".join(f"{k} {v}" for k, v in led.flags.items()))
-    phys = led.physics
-    extra = [f"{k} {v:.4g}" for k, v in phys.totals]
-    rule = f", phase rule {phys.phase_rule}" if phys.phase_rule else ""
-    lines.append(f"physics: mode {phys.mode}{rule}" + (("; " + ", ".join(extra)) if extra else ""))
-    geom = led.grid.soil_layers or ()
-    said = sorted({g.source for g in geom if "layer middle" in g.source or "halfway" in g.source
-                   or "unknown" in g.source})
-    if said:
-        lines.append("soil layer geometry: " + "; ".join(said))
-    if phys.totals_left_out:
-        lines.append(f"totals in kg and J left out: {phys.totals_left_out}")
-    if led.persistence is not None:
-        lines.append(persistence_line(led.persistence.to_dict()))
-    water = led.water
-    if water:
-        lines.append(f"soil water: {water['convention']} ({water['convention_from']}); volumetric ice "
-                     f"{water['volumetric_ice'].replace('_', ' ')} ({water['volumetric_ice_from']})"
-                     + ("; liquid/ice split diagnosed from the soil temperature" if water["phase_split_diagnosed"]
-                        else ""))
-    inv = phys.invariants
-    if inv is not None and inv.to_dict():
-        bad = [k for k in ("cells_change_opposite_to_imposed", "cells_change_beyond_imposed",
-                           "cells_change_not_equal_to_imposed", "cells_phase_change_beyond_energy",
-                           "cells_made_inconsistent") if getattr(inv, k)]
-        text = (f"water change {inv.water_change_region_kg:.3g} kg (relative {inv.water_change_relative:.3g})"
-                + (f", energy budget error <= {inv.max_energy_budget_rel_error:.2g} (relative)"
-                   if inv.max_energy_budget_rel_error is not None else ""))
-        lines.append(f"invariants on {inv.cells_checked} changed layer-cells: "
-                     + ("; ".join(f"{k} {getattr(inv, k)}" for k in bad) + "; " if bad else "sign and size as imposed; ")
-                     + text)
-    shift = led.input_phase_disequilibrium
-    if shift is not None and shift.cells:
-        cells = ", ".join(str(c) for c in shift.cells_per_layer)
-        fr = ", ".join(f"{v:.3g}" for v in shift.would_freeze_kg_per_layer)
-        me = ", ".join(f"{v:.3g}" for v in shift.would_melt_kg_per_layer)
-        lines.append(f"input off the freezing curve ({'re-balanced' if shift.acted_on else 'reported, not acted on'}): "
-                     f"cells per layer [{cells}]; the equilibrium rule would freeze [{fr}] kg and melt [{me}] kg")
-    elif led.cells_not_in_phase_equilibrium_before:
-        lines.append(f"note: {led.cells_not_in_phase_equilibrium_before} region layer-cells were not in phase "
-                     "equilibrium before the change (left as they were outside the region)")
-    for key, said in led.notes.items():  # what was inferred or guessed: printed, not only stored
-        lines.append(f"inferred ({key}): {said}")
-    return "\n".join(lines)
-
-
 __all__ = ["check", "preview", "preview_members", "apply", "apply_ensemble", "perturb", "weights", "open_plan", "ledger_text",
-           "collate"]
+           "collate", "apply_tiles"]
