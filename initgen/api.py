@@ -387,9 +387,10 @@ def apply_tiles(recipe, inputs, outputs, layout=None, *, force: bool = False, al
     --------
     >>> records = initgen.api.apply_tiles("r.yaml", ["t1.nc", "t2.nc"], ["o/t1.nc", "o/t2.nc"])  # doctest: +SKIP
     """
-    pairs = [(Path(i), Path(o)) for i, o in zip(inputs, outputs)]
-    if len(pairs) != len(list(inputs)) or len(pairs) != len(list(outputs)):
-        raise InputError("--output: give one output per input tile")
+    inputs, outputs = [Path(i) for i in inputs], [Path(o) for o in outputs]
+    if len(inputs) != len(outputs):
+        raise InputError(f"--output: gives {len(outputs)} output(s) for {len(inputs)} input tile(s); give one per tile")
+    pairs = list(zip(inputs, outputs))
     for inp, _ in pairs:  # every tile, the whole plan read-only, before one is written
         preview(recipe, inp, layout, allow_outside_paths=allow_outside_paths)
     records, written = [], []

@@ -119,3 +119,10 @@ def test_a_tile_set_stopped_while_writing_leaves_nothing(tiled, capsys, monkeypa
     assert err.count("\n") == 1  # one line
     if fault is InputError:  # says what became of the tile already written
         assert "the 1 tile(s) written before it were removed" in err
+
+
+def test_apply_tiles_needs_one_output_per_tile(tiled):
+    work, tiles = tiled
+    with pytest.raises(InputError, match=r"gives 1 output\(s\) for 3 input tile\(s\)"):
+        api.apply_tiles(work / "r.yaml", tiles, [work / "out" / "one.nc"], work / "tiles.yaml")
+    assert list((work / "out").iterdir()) == []
