@@ -443,6 +443,9 @@ def _preview_markdown(rec, lay, input, grid, ledger, figures, captions, donors, 
     if ledger.cells_not_in_phase_equilibrium_before:
         L += ["", f"Note: {ledger.cells_not_in_phase_equilibrium_before} region layer-cells were not in phase "
                   "equilibrium before the change."]
+    if ledger.notes:  # every guess or inference, where the report is read (the HTML page has the same table)
+        L += ["", "## What initgen inferred", ""]
+        L += _md_table(["what", "how"], [[k.replace("_", " "), v] for k, v in ledger.notes.items()])
     L += ["", "## Persistence estimate", ""]
     est = ledger.persistence
     if est is None:

@@ -329,6 +329,10 @@ def test_preview_report_figures_markdown_and_no_stray_files(demo, tmp_path):
     assert f"{row0['area_weighted_mean']:.4g}" in api.ledger_text(led)
     assert f"| {row0['area_weighted_mean']:.4g} |" in md
     assert "energy" in md.lower() and "frozen_region_total_kg" in md
+    # every note of the ledger (what initgen inferred or guessed) stands in the report too
+    assert led["notes"] and "## What initgen inferred" in md
+    for key, said in led["notes"].items():
+        assert f"| {key.replace('_', ' ')} | {said} |" in md
 
 
 def test_cli_preview_writes_only_what_is_asked(demo, tmp_path):
