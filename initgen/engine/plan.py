@@ -216,9 +216,11 @@ def _check_no_undeclared_gaps(role, values, inside, store):
     odd = inside & np.isfinite(values) & ((values < lo) | (values > hi))
     if np.any(odd):
         v = float(values[odd].flat[0])
+        hint = ("declare it as _FillValue or fix the file" if role.units else
+                f"it has no units attribute and was read as K: if it holds degrees Celsius, give it units "
+                f"degC or set layout key units.{role.name}: degC; if these are fill values, declare _FillValue")
         raise InputError(f"{store.describe()}: variable '{role.variables[0]}' holds {v:.6g} K inside the region "
-                         f"({int(odd.sum())} value(s) outside {lo:g}..{hi:g} K), not a temperature; declare it as "
-                         "_FillValue or fix the file")
+                         f"({int(odd.sum())} value(s) outside {lo:g}..{hi:g} K), not a temperature; {hint}")
     if not np.any(inside & ~np.isfinite(values)):
         return
     attrs = role.views[0].info.attrs
